@@ -1,0 +1,1 @@
+"""One module per CLI command; see howl/cli.py for the contract (ORDER, register)."""

@@ -1,0 +1,57 @@
+"""The command line as a whole: light start-up, help everywhere, one-line errors."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+from typer.testing import CliRunner
+
+from howl.cli import app
+
+runner = CliRunner()
+
+
+def _loaded_modules(code: str) -> set[str]:
+    out = subprocess.run(
+        [sys.executable, "-c", code + "\nimport sys, json; print(json.dumps(sorted(sys.modules)))"],
+        capture_output=True, text=True, check=True,
+    )
+    return set(json.loads(out.stdout.strip().splitlines()[-1]))
+
+
+def test_importing_howl_loads_no_audio_or_plotting():
+    mods = _loaded_modules("import howl")
+    assert "sounddevice" not in mods
+    assert "matplotlib" not in mods
+
+
+def test_cli_help_loads_no_scipy_matplotlib_or_sounddevice():
+    mods = _loaded_modules(
+        "import sys; sys.argv=['howl','--help']\nimport howl.cli\n"
+        "try:\n    howl.cli.app()\nexcept SystemExit:\n    pass"
+    )
+    for heavy in ("scipy", "matplotlib", "sounddevice"):
+        assert heavy not in mods, heavy
+
+
+def test_every_command_has_help_and_is_in_the_readme(repo):
+    readme = (repo / "README.md").read_text(encoding="utf-8")
+    result = runner.invoke(app, ["--help"])
+    assert result.exit_code == 0
+    import typer.main
+
+    group = typer.main.get_command(app)
+    names = list(group.commands)
+    assert names, "no commands registered"
+    for name in names:
+        sub = runner.invoke(app, [name, "--help"])
+        assert sub.exit_code == 0, (name, sub.output)
+        assert f"howl {name}" in readme, f"command {name!r} missing from README"
+
+
+def test_version_is_printed():
+    result = runner.invoke(app, ["--version"])
+    assert result.exit_code == 0
+    assert "howl" in result.output
