@@ -1,0 +1,130 @@
+"""Random and mutated rig and room files: every one either loads or raises InputError.
+
+Property test (hypothesis): the loader never lets another exception through (no KeyError,
+TypeError, ZeroDivisionError, RecursionError...), whatever the file holds.
+"""
+
+from __future__ import annotations
+
+import copy
+import warnings
+
+import hypothesis.strategies as st
+from hypothesis import HealthCheck, given, settings
+
+from howl.errors import InputError
+from howl.rig import load_rig, load_room
+
+from test_rig import RIG, ROOM, dumps_toml
+
+SETTINGS = settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,
+                                                                              HealthCheck.too_slow])
+
+scalars = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(min_value=-10**6, max_value=10**6),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.sampled_from([0.0, -1.0, 1.0, 0.999999, 1.0000001, 1e300, -1e-300, 0.1, 20.0, 50.0, -20.0]),
+    st.text(max_size=12),
+    st.sampled_from(["cardioid", "omni", "left", "right", "lectern", "choir", "mains", "monitor", "room.toml",
+                     "plaster_on_masonry", "table", ""]),
+)
+values = st.recursive(
+    scalars.filter(lambda v: v is not None),
+    lambda inner: st.one_of(st.lists(inner, max_size=8), st.dictionaries(st.text(max_size=8), inner, max_size=4)),
+    max_leaves=12,
+)
+
+
+def _paths(node, prefix=()):
+    """Every path into a nested dict/list."""
+    yield prefix
+    if isinstance(node, dict):
+        for k, v in node.items():
+            yield from _paths(v, prefix + (k,))
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            yield from _paths(v, prefix + (i,))
+
+
+def _mutate(base: dict, data) -> dict:
+    doc = copy.deepcopy(base)
+    for _ in range(data.draw(st.integers(min_value=1, max_value=4))):
+        paths = [p for p in _paths(doc) if p]
+        if not paths:
+            break
+        path = data.draw(st.sampled_from(paths))
+        parent = doc
+        for k in path[:-1]:
+            parent = parent[k]
+        action = data.draw(st.sampled_from(["replace", "delete", "add", "duplicate"]))
+        key = path[-1]
+        if action == "replace":
+            parent[key] = data.draw(values)
+        elif action == "delete":
+            del parent[key]
+        elif action == "add" and isinstance(parent, dict):
+            parent[data.draw(st.text(min_size=1, max_size=10))] = data.draw(values)
+        elif action == "duplicate" and isinstance(parent, list):
+            parent.append(copy.deepcopy(parent[key]))
+    return doc
+
+
+def _folder(factory, name):
+    """One folder per test, reused by its examples (files are overwritten)."""
+    folder = factory.getbasetemp() / name
+    folder.mkdir(exist_ok=True)
+    return folder
+
+
+def _check(load, path):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            load(path)
+        except InputError as exc:
+            assert str(exc) and "\n" not in str(exc)
+
+
+@SETTINGS
+@given(data=st.data())
+def test_mutated_rig_files_load_or_raise_input_error(tmp_path_factory, data):
+    folder = _folder(tmp_path_factory, "fuzz_rig")
+    room = _mutate(ROOM, data) if data.draw(st.booleans()) else ROOM
+    (folder / "room.toml").write_text(dumps_toml(room), encoding="utf-8")
+    rig = _mutate(RIG, data)
+    p = folder / "rig.toml"
+    p.write_text(dumps_toml(rig), encoding="utf-8")
+    _check(load_rig, p)
+
+
+@SETTINGS
+@given(data=st.data())
+def test_garbled_rig_text_loads_or_raises_input_error(tmp_path_factory, data):
+    folder = _folder(tmp_path_factory, "fuzz_text")
+    (folder / "room.toml").write_text(dumps_toml(ROOM), encoding="utf-8")
+    text = bytearray(dumps_toml(RIG).encode())
+    for _ in range(data.draw(st.integers(min_value=1, max_value=5))):
+        i = data.draw(st.integers(min_value=0, max_value=len(text) - 1))
+        op = data.draw(st.sampled_from(["flip", "delete", "insert"]))
+        if op == "flip":
+            text[i] = data.draw(st.integers(min_value=0, max_value=255))
+        elif op == "delete":
+            del text[i]
+        else:
+            text[i:i] = data.draw(st.sampled_from([b"=", b"[", b"]", b"\n", b'"', b",", b"nan", b"inf", b"-", b"{"]))
+    p = folder / "rig.toml"
+    p.write_bytes(bytes(text))
+    _check(load_rig, p)
+
+
+@settings(max_examples=100, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(doc=st.dictionaries(st.sampled_from(["name", "shoebox", "surfaces", "free_shape", "materials",
+                                            "temperature_c", "humidity_pct", "x"]), values, max_size=6))
+def test_random_room_files_load_or_raise_input_error(tmp_path_factory, doc):
+    folder = _folder(tmp_path_factory, "fuzz_room")
+    p = folder / "room.toml"
+    p.write_text(dumps_toml(doc), encoding="utf-8")
+    _check(load_room, p)
