@@ -108,7 +108,7 @@ MIC_HF_LEAK_CORNER_HZ = 8000.0
 SPEAKER_REAR_FLOOR_DB = -20.0
 
 _LOG_OCT = np.log(np.asarray(OCTAVE_BANDS_HZ))
-_GL_U, _GL_W = np.polynomial.legendre.leggauss(96)  # nodes in cos θ for the REE integral
+_GL_U, _GL_W = np.polynomial.legendre.leggauss(48)  # nodes in cos θ for the REE integral
 
 
 # ======================================================================================== helpers ====
@@ -256,15 +256,18 @@ def mic_gain(mic: Mic, directions, freq_hz, *, ideal: bool = False) -> np.ndarra
     return mic_pattern_gain(_mic_a(mic), u, freq_hz, ideal=ideal)
 
 
-def pattern_ree(a, freq_hz, *, ideal: bool = False) -> np.ndarray:
+def pattern_ree(a, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0) -> np.ndarray:
     """Random-energy efficiency ½∫ g(θ, f)² sin θ dθ of the (frequency-dependent) pattern, (..., F).
 
-    Integrated numerically (96-point Gauss-Legendre in cos θ; exact for the
-    ideal first-order patterns, whose square is a quadratic in cos θ).
+    Integrated numerically (48-point Gauss-Legendre in cos θ; exact for the
+    ideal first-order patterns, whose square is a quadratic in cos θ). Each
+    distinct coefficient is integrated once.
     """
     a = np.asarray(a, dtype=float)
-    g = mic_pattern_gain(a[..., None], _GL_U, freq_hz, ideal=ideal)  # (..., 96, F)
-    return 0.5 * np.einsum("k,...kf->...f", _GL_W, g * g)
+    uniq, inv = np.unique(a.ravel(), return_inverse=True)
+    g = mic_pattern_gain(uniq[:, None], _GL_U, freq_hz, ideal=ideal, temperature_c=temperature_c)  # (U, 48, F)
+    ree_u = 0.5 * np.einsum("k,ukf->uf", _GL_W, g * g)
+    return ree_u[inv].reshape(a.shape + (ree_u.shape[-1],))
 
 
 def mic_random_energy_efficiency(mic: Mic, freq_hz, *, ideal: bool = False) -> np.ndarray:

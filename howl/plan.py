@@ -141,15 +141,20 @@ def spectral_radius(p: np.ndarray) -> np.ndarray:
 
 
 def perron_vectors(p: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Perron root and its right and left eigenvectors (non-negative), for a stack (F, M, M)."""
+    """Perron root and its right and left eigenvectors (non-negative), for a stack (F, M, M).
+
+    One eigendecomposition P = V·Λ·V⁻¹: the left eigenvectors are the rows of V⁻¹.
+    """
     w, v = np.linalg.eig(p)
     k = np.argmax(np.abs(w), axis=-1)
     idx = np.arange(p.shape[0])
     rho = np.abs(w[idx, k])
     right = np.abs(np.real(v[idx, :, k]))
-    wl, vl = np.linalg.eig(np.swapaxes(p, -1, -2))
-    kl = np.argmax(np.abs(wl), axis=-1)
-    left = np.abs(np.real(vl[idx, :, kl]))
+    try:
+        left = np.abs(np.real(np.linalg.inv(v)[idx, k, :]))
+    except np.linalg.LinAlgError:  # defective (not diagonalisable) somewhere: fall back to the transpose
+        wl, vl = np.linalg.eig(np.swapaxes(p, -1, -2))
+        left = np.abs(np.real(vl[idx, :, np.argmax(np.abs(wl), axis=-1)]))
     return rho, right, left
 
 
@@ -234,8 +239,8 @@ def _peak_tables():
     x = x0[..., None] + (top - x0)[..., None] * t  # (N, K, 65)
     surv = 1.0 - chndtr(2.0 * x, 2.0, 2.0 * k[..., None]) ** n[..., None]
     mean = (x0 * (1.0 - 0.5e-3) + simpson(surv, x=x, axis=-1)) / (1.0 + k)
-    tabs = [10.0 * np.log10(np.maximum(v, 1e-12)) for v in (mean, q_lo, q_hi)]
-    return tuple(RegularGridInterpolator((_LOGN, _LOGK), tb, bounds_error=False, fill_value=None) for tb in tabs)
+    tabs = np.stack([10.0 * np.log10(np.maximum(v, 1e-12)) for v in (mean, q_lo, q_hi)], axis=-1)  # (N, K, 3)
+    return RegularGridInterpolator((_LOGN, _LOGK), tabs, bounds_error=False, fill_value=None)
 
 
 def peak_factor_db(bandwidth_hz, rt60_s, k_factor=0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -249,10 +254,9 @@ def peak_factor_db(bandwidth_hz, rt60_s, k_factor=0.0) -> tuple[np.ndarray, np.n
     k = np.nan_to_num(np.asarray(k_factor, float), nan=0.0, posinf=1e3)
     b = np.broadcast_arrays(np.log10(n), np.log10(np.clip(k, 0.0, 1e3) + 1e-3))
     pts = np.stack([np.clip(b[0], _LOGN[0], _LOGN[-1]), np.clip(b[1], _LOGK[0], _LOGK[-1])], axis=-1)
-    mean_t, lo_t, hi_t = _peak_tables()
+    vals = _peak_tables()(pts.reshape(-1, 2))  # (P, 3): mean, 10 %, 90 %
     shape = b[0].shape
-    flat = pts.reshape(-1, 2)
-    return tuple(t(flat).reshape(shape) for t in (mean_t, lo_t, hi_t))
+    return tuple(vals[:, j].reshape(shape) for j in range(3))
 
 
 # ==================================================================================== results ====
@@ -466,7 +470,7 @@ def _plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_
     mic_objs = [rig.mics[k] for k in act]
     a_coef = np.array([_dir._mic_a(mc) for mc in mic_objs])
     sens2 = (10.0 ** (np.array([mc.sensitivity_dbv_pa for mc in mic_objs]) / 20.0)) ** 2
-    ree = _dir.pattern_ree(a_coef, freqs, ideal=ideal_mics)  # (M, F)
+    ree = tr.mic_ree[act] if tr.mic_ree is not None else _dir.pattern_ree(a_coef, freqs, ideal=ideal_mics)  # (M, F)
     nom = int(m)
     mpos = np.array([mc.position_m for mc in mic_objs], float)
     axes = np.array([_dir.aim_vector(mc.azimuth_rad, mc.elevation_rad) for mc in mic_objs], float)
@@ -586,7 +590,12 @@ def _num(x, nd=2):
 
 
 def _arr(a, nd=2):
-    return [_num(v, nd) for v in np.asarray(a, float)]
+    v = np.round(np.asarray(a, float), nd)
+    ok = np.isfinite(v)
+    out = v.tolist()
+    if not ok.all():
+        out = [x if good else None for x, good in zip(out, ok.tolist())]
+    return out
 
 
 def band_labels(result: PlanResult) -> list[str]:

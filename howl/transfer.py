@@ -93,6 +93,7 @@ class BandTransfer:
     distance_m: np.ndarray
     room_constant_m2: np.ndarray
     rt60_s: np.ndarray
+    mic_ree: np.ndarray | None = None  # (n_mics, F) random-energy efficiency used for the reverberant part
 
     @property
     def power(self) -> np.ndarray:
@@ -174,7 +175,7 @@ def statistical_transfer(rig: Rig, freq_hz, acoustics=None, *, ideal_mics: bool 
     cos_m = -np.einsum("smk,mk->sm", u, axes)
     temp = float(getattr(rig.room, "temperature_c", 20.0))
     gm = _dir.mic_pattern_gain(np.broadcast_to(a, cos_m.shape), cos_m, f, ideal=ideal_mics, temperature_c=temp)
-    ree = _dir.pattern_ree(a, f, ideal=ideal_mics)  # (M, F)
+    ree = _dir.pattern_ree(a, f, ideal=ideal_mics, temperature_c=temp)  # (M, F)
     sens2 = (10.0 ** (np.array([m.sensitivity_dbv_pa for m in mics], float) / 20.0)) ** 2  # V²/Pa²
     direct = sens2[None, :, None] * direct_p * gm * gm
     reverb = sens2[None, :, None] * reverb_p[:, None, :] * ree[None, :, :]
@@ -188,6 +189,7 @@ def statistical_transfer(rig: Rig, freq_hz, acoustics=None, *, ideal_mics: bool 
         distance_m=r,
         room_constant_m2=effective_room_constant_m2(acoustics),
         rt60_s=rt,
+        mic_ree=ree,
     )
 
 
