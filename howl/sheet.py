@@ -1,0 +1,1443 @@
+"""The gain-margin sheet: one printable page (or a few) per rig for the desk.
+
+Two halves:
+
+* **building** (:func:`build_sheet_data`): gathers numbers that other modules
+  computed — the planner's JSON object (``howl.plan.plan_to_json``, the same
+  object ``howl plan --json`` prints), the loop analysis of measured IRs
+  (``howl.loop.nyquist_margin``) and the virtual ring-out
+  (``howl.ringout.ring_out``) — into one frozen :class:`SheetData`. Nothing
+  here recomputes a planner or loop number; the sheet only *combines* them
+  with two stated rules (the measured "don't go past" mark and the verdict
+  words for a measured loop, see :func:`measured_mark_db`).
+* **rendering** (:func:`render_sheet`): draws a :class:`SheetData` with the
+  ``matplotlib.figure.Figure`` API (no pyplot state; matplotlib is imported
+  inside the functions) to PDF (TrueType fonts embedded: ``pdf.fonttype`` 42,
+  set in a local ``rc_context``) or PNG. A4 and US Letter. Black-and-white
+  printable: nothing is told by colour alone (line styles, markers, boxes and
+  words carry the meaning).
+
+The measured-session folder (``session.json`` with ``pairs``, each naming a
+speaker, a mic and an ``ir_file`` relative to the folder) is read by
+:func:`read_session`.
+
+References
+----------
+.. [1] NIOSH, *Criteria for a Recommended Standard: Occupational Noise
+   Exposure*, revised criteria 1998, DHHS (NIOSH) Publication No. 98-126:
+   REL 85 dB(A) as an 8-hour TWA, 3 dB exchange rate.
+.. [2] Directive 2003/10/EC of the European Parliament and of the Council
+   (noise at work), Art. 3: lower/upper exposure action values 80/85 dB(A)
+   L_EX,8h, exposure limit value 87 dB(A).
+.. [3] World Health Organization, *WHO global standard for safe listening
+   venues and events*, 2022: audience level at most 100 dB L_Aeq over 15 min.
+.. [4] T. van Waterschoot and M. Moonen, "Fifty years of acoustic feedback
+   control: state of the art and future challenges", Proc. IEEE 99(2), 2011
+   (maximum stable gain, added stable gain, the Nyquist stability condition).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Sequence
+
+from .errors import InputError
+
+# ----------------------------------------------------------------------------
+# Paper
+# ----------------------------------------------------------------------------
+
+#: Paper sizes in PostScript points (1/72 in): ISO 216 A4 is 210 × 297 mm,
+#: US Letter 8.5 × 11 in.
+PAPER_PT: dict[str, tuple[float, float]] = {
+    "a4": (210.0 / 25.4 * 72.0, 297.0 / 25.4 * 72.0),
+    "letter": (8.5 * 72.0, 11.0 * 72.0),
+}
+
+MINUS = "\u2212"  # typographic minus sign on the page
+
+# ----------------------------------------------------------------------------
+# Data model
+# ----------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MicLine:
+    """One microphone as the planner sees it (numbers from ``plan_to_json``)."""
+
+    name: str
+    pattern: str
+    position_m: tuple[float, float, float]
+    is_open: bool
+    pag_db: float | None
+    nag_db: float | None
+    margin_db: float | None
+    margin_spread_db: tuple[float, float] | None  # (low, high) of the margin
+    max_channel_gain_db: float | None  # the planned "don't go past" mark
+    limiting_band_hz: float | None  # the band that rings first
+    verdict: str | None
+    davis_pag_db: float | None = None
+    davis_nag_db: float | None = None
+
+
+@dataclass(frozen=True)
+class MeasuredLine:
+    """One measured loop (speaker → mic) with its Nyquist analysis."""
+
+    speaker: str
+    mic: str
+    ir_file: str
+    gain_margin_db: float  # phase-aware (Nyquist)
+    magnitude_margin_db: float  # phase-blind
+    howl_freq_hz: float
+    max_channel_gain_db: float  # the measured "don't go past" mark
+    verdict: str
+
+    @property
+    def label(self) -> str:
+        return f"{self.speaker} \u2192 {self.mic}"
+
+
+@dataclass(frozen=True)
+class Curve:
+    """A loop-gain curve for one panel.
+
+    ``kind`` is ``"planned"`` (per-band worst-peak loop gain from the planner,
+    drawn as steps) or ``"measured"`` (|H| of a measured loop IR).
+    ``marks`` are (freq_hz, level_db, text) points to flag (worst crossings).
+    """
+
+    panel: str  # the mic the curve belongs to
+    label: str
+    kind: str
+    freq_hz: tuple[float, ...]
+    loop_gain_db: tuple[float, ...]
+    marks: tuple[tuple[float, float, str], ...] = ()
+
+
+@dataclass(frozen=True)
+class Cut:
+    """One cut in console terms; ``gain_db`` None is a full notch."""
+
+    freq_hz: float
+    gain_db: float | None
+    q: float
+    bandwidth_oct: float
+
+
+@dataclass(frozen=True)
+class CutSet:
+    """The cuts for one loop and the stable gain they buy."""
+
+    loop: str
+    source: str  # "ring-out" or "listen"
+    cuts: tuple[Cut, ...]
+    added_stable_gain_db: float | None
+    margin_before_db: float | None
+    margin_after_db: float | None
+    stopped_because: str = ""
+    advice: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class MapItem:
+    kind: str  # "speaker" | "mic" | "listener" | "talker"
+    name: str
+    x_m: float
+    y_m: float
+    azimuth_rad: float | None = None
+
+
+@dataclass(frozen=True)
+class PlacementMap:
+    """Plan view (x along the length, y along the width)."""
+
+    outline_m: tuple[float, float] | None  # (length, width) of a shoebox room, else None
+    items: tuple[MapItem, ...]
+
+
+@dataclass(frozen=True)
+class SheetData:
+    """Everything the page shows, already computed."""
+
+    rig_name: str
+    room_name: str
+    date: str  # ISO date the sheet was made
+    fsm_db: float
+    basis: str  # "planned", "measured" or "planned+measured"
+    basis_words: str
+    measured_date: str | None
+    mics: tuple[MicLine, ...]
+    measured: tuple[MeasuredLine, ...] = ()
+    curves: tuple[Curve, ...] = ()
+    cut_sets: tuple[CutSet, ...] = ()
+    placement: PlacementMap | None = None
+    cautions: tuple[tuple[str, str], ...] = ()  # (heading, text)
+    notes: tuple[str, ...] = ()
+    rig_file: str | None = None
+    measured_settings_db: tuple[tuple[str, float], ...] = ()  # reference gains typed in at the measurement
+
+    def to_json(self) -> dict:
+        """The sheet's numbers as a JSON-ready dict (``howl sheet --json``)."""
+        from .fileio import to_jsonable
+
+        d = to_jsonable(self)
+        d["measured"] = [dict(to_jsonable(m), label=m.label) for m in self.measured]
+        return d
+
+
+# ----------------------------------------------------------------------------
+# Rules of the sheet (the only numbers it forms itself)
+# ----------------------------------------------------------------------------
+
+
+def measured_mark_db(gain_margin_db: float, magnitude_margin_db: float, fsm_db: float) -> float:
+    """The "don't go past" channel-gain change for a measured loop, in dB.
+
+    The lower of two limits:
+
+    * the phase-aware (Nyquist) margin less the feedback stability margin
+      FSM: the fader stays FSM below the gain at which the frozen loop
+      would howl [4]_;
+    * the phase-blind margin −20·log10 max|H|: the gain at which the loudest
+      peak of |H| would reach unity if the room's phase moved onto it (air
+      temperature, people moving). A rise above it is a bet on the phase.
+
+    Positive: the channel may rise that far above the measured settings;
+    negative: bring it down at least that far.
+    """
+    return min(gain_margin_db - fsm_db, magnitude_margin_db)
+
+
+def measured_verdict(gain_margin_db: float, magnitude_margin_db: float, fsm_db: float) -> str:
+    """Verdict words for a measured loop at its measured settings.
+
+    ``"will howl"`` when the phase-aware margin is ≤ 0 dB (the loop is
+    unstable as measured), ``"marginal"`` when it is stable but the
+    "don't go past" mark (:func:`measured_mark_db`) is below 0 dB, else
+    ``"stable"``.
+    """
+    if gain_margin_db <= 0.0:
+        return "will howl"
+    if measured_mark_db(gain_margin_db, magnitude_margin_db, fsm_db) < 0.0:
+        return "marginal"
+    return "stable"
+
+
+# ----------------------------------------------------------------------------
+# Reading a measured session
+# ----------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SessionPair:
+    speaker: str
+    mic: str
+    ir_file: str  # as written in session.json (relative)
+    ir: Any  # numpy array
+    sample_rate_hz: int
+
+
+@dataclass(frozen=True)
+class Session:
+    folder: str
+    date: str | None
+    pairs: tuple[SessionPair, ...]
+    meta: dict = field(default_factory=dict)
+
+
+def read_session(folder: str | os.PathLike) -> Session:
+    """Read a measurement session folder: ``session.json`` and its IR WAVs.
+
+    ``session.json`` holds ``pairs``: a list of objects with at least
+    ``speaker``, ``mic`` and ``ir_file`` (relative to the folder); a ``date``
+    (ISO text) if present is taken as the measurement date, else the file's
+    modification date.
+    """
+    from .fileio import read_wav
+
+    folder_p = Path(folder)
+    name = str(folder)
+    if not folder_p.is_dir():
+        raise InputError("is not a folder; expected a measurement session folder holding session.json", key="--measured", file=name)
+    meta_p = folder_p / "session.json"
+    if not meta_p.is_file():
+        raise InputError("holds no session.json; expected a folder written by howl measure", key="--measured", file=name)
+    try:
+        meta = json.loads(meta_p.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"cannot be read as JSON ({exc})", file=str(meta_p)) from None
+    if not isinstance(meta, dict):
+        raise InputError("must hold a JSON object", file=str(meta_p))
+    raw_pairs = meta.get("pairs")
+    if not isinstance(raw_pairs, list) or not raw_pairs:
+        raise InputError("must be a non-empty list of {speaker, mic, ir_file}", file=str(meta_p), key="pairs")
+    import warnings
+
+    from .errors import HowlWarning
+
+    pairs = []
+    for i, p in enumerate(raw_pairs):
+        key = f"pairs[{i}]"
+        if not isinstance(p, dict):
+            raise InputError("must be an object {speaker, mic, ir_file}", file=str(meta_p), key=key)
+        status = p.get("status", "ok")
+        if status != "ok" or not p.get("ir_file"):
+            warnings.warn(
+                f"{meta_p}: {key} ({p.get('speaker')} -> {p.get('mic')}) has status {status!r} and no usable IR; left off the sheet",
+                HowlWarning,
+            )
+            continue
+        for k in ("speaker", "mic", "ir_file"):
+            if not isinstance(p.get(k), str) or not p.get(k).strip():
+                raise InputError(f"must be a non-empty string, got {p.get(k)!r}", file=str(meta_p), key=f"{key}.{k}")
+        ir_rel = p["ir_file"]
+        ir, fs = read_wav(folder_p / ir_rel)
+        pairs.append(SessionPair(p["speaker"], p["mic"], ir_rel, ir, fs))
+    if not pairs:
+        raise InputError("holds no pair with a usable IR (status 'ok' and an ir_file)", file=str(meta_p), key="pairs")
+    date = meta.get("date") or meta.get("created_utc") or meta.get("created")
+    if isinstance(date, str) and len(date.strip()) >= 10:
+        date = date.strip()[:10]
+    else:
+        date = _dt.date.fromtimestamp(meta_p.stat().st_mtime).isoformat()
+    return Session(folder=name, date=date, pairs=tuple(pairs), meta=meta)
+
+
+def check_session(session: Session, rig) -> None:
+    """Refuse a session whose pairs name a mic the rig does not have."""
+    mic_names = {m.name for m in rig.mics}
+    for i, pair in enumerate(session.pairs):
+        if pair.mic not in mic_names:
+            raise InputError(
+                f"names mic {pair.mic!r}, which the rig does not have (mics: {', '.join(sorted(mic_names))})",
+                file=os.path.join(session.folder, "session.json"),
+                key=f"pairs[{i}].mic",
+            )
+
+
+# ----------------------------------------------------------------------------
+# Building the sheet data
+# ----------------------------------------------------------------------------
+
+
+def _f(x: Any) -> float | None:
+    if x is None:
+        return None
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+def _pair(x: Any) -> tuple[float, float] | None:
+    if isinstance(x, (list, tuple)) and len(x) == 2:
+        a, b = _f(x[0]), _f(x[1])
+        if a is not None and b is not None:
+            return (a, b)
+    return None
+
+
+def _plan_mic_curves(plan_json: dict, m: dict) -> dict[str, tuple[tuple[float, ...], tuple[float, ...]]]:
+    """Per-band curves of one mic from the plan JSON: ``worst_peak`` and ``average``.
+
+    ``bands_hz`` (top level) gives the band centres; each mic object carries
+    ``worst_peak_loop_gain_db`` (the band's expected highest peak, what the
+    PAG and the channel limit rest on) and ``loop_gain_db`` (band average),
+    both at the rig's stated settings.
+    """
+    centres = plan_json.get("bands_hz")
+    out = {}
+    if not isinstance(centres, list):
+        return out
+    for key, name in (("worst_peak_loop_gain_db", "worst_peak"), ("loop_gain_db", "average")):
+        gains = m.get(key)
+        if not isinstance(gains, list) or len(gains) != len(centres):
+            continue
+        pts = [(_f(c), _f(g)) for c, g in zip(centres, gains)]
+        pts = [(c, g) for c, g in pts if c is not None and g is not None and c > 0]
+        if pts:
+            out[name] = (tuple(p[0] for p in pts), tuple(p[1] for p in pts))
+    return out
+
+
+def _mic_lines(rig, plan_json: dict | None) -> tuple[list[MicLine], list[Curve]]:
+    by_name = {}
+    muted, unrouted = set(), set()
+    if plan_json is not None:
+        for m in plan_json.get("mics", []):
+            by_name[m.get("name")] = m
+        muted = set(plan_json.get("muted_mics", []) or [])
+        unrouted = set(plan_json.get("unrouted_mics", []) or [])
+    lines, curves = [], []
+    for mic in rig.mics:
+        m = by_name.get(mic.name, {})
+        pag, nag = _f(m.get("pag_db")), _f(m.get("nag_db"))
+        spread = _pair(m.get("margin_spread_db"))
+        if m:
+            verdict = m.get("verdict")
+        elif mic.name in muted or not mic.open:
+            verdict = "muted"
+        elif mic.name in unrouted:
+            verdict = "not routed"
+        else:
+            verdict = None
+        ring = _f(m.get("limiting_channel_band_hz"))
+        if ring is None:
+            ring = _f(m.get("limiting_band_hz"))
+        lines.append(
+            MicLine(
+                name=mic.name,
+                pattern=mic.pattern,
+                position_m=tuple(float(v) for v in mic.position_m),
+                is_open=bool(mic.open),
+                pag_db=pag,
+                nag_db=nag,
+                margin_db=_f(m.get("margin_db")),
+                margin_spread_db=spread,
+                max_channel_gain_db=_f(m.get("max_channel_gain_db")),
+                limiting_band_hz=ring,
+                verdict=verdict,
+                davis_pag_db=_f(m.get("davis_pag_db")),
+                davis_nag_db=_f(m.get("davis_nag_db")),
+            )
+        )
+        cs = _plan_mic_curves(plan_json, m) if (plan_json is not None and m) else {}
+        if "worst_peak" in cs:
+            f, g = cs["worst_peak"]
+            k = max(range(len(g)), key=lambda i: g[i])
+            curves.append(Curve(mic.name, "planned, band worst peak", "planned", f, g, ((f[k], g[k], "rings first"),)))
+        if "average" in cs:
+            f, g = cs["average"]
+            curves.append(Curve(mic.name, "planned, band average", "planned-average", f, g))
+    return lines, curves
+
+
+def _measured_curve(pair: SessionPair, margin, label: str) -> Curve:
+    """|H| of a measured loop for plotting (LOOP's DTFT), thinned for the page.
+
+    The loop response comes from ``howl.loop.loop_response``. For the page
+    it is reduced to the maximum over ~600 log-spaced slices, which keeps
+    every peak a tech has to see and drops the detail no printer can show.
+    """
+    import numpy as np
+
+    from .loop import loop_response
+
+    f, h = loop_response(pair.ir, pair.sample_rate_hz)
+    f = np.asarray(f, dtype=float)
+    mag_db = 20.0 * np.log10(np.maximum(np.abs(h), 1e-12))
+    lo, hi = getattr(margin, "band_hz", None) or (20.0, pair.sample_rate_hz / 2)
+    lo = max(float(lo), 20.0, f[1] if f.size > 1 else 20.0)
+    hi = min(float(hi), float(f[-1]))
+    edges = np.geomspace(lo, hi, 601)
+    idx = np.searchsorted(f, edges)
+    ff, gg = [], []
+    for a, b in zip(idx[:-1], idx[1:]):
+        if b > a:
+            j = a + int(np.argmax(mag_db[a:b]))
+            ff.append(float(f[j]))
+            gg.append(float(mag_db[j]))
+    marks = []
+    hz = _f(margin.howl_freq_hz)
+    if hz is not None:
+        marks.append((hz, -float(margin.gain_margin_db), "howls first"))
+    return Curve(panel=pair.mic, label=label, kind="measured", freq_hz=tuple(ff), loop_gain_db=tuple(gg), marks=tuple(marks))
+
+
+def cut_set_from_ringout(loop: str, result) -> CutSet:
+    """Turn a ``howl.ringout.RingOutResult`` into a :class:`CutSet`."""
+    cuts = []
+    for n in result.notches:
+        bw = getattr(n, "bandwidth_oct", None)
+        cuts.append(Cut(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(bw)))
+    advice = getattr(result, "advice", ()) or ()
+    if isinstance(advice, str):
+        advice = (advice,)
+    return CutSet(
+        loop=loop,
+        source="ring-out",
+        cuts=tuple(cuts),
+        added_stable_gain_db=_f(result.added_stable_gain_db),
+        margin_before_db=_f(result.gain_margin_db_before),
+        margin_after_db=_f(result.gain_margin_db_after),
+        stopped_because=str(getattr(result, "stopped_because", "") or ""),
+        advice=tuple(str(a) for a in advice),
+    )
+
+
+def placement_from_rig(rig) -> PlacementMap:
+    items = []
+    for s in rig.speakers:
+        items.append(MapItem("speaker", s.name, s.position_m[0], s.position_m[1], s.azimuth_rad))
+    for m in rig.mics:
+        items.append(MapItem("mic", m.name, m.position_m[0], m.position_m[1], m.azimuth_rad))
+    for t in rig.talkers:
+        items.append(MapItem("talker", t.name, t.position_m[0], t.position_m[1]))
+    for l in rig.listeners:
+        items.append(MapItem("listener", l.name, l.position_m[0], l.position_m[1]))
+    outline = None
+    if rig.room.dimensions_m is not None:
+        outline = (float(rig.room.dimensions_m[0]), float(rig.room.dimensions_m[1]))
+    return PlacementMap(outline_m=outline, items=tuple(items))
+
+
+def default_cautions(fsm_db: float) -> tuple[tuple[str, str], ...]:
+    """The cautions box, with the sources of its figures ([1]_, [2]_, [3]_)."""
+    return (
+        (
+            "Hearing",
+            "A howl or a ring-out can go far above show level within a second. Crew: NIOSH REL "
+            "85 dB(A) over 8 h, 3 dB exchange rate, so 100 dB(A) is a full day's dose in 15 min "
+            "(DHHS (NIOSH) Publ. 98-126, 1998); in the EU, Directive 2003/10/EC action values "
+            "80 and 85 dB(A) L_EX,8h, limit 87 dB(A). Audience: at most 100 dB L_Aeq over 15 min "
+            "(WHO global standard for safe listening venues and events, 2022). Wear hearing "
+            "protection while ringing out and warn everyone in the room first.",
+        ),
+        (
+            "Loudspeakers",
+            "A sustained howl drives one frequency at full power: tweeters and compression drivers "
+            "fail first. Keep limiters and protection in, raise faders in small steps, keep a hand "
+            "on the master.",
+        ),
+        (
+            "Scope",
+            "This sheet is an estimate. Local codes, venue rules and licensed practice come first. "
+            "Emergency and voice-alarm systems are outside its scope.",
+        ),
+    )
+
+
+def default_notes(data_basis: str, fsm_db: float, plan_json: dict | None, has_cuts: bool) -> tuple[str, ...]:
+    notes = []
+    if "planned" in data_basis:
+        method = (plan_json or {}).get("method", "statistical")
+        notes.append(
+            f"Planned ({method} model of the room, per band): PAG = acoustic gain at the farthest listener "
+            f"with the loop gain's expected worst peak at -FSM ({_num(fsm_db, sign=False)} dB); NAG = gain needed, "
+            "from the equivalent acoustic distance; margin = PAG - NAG in the limiting band, spread = the "
+            "planner's low-high range; Davis = the classic distance-only free-field figures. DON'T GO PAST = "
+            "the channel-gain change, relative to the rig file's settings, that keeps the loop FSM below unity. "
+            "RINGS FIRST = the band whose worst peak reaches unity first."
+        )
+        assumed = [str(a).rstrip(".") for a in (plan_json or {}).get("assumptions", []) or []]
+        if assumed:
+            notes.append("Planner's assumptions: " + "; ".join(assumed) + ".")
+    if "measured" in data_basis:
+        notes.append(
+            "Measured: loop IRs at the settings in force during the measurement. Phase-aware margin = "
+            "-20 log10 of the largest positive real-axis crossing of the loop response (Nyquist); it says "
+            "where the loop howls today. Phase-blind margin = -20 log10 max|H|; it holds if the room's phase "
+            "drifts (warmer air, people moving) onto the highest peak. Both are shown because the first is "
+            "exact but fragile and the second is safe but pessimistic. Measured DON'T GO PAST = the lower of "
+            "(phase-aware - FSM) and (phase-blind); where a mic has planned and measured marks, the measured "
+            "one is printed large."
+        )
+    if has_cuts:
+        notes.append(
+            "Cuts: RBJ Audio EQ Cookbook peaking cuts (a blank gain = full notch); Q as the cookbook defines "
+            "it for that filter type, width in octaves. ASG = the rise in phase-aware margin with the cuts in "
+            "the loop (margin after - margin before)."
+        )
+    notes.append(
+        "Assumed: the rig file's positions, aims, patterns and mix gains; air at the room file's temperature; "
+        "a measured IR is one loudspeaker-to-mic loop at the settings of its measurement (loops of other open "
+        "mics and loudspeakers add to it). Positions in metres from the room corner (x along the length, y across)."
+    )
+    return tuple(notes)
+
+
+def build_sheet_data(
+    rig,
+    *,
+    plan_json: dict | None = None,
+    session: Session | None = None,
+    margins: Sequence | None = None,
+    ringouts: Sequence | None = None,
+    date: str | None = None,
+) -> SheetData:
+    """Assemble the sheet from the planner's JSON and measured analyses.
+
+    Parameters
+    ----------
+    rig: a ``howl.rig.Rig``.
+    plan_json: ``howl.plan.plan_to_json(plan_rig(rig))`` or None.
+    session: a :class:`Session` from :func:`read_session` or None.
+    margins: one ``howl.loop.MarginResult`` per session pair (same order).
+    ringouts: one ``howl.ringout.RingOutResult`` per session pair, or None.
+    date: the sheet's date (ISO); today by default.
+    """
+    if plan_json is None and session is None:
+        raise InputError("nothing to print: need a plan or a measured session", key="sheet")
+    fsm = float(rig.fsm_db)
+    lines, curves = _mic_lines(rig, plan_json)
+    measured = []
+    if session is not None:
+        if margins is None or len(margins) != len(session.pairs):
+            raise InputError("need one margin result per measured pair", key="margins")
+        check_session(session, rig)
+        for pair, mr in zip(session.pairs, margins):
+            gm = float(mr.gain_margin_db)
+            mm = float(mr.magnitude_margin_db)
+            measured.append(
+                MeasuredLine(
+                    speaker=pair.speaker,
+                    mic=pair.mic,
+                    ir_file=pair.ir_file,
+                    gain_margin_db=gm,
+                    magnitude_margin_db=mm,
+                    howl_freq_hz=float(mr.howl_freq_hz),
+                    max_channel_gain_db=measured_mark_db(gm, mm, fsm),
+                    verdict=measured_verdict(gm, mm, fsm),
+                )
+            )
+            curves.append(_measured_curve(pair, mr, f"measured via {pair.speaker}"))
+    cut_sets = []
+    if ringouts is not None and session is not None:
+        for pair, ro in zip(session.pairs, ringouts):
+            cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro))
+    if plan_json is not None and session is not None:
+        basis = "planned+measured"
+        words = f"PLANNED from the room model + MEASURED {session.date}"
+    elif session is not None:
+        basis = "measured"
+        words = f"MEASURED {session.date}"
+    else:
+        basis = "planned"
+        words = "PLANNED from the room model (not measured)"
+    return SheetData(
+        rig_name=rig.name,
+        room_name=rig.room.name,
+        date=date or _dt.date.today().isoformat(),
+        fsm_db=fsm,
+        basis=basis,
+        basis_words=words,
+        measured_date=None if session is None else session.date,
+        mics=tuple(lines),
+        measured=tuple(measured),
+        curves=tuple(curves),
+        cut_sets=tuple(cut_sets),
+        placement=placement_from_rig(rig),
+        cautions=default_cautions(fsm),
+        notes=default_notes(basis, fsm, plan_json, bool(cut_sets)),
+        rig_file=rig.source_file,
+        measured_settings_db=_settings(session),
+    )
+
+
+def _settings(session: Session | None) -> tuple[tuple[str, float], ...]:
+    if session is None:
+        return ()
+    raw = session.meta.get("reference_gain_settings_db") or {}
+    out = []
+    if isinstance(raw, dict):
+        for k, v in raw.items():
+            fv = _f(v)
+            if fv is not None:
+                out.append((str(k), fv))
+    return tuple(out)
+
+
+# ----------------------------------------------------------------------------
+# Number formats (one place, so the page and the tests agree on rounding)
+# ----------------------------------------------------------------------------
+
+
+def _num(x: float | None, digits: int = 1, sign: bool = True) -> str:
+    """dB value with one decimal, a typographic minus and (optionally) a plus."""
+    if x is None or not math.isfinite(x):
+        return "\u2013"
+    s = f"{x:+.{digits}f}" if sign else f"{x:.{digits}f}"
+    if s.lstrip("+-").strip("0.") == "":  # -0.0 → 0.0
+        s = f"{0.0:+.{digits}f}" if sign else f"{0.0:.{digits}f}"
+    return s.replace("-", MINUS)
+
+
+def _hz(freq_hz: float | None, exact: bool = False) -> str:
+    """A frequency: exact Hz (measured, cuts) or 3 significant figures (bands)."""
+    if freq_hz is None or not math.isfinite(freq_hz):
+        return "\u2013"
+    if exact:
+        return f"{freq_hz:.1f} Hz" if freq_hz < 100 else f"{freq_hz:.0f} Hz"
+    if freq_hz >= 1000:
+        return f"{freq_hz / 1000:.3g} kHz"
+    return f"{freq_hz:.3g} Hz"
+
+
+def _band_hz(freq_hz: float | None) -> str:
+    """A planner band by its nominal label (ISO 266 for octaves and thirds)."""
+    if freq_hz is None or not math.isfinite(freq_hz):
+        return "\u2013"
+    try:
+        from .bands import nominal_label
+
+        lab = nominal_label(freq_hz, 3)
+        return f"{lab[:-1]} kHz" if lab.endswith("k") else f"{lab} Hz"
+    except Exception:  # bands module missing or label refused: plain figures
+        return _hz(freq_hz)
+
+
+# ----------------------------------------------------------------------------
+# Rendering
+# ----------------------------------------------------------------------------
+
+_MARGIN_PT = 34.0
+_BLACK = "black"
+_GREY = "0.45"
+_LIGHT = "0.88"
+
+
+_ADVANCE_CACHE: dict[tuple[str, str], float] = {}
+
+
+def _text_width_pt(s: str, size: float, weight: Any = "normal") -> float:
+    """Width of a one-line text in points, from the font's advance widths.
+
+    Summing per-character advances (cached) ignores kerning, so 3 % is added
+    to stay on the safe side; it is much faster than laying out each trial
+    string with the renderer.
+    """
+    from matplotlib.font_manager import FontProperties, findfont, get_font
+
+    w = "bold" if weight in ("bold", 700, "heavy", "black", "semibold") else "normal"
+    total = 0.0
+    font = None
+    for ch in s:
+        key = (w, ch)
+        adv = _ADVANCE_CACHE.get(key)
+        if adv is None:
+            if font is None:
+                font = get_font(findfont(FontProperties(family="DejaVu Sans", weight=w)))
+                font.set_size(100.0, 72)
+            glyph = font.load_char(ord(ch))
+            adv = glyph.linearHoriAdvance / 65536.0 / 100.0  # points per point of size
+            _ADVANCE_CACHE[key] = adv
+        total += adv
+    return total * size * 1.03
+
+
+class _Page:
+    """One page: helpers that place things in points from the top-left."""
+
+    def __init__(self, paper: str, number: int):
+        from matplotlib.figure import Figure
+
+        self.w_pt, self.h_pt = PAPER_PT[paper]
+        self.fig = Figure(figsize=(self.w_pt / 72.0, self.h_pt / 72.0), dpi=72)
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        self.canvas = FigureCanvasAgg(self.fig)
+        self.number = number
+        self.left = _MARGIN_PT
+        self.right = self.w_pt - _MARGIN_PT
+        self.top = _MARGIN_PT
+        self.bottom = self.h_pt - _MARGIN_PT - 12.0  # room for the footer
+        self.y = self.top
+
+    @property
+    def width(self) -> float:
+        return self.right - self.left
+
+    def fx(self, x_pt: float) -> float:
+        return x_pt / self.w_pt
+
+    def fy(self, y_pt: float) -> float:
+        return 1.0 - y_pt / self.h_pt
+
+    def text(self, x, y, s, size=9.0, weight="normal", ha="left", va="baseline", color=_BLACK, max_w=None, **kw):
+        t = self.fig.text(self.fx(x), self.fy(y), s, fontsize=size, fontweight=weight, ha=ha, va=va, color=color, **kw)
+        if max_w is not None:
+            self.fit(t, max_w)
+        return t
+
+    def fit(self, t, max_w: float, min_size: float = 6.0) -> None:
+        """Shrink a text until it fits ``max_w`` points; then cut it with an ellipsis."""
+        weight = t.get_fontweight()
+        size = t.get_fontsize()
+        s = t.get_text()
+        while _text_width_pt(s, size, weight) > max_w and size > min_size:
+            size = max(min_size, size - 0.5)
+        t.set_fontsize(size)
+        if _text_width_pt(s, size, weight) > max_w:
+            while len(s) > 2 and _text_width_pt(s + "\u2026", size, weight) > max_w:
+                s = s[:-1]
+            t.set_text(s.rstrip() + "\u2026")
+
+    def width_of(self, s: str, size: float, weight: str = "normal") -> float:
+        return _text_width_pt(s, size, weight)
+
+    def hline(self, x0, x1, y, lw=0.8, color=_BLACK, ls="-"):
+        from matplotlib.lines import Line2D
+
+        self.fig.add_artist(
+            Line2D([self.fx(x0), self.fx(x1)], [self.fy(y), self.fy(y)], lw=lw, color=color, ls=ls, transform=self.fig.transFigure)
+        )
+
+    def vline(self, x, y0, y1, lw=0.8, color=_BLACK):
+        from matplotlib.lines import Line2D
+
+        self.fig.add_artist(Line2D([self.fx(x), self.fx(x)], [self.fy(y0), self.fy(y1)], lw=lw, color=color, transform=self.fig.transFigure))
+
+    def rect(self, x, y, w, h, lw=0.8, fill=None, edge=_BLACK, hatch=None):
+        from matplotlib.patches import Rectangle
+
+        self.fig.add_artist(
+            Rectangle(
+                (self.fx(x), self.fy(y + h)), w / self.w_pt, h / self.h_pt, lw=lw,
+                facecolor=fill if fill else "none", edgecolor=edge, hatch=hatch, transform=self.fig.transFigure,
+            )
+        )
+
+    def axes(self, x, y, w, h):
+        return self.fig.add_axes((self.fx(x), self.fy(y + h), w / self.w_pt, h / self.h_pt))
+
+    def wrap(self, s: str, size: float, max_w: float, weight: str = "normal") -> list[str]:
+        """Greedy word wrap measured with the real font."""
+        words = s.split()
+        lines, cur = [], ""
+        for w in words:
+            trial = f"{cur} {w}".strip()
+            if cur and self.width_of(trial, size, weight) > max_w:
+                lines.append(cur)
+                cur = w
+            else:
+                cur = trial
+        if cur:
+            lines.append(cur)
+        return lines
+
+
+class _Block:
+    """A piece of the page flow: knows its height and draws itself at a y."""
+
+    def __init__(self, height: float, draw, keep_with_next: bool = False):
+        self.height = height
+        self.draw = draw
+        self.keep_with_next = keep_with_next
+
+
+# --- header ------------------------------------------------------------------
+
+
+def _header(page: _Page, data: SheetData, continued: bool) -> float:
+    y0 = page.y
+    bar_h = 15.0
+    page.rect(page.left, y0, page.width, bar_h, lw=0, fill=_BLACK)
+    page.text(page.left + 6, y0 + 11, "GAIN SHEET" + ("  (continued)" if continued else ""), size=9, weight="bold", color="white")
+    page.text(page.right - 6, y0 + 11, f"made {data.date}", size=8, color="white", ha="right")
+    # FSM box on the right
+    box_w, box_h = 108.0, 46.0
+    bx = page.right - box_w
+    by = y0 + bar_h + 6.0
+    page.rect(bx, by, box_w, box_h, lw=1.6)
+    page.text(bx + box_w / 2, by + 11.0, "FSM (stability margin)", size=6.5, weight="bold", ha="center", max_w=box_w - 6)
+    page.text(bx + box_w / 2, by + 36.0, f"{_num(data.fsm_db, sign=False)} dB", size=20, weight="bold", ha="center", max_w=box_w - 8)
+    avail = page.width - box_w - 12.0
+    page.text(page.left, by + 19.0, data.rig_name, size=21, weight="bold", max_w=avail)
+    page.text(page.left, by + 34.0, f"Room: {data.room_name}", size=10, max_w=avail)
+    page.text(page.left, by + 47.0, "Numbers rest on: " + data.basis_words, size=9, weight="bold", max_w=avail)
+    y = by + box_h + 6.0
+    page.hline(page.left, page.right, y, lw=1.2)
+    return y - y0 + 8.0
+
+
+# --- tables --------------------------------------------------------------------
+
+
+_VERDICT_STYLE = {
+    # word on the page, text colour, box fill, box edge width: inverted for the
+    # worst case, outlined for the middle one, plain for stable (readable in B&W)
+    "will howl": ("WILL HOWL", "white", _BLACK, 1.5),
+    "marginal": ("MARGINAL", _BLACK, "white", 1.5),
+    "stable": ("STABLE", _BLACK, None, 0.0),
+    "muted": ("muted", _GREY, None, 0.0),
+}
+
+
+def _verdict(page: _Page, x: float, y: float, verdict: str | None, size: float, max_w: float):
+    key = (verdict or "").strip().lower()
+    word, fg, fill, lw = _VERDICT_STYLE.get(key, ((verdict or "\u2013").upper(), _BLACK, None, 0.0))
+    bbox = None
+    if fill is not None:
+        bbox = dict(boxstyle="square,pad=0.25", facecolor=fill, edgecolor=_BLACK, lw=lw)
+    t = page.text(x, y, word, size=size, weight="bold", color=fg, bbox=bbox)
+    page.fit(t, max_w - 4)
+
+
+def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Block]:
+    """The per-mic table, split into blocks of rows that fit a page."""
+    measured_by_mic: dict[str, list[MeasuredLine]] = {}
+    for m in data.measured:
+        measured_by_mic.setdefault(m.mic, []).append(m)
+    # columns: (key, title, width fraction)
+    cols = [
+        ("mic", "MIC", 0.23),
+        ("pag", "PAG\ndB", 0.085),
+        ("nag", "NAG\ndB", 0.085),
+        ("margin", "MARGIN dB\n(spread)", 0.14),
+        ("mark", "DON'T GO PAST\nchannel gain", 0.19),
+        ("ring", "RINGS\nFIRST", 0.115),
+        ("verdict", "VERDICT\nat the gain needed", 0.155),
+    ]
+    head_h = 26.0
+    row_h = 36.0 * scale
+    rows = list(data.mics)
+
+    def draw_head(page: _Page, y: float) -> None:
+        x = page.left
+        page.rect(page.left, y, page.width, head_h, lw=0, fill=_LIGHT)
+        for key, title, frac in cols:
+            w = frac * page.width
+            for i, part in enumerate(title.split("\n")):
+                page.text(x + 4, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.5, weight="bold" if i == 0 else "normal")
+            x += w
+        page.hline(page.left, page.right, y + head_h, lw=1.0)
+
+    def draw_row(page: _Page, y: float, m: MicLine, shade: bool) -> None:
+        big = 21.0 * scale
+        mid = 13.0 * scale
+        small = max(6.5, 7.0 * scale)
+        base = y + row_h * 0.52
+        sub = y + row_h * 0.84
+        if shade:
+            page.rect(page.left, y, page.width, row_h, lw=0, fill="0.95")
+        x = page.left
+        xs = {}
+        for key, _, frac in cols:
+            xs[key] = (x, frac * page.width)
+            x += frac * page.width
+        x0, w = xs["mic"]
+        page.text(x0 + 4, base, m.name, size=mid, weight="bold", max_w=w - 6)
+        pos = ", ".join(f"{v:.1f}" for v in m.position_m)
+        page.text(x0 + 4, sub, f"{m.pattern} at ({pos}) m", size=small, color=_BLACK, max_w=w - 6)
+        page.text(xs["pag"][0] + 4, base, _num(m.pag_db, sign=False), size=mid, max_w=xs["pag"][1] - 6)
+        page.text(xs["nag"][0] + 4, base, _num(m.nag_db, sign=False), size=mid, max_w=xs["nag"][1] - 6)
+        if m.davis_pag_db is not None:
+            page.text(xs["pag"][0] + 4, sub, f"Davis {_num(m.davis_pag_db, sign=False)}", size=small, max_w=xs["pag"][1] - 6)
+        if m.davis_nag_db is not None:
+            page.text(xs["nag"][0] + 4, sub, f"Davis {_num(m.davis_nag_db, sign=False)}", size=small, max_w=xs["nag"][1] - 6)
+        page.text(xs["margin"][0] + 4, base, _num(m.margin_db), size=mid, weight="bold", max_w=xs["margin"][1] - 6)
+        if m.margin_spread_db is not None:
+            lo, hi = m.margin_spread_db
+            page.text(xs["margin"][0] + 4, sub, f"({_num(lo)} to {_num(hi)})", size=small, max_w=xs["margin"][1] - 6)
+        mx, mw = xs["mark"]
+        meas = measured_by_mic.get(m.name, [])
+        if meas:
+            worst = min(meas, key=lambda t: t.max_channel_gain_db)
+            mark, mark_src = worst.max_channel_gain_db, f"measured; plan {_num(m.max_channel_gain_db)}"
+            ring = _hz(worst.howl_freq_hz, exact=True)
+            verdict = worst.verdict
+        else:
+            mark, mark_src = m.max_channel_gain_db, "planned"
+            ring = _band_hz(m.limiting_band_hz)
+            verdict = m.verdict if m.is_open else "muted"
+        page.text(mx + 4, base + 2 * scale, f"{_num(mark)} dB", size=big, weight="bold", max_w=mw - 8)
+        page.text(mx + 4, sub + 1, mark_src, size=small, color=_BLACK, max_w=mw - 6)
+        page.text(xs["ring"][0] + 4, base, ring, size=mid, max_w=xs["ring"][1] - 6)
+        _verdict(page, xs["verdict"][0] + 6, base, verdict, mid, xs["verdict"][1] - 6)
+        page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
+
+    blocks = []
+    title_h = 16.0
+
+    def make(chunk, first):
+        def draw(page: _Page, y: float) -> None:
+            page.text(page.left, y + 11, "PER MICROPHONE" + ("" if first else " (continued)"), size=10, weight="bold")
+            page.text(page.right, y + 11, "dB relative to the rig's stated settings", size=7, ha="right")
+            draw_head(page, y + title_h)
+            yy = y + title_h + head_h
+            for i, m in enumerate(chunk):
+                draw_row(page, yy, m, i % 2 == 1)
+                yy += row_h
+
+        return _Block(title_h + head_h + row_h * len(chunk) + 8.0, draw)
+
+    # chunks of at most 12 rows so a long list can break across pages
+    n_max = 12
+    for i in range(0, max(len(rows), 1), n_max):
+        blocks.append(make(rows[i : i + n_max], i == 0))
+    return blocks
+
+
+def _measured_table_blocks(data: SheetData) -> list[_Block]:
+    if not data.measured:
+        return []
+    cols = [
+        ("loop", "MEASURED LOOP", 0.26),
+        ("gm", "PHASE-AWARE\nmargin dB", 0.15),
+        ("mm", "PHASE-BLIND\nmargin dB", 0.15),
+        ("hz", "HOWLS FIRST\nat", 0.14),
+        ("mark", "DON'T GO PAST", 0.15),
+        ("verdict", "VERDICT", 0.15),
+    ]
+    head_h, row_h, title_h = 24.0, 26.0, 16.0
+
+    def make(chunk, first):
+        def draw(page: _Page, y: float) -> None:
+            page.text(page.left, y + 11, f"MEASURED {data.measured_date}" + ("" if first else " (continued)"), size=10, weight="bold")
+            page.text(page.right, y + 11, "dB relative to the settings during the measurement", size=7, ha="right")
+            yh = y + title_h
+            page.rect(page.left, yh, page.width, head_h, lw=0, fill=_LIGHT)
+            x = page.left
+            xs = {}
+            for key, title, frac in cols:
+                w = frac * page.width
+                xs[key] = (x, w)
+                for i, part in enumerate(title.split("\n")):
+                    page.text(x + 4, yh + 10 + 9 * i, part, size=7.5 if i == 0 else 6.5, weight="bold" if i == 0 else "normal")
+                x += w
+            page.hline(page.left, page.right, yh + head_h, lw=1.0)
+            yy = yh + head_h
+            for m in chunk:
+                base = yy + 18
+                page.text(xs["loop"][0] + 4, base, m.label, size=10, weight="bold", max_w=xs["loop"][1] - 6)
+                page.text(xs["gm"][0] + 4, base, _num(m.gain_margin_db), size=12, weight="bold", max_w=xs["gm"][1] - 6)
+                page.text(xs["mm"][0] + 4, base, _num(m.magnitude_margin_db), size=12, max_w=xs["mm"][1] - 6)
+                page.text(xs["hz"][0] + 4, base, _hz(m.howl_freq_hz, exact=True), size=12, max_w=xs["hz"][1] - 6)
+                page.text(xs["mark"][0] + 4, base, f"{_num(m.max_channel_gain_db)} dB", size=14, weight="bold", max_w=xs["mark"][1] - 6)
+                _verdict(page, xs["verdict"][0] + 6, base, m.verdict, 11, xs["verdict"][1] - 6)
+                page.hline(page.left, page.right, yy + row_h, lw=0.4, color=_GREY)
+                yy += row_h
+
+        return _Block(title_h + head_h + row_h * len(chunk) + 8.0, draw)
+
+    rows = list(data.measured)
+    blocks = [make(rows[i : i + 14], i == 0) for i in range(0, len(rows), 14)]
+    if data.measured_settings_db:
+        line = "Settings during the measurement: " + ", ".join(f"{k} {_num(v)} dB" for k, v in data.measured_settings_db)
+
+        def draw_settings(page: _Page, y: float) -> None:
+            page.text(page.left, y + 8, line, size=8, max_w=page.width)
+
+        blocks.append(_Block(12.0, draw_settings))
+    return blocks
+
+
+def _cuts_blocks(data: SheetData) -> list[_Block]:
+    """One block per loop: the cuts (left) and what they buy (right, big)."""
+    if not data.cut_sets:
+        return []
+    blocks = []
+    title_h, head_h, row_h = 16.0, 22.0, 18.0
+    table_frac = 0.60
+    cols = [("n", "#", 0.07), ("hz", "CENTRE Hz", 0.27), ("g", "GAIN dB", 0.23), ("q", "Q", 0.18), ("bw", "WIDTH oct", 0.25)]
+    for cs in data.cut_sets:
+        n_rows = max(len(cs.cuts), 1)
+        foot_h = 12.0 * (bool(cs.stopped_because) + len(cs.advice[:2])) + 4.0
+        h = title_h + head_h + row_h * n_rows + max(foot_h, 0.0)
+        h = max(h, title_h + 78.0)
+
+        def draw(page: _Page, y: float, cs=cs, n_rows=n_rows) -> None:
+            page.text(page.left, y + 11, f"CUTS ({cs.source}) for {cs.loop}", size=10, weight="bold", max_w=page.width)
+            tw = table_frac * page.width
+            yh = y + title_h
+            page.rect(page.left, yh, tw, head_h, lw=0, fill=_LIGHT)
+            x = page.left
+            xs = {}
+            for key, title, frac in cols:
+                w = frac * tw
+                xs[key] = (x, w)
+                page.text(x + 4, yh + 14, title, size=7.5, weight="bold", max_w=w - 4)
+                x += w
+            page.hline(page.left, page.left + tw, yh + head_h, lw=1.0)
+            yy = yh + head_h
+            if not cs.cuts:
+                page.text(page.left + 4, yy + 13, "no cut bought a useful amount of stable gain", size=9, max_w=tw - 8)
+                yy += row_h
+            for i, c in enumerate(cs.cuts, 1):
+                base = yy + 14
+                page.text(xs["n"][0] + 4, base, str(i), size=10)
+                page.text(xs["hz"][0] + 4, base, _hz(c.freq_hz, exact=True).replace(" Hz", ""), size=12, weight="bold")
+                page.text(xs["g"][0] + 4, base, "notch" if c.gain_db is None else _num(c.gain_db), size=12, weight="bold")
+                page.text(xs["q"][0] + 4, base, f"{c.q:.2f}", size=11)
+                page.text(xs["bw"][0] + 4, base, f"{c.bandwidth_oct:.3f}", size=11)
+                page.hline(page.left, page.left + tw, yy + row_h, lw=0.3, color=_GREY)
+                yy += row_h
+            for j, line in enumerate(
+                ([f"Stopped because: {cs.stopped_because}"] if cs.stopped_because else []) + [f"Advice: {a}" for a in cs.advice[:2]]
+            ):
+                page.text(page.left + 4, yy + 11 + 12 * j, line, size=7.5, max_w=page.width - 8)
+            # what they buy
+            bx = page.left + tw + 14.0
+            bw = page.width - tw - 14.0
+            bh = 74.0
+            page.rect(bx, yh, bw, bh, lw=1.6)
+            page.text(bx + bw / 2, yh + 14, "THESE CUTS BUY", size=8, weight="bold", ha="center")
+            page.text(bx + bw / 2, yh + 42, f"{_num(cs.added_stable_gain_db)} dB", size=24, weight="bold", ha="center", max_w=bw - 8)
+            page.text(bx + bw / 2, yh + 54, "added stable gain (ASG)", size=7, ha="center", max_w=bw - 8)
+            page.text(
+                bx + bw / 2, yh + 67,
+                f"phase-aware margin {_num(cs.margin_before_db)} \u2192 {_num(cs.margin_after_db)} dB", size=7.5, ha="center",
+                max_w=bw - 8,
+            )
+
+        blocks.append(_Block(h, draw))
+    return blocks
+
+
+# --- plots ---------------------------------------------------------------------
+
+_MEASURED_STYLES = [("-", 0.9, "0.35"), ("--", 0.9, "0.25"), (":", 1.2, "0.2"), ("-.", 0.9, "0.3")]
+
+
+def _style_axes(ax) -> None:
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.tick_params(labelsize=7, length=2.5, width=0.6)
+    for s in ax.spines.values():
+        s.set_linewidth(0.6)
+
+
+def _loop_panel(ax, mic: str, curves: list[Curve], fsm_db: float, legend: bool) -> None:
+    from matplotlib.ticker import FixedLocator, NullFormatter, NullLocator
+
+    ax.set_xscale("log")
+    ymax, ymin = 3.0, -30.0
+    fmin, fmax = 1e9, 0.0
+    for c in curves:
+        if not c.freq_hz:
+            continue
+        fmin, fmax = min(fmin, min(c.freq_hz)), max(fmax, max(c.freq_hz))
+        ymax = max(ymax, max(c.loop_gain_db) + 3.0)
+        ymin = min(ymin, max(min(c.loop_gain_db), max(c.loop_gain_db) - 40.0) - 2.0)
+    if fmax <= fmin:
+        fmin, fmax = 100.0, 10000.0
+    ymax = min(ymax, 30.0)
+    n_meas = 0
+    for c in curves:
+        if c.kind == "planned":
+            ax.step(c.freq_hz, c.loop_gain_db, where="mid", color=_BLACK, lw=2.0, label="planned, band peak", zorder=3)
+        elif c.kind == "planned-average":
+            ax.step(c.freq_hz, c.loop_gain_db, where="mid", color=_BLACK, lw=0.8, ls=":", label="planned, band average", zorder=3)
+        else:
+            ls, lw, col = _MEASURED_STYLES[n_meas % len(_MEASURED_STYLES)]
+            n_meas += 1
+            ax.plot(c.freq_hz, c.loop_gain_db, ls=ls, lw=lw, color=col, label=c.label.replace("measured ", "meas. "), zorder=2)
+    ax.axhline(0.0, color=_BLACK, lw=1.3, zorder=2.5)
+    ax.axhline(-fsm_db, color=_BLACK, lw=0.9, ls=(0, (4, 2)), zorder=2.5)
+    lx0, lx1 = math.log(fmin / 1.1), math.log(fmax * 1.1)
+    for c in curves:
+        for f, g, txt in c.marks:
+            pos = (math.log(f) - lx0) / (lx1 - lx0) if f > 0 else 0.5
+            ha = "left" if pos < 0.15 else ("right" if pos > 0.85 else "center")
+            if c.kind == "planned":
+                ax.plot([f], [g], marker="^", ms=7, mfc="white", mec=_BLACK, mew=1.4, zorder=5, ls="none")
+                ax.annotate(_band_hz(f), (f, g), xytext=(0, 6), textcoords="offset points", ha=ha, fontsize=6.5, weight="bold",
+                            bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none"), zorder=7)
+            else:
+                ax.plot([f], [g], marker="v", ms=7, mfc=_BLACK, mec=_BLACK, zorder=6, ls="none")
+                ax.annotate(_hz(f, exact=True), (f, g), xytext=(0, 7), textcoords="offset points", ha=ha, fontsize=6.5, weight="bold",
+                            bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none"), zorder=7)
+    ax.set_xlim(fmin / 1.1, fmax * 1.1)
+    ax.set_ylim(ymin, ymax)
+    ticks = [t for t in (31.5, 63, 125, 250, 500, 1000, 2000, 4000, 8000, 16000) if fmin / 1.1 <= t <= fmax * 1.1]
+    ax.xaxis.set_major_locator(FixedLocator(ticks))
+    ax.xaxis.set_minor_locator(NullLocator())
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    # label every other octave so the labels never collide on a small panel
+    ax.set_xticklabels([(f"{t / 1000:g}k" if t >= 1000 else f"{t:g}") if i % 2 == 0 else "" for i, t in enumerate(ticks)])
+    ax.grid(True, which="major", color="0.8", lw=0.4)
+    _style_axes(ax)
+    ax.set_title(mic, fontsize=10, weight="bold", loc="left", pad=3)
+    ax.set_ylabel("loop gain dB", fontsize=7, labelpad=1)
+    ax.set_xlabel("Hz", fontsize=7, labelpad=1)
+    if legend:
+        handles = [h for h in ax.get_lines() if h.get_label().startswith("meas")]
+        ax.legend(
+            handles=handles,
+            fontsize=6, loc="upper center", bbox_to_anchor=(0.5, -0.30), ncol=2, frameon=False,
+            handlelength=2.6, columnspacing=0.8, handletextpad=0.4,
+        )
+
+
+def _map_panel(ax, pm: PlacementMap, legend_right: bool = False) -> None:
+    import numpy as np
+
+    marker = {"speaker": ("s", _BLACK, _BLACK), "mic": ("o", "white", _BLACK), "listener": ("D", "white", _BLACK), "talker": ("+", _BLACK, _BLACK)}
+    xs = [i.x_m for i in pm.items] or [0.0]
+    ys = [i.y_m for i in pm.items] or [0.0]
+    if pm.outline_m is not None:
+        L, W = pm.outline_m
+        ax.add_patch(__import__("matplotlib.patches", fromlist=["Rectangle"]).Rectangle((0, 0), L, W, fill=False, lw=1.4, ec=_BLACK))
+        x0, x1, y0, y1 = 0.0, L, 0.0, W
+    else:
+        x0, x1, y0, y1 = min(xs), max(xs), min(ys), max(ys)
+    span = max(x1 - x0, y1 - y0, 1.0)
+    arrow = 0.07 * span
+    seen = set()
+    for it in pm.items:
+        m, fc, ec = marker.get(it.kind, ("x", _BLACK, _BLACK))
+        lab = it.kind if it.kind not in seen else None
+        seen.add(it.kind)
+        ax.plot([it.x_m], [it.y_m], marker=m, ms=6 if it.kind != "talker" else 7, mfc=fc, mec=ec, mew=1.0, ls="none", label=lab, zorder=4)
+        if it.azimuth_rad is not None and it.kind in ("speaker", "mic"):
+            ax.annotate(
+                "", xy=(it.x_m + arrow * np.cos(it.azimuth_rad), it.y_m + arrow * np.sin(it.azimuth_rad)), xytext=(it.x_m, it.y_m),
+                arrowprops=dict(arrowstyle="->", lw=0.8, color=_BLACK), zorder=3,
+            )
+    pad = 0.06 * span
+    ax.set_xlim(x0 - pad, x1 + pad)
+    ax.set_ylim(y0 - pad, y1 + pad)
+    ax.set_aspect("equal", adjustable="box")
+    _place_map_labels(ax, [it for it in pm.items if it.kind in ("speaker", "mic")])
+    _style_axes(ax)
+    ax.set_title("PLAN VIEW", fontsize=10, weight="bold", loc="left", pad=3)
+    ax.set_xlabel("x m (length)", fontsize=7, labelpad=1)
+    ax.set_ylabel("y m", fontsize=7, labelpad=1)
+    if legend_right:
+        ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.04, 1.0), ncol=1, frameon=False, handletextpad=0.4)
+    else:
+        ax.legend(fontsize=6, loc="upper center", bbox_to_anchor=(0.5, -0.30), ncol=4, frameon=False, handletextpad=0.3,
+                  columnspacing=0.8)
+
+
+def _place_map_labels(ax, items: list[MapItem]) -> None:
+    """Name each marker, trying eight spots around it and taking the first free one.
+
+    Works in display points after the axes limits are fixed; label boxes are
+    estimated from the font's advance widths (:func:`_text_width_pt`).
+    """
+    fig = ax.figure
+    ax.apply_aspect()
+    to_pt = 72.0 / fig.dpi
+    size = 6.0
+    placed: list[tuple[float, float, float, float]] = []
+    pts = []
+    for it in items:
+        x, y = ax.transData.transform((it.x_m, it.y_m))
+        pts.append((x * to_pt, y * to_pt))
+    for (px, py) in pts:  # markers are obstacles too
+        placed.append((px - 3.5, py - 3.5, px + 3.5, py + 3.5))
+    bb = ax.get_window_extent()
+    ax_box = (bb.x0 * to_pt, bb.y0 * to_pt, bb.x1 * to_pt, bb.y1 * to_pt)
+    for it, (px, py) in zip(items, pts):
+        w = _text_width_pt(it.name, size)
+        h = size * 1.1
+        cands = [(5, 2), (5, -2 - h), (-5 - w, 2), (-5 - w, -2 - h), (-w / 2, 5), (-w / 2, -5 - h), (5, -h / 2), (-5 - w, -h / 2)]
+        best, best_cost = cands[0], None
+        for dx, dy in cands:
+            box = (px + dx, py + dy, px + dx + w, py + dy + h)
+            cost = sum(
+                max(0.0, min(box[2], b[2]) - max(box[0], b[0])) * max(0.0, min(box[3], b[3]) - max(box[1], b[1])) for b in placed
+            )
+            outside = (box[2] - box[0]) * (box[3] - box[1]) - max(0.0, min(box[2], ax_box[2]) - max(box[0], ax_box[0])) * max(
+                0.0, min(box[3], ax_box[3]) - max(box[1], ax_box[1])
+            )
+            cost += 2.0 * outside
+            if best_cost is None or cost < best_cost - 1e-9:
+                best, best_cost = (dx, dy), cost
+            if cost == 0.0:
+                break
+        dx, dy = best
+        placed.append((px + dx, py + dy, px + dx + w, py + dy + h))
+        ax.annotate(it.name, (it.x_m, it.y_m), xytext=(dx, dy), textcoords="offset points", fontsize=size,
+                    ha="left", va="bottom", zorder=5)
+
+
+def _plot_blocks(data: SheetData, panel_h: float = 112.0) -> list[_Block]:
+    panels: dict[str, list[Curve]] = {}
+    for c in data.curves:
+        panels.setdefault(c.panel, []).append(c)
+    items: list[tuple[str, Any]] = [("loop", (k, v)) for k, v in panels.items()]
+    ncol = 3
+    own_map = None
+    if data.placement is not None and data.placement.items:
+        crowded = len(data.placement.items) > 9
+        if not crowded and len(items) % ncol != 0:
+            items.append(("map", data.placement))
+        else:
+            own_map = data.placement
+    if not items and own_map is None:
+        return []
+    title_h = 26.0
+    blocks = []
+    rows = [items[i : i + ncol] for i in range(0, len(items), ncol)]
+    for r, row in enumerate(rows):
+        first = r == 0
+        n_leg = max(
+            [math.ceil(sum(c.kind == "measured" for c in obj[1]) / 2) if kind == "loop" else 0 for kind, obj in row] + [0]
+        )
+        extra = 9.0 * n_leg
+
+        def draw(page: _Page, y: float, row=row, first=first) -> None:
+            if first:
+                page.text(page.left, y + 11, "LOOP GAIN vs FREQUENCY", size=10, weight="bold")
+                page.text(
+                    page.left, y + 22,
+                    "solid line at 0 dB: howls    dashed: \u2212FSM    thick steps: planned band worst peak (\u25b3 rings first)    dotted: band average"
+                    + ("    thin lines: measured |H| (\u25bc howls first)" if data.measured else ""),
+                    size=7, max_w=page.width,
+                )
+            gap = 36.0
+            w = (page.width - gap * (ncol - 1) - 24.0) / ncol
+            for i, (kind, obj) in enumerate(row):
+                x = page.left + 28.0 + i * (w + gap)
+                top = y + (title_h if first else 0.0) + 14.0
+                h = panel_h - 14.0 - (36.0 if kind == "map" else 22.0)
+                ax = page.axes(x, top, w, h)
+                if kind == "loop":
+                    _loop_panel(ax, obj[0], obj[1], data.fsm_db, legend=any(c.kind == "measured" for c in obj[1]))
+                else:
+                    _map_panel(ax, obj)
+
+        blocks.append(_Block((title_h if first else 0.0) + panel_h + extra, draw))
+    if own_map is not None:
+        map_h = 200.0
+
+        def draw_map(page: _Page, y: float) -> None:
+            ax = page.axes(page.left + 28.0, y + 16.0, page.width * 0.62, map_h - 46.0)
+            _map_panel(ax, own_map, legend_right=True)
+
+        blocks.append(_Block(map_h, draw_map))
+    return blocks
+
+
+# --- cautions and notes -------------------------------------------------------------
+
+
+def _cautions_block(page_proto: _Page, data: SheetData) -> _Block:
+    size = 8.0
+    lead = 9.8
+    inner_w = page_proto.width - 22.0 - 70.0
+    wrapped = [(h, page_proto.wrap(t, size, inner_w)) for h, t in data.cautions]
+    h = 20.0 + sum(len(ls) * lead + 4.0 for _, ls in wrapped) + 6.0
+
+    def draw(page: _Page, y: float) -> None:
+        page.rect(page.left, y, page.width, h, lw=2.0)
+        page.rect(page.left, y, 10.0, h, lw=0, fill=_BLACK)
+        page.text(page.left + 18, y + 14, "\u26a0 CAUTIONS", size=10, weight="bold")
+        yy = y + 14 + 13
+        for head, ls in wrapped:
+            page.text(page.left + 18, yy, head, size=size, weight="bold")
+            for line in ls:
+                page.text(page.left + 18 + 70, yy, line, size=size)
+                yy += lead
+            yy += 4.0
+
+    return _Block(h, draw)
+
+
+def _notes_block(page_proto: _Page, data: SheetData) -> _Block:
+    size = 6.5
+    lead = 8.0
+    wrapped = [page_proto.wrap(n, size, page_proto.width) for n in data.notes]
+    h = 14.0 + sum(len(ls) * lead + 2.0 for ls in wrapped)
+
+    def draw(page: _Page, y: float) -> None:
+        page.text(page.left, y + 9, "HOW THESE NUMBERS WERE MADE", size=7, weight="bold")
+        yy = y + 9 + 10
+        for ls in wrapped:
+            for line in ls:
+                page.text(page.left, yy, line, size=size)
+                yy += lead
+            yy += 2.0
+
+    return _Block(h, draw)
+
+
+# --- page flow -----------------------------------------------------------------------
+
+
+def _layout(data: SheetData, paper: str) -> list[_Page]:
+    proto = _Page(paper, 0)
+    n = max(len(data.mics), 1)
+    scale = 1.0 if n <= 5 else max(0.72, 1.0 - 0.04 * (n - 5))
+
+    def flow(panel_h: float) -> list[_Block]:
+        blocks: list[_Block] = []
+        blocks += _mic_table_blocks(proto.width, data, scale)
+        blocks += _measured_table_blocks(data)
+        blocks += _plot_blocks(data, panel_h)
+        blocks += _cuts_blocks(data)
+        blocks.append(_notes_block(proto, data))
+        return blocks
+
+    cautions = _cautions_block(proto, data)
+    base_h = 112.0
+    blocks = flow(base_h)
+    # when everything fits on one page, give the spare height to the plots
+    hp = _Page(paper, 0)
+    header_h = _header(hp, data, continued=False)
+    free = (hp.bottom - cautions.height - 8.0) - (hp.top + header_h) - sum(b.height + 8.0 for b in blocks)
+    n_plot_rows = len(_plot_blocks(data, base_h))
+    if free > 0 and n_plot_rows:
+        blocks = flow(base_h + min(70.0, (free - 4.0) / n_plot_rows))
+
+    pages: list[_Page] = []
+
+    def new_page() -> _Page:
+        p = _Page(paper, len(pages) + 1)
+        p.y += _header(p, data, continued=bool(pages))
+        if not pages:
+            # the cautions always sit at the foot of page 1
+            p.bottom -= cautions.height + 8.0
+            cautions.draw(p, p.bottom + 8.0)
+        pages.append(p)
+        return p
+
+    page = new_page()
+    for b in blocks:
+        if page.y + b.height > page.bottom and page.y > page.top + 130:
+            page = new_page()
+        b.draw(page, page.y)
+        page.y += b.height + 8.0
+    for p in pages:
+        foot = f"howl gain sheet \u2022 {data.rig_name} \u2022 page {p.number} of {len(pages)}"
+        p.text(p.left, p.h_pt - _MARGIN_PT + 4, foot, size=6.5, color=_GREY)
+        p.text(p.right, p.h_pt - _MARGIN_PT + 4, "an estimate: local codes, venue rules and licensed practice come first", size=6.5, ha="right", color=_GREY)
+    return pages
+
+
+def render_sheet(data: SheetData, path: str | os.PathLike, *, paper: str = "a4", png_dpi: int = 150) -> list[str]:
+    """Render the sheet to ``path`` (``.pdf`` or ``.png``), atomically.
+
+    A PDF holds every page (fonts embedded as TrueType, ``pdf.fonttype`` 42,
+    set in a local ``rc_context`` so global matplotlib state is untouched).
+    A PNG holds page 1; further pages go to ``NAME-2.png``, ``NAME-3.png``...
+    Returns the files written.
+    """
+    import matplotlib
+
+    from .fileio import atomic_path
+
+    paper = paper.lower()
+    if paper not in PAPER_PT:
+        raise InputError(f"must be one of {', '.join(PAPER_PT)}, got {paper!r}", key="--paper")
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix not in (".pdf", ".png"):
+        raise InputError(f"must end in .pdf or .png, got {p.name!r}", key="-o")
+    rc = {
+        "pdf.fonttype": 42,
+        "ps.fonttype": 42,
+        "font.family": "DejaVu Sans",
+        "axes.unicode_minus": True,
+        "path.simplify": True,
+    }
+    written = []
+    with matplotlib.rc_context(rc):
+        pages = _layout(data, paper)
+        if suffix == ".pdf":
+            from matplotlib.backends.backend_pdf import PdfPages
+
+            with atomic_path(p) as tmp:
+                with PdfPages(
+                    str(tmp),
+                    metadata={"Title": f"Gain sheet: {data.rig_name}", "Subject": f"Room: {data.room_name}", "Creator": "howl"},
+                ) as pdf:
+                    for pg in pages:
+                        pdf.savefig(pg.fig)
+            written.append(str(p))
+        else:
+            for i, pg in enumerate(pages):
+                target = p if i == 0 else p.with_name(f"{p.stem}-{i + 1}{p.suffix}")
+                with atomic_path(target) as tmp:
+                    pg.fig.savefig(str(tmp), format="png", dpi=png_dpi, facecolor="white")
+                written.append(str(target))
+    return written
