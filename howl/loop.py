@@ -278,14 +278,16 @@ class _FastDTFT:
     def __call__(self, w: np.ndarray, deriv: bool = False):
         """H and (optionally) dH/dw at angular frequencies ``w`` (rad/sample)."""
         w = np.atleast_1d(np.asarray(w, dtype=float))
-        inner = np.exp(-1j * np.multiply.outer(self.m, w))  # (B, M)
+        ang = np.multiply.outer(self.m, w)  # (B, M)
+        c, sn = np.cos(ang), np.sin(ang)
         outer = np.exp(-1j * np.multiply.outer(self.b * self.B, w))  # (nb, M)
-        s0 = self.hb @ inner  # (nb, M)
+        # real matrix products (a real-by-complex product takes a slow path in numpy)
+        s0 = self.hb @ c - 1j * (self.hb @ sn)  # (nb, M)
         ph0 = np.exp(-1j * w * self.k0)
         H = ph0 * np.sum(outer * s0, axis=0)
         if not deriv:
             return H
-        s1 = self.hbm @ inner
+        s1 = self.hbm @ c - 1j * (self.hbm @ sn)
         # d/dw of Σ h[k] e^{−jw(k0+k)} = −j Σ (k0 + B b + m) h e^{...}
         kb = (self.b * self.B)[:, None]
         dH = -1j * ph0 * np.sum(outer * (s1 + kb * s0), axis=0) - 1j * self.k0 * H
@@ -361,13 +363,11 @@ def _refine_crossings(L: _Loop, a, b, ia, ib, x0, tol_hz: float, max_iter: int =
         xn = x[idx] - step
         bad = ~np.isfinite(xn) | (xn <= a[idx]) | (xn >= b[idx])
         xn[bad] = 0.5 * (a[idx[bad]] + b[idx[bad]])
-        done = (fx == 0.0) | (np.abs(xn - x[idx]) < tol_hz) | (b[idx] - a[idx] < tol_hz)
-        x[idx] = np.where(done, x[idx], xn)
+        tol = tol_hz + 1e-11 * np.abs(x[idx])
+        done = (fx == 0.0) | (np.abs(xn - x[idx]) < tol) | (b[idx] - a[idx] < tol)
+        x[idx] = np.where(fx == 0.0, x[idx], xn)
         active[idx[done]] = False
-    if np.any(active):
-        idx = np.flatnonzero(active)
-        v[idx] = L(x[idx])
-    return x, v
+    return x, L(x)
 
 
 def ring_decay_rate_db_per_s(margin_db: float, dlnL_domega: complex) -> float:
@@ -454,7 +454,7 @@ def nyquist_margin(
     re, im = Lg.real, Lg.imag
     mag = np.abs(Lg)
     df = fs / n_fft
-    tol_hz = max(1e-9 * max(hi, 1.0), 1e-12 * fs)
+    tol_hz = 1e-12 * fs
 
     # ---- crossings: sign changes of Im with Re > 0, and exact real points
     s = np.sign(im)
@@ -527,7 +527,9 @@ def nyquist_margin(
 
     # ---- risks: crossings, plus peaks of |L| whose lobe holds no crossing
     interior = np.arange(1, mag.size - 1)
-    pk = interior[(mag[interior] >= mag[interior - 1]) & (mag[interior] > mag[interior + 1])]
+    # (a peak must stand out of its neighbours by more than rounding: a flat loop has none)
+    m_in = mag[interior] * (1.0 - 1e-9)
+    pk = interior[(m_in >= mag[interior - 1]) & (m_in > mag[interior + 1])]
     mins = interior[(mag[interior] <= mag[interior - 1]) & (mag[interior] < mag[interior + 1])]
     lobe_pk = np.searchsorted(mins, pk)
     lobe_cr = np.searchsorted(mins, cand_lo, side="right")
@@ -664,13 +666,64 @@ def _check_mimo(irs, mix_lin, sample_rate_hz):
     return a, m
 
 
-def _eig_at(l, f, fs):
-    n = l.shape[0]
-    Lm = np.empty((n, n), dtype=complex)
-    for i in range(n):
-        for j in range(n):
-            Lm[i, j] = dtft(l[i, j], [f], fs)[0] if np.any(l[i, j]) else 0.0
-    return Lm
+class _MatrixLoop:
+    """Exact L(f) (n × n) of mic-to-mic loop IRs at any frequency."""
+
+    def __init__(self, l, fs):
+        self.fs = fs
+        self.n = l.shape[0]
+        self.parts = [[_FastDTFT(l[i, j]) if np.any(l[i, j]) else None for j in range(self.n)] for i in range(self.n)]
+
+    def __call__(self, f: float) -> np.ndarray:
+        w = 2.0 * np.pi * f / self.fs
+        Lm = np.zeros((self.n, self.n), dtype=complex)
+        for i in range(self.n):
+            for j in range(self.n):
+                if self.parts[i][j] is not None:
+                    Lm[i, j] = self.parts[i][j](w)[0]
+        if f == 0.0 or f == self.fs / 2.0:
+            Lm = Lm.real.astype(complex)
+        return Lm
+
+
+def _track_loci(lam: np.ndarray) -> np.ndarray:
+    """Order eigenvalues along frequency so each column follows one locus (nearest neighbour)."""
+    import itertools
+
+    F, n = lam.shape
+    perms = list(itertools.permutations(range(n)))
+    P = np.array(perms)
+    # best permutation of row q's raw order to match row q-1's raw order
+    cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
+    step = np.argmin(cost, axis=1)
+    index = {p: k for k, p in enumerate(perms)}
+    # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
+    table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
+    out = np.empty_like(lam)
+    out[0] = lam[0]
+    cur = 0  # permutation applied to row q-1 (identity)
+    for q in range(1, F):
+        # row q reordered by perms[step] matches raw row q-1; raw row q-1 was reordered by cur
+        cur = table[step[q - 1]][cur]
+        out[q] = lam[q][list(perms[cur])]
+    return out
+
+
+def _refine_locus(ev_at: _MatrixLoop, a: float, b: float, za: complex, zb: complex, iters: int = 44):
+    """Bisect the frequency where one eigenvalue locus crosses the real axis (continuation by nearest)."""
+    zc = za
+    for _ in range(iters):
+        m = 0.5 * (a + b)
+        ev = np.linalg.eigvals(ev_at(m))
+        zm = ev[np.argmin(np.abs(ev - 0.5 * (za + zb)))]
+        if np.sign(zm.imag) == np.sign(za.imag):
+            a, za = m, zm
+        else:
+            b, zb = m, zm
+        zc = zm
+        if b - a < 1e-10 * max(b, 1.0):
+            break
+    return 0.5 * (a + b), complex(zc)
 
 
 def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
@@ -696,43 +749,42 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
     f = f_all[sel]
     Lf = np.moveaxis(Hs[:, :, sel], 2, 0)  # (F, i, j)
     lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
-    # order the loci by nearest-neighbour continuation
     if n_mic > 1:
-        import itertools
-
-        perms = np.array(list(itertools.permutations(range(n_mic))))
-        for q in range(1, lam.shape[0]):
-            prev = lam[q - 1]
-            cost = np.abs(lam[q][perms] - prev[None, :]).sum(axis=1)
-            lam[q] = lam[q][perms[int(np.argmin(cost))]]
+        lam = _track_loci(lam)
     rad = np.max(np.abs(lam), axis=1)
     magnitude_margin_db = -db(float(np.max(rad)))
-    cr_f, cr_v = [], []
+    # coarse crossings of every locus
+    c_e, c_i, c_r = [], [], []
     for e in range(n_mic):
         z = lam[:, e]
         s = np.sign(z.imag)
         iv = np.flatnonzero((s[:-1] * s[1:] < 0) & ((z.real[:-1] > 0) | (z.real[1:] > 0)))
-        for i in iv:
-            fa, fb = f[i], f[i + 1]
-            za, zb = z[i], z[i + 1]
-            for _ in range(50):
-                fm = 0.5 * (fa + fb)
-                ev = np.linalg.eigvals(_eig_at(l, fm, fs))
-                zm = ev[np.argmin(np.abs(ev - 0.5 * (za + zb)))]
-                if np.sign(zm.imag) == np.sign(za.imag):
-                    fa, za = fm, zm
-                else:
-                    fb, zb = fm, zm
-                if fb - fa < 1e-9 * max(fb, 1.0):
-                    break
-            zc = za if abs(za.imag) < abs(zb.imag) else zb
+        t = z.imag[iv] / (z.imag[iv] - z.imag[iv + 1])
+        c_e.append(np.full(iv.size, e))
+        c_i.append(iv)
+        c_r.append(z.real[iv] + t * (z.real[iv + 1] - z.real[iv]))
+    c_e, c_i, c_r = (np.concatenate(v) for v in (c_e, c_i, c_r))
+    # exact real points (DC, Nyquist)
+    ex_f = [float(f[i]) for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
+    ex_v = [lam[i, e] for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
+    cr_f, cr_v = list(ex_f), list(ex_v)
+    if c_r.size:
+        order = np.argsort(-c_r)
+        best = c_r[order[0]]
+        n_ref = int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1
+        ev_at = _MatrixLoop(l, fs)
+        for j in order[: min(max(n_ref, 4), 32)]:
+            i = c_i[j]
+            fz, zc = _refine_locus(ev_at, f[i], f[i + 1], lam[i, c_e[j]], lam[i + 1, c_e[j]])
             if zc.real > 0:
-                cr_f.append(0.5 * (fa + fb))
+                cr_f.append(fz)
                 cr_v.append(zc)
-        ex = np.flatnonzero((z.imag == 0.0) & (z.real > 0))
-        for i in ex:
-            cr_f.append(float(f[i]))
-            cr_v.append(z[i])
+        for j in order[min(max(n_ref, 4), 32) :]:
+            if c_r[j] > 0:
+                i = c_i[j]
+                t = lam[i, c_e[j]].imag / (lam[i, c_e[j]].imag - lam[i + 1, c_e[j]].imag)
+                cr_f.append(float(f[i] + t * (f[i + 1] - f[i])))
+                cr_v.append(complex(c_r[j]))
     cr_f = np.asarray(cr_f, dtype=float)
     cr_v = np.asarray(cr_v, dtype=complex)
     if cr_f.size == 0:
@@ -743,9 +795,10 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
         )
     o = np.argsort(cr_f)
     cr_f, cr_v = cr_f[o], cr_v[o]
+    magnitude_margin_db = min(magnitude_margin_db, float(-db(np.max(np.abs(cr_v)))))
     w = int(np.argmax(cr_v.real))
     fh = float(cr_f[w])
-    Lm = _eig_at(l, fh, fs)
+    Lm = _MatrixLoop(l, fs)(fh)
     ev, vr = np.linalg.eig(Lm)
     idx = int(np.argmin(np.abs(ev - cr_v[w])))
     v = vr[:, idx]
