@@ -22,7 +22,7 @@ ch. 5–6, from memory), the *sizes* are our choice and are flagged as such:
 * **High-frequency narrowing**: the polar gain is multiplied by the directivity
   of a rigid circular piston of radius 10 mm (a handheld or lectern capsule),
   2·J1(k·r·sin θ)/(k·r·sin θ) (Kinsler et al., *Fundamentals of Acoustics*,
-  piston in a baffle, from memory). At 8 kHz and 90° this is −2.8 dB.
+  piston in a baffle, from memory). At 8 kHz and 90° this is −2.4 dB.
 * **High-frequency rear fill**: a leakage floor ε(f) = 0.25·x/(1 + x),
   x = (f / 8 kHz)², added in power, |g| = √(ρ² + ε²)/√(1 + ε²) (on axis
   stays 0 dB). The null of a cardioid fills to about −26 dB at 4 kHz and

@@ -96,18 +96,19 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     )
     if obj["what_if"]:
         con.print("what if: " + ", ".join(obj["what_if"]))
-    t = Table(title="Gain before feedback per mic (dB)", show_lines=False)
-    for col, just in (("mic", "left"), ("PAG", "right"), ("PAG 10–90 %", "right"), ("NAG", "right"),
-                      ("margin", "right"), ("limit band", "right"), ("max ch. gain", "right"), ("verdict", "left"),
-                      ("Davis PAG", "right"), ("Davis NAG", "right")):
-        t.add_column(col, justify=just)
+    t = Table(title="Gain before feedback per mic (dB)", show_lines=False, pad_edge=False)
+    for col, just in (("mic", "left"), ("PAG", "right"), ("10–90 %", "right"), ("NAG", "right"),
+                      ("margin", "right"), ("limit Hz", "right"), ("max ch.", "right"), ("verdict", "left"),
+                      ("Davis PAG/NAG", "right")):
+        t.add_column(col, justify=just, no_wrap=True)
     style = {"stable": "green", "marginal": "yellow", "will howl": "bold red"}
     for m in obj["mics"]:
         lo, hi = m["pag_spread_db"]
         t.add_row(
-            m["name"], _fmt(m["pag_db"]), f"{_fmt(lo)} … {_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
-            f"{m['limiting_band_hz']:.0f} Hz", _fmt(m["max_channel_gain_db"]),
-            f"[{style.get(m['verdict'], '')}]{m['verdict']}[/]", _fmt(m["davis_pag_db"]), _fmt(m["davis_nag_db"]),
+            m["name"], _fmt(m["pag_db"]), f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
+            f"{m['limiting_band_hz']:.0f}", _fmt(m["max_channel_gain_db"]),
+            f"[{style.get(m['verdict'], '')}]{m['verdict']}[/]",
+            f"{_fmt(m['davis_pag_db'])}/{_fmt(m['davis_nag_db'])}",
         )
     con.print(t)
     if obj["muted_mics"]:
