@@ -470,3 +470,85 @@ def test_every_pattern_name_is_accepted_by_what_if(tmp_path):
     rig = load_rig(write_case(tmp_path))
     for pattern in MIC_PATTERNS:
         assert with_changes(rig, [f"mics.lectern.pattern={pattern}"]).mic("lectern").pattern == pattern
+
+
+# ------------------------------------------------------------- the CLI: howl check ----
+from typer.testing import CliRunner  # noqa: E402
+
+from howl.cli import app  # noqa: E402
+
+runner = CliRunner()
+
+
+def _one_line_error(result, *needles):
+    assert result.exit_code == 2, (result.exit_code, result.output)
+    err = result.stderr.strip()
+    assert len(err.splitlines()) == 1, err
+    assert err.startswith("howl: error: ")
+    assert "Traceback" not in result.output
+    for n in needles:
+        assert n in err, (n, err)
+    return err
+
+
+@pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.name)
+def test_check_accepts_every_example_and_summarises_it(path):
+    result = runner.invoke(app, ["check", str(path)])
+    assert result.exit_code == 0, result.output
+    rig = load_rig(path)
+    assert rig.name in result.stdout and rig.room.name in result.stdout
+    assert "ok: the rig and its room are valid" in result.stdout
+
+
+def test_check_without_a_file_checks_the_bundled_rig():
+    result = runner.invoke(app, ["check"])
+    assert result.exit_code == 0 and "Stone chapel" in result.stdout
+
+
+def test_check_json_is_one_object_with_the_counts(tmp_path):
+    result = runner.invoke(app, ["check", str(write_case(tmp_path)), "--json"])
+    assert result.exit_code == 0
+    data = json.loads(result.stdout)
+    assert data["valid"] is True and data["n_open_mics"] == 1
+    assert [s["name"] for s in data["speakers"]] == ["left", "right"]
+    assert data["room"]["volume_m3"] == pytest.approx(320.0)
+
+
+@pytest.mark.parametrize("case", BAD_RIGS, ids=[c[0] for c in BAD_RIGS])
+def test_check_gives_one_line_and_exit_2_for_each_bad_rig(tmp_path, case):
+    _, path, value, needles = case
+    rig = edited(RIG, path, value)
+    if path.startswith("mics[0].pattern_file"):
+        del rig["mics"][0]["pattern"]
+    result = runner.invoke(app, ["check", str(write_case(tmp_path, rig=rig))])
+    _one_line_error(result, "rig.toml", *needles)
+
+
+@pytest.mark.parametrize("case", BAD_ROOMS, ids=[c[0] for c in BAD_ROOMS])
+def test_check_gives_one_line_and_exit_2_for_each_bad_room(tmp_path, case):
+    _, path, value, needles = case
+    result = runner.invoke(app, ["check", str(write_case(tmp_path, room=edited(ROOM, path, value)))])
+    _one_line_error(result, "room.toml", *needles)
+
+
+def test_check_reports_toml_syntax_errors_with_line_and_column(tmp_path):
+    p = tmp_path / "rig.toml"
+    p.write_text('name = "x"\nspeakers = [\n  {name = "a" position_m = [1, 2, 3]},\n]\n')
+    _one_line_error(runner.invoke(app, ["check", str(p)]), "rig.toml", "line 3, column")
+
+
+def test_check_reports_duplicate_names_and_missing_files(tmp_path):
+    rig = copy.deepcopy(RIG)
+    rig["mics"][1]["name"] = "lectern"
+    _one_line_error(runner.invoke(app, ["check", str(write_case(tmp_path, rig=rig))]), "duplicate name")
+    _one_line_error(runner.invoke(app, ["check", str(tmp_path / "missing.toml")]), "missing.toml", "not found")
+
+
+def test_check_what_if_errors_name_the_option(tmp_path):
+    result = runner.invoke(app, ["check", str(write_case(tmp_path)), "--what-if", "mics.lectern.pattern=cardiod"])
+    _one_line_error(result, "--what-if", "did you mean 'cardioid'")
+
+
+def test_check_what_if_applies_the_change(tmp_path):
+    result = runner.invoke(app, ["check", str(write_case(tmp_path)), "--what-if", "mics.choir.open=true", "--json"])
+    assert result.exit_code == 0 and json.loads(result.stdout)["n_open_mics"] == 2

@@ -207,3 +207,75 @@ def test_a_measured_rt60_longer_than_air_allows_warns():
         ra = room_acoustics(room, np.array([8000.0]))
     assert any("air absorption" in str(w.message) for w in caught)
     assert ra.mean_absorption[0] == 0.0
+
+
+# -------------------------------------------------------------- the CLI: howl room ----
+import json  # noqa: E402
+
+from typer.testing import CliRunner  # noqa: E402
+
+from howl.cli import app  # noqa: E402
+
+runner = CliRunner()
+ROOM_FILES = sorted((REPO / "rooms").glob("*.toml"))
+
+
+@pytest.mark.parametrize("path", ROOM_FILES, ids=lambda p: p.name)
+def test_room_command_prints_a_band_table_for_every_shipped_room(path):
+    result = runner.invoke(app, ["room", str(path), "--q", "5"])
+    assert result.exit_code == 0, result.output
+    for word in ("Sabine", "Eyring", "Schroeder", "125", "8k", "Q = 5"):
+        assert word in result.stdout
+
+
+@pytest.mark.parametrize("path", ROOM_FILES, ids=lambda p: p.name)
+def test_room_json_matches_the_library_functions(path):
+    result = runner.invoke(app, ["room", str(path), "--json", "--q", "2"])
+    assert result.exit_code == 0
+    data = json.loads(result.stdout)
+    room = load_room(path)
+    ra = room_acoustics(room, np.array(OCTAVE_BANDS_HZ))
+    assert [b["freq_hz"] for b in data["bands"]] == list(OCTAVE_BANDS_HZ)
+    np.testing.assert_allclose([b["rt60_eyring_s"] for b in data["bands"]], ra.rt60_eyring_s)
+    np.testing.assert_allclose([b["rt60_sabine_s"] for b in data["bands"]], ra.rt60_sabine_s)
+    np.testing.assert_allclose([b["critical_distance_m"] for b in data["bands"]],
+                               critical_distance_m(2.0, ra.room_constant_m2))
+    assert data["volume_m3"] == pytest.approx(room.volume_m3)
+    assert data["mean_free_path_m"] == pytest.approx(4 * room.volume_m3 / room.surface_m2)
+    assert data["schroeder_frequency_hz"] == pytest.approx(schroeder_frequency_hz(data["rt60_mid_s"], room.volume_m3))
+
+
+def _room_error(result, *needles):
+    assert result.exit_code == 2, result.output
+    err = result.stderr.strip()
+    assert len(err.splitlines()) == 1 and err.startswith("howl: error: ") and "Traceback" not in result.output
+    for n in needles:
+        assert n in err, (n, err)
+
+
+@pytest.mark.parametrize(
+    "text,needles",
+    [
+        ('[shoebox]\nlength_m = 0\nwidth_m = 5\nheight_m = 3\n', ["shoebox.length_m", "> 0"]),
+        ('[free_shape]\nvolume_m3 = 500\nsurface_m2 = 400\nmean_absorption = [0.2, 0.2, 0.2, 1.2, 0.2, 0.2, 0.2]\n',
+         ["free_shape.mean_absorption[3]", "[0, 1)"]),
+        ('[free_shape]\nvolume_m3 = 500\nsurface_m2 = 400\nrt60_s = [0.05, 1, 1, 1, 1, 1, 1]\n',
+         ["free_shape.rt60_s[0]", "[0.1, 20]"]),
+        ('temperature_c = 60\n[free_shape]\nvolume_m3 = 500\nsurface_m2 = 400\nrt60_s = [1, 1, 1, 1, 1, 1, 1]\n',
+         ["temperature_c", "[-20, 50]"]),
+        ('temperature_c = nan\n[free_shape]\nvolume_m3 = 500\nsurface_m2 = 400\nrt60_s = [1, 1, 1, 1, 1, 1, 1]\n',
+         ["temperature_c", "finite"]),
+        ('[free_shape]\nvolume_m3 = 500\nsurface_m2 = 400\nrt60 = [1, 1, 1, 1, 1, 1, 1]\n',
+         ["free_shape.rt60", "did you mean 'rt60_s'"]),
+        ('[free_shape\nvolume_m3 = 500\n', ["line 1, column"]),
+    ],
+)
+def test_room_command_gives_one_line_and_exit_2_for_bad_rooms(tmp_path, text, needles):
+    p = tmp_path / "bad_room.toml"
+    p.write_text(text)
+    _room_error(runner.invoke(app, ["room", str(p)]), "bad_room.toml", *needles)
+
+
+def test_room_command_refuses_a_bad_q_and_a_missing_file(tmp_path):
+    _room_error(runner.invoke(app, ["room", str(ROOM_FILES[0]), "--q", "0.5"]), "--q")
+    _room_error(runner.invoke(app, ["room", str(tmp_path / "none.toml")]), "none.toml", "not found")
