@@ -1,0 +1,89 @@
+"""`howl measure` end to end through a real PortAudio stream and a user-space audio server.
+
+On CI, .ci/run starts jackd with the dummy driver and its built-in loopback ports
+(`-L 2`, `--sync`, 48 kHz, period 1024) and sets HOWL_REQUIRE_AUDIO_LOOPBACK=1, which
+turns a missing server into a failure instead of a skip. The command runs in a
+subprocess, so PortAudio's device list (fixed at import) and its JACK client never leak
+into other tests; the command terminates PortAudio itself at the end (sd._terminate).
+
+Check values: the loopback returns the signal one JACK period later, bit-exact
+(1024 samples at --period 1024, recorded on this kind of setup; common practice of the
+JACK dummy driver, no source), so the recovered IR is an impulse at time zero once the
+latency is removed.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from conftest import require_or_skip
+
+PERIOD = 1024  # jackd --period in .ci/run
+RATE = 48000
+
+
+def _jack_env() -> dict:
+    env = dict(os.environ)
+    env.setdefault("JACK_DEFAULT_SERVER", "howlci")
+    env.setdefault("JACK_NO_START_SERVER", "1")
+    env.setdefault("JACK_NO_AUDIO_RESERVATION", "1")
+    return env
+
+
+@pytest.fixture(scope="module")
+def jack_env():
+    env = _jack_env()
+    lsp = shutil.which("jack_lsp")
+    ok = False
+    if lsp:
+        r = subprocess.run([lsp], env=env, capture_output=True, text=True, timeout=20)
+        ok = r.returncode == 0 and "loopback:capture_1" in r.stdout
+    require_or_skip(ok, f"no JACK server {env['JACK_DEFAULT_SERVER']!r} with loopback ports "
+                        "(start: jackd --no-realtime --sync --name howlci -L 2 -d dummy --rate 48000 --period 1024)")
+    code = "import sounddevice"
+    r = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60)
+    require_or_skip(r.returncode == 0, f"sounddevice/PortAudio unavailable: {r.stderr.strip()[-200:]}")
+    return env
+
+
+def _howl(env, *args, timeout=120):
+    return subprocess.run([sys.executable, "-m", "howl", *args], env=env, capture_output=True, text=True,
+                          timeout=timeout)
+
+
+def test_devices_lists_the_jack_loopback(jack_env):
+    r = _howl(jack_env, "devices", "--json")
+    assert r.returncode == 0, r.stderr
+    names = [(d["name"], d["hostapi"]) for d in json.loads(r.stdout)["devices"]]
+    assert any(n == "loopback" and "JACK" in h for n, h in names)
+
+
+def test_measure_through_the_loopback_finds_latency_snr_and_an_impulse(jack_env, tmp_path):
+    out = tmp_path / "session"
+    r = _howl(jack_env, "measure", "--device", "loopback, JACK", "--reference-channel", "2", "--out", str(out),
+              "--yes", "--json", "--sweep-s", "1", "--tail-s", "0.5")
+    assert r.returncode == 0, r.stderr  # also: no SIGABRT (134) at exit
+    res = json.loads(r.stdout)
+    assert res["session_dir"] == str(out)
+    (pair,) = res["pairs"]
+    assert pair["latency_s"] == pytest.approx(PERIOD / RATE, abs=0.5 / RATE)  # to the sample
+    assert pair["latency_samples"] == PERIOD
+    assert pair["snr_db"] > 60
+    assert pair["clipped"] is False
+    ir, fs = sf.read(out / pair["ir_file"])
+    assert fs == RATE
+    # an impulse at time zero: the peak is sample 0 and holds most of the energy (the rest is
+    # the band-limiting of a 40 Hz – 20 kHz sweep: about (20000 − 40) / 24000 of full band)
+    assert int(np.argmax(np.abs(ir))) == 0
+    assert ir[0] == pytest.approx((20000 - 40) / 24000, abs=0.08)
+    assert ir[0] ** 2 / np.sum(ir**2) > 0.75
+    rec = json.loads((out / "session.json").read_text())
+    assert all((out / f["file"]).exists() for f in rec["pairs"][0]["raw_files"])
