@@ -829,8 +829,11 @@ def _header(page: _Page, data: SheetData, continued: bool) -> float:
     y0 = page.y
     bar_h = 15.0
     page.rect(page.left, y0, page.width, bar_h, lw=0, fill=_BLACK)
-    page.text(page.left + 6, y0 + 11, "GAIN SHEET" + ("  (continued)" if continued else ""), size=9, weight="bold", color="white")
+    title = "GAIN SHEET" + (f"  (continued) \u2022 {data.rig_name}" if continued else "")
+    page.text(page.left + 6, y0 + 11, title, size=9, weight="bold", color="white", max_w=page.width - 110)
     page.text(page.right - 6, y0 + 11, f"made {data.date}", size=8, color="white", ha="right")
+    if continued:
+        return bar_h + 12.0
     # FSM box on the right
     box_w, box_h = 108.0, 46.0
     bx = page.right - box_w
@@ -883,7 +886,7 @@ def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Blo
         ("margin", "MARGIN dB\n(spread)", 0.14),
         ("mark", "DON'T GO PAST\nchannel gain", 0.19),
         ("ring", "RINGS\nFIRST", 0.115),
-        ("verdict", "VERDICT\nat the gain needed", 0.155),
+        ("verdict", "VERDICT\nplan: at the gain needed", 0.155),
     ]
     head_h = 26.0
     row_h = 36.0 * scale
@@ -895,7 +898,8 @@ def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Blo
         for key, title, frac in cols:
             w = frac * page.width
             for i, part in enumerate(title.split("\n")):
-                page.text(x + 4, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.5, weight="bold" if i == 0 else "normal")
+                page.text(x + 4, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.5, weight="bold" if i == 0 else "normal",
+                          max_w=w - 5)
             x += w
         page.hline(page.left, page.right, y + head_h, lw=1.0)
 
@@ -928,19 +932,28 @@ def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Blo
             page.text(xs["margin"][0] + 4, sub, f"({_num(lo)} to {_num(hi)})", size=small, max_w=xs["margin"][1] - 6)
         mx, mw = xs["mark"]
         meas = measured_by_mic.get(m.name, [])
+        plan_verdict = m.verdict if m.is_open else "muted"
         if meas:
             worst = min(meas, key=lambda t: t.max_channel_gain_db)
             mark, mark_src = worst.max_channel_gain_db, f"measured; plan {_num(m.max_channel_gain_db)}"
             ring = _hz(worst.howl_freq_hz, exact=True)
             verdict = worst.verdict
+            verdict_src = "measured loop"
         else:
             mark, mark_src = m.max_channel_gain_db, "planned"
             ring = _band_hz(m.limiting_band_hz)
-            verdict = m.verdict if m.is_open else "muted"
-        page.text(mx + 4, base + 2 * scale, f"{_num(mark)} dB", size=big, weight="bold", max_w=mw - 8)
+            verdict = plan_verdict
+            verdict_src = "planned" if m.verdict and m.verdict not in ("muted", "not routed") else ""
+        if mark is None:
+            page.text(mx + 4, base, "\u2013", size=mid, weight="bold")
+            mark_src = "mic muted in the rig" if not m.is_open or m.verdict in ("muted", None) else "no limit found"
+        else:
+            page.text(mx + 4, base + 2 * scale, f"{_num(mark)} dB", size=big, weight="bold", max_w=mw - 8)
         page.text(mx + 4, sub + 1, mark_src, size=small, color=_BLACK, max_w=mw - 6)
         page.text(xs["ring"][0] + 4, base, ring, size=mid, max_w=xs["ring"][1] - 6)
         _verdict(page, xs["verdict"][0] + 6, base, verdict, mid, xs["verdict"][1] - 6)
+        if verdict_src:
+            page.text(xs["verdict"][0] + 4, sub + 1, verdict_src, size=small, max_w=xs["verdict"][1] - 6)
         page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
 
     blocks = []
@@ -1240,7 +1253,7 @@ def _place_map_labels(ax, items: list[MapItem]) -> None:
                     ha="left", va="bottom", zorder=5)
 
 
-def _plot_blocks(data: SheetData, panel_h: float = 112.0) -> list[_Block]:
+def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) -> list[_Block]:
     panels: dict[str, list[Curve]] = {}
     for c in data.curves:
         panels.setdefault(c.panel, []).append(c)
@@ -1248,7 +1261,7 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0) -> list[_Block]:
     ncol = 3
     own_map = None
     if data.placement is not None and data.placement.items:
-        crowded = len(data.placement.items) > 9
+        crowded = len(data.placement.items) > 14
         if not crowded and len(items) % ncol != 0:
             items.append(("map", data.placement))
         else:
@@ -1288,7 +1301,6 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0) -> list[_Block]:
 
         blocks.append(_Block((title_h if first else 0.0) + panel_h + extra, draw))
     if own_map is not None:
-        map_h = 200.0
 
         def draw_map(page: _Page, y: float) -> None:
             ax = page.axes(page.left + 28.0, y + 16.0, page.width * 0.62, map_h - 46.0)
@@ -1323,9 +1335,8 @@ def _cautions_block(page_proto: _Page, data: SheetData) -> _Block:
     return _Block(h, draw)
 
 
-def _notes_block(page_proto: _Page, data: SheetData) -> _Block:
-    size = 6.5
-    lead = 8.0
+def _notes_block(page_proto: _Page, data: SheetData, size: float = 6.5) -> _Block:
+    lead = size * 1.23
     wrapped = [page_proto.wrap(n, size, page_proto.width) for n in data.notes]
     h = 14.0 + sum(len(ls) * lead + 2.0 for ls in wrapped)
 
@@ -1349,25 +1360,36 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
     n = max(len(data.mics), 1)
     scale = 1.0 if n <= 5 else max(0.72, 1.0 - 0.04 * (n - 5))
 
-    def flow(panel_h: float) -> list[_Block]:
+    def flow(panel_h: float, map_h: float, notes_size: float) -> list[_Block]:
         blocks: list[_Block] = []
         blocks += _mic_table_blocks(proto.width, data, scale)
         blocks += _measured_table_blocks(data)
-        blocks += _plot_blocks(data, panel_h)
+        blocks += _plot_blocks(data, panel_h, map_h)
         blocks += _cuts_blocks(data)
-        blocks.append(_notes_block(proto, data))
+        blocks.append(_notes_block(proto, data, notes_size))
         return blocks
 
     cautions = _cautions_block(proto, data)
-    base_h = 112.0
-    blocks = flow(base_h)
-    # when everything fits on one page, give the spare height to the plots
     hp = _Page(paper, 0)
     header_h = _header(hp, data, continued=False)
-    free = (hp.bottom - cautions.height - 8.0) - (hp.top + header_h) - sum(b.height + 8.0 for b in blocks)
+    room = (hp.bottom - cautions.height - 8.0) - (hp.top + header_h)
+
+    def free(blocks: list[_Block]) -> float:
+        return room - sum(b.height + 8.0 for b in blocks)
+
+    # the normal layout; if it spills over a little, a compact one that fits one page
+    base_h = 112.0
+    blocks = flow(base_h, 200.0, 6.5)
+    if free(blocks) < 0:
+        compact = flow(92.0, 150.0, 6.0)
+        if free(compact) >= 0:
+            blocks = compact
     n_plot_rows = len(_plot_blocks(data, base_h))
-    if free > 0 and n_plot_rows:
-        blocks = flow(base_h + min(70.0, (free - 4.0) / n_plot_rows))
+    if free(blocks) > 0 and n_plot_rows and blocks[0].height > 0:
+        # everything fits on one page: give the spare height to the plots
+        grown = flow(base_h + min(70.0, (free(blocks) - 4.0) / n_plot_rows), 200.0, 6.5)
+        if free(grown) >= 0:
+            blocks = grown
 
     pages: list[_Page] = []
 

@@ -148,17 +148,8 @@ def _write_session(folder: Path) -> dict[str, Path]:
 
 
 def _margin_json(ir: Path) -> dict:
-    """`howl margin IR --json`; until that command is registered, the same function it calls (TEMPORARY)."""
-    import typer.main
-
-    if "margin" in typer.main.get_command(app).commands:
-        return _cli_json(["margin", str(ir), "--json"])
-    from howl.fileio import read_wav, to_jsonable
-    from howl.loop import nyquist_margin
-
-    mr = nyquist_margin(*read_wav(ir))
-    return to_jsonable({"gain_margin_db": mr.gain_margin_db, "magnitude_margin_db": mr.magnitude_margin_db,
-                        "howl_freq_hz": mr.howl_freq_hz})
+    """`howl margin IR --json`: the command the sheet's measured numbers must agree with."""
+    return _cli_json(["margin", str(ir), "--json"])
 
 
 PLAN_COLUMNS = ["MIC", "PAG", "NAG", "MARGIN", "DON'T", "RINGS", "VERDICT"]
@@ -209,7 +200,7 @@ def test_per_mic_numbers_on_the_page_equal_the_plan_json(planned):
         # the ring band is printed by its nominal ISO 266 label: within 3 % of the exact centre
         ring = m.get("limiting_channel_band_hz") or m["limiting_band_hz"]
         assert _freq_hz(row["RINGS"]) == pytest.approx(ring, rel=0.03), (m["name"], row["RINGS"])
-        assert " ".join(row["VERDICT"]).upper() == m["verdict"].upper()
+        assert " ".join(row["VERDICT"]).upper().startswith(m["verdict"].upper() + " PLANNED"), row["VERDICT"]
         # classic Davis figures beside PAG and NAG
         assert _close_to_print(_num(row["PAG"][row["PAG"].index("Davis") + 1]), m["davis_pag_db"])
         assert _close_to_print(_num(row["NAG"][row["NAG"].index("Davis") + 1]), m["davis_nag_db"])
@@ -294,7 +285,7 @@ def test_measured_mark_governs_the_per_mic_table(measured):
         assert "measured;" in rows[mic]["DON'T"]
     # the loop that is unstable as measured is called so
     assert margins["ambo"]["gain_margin_db"] < 0
-    assert " ".join(rows["ambo"]["VERDICT"]) == "WILL HOWL"
+    assert " ".join(rows["ambo"]["VERDICT"]).startswith("WILL HOWL measured loop"), rows["ambo"]["VERDICT"]
     text = subprocess.run(["pdftotext", "-l", "1", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
     assert "MEASURED 2026-11-30" in text
 
