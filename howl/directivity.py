@@ -200,12 +200,8 @@ def distance_factor(ree) -> np.ndarray:
 
 
 def _mic_a(mic: Mic) -> float:
-    if mic.pattern == "table":
-        raise InputError(
-            "polar table files are not supported by the planner yet; give a first-order pattern name",
-            key=f"mics.{mic.name}.pattern",
-        )
-    return first_order_coefficient(mic.pattern)
+    """First-order coefficient of a named-pattern mic (1.0 for a table mic, whose gain comes from its file)."""
+    return 1.0 if _is_table_mic(mic) else first_order_coefficient(mic.pattern)
 
 
 def mic_pattern_gain(a, cos_theta, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0) -> np.ndarray:
@@ -253,7 +249,7 @@ def mic_gain(mic: Mic, directions, freq_hz, *, ideal: bool = False) -> np.ndarra
     """
     d = _unit(directions)
     u = d @ aim_vector(mic.azimuth_rad, mic.elevation_rad)
-    return mic_pattern_gain(_mic_a(mic), u, freq_hz, ideal=ideal)
+    return mics_gain_cos((mic,), u[..., None], freq_hz, ideal=ideal)[..., 0, :]
 
 
 def pattern_ree(a, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0) -> np.ndarray:
@@ -272,7 +268,7 @@ def pattern_ree(a, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0)
 
 def mic_random_energy_efficiency(mic: Mic, freq_hz, *, ideal: bool = False) -> np.ndarray:
     """The mic's random-energy efficiency per frequency (F,): its pick-up of a diffuse field re omni."""
-    return pattern_ree(_mic_a(mic), freq_hz, ideal=ideal)
+    return mics_ree((mic,), freq_hz, ideal=ideal)[0]
 
 
 # ================================================================================== loudspeakers ====
@@ -300,14 +296,6 @@ def speaker_coverage_deg(speaker: Speaker, freq_hz) -> tuple[np.ndarray, np.ndar
     return w @ np.asarray(speaker.coverage_h_deg, float), w @ np.asarray(speaker.coverage_v_deg, float)
 
 
-def _check_speaker(speaker: Speaker) -> None:
-    if speaker.directivity_file:
-        raise InputError(
-            "directivity table files are not supported by the planner yet; give coverage_h_deg and coverage_v_deg",
-            key=f"speakers.{speaker.name}.directivity_file",
-        )
-
-
 def _floor2() -> float:
     return 10.0 ** (SPEAKER_REAR_FLOOR_DB / 10.0)
 
@@ -331,11 +319,11 @@ def coverage_gain(n_h, n_v, local_directions) -> np.ndarray:
 
 def speaker_gain(speaker: Speaker, directions, freq_hz) -> np.ndarray:
     """Amplitude (≥ 0, 1 on axis) of ``speaker`` toward unit vectors pointing FROM the speaker outward, (..., F)."""
-    _check_speaker(speaker)
     d = _unit(directions)
-    bw_h, bw_v = speaker_coverage_deg(speaker, freq_hz)
     local = d @ _frame(speaker.azimuth_rad, speaker.elevation_rad).T
-    return coverage_gain(coverage_exponent(bw_h, with_floor=True), coverage_exponent(bw_v, with_floor=True), local)
+    shape = local.shape[:-1]
+    g = speakers_gain_local((speaker,), local.reshape(1, -1, 3), freq_hz)[0]
+    return g.reshape(shape + (g.shape[-1],))
 
 
 def coverage_q(coverage_h_deg, coverage_v_deg) -> np.ndarray:
@@ -348,10 +336,8 @@ def coverage_q(coverage_h_deg, coverage_v_deg) -> np.ndarray:
 
 
 def speaker_q(speaker: Speaker, freq_hz) -> np.ndarray:
-    """Directivity factor Q per frequency (F,) of the loudspeaker's polar model (see the module docstring)."""
-    _check_speaker(speaker)
-    bw_h, bw_v = speaker_coverage_deg(speaker, freq_hz)
-    return coverage_q(bw_h, bw_v)
+    """Directivity factor Q per frequency (F,) of the loudspeaker's polar model or table (see the module docstring)."""
+    return speakers_q((speaker,), freq_hz)[0]
 
 
 def molloy_q(coverage_h_deg, coverage_v_deg) -> np.ndarray:
@@ -360,3 +346,188 @@ def molloy_q(coverage_h_deg, coverage_v_deg) -> np.ndarray:
     v = np.radians(np.asarray(coverage_v_deg, dtype=float))
     s = np.clip(np.sin(np.minimum(h, np.pi) / 2.0) * np.sin(np.minimum(v, np.pi) / 2.0), 1e-12, 1.0)
     return 180.0 / np.degrees(np.arcsin(s))
+
+
+# ==================================================================================== table files ====
+#
+# Polar tables are TOML files of our own layout (docs/plan.md shows them):
+#
+#   mic (axisymmetric about its axis):        loudspeaker (symmetric left/right and up/down):
+#     freq_hz = [125, 250, ...]                  freq_hz = [125, 250, ...]
+#     angle_deg = [0, 30, ..., 180]              angle_deg = [0, 15, ..., 180]
+#     gain_db = [[0, -0.4, ...], ...]            horizontal_db = [[0, -1.2, ...], ...]
+#                                                vertical_db = [[0, -2.0, ...], ...]
+#
+# one row per frequency, one value per angle, level re on axis in dB (each row is
+# renormalised to 0 dB at 0°). Values are interpolated linearly in angle and dB, and
+# on log frequency (held constant outside the table). Off the two planes a
+# loudspeaker's level in dB is blended as cos²φ·H(θ) + sin²φ·V(θ) around the axis
+# (the same blend the coverage model uses for its exponent). Q and REE follow by
+# numerical integration over the sphere.
+
+_TABLE_CACHE: dict = {}
+
+
+class PolarTable:
+    """A parsed polar table: ``freq_hz`` (F,), ``angle_rad`` (A,), ``levels_db`` (planes, F, A)."""
+
+    def __init__(self, freq_hz: np.ndarray, angle_rad: np.ndarray, levels_db: np.ndarray, source: str):
+        self.freq_hz = freq_hz
+        self.angle_rad = angle_rad
+        self.levels_db = levels_db
+        self.source = source
+
+    def level_db(self, plane: int, theta_rad: np.ndarray, freq_hz: np.ndarray) -> np.ndarray:
+        """Level (..., F) at off-axis angles (...) for the requested frequencies."""
+        f = _freq(freq_hz)
+        lv = self.levels_db[plane]  # (Ft, A)
+        # frequency first: interpolate each angle column on log f → (F, A)
+        lf = np.log(self.freq_hz)
+        w = np.stack([np.interp(np.log(f), lf, np.eye(len(lf))[k]) for k in range(len(lf))], axis=-1)  # (F, Ft)
+        at_f = w @ lv  # (F, A)
+        th = np.clip(np.asarray(theta_rad, float), 0.0, np.pi)
+        # angle: linear interpolation, vectorised over frequencies
+        idx = np.clip(np.searchsorted(self.angle_rad, th, side="right") - 1, 0, len(self.angle_rad) - 2)
+        a0, a1 = self.angle_rad[idx], self.angle_rad[idx + 1]
+        t = np.clip((th - a0) / (a1 - a0), 0.0, 1.0)[..., None]
+        return at_f.T[idx] * (1.0 - t) + at_f.T[idx + 1] * t  # (..., F)
+
+
+def _table_array(data: dict, key: str, path: str, shape: tuple[int, ...] | None = None) -> np.ndarray:
+    if key not in data:
+        raise InputError("missing key (a polar table needs freq_hz, angle_deg and its level tables)", file=path,
+                         key=key)
+    try:
+        arr = np.asarray(data[key], dtype=float)
+    except (TypeError, ValueError):
+        raise InputError("must be a list (of lists) of numbers", file=path, key=key) from None
+    if shape is not None and arr.shape != shape:
+        raise InputError(f"must have shape {shape} (one row per frequency, one value per angle), got {arr.shape}",
+                         file=path, key=key)
+    if arr.size == 0 or not np.all(np.isfinite(arr)):
+        raise InputError("must hold finite numbers", file=path, key=key)
+    return arr
+
+
+def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
+    """Read and validate a polar table file (cached per path and modification time)."""
+    import os
+    import tomllib
+
+    try:
+        stamp = os.stat(path).st_mtime_ns
+    except OSError:
+        raise InputError("file not found", file=path) from None
+    key = (path, planes, stamp)
+    if key in _TABLE_CACHE:
+        return _TABLE_CACHE[key]
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"TOML syntax error: {exc}", file=path) from None
+    except OSError as exc:
+        raise InputError(f"cannot be read ({exc.strerror or exc})", file=path) from None
+    allowed = ("freq_hz", "angle_deg", "description", "source") + planes
+    for k in data:
+        if k not in allowed:
+            raise InputError(f"unknown key; valid keys: {', '.join(allowed)}", file=path, key=k)
+    freq = _table_array(data, "freq_hz", path)
+    ang = _table_array(data, "angle_deg", path)
+    if freq.ndim != 1 or np.any(freq <= 0) or np.any(np.diff(freq) <= 0):
+        raise InputError("must be increasing frequencies > 0 Hz", file=path, key="freq_hz")
+    if ang.ndim != 1 or len(ang) < 2 or ang[0] != 0.0 or ang[-1] != 180.0 or np.any(np.diff(ang) <= 0):
+        raise InputError("must be increasing angles from 0 to 180 degrees", file=path, key="angle_deg")
+    levels = np.stack([_table_array(data, p, path, (len(freq), len(ang))) for p in planes])
+    levels = levels - levels[:, :, :1]  # 0 dB on axis
+    if np.any(levels > 20.0):
+        raise InputError("holds levels more than 20 dB above on-axis; expected dB re on axis", file=path,
+                         key=planes[0])
+    table = PolarTable(freq, np.radians(ang), levels, path)
+    _TABLE_CACHE[key] = table
+    return table
+
+
+def _mic_table(mic: Mic) -> PolarTable:
+    return load_polar_table(str(mic.pattern_file), ("gain_db",))
+
+
+def _speaker_table(speaker: Speaker) -> PolarTable:
+    return load_polar_table(str(speaker.directivity_file), ("horizontal_db", "vertical_db"))
+
+
+def _table_speaker_gain(table: PolarTable, local: np.ndarray, freq_hz) -> np.ndarray:
+    x, y, z = local[..., 0], local[..., 1], local[..., 2]
+    th = np.arccos(np.clip(x, -1.0, 1.0))
+    r2 = y * y + z * z
+    c2 = np.where(r2 > 0.0, y * y / np.where(r2 > 0.0, r2, 1.0), 0.5)[..., None]
+    db = c2 * table.level_db(0, th, freq_hz) + (1.0 - c2) * table.level_db(1, th, freq_hz)
+    return 10.0 ** (db / 20.0)
+
+
+_PHI = (np.arange(32) + 0.5) * (np.pi / 2) / 32  # midpoints on a quarter turn (the tables are symmetric)
+
+
+def _table_speaker_q(table: PolarTable, freq_hz) -> np.ndarray:
+    u = _GL_U[:, None]
+    s = np.sqrt(1.0 - u * u)
+    local = np.stack([np.broadcast_to(u, (48, 32)), s * np.cos(_PHI), s * np.sin(_PHI)], axis=-1)
+    g2 = _table_speaker_gain(table, local, freq_hz) ** 2  # (48, 32, F)
+    mean_over_sphere = 0.5 * np.einsum("k,kf->f", _GL_W, g2.mean(axis=1))
+    return 1.0 / mean_over_sphere
+
+
+# ============================================================ dispatch (first order or table) ====
+
+def _is_table_mic(mic: Mic) -> bool:
+    return mic.pattern == "table" or (mic.pattern_file is not None and mic.pattern not in MIC_FIRST_ORDER_A)
+
+
+def mics_gain_cos(mics, cos_theta, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0) -> np.ndarray:
+    """Signed gains (..., M, F) of several mics; ``cos_theta`` (..., M) per mic (last axis = mic)."""
+    cos_theta = np.asarray(cos_theta, float)
+    a = np.array([1.0 if _is_table_mic(m) else first_order_coefficient(m.pattern) for m in mics])
+    out = mic_pattern_gain(np.broadcast_to(a, cos_theta.shape), cos_theta, freq_hz, ideal=ideal,
+                           temperature_c=temperature_c)
+    for k, m in enumerate(mics):
+        if _is_table_mic(m):
+            th = np.arccos(np.clip(cos_theta[..., k], -1.0, 1.0))
+            out[..., k, :] = 10.0 ** (_mic_table(m).level_db(0, th, freq_hz) / 20.0)
+    return out
+
+
+def mics_ree(mics, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0) -> np.ndarray:
+    """Random-energy efficiency (M, F) of several mics (tables integrated numerically)."""
+    a = np.array([1.0 if _is_table_mic(m) else first_order_coefficient(m.pattern) for m in mics])
+    out = pattern_ree(a, freq_hz, ideal=ideal, temperature_c=temperature_c)
+    for k, m in enumerate(mics):
+        if _is_table_mic(m):
+            g = 10.0 ** (_mic_table(m).level_db(0, np.arccos(_GL_U), freq_hz) / 20.0)  # (48, F)
+            out[k] = 0.5 * np.einsum("k,kf->f", _GL_W, g * g)
+    return out
+
+
+def speakers_gain_local(speakers, local_directions, freq_hz) -> np.ndarray:
+    """Gains (S, P, F) of several loudspeakers toward local directions (S, P, 3) (forward, left, up)."""
+    w = octave_interp_matrix(freq_hz)
+    cov_h = np.array([s.coverage_h_deg for s in speakers], float) @ w.T
+    cov_v = np.array([s.coverage_v_deg for s in speakers], float) @ w.T
+    n_h = coverage_exponent(cov_h, with_floor=True)[:, None, :]
+    n_v = coverage_exponent(cov_v, with_floor=True)[:, None, :]
+    out = coverage_gain(n_h, n_v, local_directions)
+    for k, s in enumerate(speakers):
+        if s.directivity_file:
+            out[k] = _table_speaker_gain(_speaker_table(s), np.asarray(local_directions)[k], freq_hz)
+    return out
+
+
+def speakers_q(speakers, freq_hz) -> np.ndarray:
+    """Directivity factors (S, F) of several loudspeakers."""
+    w = octave_interp_matrix(freq_hz)
+    cov_h = np.array([s.coverage_h_deg for s in speakers], float) @ w.T
+    cov_v = np.array([s.coverage_v_deg for s in speakers], float) @ w.T
+    q = coverage_q(cov_h, cov_v)
+    for k, s in enumerate(speakers):
+        if s.directivity_file:
+            q[k] = _table_speaker_q(_speaker_table(s), freq_hz)
+    return q

@@ -468,9 +468,10 @@ def _plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_
     lst_pos = np.array([x.position_m for x in rig.listeners], float)
     spk_dir_l, spk_rev, spk_r_l, _ = speaker_field_pa2(rig.speakers, lst_pos, freqs, acoustics, room_constant_m2=rc)
     mic_objs = [rig.mics[k] for k in act]
-    a_coef = np.array([_dir._mic_a(mc) for mc in mic_objs])
     sens2 = (10.0 ** (np.array([mc.sensitivity_dbv_pa for mc in mic_objs]) / 20.0)) ** 2
-    ree = tr.mic_ree[act] if tr.mic_ree is not None else _dir.pattern_ree(a_coef, freqs, ideal=ideal_mics)  # (M, F)
+    temp = float(getattr(rig.room, "temperature_c", 20.0))
+    ree = tr.mic_ree[act] if tr.mic_ree is not None else _dir.mics_ree(mic_objs, freqs, ideal=ideal_mics,
+                                                                        temperature_c=temp)  # (M, F)
     nom = int(m)
     mpos = np.array([mc.position_m for mc in mic_objs], float)
     axes = np.array([_dir.aim_vector(mc.azimuth_rad, mc.elevation_rad) for mc in mic_objs], float)
@@ -498,8 +499,7 @@ def _plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_
             )
     # mic output per unit talker p1² (talker omni, Q = 1)
     cos_t = np.einsum("mk,mk->m", (tpos - mpos) / ds[:, None], axes)
-    temp = float(getattr(rig.room, "temperature_c", 20.0))
-    g_t = _dir.mic_pattern_gain(a_coef, cos_t, freqs, ideal=ideal_mics, temperature_c=temp)  # (M, F)
+    g_t = _dir.mics_gain_cos(mic_objs, cos_t, freqs, ideal=ideal_mics, temperature_c=temp)  # (M, F)
     t_rev = 16.0 * np.pi / (TALKER_Q * rc)  # (F,)
     u2 = sens2[:, None] * (np.exp(-air[None, :] * ds[:, None]) / (ds * ds)[:, None] * g_t * g_t + t_rev * ree)
     e2 = e**2  # (S, M)

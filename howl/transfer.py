@@ -101,19 +101,12 @@ class BandTransfer:
 
 
 def _speaker_arrays(speakers: tuple[Speaker, ...], freq_hz: np.ndarray):
-    """Positions (S,3), frames (S,3,3), model exponents (S,F) h and v, Q (S,F), p₁² (S,)."""
-    for s in speakers:
-        _dir._check_speaker(s)
-    w = _dir.octave_interp_matrix(freq_hz)
-    cov_h = np.array([s.coverage_h_deg for s in speakers], float) @ w.T
-    cov_v = np.array([s.coverage_v_deg for s in speakers], float) @ w.T
+    """Positions (S,3), frames (S,3,3), Q (S,F), p₁² (S,)."""
     pos = np.array([s.position_m for s in speakers], float)
     frames = _dir._frame(np.array([s.azimuth_rad for s in speakers]), np.array([s.elevation_rad for s in speakers]))
-    n_h = _dir.coverage_exponent(cov_h, with_floor=True)
-    n_v = _dir.coverage_exponent(cov_v, with_floor=True)
-    q = _dir.coverage_q(cov_h, cov_v)
+    q = _dir.speakers_q(speakers, freq_hz)
     p1 = on_axis_pressure2_pa2([s.sensitivity_db_spl_1v_1m for s in speakers])
-    return pos, frames, n_h, n_v, q, p1
+    return pos, frames, q, p1
 
 
 def _check_distance(r: np.ndarray, what: str, names: list[str], key: str, min_m: float = 1e-3) -> None:
@@ -135,14 +128,15 @@ def speaker_field_pa2(speakers, points_m, freq_hz, acoustics, *, room_constant_m
     Returns ``(direct, reverberant, distance_m (S, P), unit vectors speaker→point (S, P, 3))``.
     """
     f = np.asarray(freq_hz, float)
-    pos, frames, n_h, n_v, q, p1 = _speaker_arrays(tuple(speakers), f)
+    speakers = tuple(speakers)
+    pos, frames, q, p1 = _speaker_arrays(speakers, f)
     pts = np.atleast_2d(np.asarray(points_m, float))
     vec = pts[None, :, :] - pos[:, None, :]
     r = np.linalg.norm(vec, axis=-1)
     _check_distance(r, "a point is at loudspeaker", [s.name for s in speakers], "speakers.position_m")
     u = vec / r[..., None]
     local = np.einsum("spk,sjk->spj", u, frames)  # (S, P, 3) components forward/left/up
-    g = _dir.coverage_gain(n_h[:, None, :], n_v[:, None, :], local)  # (S, P, F)
+    g = _dir.speakers_gain_local(speakers, local, f)  # (S, P, F)
     air = np.asarray(acoustics.air_m_inv, float)
     direct = p1[:, None, None] * g * g * np.exp(-air[None, None, :] * r[..., None]) / (r * r)[..., None]
     rc = effective_room_constant_m2(acoustics) if room_constant_m2 is None else np.asarray(room_constant_m2, float)
@@ -170,12 +164,11 @@ def statistical_transfer(rig: Rig, freq_hz, acoustics=None, *, ideal_mics: bool 
     mic_pos = np.array([m.position_m for m in mics], float)
     direct_p, reverb_p, r, u = speaker_field_pa2(rig.speakers, mic_pos, f, acoustics)
     # mic side: gain toward the speaker (unit vector mic → speaker = −u)
-    a = np.array([_dir._mic_a(m) for m in mics], float)
     axes = np.array([_dir.aim_vector(m.azimuth_rad, m.elevation_rad) for m in mics], float)  # (M, 3)
     cos_m = -np.einsum("smk,mk->sm", u, axes)
     temp = float(getattr(rig.room, "temperature_c", 20.0))
-    gm = _dir.mic_pattern_gain(np.broadcast_to(a, cos_m.shape), cos_m, f, ideal=ideal_mics, temperature_c=temp)
-    ree = _dir.pattern_ree(a, f, ideal=ideal_mics, temperature_c=temp)  # (M, F)
+    gm = _dir.mics_gain_cos(mics, cos_m, f, ideal=ideal_mics, temperature_c=temp)  # (S, M, F)
+    ree = _dir.mics_ree(mics, f, ideal=ideal_mics, temperature_c=temp)  # (M, F)
     sens2 = (10.0 ** (np.array([m.sensitivity_dbv_pa for m in mics], float) / 20.0)) ** 2  # V²/Pa²
     direct = sens2[None, :, None] * direct_p * gm * gm
     reverb = sens2[None, :, None] * reverb_p[:, None, :] * ree[None, :, :]

@@ -201,3 +201,58 @@ def test_speaker_coverage_is_interpolated_on_log_frequency_and_held_outside():
     np.testing.assert_allclose(h, [200, 200, 190, 100, 100], atol=1e-9)
     q = d.speaker_q(s, [125.0, 8000.0])
     assert q[1] > q[0]
+
+
+# ---------------------------------------------------------------------------------- table files ----
+
+def _rows(values) -> str:
+    return "[" + ", ".join("[" + ", ".join(f"{v:.6f}" for v in row) + "]" for row in values) + "]"
+
+
+def _write_mic_table(path, a=0.5, floor_db=-60.0):
+    ang = np.arange(0.0, 181.0, 5.0)
+    g = np.abs(a + (1 - a) * np.cos(np.radians(ang)))
+    db = np.maximum(20 * np.log10(np.maximum(g, 1e-12)), floor_db)
+    freqs = [125, 250, 500, 1000, 2000, 4000, 8000]
+    path.write_text(f"freq_hz = {freqs}\nangle_deg = {ang.tolist()}\ngain_db = {_rows([db] * len(freqs))}\n")
+    return path
+
+
+def test_a_mic_polar_table_of_a_cardioid_behaves_like_the_first_order_cardioid(tmp_path):
+    # the table is sampled from Eargle's cardioid (Table 6-1) with a −60 dB floor at the null
+    p = _write_mic_table(tmp_path / "card.toml")
+    m = Mic("t", (1.0, 1.0, 1.0), 0.0, 0.0, "table", str(p))
+    g = d.mic_gain(m, np.stack([_dir(0.0), _dir(90.0)]), [1000.0])[:, 0]
+    assert 20 * math.log10(g[1] / g[0]) == pytest.approx(-6.0206, abs=0.01)
+    ree = d.mic_random_energy_efficiency(m, [250.0, 4000.0])
+    np.testing.assert_allclose(ree, 1 / 3, rtol=0.01)
+
+
+def test_a_speaker_table_of_power_cardioid_planes_has_the_closed_form_q(tmp_path):
+    # planes 20·n·log10((1+cos θ)/2) blended in dB around the axis are the floorless coverage model, whose
+    # Q is √((2n_h+1)(2n_v+1)) (derived in howl.directivity); the table path must integrate to it
+    ang = np.arange(0.0, 180.1, 1.0)
+    base = np.log10(np.maximum((1 + np.cos(np.radians(ang))) / 2, 1e-30))
+    n_h, n_v = float(d.coverage_exponent(90.0)), float(d.coverage_exponent(40.0))
+    h = np.maximum(20 * n_h * base, -200.0)
+    v = np.maximum(20 * n_v * base, -200.0)
+    freqs = [125, 1000, 8000]
+    p = tmp_path / "horn.toml"
+    p.write_text(f"freq_hz = {freqs}\nangle_deg = {ang.tolist()}\nhorizontal_db = {_rows([h] * 3)}\n"
+                 f"vertical_db = {_rows([v] * 3)}\n")
+    st = Speaker("st", (0.0, 0.0, 0.0), 0.0, 0.0, (90.0,) * 7, (60.0,) * 7, 100.0, str(p))
+    q0 = math.sqrt((2 * n_h + 1) * (2 * n_v + 1))
+    assert float(d.speaker_q(st, [1000.0])[0]) == pytest.approx(q0, rel=0.01)
+    g = d.speaker_gain(st, np.array([[math.cos(math.pi / 4), math.sin(math.pi / 4), 0.0]]), [500.0])
+    assert 20 * math.log10(g[0, 0]) == pytest.approx(-6.02, abs=0.05)
+
+
+def test_a_bad_table_file_is_an_input_error_naming_the_file_and_key(tmp_path):
+    p = tmp_path / "bad.toml"
+    p.write_text("freq_hz = [125, 250]\nangle_deg = [0, 90, 180]\ngain_db = [[0, -6, -40]]\n")
+    m = Mic("t", (1.0, 1.0, 1.0), 0.0, 0.0, "table", str(p))
+    with pytest.raises(InputError, match=r"bad\.toml.*gain_db.*shape"):
+        d.mic_gain(m, _dir(90.0)[None], [1000.0])
+    p.write_text("freq_hz = [125]\nangle_deg = [0, 180]\n")
+    with pytest.raises(InputError, match="gain_db"):
+        d.mic_random_energy_efficiency(Mic("t", (1, 1, 1), 0.0, 0.0, "table", str(p)), [1000.0])

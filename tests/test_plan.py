@@ -336,3 +336,20 @@ def test_plan_cli_refuses_a_bad_fraction_and_a_missing_images_method(monkeypatch
     monkeypatch.delattr(howl.images, "plan_with_images", raising=False)
     res = runner.invoke(app, ["plan", "--method", "images"])
     assert res.exit_code == 2 and "unavailable" in res.output
+
+
+def test_a_mic_given_by_a_polar_table_plans_like_the_pattern_it_samples(tmp_path):
+    # the table samples Eargle's first-order cardioid (Table 6-1) every 5°, floored at −80 dB
+    ang = np.arange(0.0, 181.0, 5.0)
+    db = np.maximum(20 * np.log10(np.maximum(np.abs(0.5 + 0.5 * np.cos(np.radians(ang))), 1e-12)), -80.0)
+    rows = "[" + ", ".join("[" + ", ".join(f"{v:.6f}" for v in db) + "]" for _ in range(2)) + "]"
+    p = tmp_path / "card.toml"
+    p.write_text(f"freq_hz = [125, 8000]\nangle_deg = {ang.tolist()}\ngain_db = {rows}\n")
+    rig = _monitor_rig()
+    tab = Mic("vox_a", rig.mics[0].position_m, rig.mics[0].azimuth_rad, 0.0, "table", str(p), -54.0)
+    rig_t = Rig(rig.name, rig.room, rig.speakers, (tab, rig.mics[1]), rig.talkers, rig.listeners, rig.mixes,
+                target_spl_db=85.0)
+    a = _plan(rig, peaks=True, ideal=True)
+    b = _plan(rig_t, peaks=True, ideal=True)
+    np.testing.assert_allclose(b.mics[0].pag_band_db, a.mics[0].pag_band_db, atol=0.1)
+    np.testing.assert_allclose(b.spectral_radius_db, a.spectral_radius_db, atol=0.1)
