@@ -34,7 +34,10 @@ The model, step by step (docs/plan.md explains it for users):
    non-central χ² (2 degrees of freedom) samples, divided by the mean
    (1 + K)·σ², gives the peak factor: 10·log10(ln(BT)) for K = 0, shrinking
    toward 0 dB as K grows. Its mean and its 10 % and 90 % quantiles
-   (F_max(x) = F(x)^N) give the worst-peak loop gain with a spread.
+   (F_max(x) = F(x)^N) give the worst-peak loop gain with a spread. B is the
+   band's width, but at least a third of an octave, so that the plan does not
+   depend on the display resolution (finer bands would otherwise each hold
+   fewer samples and report lower peaks).
 6. **PAG** of mic i per band: the acoustic gain its talker gets at the farthest
    listener (amplified level re the unamplified talker there) when all open
    mics are raised together, keeping the desk's balance, until the worst-peak
@@ -322,8 +325,9 @@ ASSUMPTIONS = (
     "from the talker",
     "PAG: all open mics raised together (the desk's balance kept) until the worst-peak loop gain reaches -FSM; "
     "quoted in the limiting band (smallest PAG - NAG)",
-    "peaks: Schroeder statistics (Rayleigh), Rician with the loop's direct-to-reverberant ratio; below the "
-    "Schroeder frequency the room is modal and the peak statistics are only indicative",
+    "peaks: Schroeder statistics (Rayleigh), Rician with the loop's direct-to-reverberant ratio, over at least a "
+    "third of an octave around each band centre; below the Schroeder frequency the room is modal and the peak "
+    "statistics are only indicative",
     "verdict: stable if PAG - NAG >= 0 at the 90 % worst peak, will howl if even the 10 % peak exceeds unity "
     "loop gain at the needed gain, marginal otherwise",
 )
@@ -401,7 +405,10 @@ def plan_rig(
     if freqs.size == 0:
         raise InputError(f"holds no band centre between {f_lo_hz:g} and {f_hi_hz:g} Hz", key="bands")
     lo, hi = band_edges_hz(freqs, fraction)
-    bw = np.asarray(hi) - np.asarray(lo)
+    # peak statistics over at least a third of an octave around each centre, so the worst peak does not
+    # depend on the display resolution (a finer band would otherwise hold fewer samples and a lower peak)
+    lo3, hi3 = band_edges_hz(freqs, 3)
+    bw = np.maximum(np.asarray(hi) - np.asarray(lo), np.asarray(hi3) - np.asarray(lo3))
     if acoustics is None:
         from .room import room_acoustics
 

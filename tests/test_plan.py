@@ -353,3 +353,12 @@ def test_a_mic_given_by_a_polar_table_plans_like_the_pattern_it_samples(tmp_path
     b = _plan(rig_t, peaks=True, ideal=True)
     np.testing.assert_allclose(b.mics[0].pag_band_db, a.mics[0].pag_band_db, atol=0.1)
     np.testing.assert_allclose(b.spectral_radius_db, a.spectral_radius_db, atol=0.1)
+
+
+def test_pag_does_not_depend_much_on_the_band_resolution():
+    # common practice, no source: the display resolution must not change the predicted gain by more than
+    # a fraction of a dB (the peak statistics are taken over at least a third of an octave)
+    rig = _monitor_rig()
+    pags = {fr: [m.pag_db for m in _plan(rig, peaks=True, ideal=False, fraction=fr).mics] for fr in (3, 12, 24)}
+    np.testing.assert_allclose(pags[12], pags[3], atol=0.5)
+    np.testing.assert_allclose(pags[24], pags[3], atol=0.5)
