@@ -145,7 +145,7 @@ def _engine(l: np.ndarray, x: np.ndarray, g, ceiling: float | None, partition: i
             for i in range(n_ch):
                 for j in range(n_ch):
                     if tail_nz[i, j]:
-                        acc[i] += np.einsum("qf,qf->f", win[:, j], Tspec[:, i, j])
+                        acc[i] += (win[:, j] * Tspec[:, i, j]).sum(axis=0)
             fb[:] = np.fft.irfft(acc, n=2 * P, axis=1)[:, P:]
         else:
             fb[:] = 0.0
