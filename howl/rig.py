@@ -25,6 +25,17 @@ Octave bands
 ------------
 Material absorption, measured RT60 and loudspeaker coverage are given per
 octave band at the nominal centres :data:`OCTAVE_BANDS_HZ` (125 Hz–8 kHz).
+
+Loading
+-------
+:func:`load_room` and :func:`load_rig` read the TOML files described in
+``docs/file-formats.md`` (a rig names its room file relative to itself) and
+return these frozen dataclasses, or raise :class:`howl.errors.InputError` —
+and nothing else — naming the file, the key path (list items counted from 0,
+``speakers[2].position_m``), the bad value and what was expected.
+:func:`with_changes` applies ``--what-if`` edits (``mics.lectern.pattern=omni``)
+and re-validates; :func:`rig_to_dict` gives a rig back as file data;
+:func:`bundled_rig_path` is the example shipped in ``howl/data/examples``.
 """
 
 from __future__ import annotations
@@ -314,6 +325,14 @@ def _size(value: _Any, key: str, hi: float, unit: str, file: str | None) -> floa
     return _v.in_range(x, key, 0.0, hi, unit=unit, lo_open=True, file=file)
 
 
+def _known_keys(table: dict, name: str, allowed, *, file: str | None) -> None:
+    """Refuse unknown keys (did-you-mean hint); a key with control characters is shown escaped."""
+    try:
+        _v.known_keys(table, name, allowed, file=file)
+    except _InputError as exc:
+        raise _InputError(exc.message, file=file, key=_printable(exc.key) if exc.key else exc.key) from None
+
+
 def _boolean(value: _Any, key: str, file: str | None) -> bool:
     if not isinstance(value, bool):
         raise _v.fail(key, "true or false", value, file=file)
@@ -372,7 +391,7 @@ def _parse_surface(
     for i, item in enumerate(value):
         pk = f"{key}[{i}]"
         item = _table(item, pk, file, "a table {material = ..., area_m2 = ...}")
-        _v.known_keys(item, pk, PATCH_KEYS, file=file)
+        _known_keys(item, pk, PATCH_KEYS, file=file)
         mat = _material(_require(item, "material", pk, file, "a material name"), f"{pk}.material", table, file)
         if "area_m2" in item:
             a = _v.positive(item["area_m2"], f"{pk}.area_m2", unit="m²", file=file)
@@ -423,7 +442,7 @@ def _material(value: _Any, key: str, table: dict[str, Material], file: str | Non
 def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room") -> Room:
     from .materials import band_values, material_table, parse_materials
 
-    _v.known_keys(data, "", ROOM_KEYS, file=file)
+    _known_keys(data, "", ROOM_KEYS, file=file)
     name = _text(data.get("name", default_name), "name", file, allow_empty=False)
     description = _text(data.get("description", ""), "description", file)
     temperature_c = _v.in_range(data.get("temperature_c", 20.0), "temperature_c", -20.0, 50.0, unit="°C", file=file)
@@ -446,7 +465,7 @@ def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room")
         )
     if has_box:
         box = _table(data["shoebox"], "shoebox", file)
-        _v.known_keys(box, "shoebox", SHOEBOX_KEYS, file=file)
+        _known_keys(box, "shoebox", SHOEBOX_KEYS, file=file)
         dims = []
         for k in SHOEBOX_KEYS:
             val = _require(box, k, "shoebox", file, "a size in metres > 0")
@@ -458,7 +477,7 @@ def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room")
                 key="surfaces",
             )
         surf = _table(data["surfaces"], "surfaces", file)
-        _v.known_keys(surf, "surfaces", SHOEBOX_SURFACES, file=file)
+        _known_keys(surf, "surfaces", SHOEBOX_SURFACES, file=file)
         missing = [s for s in SHOEBOX_SURFACES if s not in surf]
         if missing:
             raise _InputError(
@@ -482,7 +501,7 @@ def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room")
         raise _InputError("[surfaces] applies to a [shoebox] room only; a free shape uses free_shape.mean_absorption, "
                           "free_shape.material or free_shape.rt60_s", file=file, key="surfaces")
     free = _table(data["free_shape"], "free_shape", file)
-    _v.known_keys(free, "free_shape", FREE_SHAPE_KEYS, file=file)
+    _known_keys(free, "free_shape", FREE_SHAPE_KEYS, file=file)
     volume = _size(_require(free, "volume_m3", "free_shape", file, "a volume in m³ > 0"),
                    "free_shape.volume_m3", 1e9, "m³", file)
     surface = _size(_require(free, "surface_m2", "free_shape", file, "a surface in m² > 0"),
@@ -539,9 +558,21 @@ def load_room(path: str | _os.PathLike) -> Room:
     Returns a frozen :class:`Room`; raises only :class:`howl.errors.InputError`.
     """
     p = _Path(path)
-    data = _read_toml(p)
-    room = _room_from_dict(data, file=str(p), default_name=p.stem)
-    return _check_room_absorbs(room, str(p))
+    try:
+        data = _read_toml(p)
+        room = _room_from_dict(data, file=str(p), default_name=p.stem)
+        return _check_room_absorbs(room, str(p))
+    except _InputError as exc:
+        raise _one_line(exc) from None
+
+
+def _one_line(exc: _InputError) -> _InputError:
+    """The same error with any control character in its parts escaped, so it prints as one line."""
+    parts = [exc.message, exc.file, exc.key]
+    if all(x is None or _printable(x) == x for x in parts):
+        return exc
+    return _InputError(_printable(exc.message), file=None if exc.file is None else _printable(exc.file),
+                       key=None if exc.key is None else _printable(exc.key))
 
 
 # --------------------------------------------------------------------------- rig ----
@@ -571,7 +602,7 @@ def _angle(table: dict, name: str, key: str, file: str | None, lo: float, hi: fl
 def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
     from .materials import band_values
 
-    _v.known_keys(data, "", RIG_KEYS, file=file)
+    _known_keys(data, "", RIG_KEYS, file=file)
     name = _text(data.get("name", default_name), "name", file, allow_empty=False)
     description = _text(data.get("description", ""), "description", file)
     notes_raw = data.get("notes", [])
@@ -593,7 +624,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     speakers = []
     for i, s in enumerate(_list_of_tables(_require(data, "speakers", "", file, "[[speakers]] blocks"), "speakers", file)):
         k = f"speakers[{i}]"
-        _v.known_keys(s, k, SPEAKER_KEYS, file=file)
+        _known_keys(s, k, SPEAKER_KEYS, file=file)
         sname = _name(_require(s, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(s, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         az = _angle(s, "azimuth_deg", k, file, -360.0, 360.0, None)
@@ -623,7 +654,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     mics = []
     for i, m in enumerate(_list_of_tables(_require(data, "mics", "", file, "[[mics]] blocks"), "mics", file)):
         k = f"mics[{i}]"
-        _v.known_keys(m, k, MIC_KEYS, file=file)
+        _known_keys(m, k, MIC_KEYS, file=file)
         mname = _name(_require(m, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(m, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         az = _angle(m, "azimuth_deg", k, file, -360.0, 360.0, None)
@@ -664,7 +695,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     talkers = []
     for i, t in enumerate(_list_of_tables(data.get("talkers", []), "talkers", file)):
         k = f"talkers[{i}]"
-        _v.known_keys(t, k, TALKER_KEYS, file=file)
+        _known_keys(t, k, TALKER_KEYS, file=file)
         tname = _name(_require(t, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(t, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         mic = _text(_require(t, "mic", k, file, "the name of the mic this talker uses"), f"{k}.mic", file,
@@ -687,7 +718,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     for i, lst in enumerate(_list_of_tables(_require(data, "listeners", "", file, "[[listeners]] blocks (at least "
                                                      "the farthest seat)"), "listeners", file)):
         k = f"listeners[{i}]"
-        _v.known_keys(lst, k, LISTENER_KEYS, file=file)
+        _known_keys(lst, k, LISTENER_KEYS, file=file)
         lname = _name(_require(lst, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(lst, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         listeners.append(Listener(lname, pos))
@@ -699,7 +730,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     mixes = []
     for i, mx in enumerate(_list_of_tables(_require(data, "mixes", "", file, "[[mixes]] blocks"), "mixes", file)):
         k = f"mixes[{i}]"
-        _v.known_keys(mx, k, MIX_KEYS, file=file)
+        _known_keys(mx, k, MIX_KEYS, file=file)
         xname = _name(_require(mx, "name", k, file, "a name"), f"{k}.name", file)
         kind = _v.choice(mx.get("kind", "mains"), f"{k}.kind", MIX_KINDS, file=file)
         spk = _require(mx, "speakers", k, file, "a list of loudspeaker names")
@@ -754,7 +785,13 @@ def load_rig(path: str | _os.PathLike) -> Rig:
 
     Returns a frozen :class:`Rig`; raises only :class:`howl.errors.InputError`.
     """
-    p = _Path(path)
+    try:
+        return _load_rig(_Path(path))
+    except _InputError as exc:
+        raise _one_line(exc) from None
+
+
+def _load_rig(p: _Path) -> Rig:
     data = _read_toml(p)
     file = str(p)
     room_ref = _text(_require(data, "room_file", "", file, "the path of the room file, relative to this rig file"),
@@ -833,7 +870,13 @@ def _parse_value(text: str, option: str, assignment: str) -> _Any:
     if _BARE_WORD.match(text) and text not in ("true", "false", "nan", "inf"):
         return text  # a bare word: a name or a choice (pattern=supercardioid)
     raise _InputError(f"value {text!r} is not a TOML value (a number, true/false, \"text\" or [list])",
-                      key=f"{option} {assignment}")
+                      key=f"{option} {_printable(assignment)}")
+
+
+def _printable(text: _Any) -> str:
+    """The assignment as the user typed it, with control characters escaped (keeps errors on one line)."""
+    s = str(text)
+    return s if s.isprintable() else s.encode("unicode_escape").decode("ascii")
 
 
 def with_changes(rig: Rig, assignments: list[str] | tuple[str, ...], *, option: str = "--what-if") -> Rig:
@@ -851,9 +894,10 @@ def with_changes(rig: Rig, assignments: list[str] | tuple[str, ...], *, option: 
     data = rig_to_dict(rig)
     current = rig
     for assignment in assignments:
-        where = f"{option} {assignment}"
+        where = f"{option} {_printable(assignment)}"
         if not isinstance(assignment, str) or "=" not in assignment:
-            raise _InputError("expected key=value, e.g. mics.lectern.pattern=supercardioid", key=f"{option} {assignment}")
+            raise _InputError("expected key=value, e.g. mics.lectern.pattern=supercardioid",
+                              key=f"{option} {_printable(assignment)}")
         path_s, value_s = (part.strip() for part in assignment.split("=", 1))
         value = _parse_value(value_s, option, assignment)
         parts = path_s.split(".")

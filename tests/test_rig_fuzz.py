@@ -128,3 +128,34 @@ def test_random_room_files_load_or_raise_input_error(tmp_path_factory, doc):
     p = folder / "room.toml"
     p.write_text(dumps_toml(doc), encoding="utf-8")
     _check(load_room, p)
+
+
+_PATHS = st.sampled_from([
+    "mics.lectern.pattern", "mics.lectern.position_m", "mics.choir.open", "mics.lectern.sensitivity_dbv_pa",
+    "speakers.left.azimuth_deg", "speakers.right.coverage_h_deg", "speakers.left.role", "speakers.left.name",
+    "mixes.mains.gains_db.lectern", "mixes.mains.speakers", "mixes.mains.kind", "talkers.speaker1.mic",
+    "listeners.back.position_m", "fsm_db", "ead_m", "target_spl_db", "mics.ghost.open", "nonsense", "mics..x",
+    "mixes.mains.gains_db", "speakers.left.position_m.0",
+])
+_VALUE_TEXT = st.one_of(
+    st.sampled_from(["supercardioid", "true", "false", "nan", "inf", "-inf", "3", "-3", "1e400", "[1, 2, 3]",
+                     "[0.5, 4, 1.3]", "[2.0, 1.0, 2.5]", '"x"', "[]", "{}", "{a = 1}", "[1, 2", "= =", "",
+                     "lectern", "monitor", "[90, 90, 90, 90, 90, 90, 90]"]),
+    st.text(max_size=10),
+)
+
+
+@settings(max_examples=100, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(edits=st.lists(st.tuples(_PATHS, _VALUE_TEXT), min_size=1, max_size=3))
+def test_random_what_if_edits_give_a_rig_or_an_input_error(tmp_path_factory, edits):
+    folder = _folder(tmp_path_factory, "fuzz_whatif")
+    (folder / "room.toml").write_text(dumps_toml(ROOM), encoding="utf-8")
+    (folder / "rig.toml").write_text(dumps_toml(RIG), encoding="utf-8")
+    rig = load_rig(folder / "rig.toml")
+    from howl.rig import with_changes
+
+    try:
+        with_changes(rig, [f"{p}={v}" for p, v in edits])
+    except InputError as exc:
+        assert "--what-if" in str(exc) and "\n" not in str(exc)
