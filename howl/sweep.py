@@ -183,6 +183,10 @@ class Deconvolved:
     n_valid: int
     sample_rate_hz: int
     level_lin: float
+    nfft: int = 0
+    sweep_spectrum: np.ndarray | None = None  # rfft(sweep, nfft)
+    recording_spectrum: np.ndarray | None = None  # rfft(recording, nfft), (n_channels, nfft//2+1)
+    period_samples: int = 0
 
     @property
     def n_repeats(self) -> int:
@@ -264,7 +268,9 @@ def deconvolve(
         n_pre = int(round(pre_s * fs))
     n_pre = max(0, min(n_pre, n - 1))
     total = n_repeats * period
-    nfft = sp_fft.next_fast_len(total + n - 1, real=True)
+    # circular deconvolution is enough: the acausal part deeper than n_pre wraps to indices
+    # after the last valid linear-IR sample, so nothing that is used is aliased
+    nfft = sp_fft.next_fast_len(total + n_pre + 1, real=True)
     xf = sp_fft.rfft(sweep.signal, nfft, workers=_WORKERS)
     x2 = np.abs(xf) ** 2
     freqs = np.fft.rfftfreq(nfft, 1.0 / fs)
@@ -272,19 +278,18 @@ def deconvolve(
     eps = 1e-3 * float(np.median(x2[inband])) if np.any(inband) else 1e-12
     finv = np.conj(xf) / (x2 + eps)  # the sweep's regularised spectral inverse [4]_
     if band_limit:
-        finv = finv * band_window(freqs, sweep.f_lo_hz, sweep.f_hi_hz, fs)
+        finv *= band_window(freqs, sweep.f_lo_hz, sweep.f_hi_hz, fs)
     yf = sp_fft.rfft(y[:total].T, nfft, axis=-1, workers=_WORKERS)
     h = sp_fft.irfft(yf * finv, nfft, axis=-1, workers=_WORKERS)
-    # time zero to index N − 1, as in the full linear convolution with Farina's inverse
-    # filter; the harmonic (acausal) part wraps from the end of the buffer to before it
-    full = np.concatenate([h[:, nfft - (n - 1):], h[:, : total]], axis=1)
-    full /= float(level_lin)
+    if level_lin != 1.0:
+        h /= float(level_lin)
     seg_len = n_pre + n_valid
     segs = np.empty((n_repeats, y.shape[1], seg_len))
     for r in range(n_repeats):
-        z = r * period + n - 1
-        segs[r] = full[:, z - n_pre : z + n_valid]
-    return Deconvolved(segs, n_pre, n_valid, fs, float(level_lin))
+        z = r * period  # time zero of repeat r; harmonics before it (wrapping for r = 0)
+        idx = np.arange(z - n_pre, z + n_valid) % nfft
+        segs[r] = h[:, idx]
+    return Deconvolved(segs, n_pre, n_valid, fs, float(level_lin), nfft, xf, yf, period)
 
 
 # ------------------------------------------------------------------ quality figures
@@ -431,6 +436,25 @@ def _envelope_peak(s: np.ndarray, a: int, b: int) -> int:
     return int(np.argmax(env))
 
 
+def _band_energy_fn(x: np.ndarray, sample_rate_hz: float):
+    """Energy of x in [f_min, f_max], one FFT for many bands."""
+    x = np.asarray(x, dtype=float)
+    nfft = sp_fft.next_fast_len(max(1, x.shape[-1]), real=True)
+    p = np.abs(sp_fft.rfft(x, nfft)) ** 2
+    p[1:] *= 2.0
+    if nfft % 2 == 0:
+        p[-1] /= 2.0
+    f = np.fft.rfftfreq(nfft, 1.0 / sample_rate_hz)
+    c = np.concatenate([[0.0], np.cumsum(p)]) / nfft
+
+    def energy(f_min_hz: float, f_max_hz: float) -> float:
+        a = int(np.searchsorted(f, f_min_hz, side="left"))
+        b = int(np.searchsorted(f, f_max_hz, side="right"))
+        return float(c[b] - c[a]) if b > a else 0.0
+
+    return energy
+
+
 def _energy_above(x: np.ndarray, sample_rate_hz: float, f_min_hz: float, f_max_hz: float = math.inf) -> float:
     """Energy of x in the band [f_min, f_max] (Parseval on a one-sided spectrum)."""
     x = np.asarray(x, dtype=float)
@@ -482,6 +506,8 @@ def harmonic_distortion(
     # the linear IR with its own pre-ringing (band-limiting is zero-phase, so it rings both ways)
     lin = s[max(0, p_lin - pre) : zero_index + lin.shape[0]]
     nz = None if noise is None or np.asarray(noise).size < 16 else np.asarray(noise, dtype=float)
+    lin_band = _band_energy_fn(lin, fs)
+    noise_band = _band_energy_fn(nz, fs) if nz is not None else None
     orders, hdb, offs, lim = [], [], [], []
     total = 0.0
     prev_start = p_lin - pre
@@ -502,8 +528,8 @@ def harmonic_distortion(
         w = w.copy()
         w[-m:] *= _fade_out(m)
         ek = _energy_above(w, fs, f_min, f_max)
-        e1 = max(_energy_above(lin, fs, f_min, f_max), 1e-300)
-        expected_noise = 0.0 if nz is None else _energy_above(nz, fs, f_min, f_max) / nz.shape[0] * w.size
+        e1 = max(lin_band(f_min, f_max), 1e-300)
+        expected_noise = 0.0 if nz is None else noise_band(f_min, f_max) / nz.shape[0] * w.size
         net = ek - expected_noise
         orders.append(k)
         offs.append(int(start + _envelope_peak(s, start, prev_start) - p_lin))
@@ -588,8 +614,9 @@ def octave_noise_floor(
 def explained_fraction(recording: np.ndarray, sweep: Sweep, ir_with_latency: np.ndarray, level_lin: float) -> float:
     """Share of the recording's energy that the sweep through the IR explains.
 
-    ``1 − Σ(y − a·x⊛h)² / Σy²`` over the recording. A clean measurement gives nearly 1;
-    a recording that does not contain the sweep (wrong channel, loud talk) gives ≈ 0 or less.
+    ``1 − Σ(y − a·x⊛h)² / Σy²`` over the recording (one sweep at its start). A clean
+    measurement gives nearly 1; a recording that does not contain the sweep (wrong
+    channel, loud talk) gives ≈ 0 or less.
     """
     y = np.asarray(recording, dtype=float)
     e = float(np.sum(y**2))
@@ -604,6 +631,31 @@ def explained_fraction(recording: np.ndarray, sweep: Sweep, ir_with_latency: np.
     m = min(n, nfft)
     yhat[:m] = yh[:m] * level_lin
     return float(1.0 - np.sum((y - yhat) ** 2) / e)
+
+
+def _explained_from_spectra(dec: Deconvolved, channel: int, ir_with_latency: np.ndarray, n_repeats: int) -> float:
+    """:func:`explained_fraction` over all repeats, from the spectra the deconvolution already has.
+
+    Parseval on the circular residual Y − a·X·R·H (R = Σ_r e^{−jω r P}, the repeats);
+    exact as long as the buffer holds sweep ⊛ IR without wrapping, which the layout of
+    :func:`deconvolve` guarantees for IRs shorter than the valid window.
+    """
+    yf = dec.recording_spectrum[channel]
+    nfft = dec.nfft
+    w = np.full(yf.shape, 2.0)
+    w[0] = 1.0
+    if nfft % 2 == 0:
+        w[-1] = 1.0
+    e = float(np.sum(w * np.abs(yf) ** 2))
+    if e <= 0.0:
+        return 0.0
+    hf = sp_fft.rfft(np.asarray(ir_with_latency, dtype=float), nfft, workers=_WORKERS)
+    k = np.arange(yf.shape[0])
+    rep = np.zeros(yf.shape, dtype=complex)
+    for r in range(n_repeats):
+        rep += np.exp(-2j * np.pi * k * (r * dec.period_samples) / nfft)
+    resid = yf - dec.level_lin * dec.sweep_spectrum * rep * hf
+    return float(1.0 - np.sum(w * np.abs(resid) ** 2) / e)
 
 
 # --------------------------------------------------------------- whole analysis
@@ -720,9 +772,8 @@ def analyse(
                                noise=mean[tail_start:])
     cols = [mic_index] + ([reference_index] if reference_index is not None else [])
     clip = clipping(y[:, cols])
-    period = period_samples if period_samples is not None else y.shape[0]
     h_lat = np.concatenate([np.zeros(start), mean[:end]])
-    expl = explained_fraction(y[:period, mic_index], sweep, h_lat, level_lin)
+    expl = _explained_from_spectra(dec, mic_index, h_lat, dec.n_repeats)
     rms = float(np.sqrt(np.mean(y[:, mic_index] ** 2)))
     centres, g_db, n_db = octave_noise_floor(mean[:end], mean[tail_start:], fs, sweep.f_lo_hz, sweep.f_hi_hz)
     return Analysis(
