@@ -442,6 +442,11 @@ def _material(value: _Any, key: str, table: dict[str, Material], file: str | Non
 def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room") -> Room:
     from .materials import band_values, material_table, parse_materials
 
+    if "room_file" in data and "room_file" not in ROOM_KEYS:
+        raise _InputError(
+            f"this looks like a rig file (it names room_file = {data['room_file']!r}); expected a room file",
+            file=file, key="room_file",
+        )
     _known_keys(data, "", ROOM_KEYS, file=file)
     name = _text(data.get("name", default_name), "name", file, allow_empty=False)
     description = _text(data.get("description", ""), "description", file)
@@ -794,6 +799,9 @@ def load_rig(path: str | _os.PathLike) -> Rig:
 def _load_rig(p: _Path) -> Rig:
     data = _read_toml(p)
     file = str(p)
+    if "room_file" not in data and ("shoebox" in data or "free_shape" in data):
+        raise _InputError("this looks like a room file (it has [shoebox] or [free_shape]); expected a rig file "
+                          "that names its room with room_file (try `howl room` for a room)", file=file, key="room_file")
     room_ref = _text(_require(data, "room_file", "", file, "the path of the room file, relative to this rig file"),
                      "room_file", file, allow_empty=False)
     room_path = _Path(room_ref)

@@ -552,3 +552,8 @@ def test_check_what_if_errors_name_the_option(tmp_path):
 def test_check_what_if_applies_the_change(tmp_path):
     result = runner.invoke(app, ["check", str(write_case(tmp_path)), "--what-if", "mics.choir.open=true", "--json"])
     assert result.exit_code == 0 and json.loads(result.stdout)["n_open_mics"] == 2
+
+
+def test_check_given_a_room_file_says_so():
+    result = runner.invoke(app, ["check", str(REPO / "rooms" / "school_gym.toml")])
+    _one_line_error(result, "school_gym.toml", "room file", "howl room")

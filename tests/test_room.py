@@ -279,3 +279,8 @@ def test_room_command_gives_one_line_and_exit_2_for_bad_rooms(tmp_path, text, ne
 def test_room_command_refuses_a_bad_q_and_a_missing_file(tmp_path):
     _room_error(runner.invoke(app, ["room", str(ROOM_FILES[0]), "--q", "0.5"]), "--q")
     _room_error(runner.invoke(app, ["room", str(tmp_path / "none.toml")]), "none.toml", "not found")
+
+
+def test_room_command_given_a_rig_file_says_so():
+    _room_error(runner.invoke(app, ["room", str(REPO / "examples" / "gym_assembly.toml")]),
+                "gym_assembly.toml", "room_file", "rig file")
