@@ -434,12 +434,12 @@ def nyquist_margin(
     L = _Loop(h, fs, g, sos)
 
     n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
-    f_all = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    i0 = int(np.searchsorted(f_all, lo, side="left"))
-    i1 = int(np.searchsorted(f_all, hi, side="right"))
+    df = fs / n_fft
+    i0 = int(math.ceil(lo / df - 1e-9))
+    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
     H_all = np.fft.rfft(h, n_fft)
     dc_gain = float(H_all[0].real) * g
-    f = f_all[i0:i1]
+    f = np.arange(i0, i1) * df
     Lg = H_all[i0:i1] * g
     if sos is not None and f.size:
         Lg = Lg * _sos_response(sos, f, fs)
@@ -450,15 +450,17 @@ def nyquist_margin(
     if f[-1] < hi:
         f = np.concatenate([f, [hi]])
         Lg = np.concatenate([Lg, L(hi)])
-    Lg[(f == 0.0) | (f == fs / 2.0)] = Lg[(f == 0.0) | (f == fs / 2.0)].real
+    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
+        if f[e] == 0.0 or f[e] == fs / 2.0:
+            Lg[e] = Lg[e].real
     re, im = Lg.real, Lg.imag
-    mag = np.abs(Lg)
-    df = fs / n_fft
+    mag2 = re * re + im * im
     tol_hz = 1e-12 * fs
 
     # ---- crossings: sign changes of Im with Re > 0, and exact real points
-    s = np.sign(im)
-    iv = np.flatnonzero(s[:-1] * s[1:] < 0)
+    pos = im > 0
+    neg = im < 0
+    iv = np.flatnonzero((pos[:-1] & neg[1:]) | (neg[:-1] & pos[1:]))
     iv = iv[(re[iv] > 0) | (re[iv + 1] > 0)]
     t = im[iv] / (im[iv] - im[iv + 1])
     fc = f[iv] + t * (f[iv + 1] - f[iv])
@@ -490,10 +492,10 @@ def nyquist_margin(
 
     # ---- phase-blind margin: the global maximum of |L| in the band
     # (parabolic interpolation of |L| in dB on the grid, then checked exactly)
-    ipk = int(np.argmax(mag))
-    fpk, mpk = float(f[ipk]), float(mag[ipk])
-    if 0 < ipk < mag.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
-        y0, y1, y2 = db(mag[ipk - 1 : ipk + 2])
+    ipk = int(np.argmax(mag2))
+    fpk, mpk = float(f[ipk]), float(np.sqrt(mag2[ipk]))
+    if 0 < ipk < mag2.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
+        y0, y1, y2 = 10.0 * np.log10(np.maximum(mag2[ipk - 1 : ipk + 2], 1e-300))
         den = y0 - 2 * y1 + y2
         if den < 0:
             off = 0.5 * (y0 - y2) / den
@@ -526,18 +528,18 @@ def nyquist_margin(
         tau_g = float("nan")
 
     # ---- risks: crossings, plus peaks of |L| whose lobe holds no crossing
-    interior = np.arange(1, mag.size - 1)
+    mid, left, right = mag2[1:-1], mag2[:-2], mag2[2:]
     # (a peak must stand out of its neighbours by more than rounding: a flat loop has none)
-    m_in = mag[interior] * (1.0 - 1e-9)
-    pk = interior[(m_in >= mag[interior - 1]) & (m_in > mag[interior + 1])]
-    mins = interior[(mag[interior] <= mag[interior - 1]) & (mag[interior] < mag[interior + 1])]
+    m_in = mid * (1.0 - 2e-9)
+    pk = np.flatnonzero((m_in >= left) & (m_in > right)) + 1
+    mins = np.flatnonzero((mid <= left) & (mid < right)) + 1
     lobe_pk = np.searchsorted(mins, pk)
-    lobe_cr = np.searchsorted(mins, cand_lo, side="right")
-    covered = np.isin(lobe_pk, lobe_cr)
-    pk = pk[~covered]
-    risks_all = [(float(m), float(x), "crossing") for m, x in zip(margins, cand_f)]
+    has_cr = np.zeros(mins.size + 2, dtype=bool)
+    has_cr[np.searchsorted(mins, cand_lo, side="right")] = True
+    pk = pk[~has_cr[lobe_pk]]
+    risks_all = [(float(m), float(x), "crossing") for m, x in zip(margins[:n_risks], cand_f[:n_risks])]
     if pk.size:
-        pm = -db(mag[pk])
+        pm = -10.0 * np.log10(np.maximum(mag2[pk], 1e-300))
         sel = np.argsort(pm)[: max(n_risks, 0)]
         risks_all += [(float(pm[i]), float(f[pk[i]]), "peak") for i in sel]
     risks_all.sort(key=lambda r: (r[0], r[2] != "crossing"))
@@ -776,7 +778,8 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
         for j in order[: min(max(n_ref, 4), 32)]:
             i = c_i[j]
             fz, zc = _refine_locus(ev_at, f[i], f[i + 1], lam[i, c_e[j]], lam[i + 1, c_e[j]])
-            if zc.real > 0:
+            # a locus mismatch between grid points can fake a sign change: keep true crossings only
+            if zc.real > 0 and abs(zc.imag) <= 1e-6 * abs(zc):
                 cr_f.append(fz)
                 cr_v.append(zc)
         for j in order[min(max(n_ref, 4), 32) :]:

@@ -386,3 +386,18 @@ def test_two_by_two_loop_margin_agrees_with_brute_force_closed_loop_simulation()
 def test_mimo_rejects_a_mix_of_the_wrong_shape():
     with pytest.raises(InputError, match="mix_lin"):
         mimo_margin(np.ones((2, 2, 10)), np.ones((2, 3)), FS16)
+
+
+def test_the_mic_most_at_fault_is_the_one_whose_fader_cut_buys_the_most_margin():
+    # Brute force: cut each mic's send by 1 dB and recompute; the participation (eigenvalue
+    # sensitivity to that mic's channel gain) must name the mic whose cut helps most.
+    irs, mix = _two_by_two()
+    base = mimo_margin(irs, mix, FS16, band_hz=(20.0, 7900.0))
+    gains = []
+    for j in range(2):
+        m = mix.copy()
+        m[:, j] *= 10 ** (-1 / 20)
+        gains.append(mimo_margin(irs, m, FS16, band_hz=(20.0, 7900.0)).gain_margin_db - base.gain_margin_db)
+    assert base.worst_mic_index == int(np.argmax(gains))
+    # first order: the margin gained by a 1 dB cut is about the participation of that mic
+    assert gains[base.worst_mic_index] == pytest.approx(base.participation[base.worst_mic_index], abs=0.25)

@@ -79,8 +79,21 @@ def _load_ir(path: Path, *, channel, max_length_s, trim_s):
     from ..fileio import read_wav
     from ..loop import check_ir, ir_warnings
 
-    h, fs = read_wav(path, channel=channel)
     V.positive(max_length_s, "--max-length-s", unit="s")
+    try:  # refuse a very long file before reading it all
+        import soundfile as sf
+
+        info = sf.info(str(path))
+        too_long = info.frames > max_length_s * info.samplerate and trim_s is None
+    except Exception:  # read_wav gives the clear message for unreadable files
+        too_long = False
+    if too_long:
+        raise InputError(
+            f"is {info.frames / info.samplerate:.1f} s long, more than --max-length-s {max_length_s:g} s; a loop IR "
+            "rarely needs more than a few RT60s (pass --trim-s T, or raise --max-length-s)",
+            file=str(path),
+        )
+    h, fs = read_wav(path, channel=channel)
     if trim_s is not None:
         V.positive(trim_s, "--trim-s", unit="s")
         h = h[: max(2, int(round(trim_s * fs)))]
