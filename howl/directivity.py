@@ -452,11 +452,106 @@ def _mic_table(mic: Mic) -> PolarTable:
     return load_polar_table(str(mic.pattern_file), ("gain_db",))
 
 
-def _speaker_table(speaker: Speaker) -> PolarTable:
-    return load_polar_table(str(speaker.directivity_file), ("horizontal_db", "vertical_db"))
+def _speaker_table(speaker: Speaker):
+    path = str(speaker.directivity_file)
+    if path.lower().endswith(".sofa"):
+        return load_sofa_directivity(path)
+    return load_polar_table(path, ("horizontal_db", "vertical_db"))
 
 
-def _table_speaker_gain(table: PolarTable, local: np.ndarray, freq_hz) -> np.ndarray:
+class SofaDirectivity:
+    """Loudspeaker directivity read from an AES69 (SOFA) file, convention FreeFieldDirectivityTF.
+
+    ``directions`` (R, 3): unit vectors of the receivers in the source's local
+    frame (forward = SourceView, up = SourceUp); ``levels_db`` (F, R): |TF| in dB
+    re the direction nearest on axis; ``freq_hz`` (F,). Gains toward other
+    directions take the nearest measured direction (no smoothing), and log-linear
+    interpolation in frequency.
+    """
+
+    def __init__(self, freq_hz, directions, levels_db, source):
+        self.freq_hz = freq_hz
+        self.directions = directions
+        self.levels_db = levels_db
+        self.source = source
+
+    def gain(self, local: np.ndarray, freq_hz) -> np.ndarray:
+        f = _freq(freq_hz)
+        loc = np.asarray(local, float)
+        flat = loc.reshape(-1, 3)
+        nearest = np.argmax(flat @ self.directions.T, axis=-1)  # (P,)
+        lf = np.log(self.freq_hz)
+        if lf.size == 1:
+            at_f = np.repeat(self.levels_db, f.size, axis=0)
+        else:
+            w = np.stack([np.interp(np.log(f), lf, np.eye(lf.size)[k]) for k in range(lf.size)], axis=-1)
+            at_f = w @ self.levels_db  # (F, R)
+        db = at_f[:, nearest].T  # (P, F)
+        return (10.0 ** (db / 20.0)).reshape(loc.shape[:-1] + (f.size,))
+
+
+def load_sofa_directivity(path: str) -> SofaDirectivity:
+    """Read a FreeFieldDirectivityTF SOFA file with sofar (AES69-2022); cached per path and time stamp."""
+    import os
+
+    try:
+        stamp = os.stat(path).st_mtime_ns
+    except OSError:
+        raise InputError("file not found", file=path) from None
+    key = (path, "sofa", stamp)
+    if key in _TABLE_CACHE:
+        return _TABLE_CACHE[key]
+    try:
+        import sofar
+    except ImportError:
+        raise InputError("reading SOFA files needs the sofar package (pip install sofar)", file=path) from None
+    try:
+        sofa = sofar.read_sofa(path, verify=False, verbose=False)
+    except Exception as exc:  # sofar/netCDF raise many kinds
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"cannot be read as SOFA ({first})", file=path) from None
+    conv = str(getattr(sofa, "GLOBAL_SOFAConventions", ""))
+    if conv != "FreeFieldDirectivityTF":
+        raise InputError(f"has SOFA convention {conv!r}; expected 'FreeFieldDirectivityTF'", file=path,
+                         key="GLOBAL_SOFAConventions")
+    try:
+        data = np.asarray(sofa.Data_Real, float) + 1j * np.asarray(sofa.Data_Imag, float)  # (M, R, N)
+        freq = np.atleast_1d(np.asarray(sofa.N, float)).ravel()
+        pos = np.atleast_2d(np.asarray(sofa.ReceiverPosition, float))
+        pos_type = str(sofa.ReceiverPosition_Type)
+        view = np.asarray(sofa.SourceView, float).reshape(-1, 3)[0]
+        up = np.asarray(sofa.SourceUp, float).reshape(-1, 3)[0]
+    except AttributeError as exc:
+        raise InputError(f"lacks a FreeFieldDirectivityTF field ({exc})", file=path) from None
+    if data.ndim != 3 or data.shape[1] != pos.shape[0] or data.shape[2] != freq.size:
+        raise InputError(f"Data shape {data.shape} does not match {pos.shape[0]} receivers and {freq.size} "
+                         f"frequencies", file=path, key="Data_Real")
+    if pos_type.startswith("spherical"):
+        az, el = np.radians(pos[:, 0]), np.radians(pos[:, 1])
+        dirs = np.stack([np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=-1)
+    else:
+        dirs = pos - np.asarray(sofa.SourcePosition, float).reshape(-1, 3)[0]
+    n = np.linalg.norm(dirs, axis=-1, keepdims=True)
+    if np.any(n == 0) or np.any(freq <= 0) or not np.all(np.isfinite(data)):
+        raise InputError("holds a receiver at the source, a frequency <= 0 Hz or non-finite data", file=path)
+    dirs = dirs / n
+    fwd = view / np.linalg.norm(view)
+    upv = up - (up @ fwd) * fwd
+    upv = upv / np.linalg.norm(upv)
+    left = np.cross(upv, fwd)
+    local = dirs @ np.stack([fwd, left, upv]).T  # components forward / left / up
+    order = np.argsort(freq)
+    mag = np.abs(data[0][:, order]).T  # first measurement (F, R)
+    ref = int(np.argmax(local[:, 0]))
+    db = 20.0 * np.log10(np.maximum(mag, 1e-12) / np.maximum(mag[:, ref : ref + 1], 1e-30))
+    table = SofaDirectivity(freq[order], local, np.minimum(db, 20.0), path)
+    _TABLE_CACHE[key] = table
+    return table
+
+
+def _table_speaker_gain(table, local: np.ndarray, freq_hz) -> np.ndarray:
+    if isinstance(table, SofaDirectivity):
+        return table.gain(local, freq_hz)
     x, y, z = local[..., 0], local[..., 1], local[..., 2]
     th = np.arccos(np.clip(x, -1.0, 1.0))
     r2 = y * y + z * z
@@ -468,11 +563,16 @@ def _table_speaker_gain(table: PolarTable, local: np.ndarray, freq_hz) -> np.nda
 _PHI = (np.arange(32) + 0.5) * (np.pi / 2) / 32  # midpoints on a quarter turn (the tables are symmetric)
 
 
-def _table_speaker_q(table: PolarTable, freq_hz) -> np.ndarray:
+def _table_speaker_q(table, freq_hz) -> np.ndarray:
     u = _GL_U[:, None]
     s = np.sqrt(1.0 - u * u)
-    local = np.stack([np.broadcast_to(u, (48, 32)), s * np.cos(_PHI), s * np.sin(_PHI)], axis=-1)
-    g2 = _table_speaker_gain(table, local, freq_hz) ** 2  # (48, 32, F)
+    if isinstance(table, SofaDirectivity):  # measured data need not be symmetric: the whole turn
+        phi = (np.arange(128) + 0.5) * (2 * np.pi) / 128
+        shape = (48, 128)
+    else:
+        phi, shape = _PHI, (48, 32)
+    local = np.stack([np.broadcast_to(u, shape), s * np.cos(phi), s * np.sin(phi)], axis=-1)
+    g2 = _table_speaker_gain(table, local, freq_hz) ** 2  # (48, nφ, F)
     mean_over_sphere = 0.5 * np.einsum("k,kf->f", _GL_W, g2.mean(axis=1))
     return 1.0 / mean_over_sphere
 
