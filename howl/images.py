@@ -365,6 +365,7 @@ def image_source_ir(
     air_absorption: bool = True,
     half_width: int = 16,
     crossfade_s: float | None = None,
+    delay_s: float = 0.0,
     return_info: bool = False,
 ):
     """Impulse response from a point source to a point receiver in a shoebox room.
@@ -397,6 +398,8 @@ def image_source_ir(
     crossfade_s : float, optional
         Length of the image→tail crossfade ending at the transition time.
         Default: a quarter of the transition time, at most 20 ms.
+    delay_s : float
+        Electronic delay before the source (a delay line): shifts the whole IR.
     return_info : bool
         Also return an :class:`ImageSourceInfo`.
 
@@ -438,13 +441,14 @@ def image_source_ir(
     if mic_gain is not None:
         amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
 
-    t_arr = dist / c
+    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
+    t_arr = dist / c + delay_s
     rt60 = r_m2 = None
     t_x = None
     tail_energy = rev_energy = None
     if tail:
         rt60, r_m2 = _tail_model(room, bands)
-        t_x = _first_missing_arrival_s(dims, src, mic, max_order, c)
+        t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
         if crossfade_s is None:
             crossfade_s = min(0.25 * t_x, 0.02)
         crossfade_s = max(float(crossfade_s), 2.0 / fs)
@@ -460,7 +464,7 @@ def image_source_ir(
     delay = t_arr * fs
     if duration_s is None:
         if tail:
-            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))
+            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
         else:
             n = int(math.ceil(delay.max())) + half_width + 1
     else:
@@ -490,7 +494,8 @@ def image_source_ir(
         fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
         fade_in[n:] = 0.0
         # mean-square per sample so that Σ over all n (from emission) equals rev_energy
-        var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t[None, :])
+        t_e = np.maximum(t - delay_s, 0.0)  # time since emission
+        var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
         env = np.sqrt(var) * fade_in[None, :]
         tail_energy = np.sum(env**2, axis=1)
         rng = np.random.default_rng(seed)
@@ -530,3 +535,223 @@ def _good_fft_size(n: int) -> int:
 def speed_of_sound_m_s_default(room: Room) -> float:
     """The speed of sound at the room's temperature."""
     return float(speed_of_sound_m_s(room.temperature_c))
+
+
+# ---------------------------------------------------------------------------
+# loops of a rig
+# ---------------------------------------------------------------------------
+
+#: Amplitude factor from the Green's-function scale 1/(4π·r) to "pressure at r per pressure at 1 m" (1/r).
+_GREEN_TO_1M = 4.0 * math.pi
+
+
+def _speaker_gain_fn(speaker: Speaker) -> GainFunction:
+    from .directivity import speaker_gain
+
+    return lambda d, f: speaker_gain(speaker, d, f)
+
+
+def _mic_gain_fn(mic: Mic) -> GainFunction:
+    from .directivity import mic_gain
+
+    return lambda d, f: mic_gain(mic, d, f)
+
+
+def _electrical_gain(speaker: Speaker, mic: Mic) -> float:
+    """Volts at the mic output per volt at the speaker input, per unit Green's-function amplitude.
+
+    Speaker: on-axis SPL at 1 m for 1 V → p₁ = 20 µPa·10^(S/20) Pa/V; the image IR
+    is on the 1/(4πr) scale, so ×4π gives p₁/r. Mic: 10^(s/20) V/Pa (see :mod:`howl.rig`).
+    """
+    from .units import P_REF_PA
+
+    p1 = P_REF_PA * 10.0 ** (speaker.sensitivity_db_spl_1v_1m / 20.0)
+    m = 10.0 ** (mic.sensitivity_dbv_pa / 20.0)
+    return _GREEN_TO_1M * p1 * m
+
+
+def rig_loop_irs(
+    rig: Rig,
+    sample_rate_hz: float,
+    *,
+    max_order: int | None = None,
+    tail: bool = True,
+    seed: int = 0,
+    duration_s: float | None = None,
+    half_width: int = 16,
+):
+    """Loop IRs of every (speaker, mic) pair of ``rig`` from image sources, with the electrical gains.
+
+    ``irs[s, m]`` runs from loudspeaker s's input (volts) to mic m's output
+    (volts): speaker sensitivity × acoustic path (images with both
+    directivities, the speaker's delay line) × mic sensitivity. ``mix_lin[s, m]``
+    is the voltage gain from mic m's output to speaker s's input
+    (:func:`howl.plan.mix_matrix`; muted mics 0). The loop of the whole rig is
+    then L(f)[i, j] = Σ_s H[s, i](f)·mix[s, j] (:func:`howl.loop.mimo_margin`).
+
+    Each pair's tail gets its own noise (seeded from ``(seed, s, m)``).
+
+    Returns
+    -------
+    irs : ndarray (n_spk, n_mic, n)
+    mix_lin : ndarray (n_spk, n_mic)
+    """
+    from .plan import mix_matrix
+
+    _require_shoebox(rig.room)
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    mix = mix_matrix(rig)
+    parts = []
+    for si, spk in enumerate(rig.speakers):
+        row = []
+        for mi, mic in enumerate(rig.mics):
+            try:
+                h = image_source_ir(
+                    rig.room, spk.position_m, mic.position_m, fs, max_order=max_order,
+                    source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic), tail=tail,
+                    seed=np.random.SeedSequence([int(seed), si, mi]).generate_state(1)[0],
+                    duration_s=duration_s, half_width=half_width, delay_s=spk.delay_s,
+                )
+            except InputError as exc:
+                key = exc.key or ""
+                who = f"speakers.{spk.name}.position_m" if key.startswith("source") else (
+                    f"mics.{mic.name}.position_m" if key.startswith("mic") else key)
+                raise InputError(exc.message, file=rig.source_file or exc.file, key=who) from None
+            row.append(h * _electrical_gain(spk, mic))
+        parts.append(row)
+    n = max(h.size for row in parts for h in row)
+    irs = np.zeros((len(rig.speakers), len(rig.mics), n))
+    for si, row in enumerate(parts):
+        for mi, h in enumerate(row):
+            irs[si, mi, : h.size] = h
+    return irs, mix
+
+
+IMAGES_CAUTION = (
+    "Predicted howl frequencies come from an idealised shoebox with flat, smooth walls, point sources and "
+    "statistically modelled late sound. Real rooms, furniture, people, temperature and the exact positions "
+    "move the crossings: treat the frequencies as examples of where the loop is closest to unity, and the "
+    "statistical spread as the range to expect."
+)
+
+
+def _fmt_db(v) -> str:
+    return "—" if v is None or not np.isfinite(v) else f"{v:+.1f}"
+
+
+def plan_with_images(
+    rig: Rig,
+    *,
+    sample_rate_hz: float = 16000,
+    max_order: int | None = None,
+    seed: int = 0,
+    fraction: int = 3,
+    f_lo_hz: float = 100.0,
+    f_hi_hz: float = 10000.0,
+) -> dict:
+    """Phase-aware margins of a rig from image-source loop IRs, beside the statistical spread.
+
+    For each open, routed mic alone (the others closed): the Nyquist gain
+    margin of its loop Σ_s H[s, m]·mix[s, m], the howl frequency, the
+    phase-blind margin, the top risks, the loop gain per band; and the
+    statistical estimate of the same single-mic loop (band power, Schroeder
+    peak factor with its 10–90 % spread, from :mod:`howl.transfer` and
+    :func:`howl.plan.peak_factor_db`). For all open mics together: the
+    generalized Nyquist margin (:func:`howl.loop.mimo_margin`).
+
+    Returns a JSON-ready dict; ``lines`` holds the terminal text.
+    """
+    from .bands import band_centres_hz, band_edges_hz
+    from .loop import band_loop_gain_db, loop_response, mimo_margin, nyquist_margin
+    from .plan import peak_factor_db
+    from .room import room_acoustics
+    from .transfer import statistical_transfer
+
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    irs, mix = rig_loop_irs(rig, fs, max_order=max_order, seed=seed)
+    active = [k for k, m in enumerate(rig.mics) if m.open and np.any(mix[:, k] > 0)]
+    if not active:
+        raise InputError("no open mic reaches any loudspeaker through the mixes; nothing to analyse", key="mixes")
+    hi = min(float(f_hi_hz), 0.45 * fs)
+    band = (float(f_lo_hz), hi)
+    centres = np.asarray(band_centres_hz(fraction, f_lo_hz, hi), float)
+    lo_e, hi_e = band_edges_hz(centres, fraction)
+    bw = np.asarray(hi_e) - np.asarray(lo_e)
+    ac = room_acoustics(rig.room, centres)
+    tr = statistical_transfer(rig, centres, ac)
+    fsm = float(rig.fsm_db)
+
+    mics_out = []
+    lines = [
+        f"Image-source loops ({fs:g} Hz, shoebox {rig.room.dimensions_m[0]:g} × {rig.room.dimensions_m[1]:g} × "
+        f"{rig.room.dimensions_m[2]:g} m), each mic alone at the rig's settings:",
+        f"{'mic':<14}{'margin':>9}{'howl at':>11}{'|L| max':>9}{'statistical (10–90 %)':>26}",
+    ]
+    for k in active:
+        mic = rig.mics[k]
+        loop = np.einsum("sn,s->n", irs[:, k, :], mix[:, k])
+        res = nyquist_margin(loop, fs, band_hz=band, n_risks=5)
+        f, H = loop_response(loop, fs)
+        lg = band_loop_gain_db(f, H, centres, fraction)
+        # statistical single-mic loop: Σ_s |T|²·mix² per band, plus Schroeder's peak factor
+        p_dir = np.einsum("sf,s->f", tr.direct_power[:, k, :], mix[:, k] ** 2)
+        p_rev = np.einsum("sf,s->f", tr.reverberant_power[:, k, :], mix[:, k] ** 2)
+        kf = p_dir / np.maximum(p_rev, 1e-300)
+        pf, pf_lo, pf_hi = peak_factor_db(bw, tr.rt60_s, kf)
+        avg_db = 10.0 * np.log10(np.maximum(p_dir + p_rev, 1e-300))
+        stat = float(-np.max(avg_db + pf))
+        stat_lo, stat_hi = float(-np.max(avg_db + pf_hi)), float(-np.max(avg_db + pf_lo))
+        gm = float(res.gain_margin_db)
+        mics_out.append({
+            "name": mic.name,
+            "gain_margin_db": _json_num(gm),
+            "magnitude_margin_db": _json_num(res.magnitude_margin_db),
+            "howl_freq_hz": _json_num(res.howl_freq_hz, 1),
+            "howl_freqs_hz": [_json_num(x, 1) for x in res.howl_freqs_hz],
+            "max_channel_gain_db": _json_num(gm - fsm),
+            "risks": [{"freq_hz": _json_num(r.freq_hz, 1), "margin_db": _json_num(r.margin_db), "kind": r.kind}
+                      for r in res.risks],
+            "loop_gain_db": [_json_num(x) for x in lg],
+            "statistical_loop_gain_db": [_json_num(x) for x in avg_db],
+            "statistical_margin_db": _json_num(stat),
+            "statistical_spread_db": [_json_num(stat_lo), _json_num(stat_hi)],
+        })
+        lines.append(
+            f"{mic.name:<14}{_fmt_db(gm):>9}{res.howl_freq_hz:>9.0f} Hz{_fmt_db(res.magnitude_margin_db):>9}"
+            f"{_fmt_db(stat):>12} ({_fmt_db(stat_lo)} … {_fmt_db(stat_hi)})"
+        )
+    mm = mimo_margin(irs[:, active, :], mix[:, active], fs, band_hz=band)
+    worst = rig.mics[active[int(mm.worst_mic_index)]].name
+    system = {
+        "gain_margin_db": _json_num(mm.gain_margin_db),
+        "magnitude_margin_db": _json_num(mm.magnitude_margin_db),
+        "howl_freq_hz": _json_num(mm.howl_freq_hz, 1),
+        "worst_mic": worst,
+        "mics": [rig.mics[k].name for k in active],
+    }
+    lines.append(
+        f"all open mics together: margin {_fmt_db(mm.gain_margin_db)} dB, first howl near "
+        f"{mm.howl_freq_hz:.0f} Hz, most at fault: {worst}"
+    )
+    lines.append("margin: phase-aware (Nyquist) gain margin of the estimated loop; |L| max: phase-blind margin.")
+    lines.append("Caution: " + IMAGES_CAUTION)
+    return {
+        "method": "images",
+        "sample_rate_hz": fs,
+        "max_order": 6 if max_order is None else int(max_order),
+        "seed": int(seed),
+        "band_hz": [band[0], band[1]],
+        "bands_hz": [float(x) for x in centres],
+        "fraction": int(fraction),
+        "mics": mics_out,
+        "system": system,
+        "caution": IMAGES_CAUTION,
+        "lines": lines,
+    }
+
+
+def _json_num(x, nd: int = 2):
+    if x is None:
+        return None
+    v = float(x)
+    return round(v, nd) if math.isfinite(v) else None

@@ -324,3 +324,121 @@ def test_free_shape_room_is_refused_for_image_sources():
     room = Room("hall", 1000.0, 700.0, (Surface("average", 700.0, "mix", (0.2,) * 7),))
     with pytest.raises(InputError, match="shoebox"):
         image_source_ir(room, (2, 2, 1.5), (4, 3, 1.2), FS)
+
+
+# ------------------------------------------------------------------ rigs: loops from geometry
+
+from howl.rig import Listener, Mic, Mix, Rig, Speaker, Talker  # noqa: E402
+
+
+def one_pair_rig(room, spk_pos, mic_pos, *, pattern="omni", mic_aim=(0.0, 0.0), cov=(360.0,) * 7,
+                 gain_db=20.0, spk_aim=(0.0, 0.0), delay_s=0.0):
+    spk = Speaker("main", tuple(spk_pos), spk_aim[0], spk_aim[1], cov, cov, 100.0, delay_s=delay_s)
+    mic = Mic("m1", tuple(mic_pos), mic_aim[0], mic_aim[1], pattern=pattern, sensitivity_dbv_pa=-50.0)
+    tpos = tuple(np.asarray(mic_pos) + 0.3 * np.array([math.cos(mic_aim[0]), math.sin(mic_aim[0]), 0.0]))
+    return Rig(
+        "test", room, (spk,), (mic,), (Talker("t", tpos, "m1"),), (Listener("far", (room.dimensions_m[0] - 1, 2.0, 1.2)),),
+        (Mix("mains", ("main",), (("m1", gain_db),)),),
+    )
+
+
+def test_loop_ir_direct_path_carries_speaker_and_mic_sensitivity_and_the_mix():
+    """Direct path at 1 kHz: p₁/r · M (free-field inverse distance law, common practice, no source)."""
+    from howl.images import rig_loop_irs
+
+    room = shoebox((30.0, 20.0, 12.0), 0.95)
+    rig = one_pair_rig(room, (5.0, 10.0, 6.0), (9.0, 10.0, 6.0))
+    irs, mix = rig_loop_irs(rig, FS, max_order=0, tail=False)
+    assert irs.shape[:2] == (1, 1) and mix.shape == (1, 1)
+    assert mix[0, 0] == pytest.approx(10.0)  # 20 dB
+    h = irs[0, 0]
+    f = np.array([1000.0])
+    p1 = 20e-6 * 10 ** (100 / 20)  # 100 dB SPL at 1 m for 1 V
+    m = 10 ** (-50 / 20)  # −50 dBV/Pa
+    from howl.room import air_power_attenuation_m_inv
+
+    air = math.exp(-0.5 * 4.0 * air_power_attenuation_m_inv(f, 20.0, 50.0)[0])
+    assert np.abs(dtft(h, f))[0] == pytest.approx(p1 * m / 4.0 * air, rel=1e-3)
+
+
+def test_speaker_delay_line_shifts_the_loop_ir():
+    from howl.images import rig_loop_irs
+
+    room = shoebox((30.0, 20.0, 12.0), 0.95)
+    a, _ = rig_loop_irs(one_pair_rig(room, (5, 10, 6), (9, 10, 6)), FS, max_order=1, tail=False)
+    b, _ = rig_loop_irs(one_pair_rig(room, (5, 10, 6), (9, 10, 6), delay_s=0.010), FS, max_order=1, tail=False)
+    shift = int(round(0.010 * FS))
+    np.testing.assert_allclose(b[0, 0, shift: shift + a.shape[2]], a[0, 0], atol=1e-9 * np.abs(a).max())
+
+
+def test_real_cardioid_turned_away_loses_the_direct_path_by_its_rear_rejection():
+    """The mic's own pattern (howl.directivity, frequency model) toward 180°, at 1 kHz."""
+    from howl.directivity import mic_gain
+    from howl.images import rig_loop_irs
+
+    room = shoebox((30.0, 20.0, 12.0), 0.95)
+    # speaker at −x of the mic, mic aimed +x: the direct sound arrives from behind
+    card = one_pair_rig(room, (10.0, 10.0, 6.0), (14.0, 10.0, 6.0), pattern="cardioid")
+    omni = one_pair_rig(room, (10.0, 10.0, 6.0), (14.0, 10.0, 6.0), pattern="omni")
+    hc = rig_loop_irs(card, FS, max_order=1, tail=False)[0][0, 0]
+    ho = rig_loop_irs(omni, FS, max_order=1, tail=False)[0][0, 0]
+    n0 = int(round(4.0 / 343.2 * FS))
+    win = slice(0, n0 + 40)  # the direct path only: the first reflection (the floor, ~13.4 m) is 27 ms later
+    f = np.array([1000.0])
+    loss = np.abs(dtft(hc[win], f)) / np.abs(dtft(ho[win], f))
+    rear = abs(mic_gain(card.mics[0], np.array([[-1.0, 0.0, 0.0]]), f)[0, 0])
+    assert loss[0] == pytest.approx(rear, rel=0.05)
+    assert 20 * np.log10(loss[0]) < -15.0
+    # the reflection off the wall in front of the mic (x = 30) arrives on axis: kept
+    n1 = int(round((2 * 30.0 - 10.0 - 14.0) / 343.2 * FS))
+    w1 = slice(n1 - 30, n1 + 30)
+    keep = np.abs(dtft(hc[w1], f)) / np.abs(dtft(ho[w1], f))
+    assert keep[0] == pytest.approx(1.0, rel=0.05)
+
+
+def test_statistical_planner_and_image_loop_agree_within_2_db_in_the_diffuse_field():
+    """Far beyond the critical distance, above the Schroeder frequency, per octave band.
+
+    The statistical side is PLANNER's Hopkins–Stryker band transfer (howl.plan); the
+    image side is this module's loop IR, power-averaged per band (howl.loop).
+    """
+    from howl.images import rig_loop_irs
+    from howl.loop import band_loop_gain_db, loop_response
+    from howl.plan import plan_rig
+    from howl.room import critical_distance_m, room_acoustics, schroeder_frequency_hz
+
+    alpha = (0.12, 0.12, 0.14, 0.16, 0.18, 0.2, 0.25)
+    room = shoebox((20.0, 14.0, 8.0), alpha)
+    # omni at both ends: a directive beam aimed at a near wall sends a strong early reflection
+    # that the statistical model does not see (that is the point of the image model, not a diffuse field)
+    rig = one_pair_rig(room, (3.0, 4.0, 3.0), (16.0, 10.0, 1.5), gain_db=0.0)
+    ra = room_acoustics(room, np.array([500.0, 1000.0, 2000.0, 4000.0]))
+    dc = critical_distance_m(1.0, ra.room_constant_m2)
+    assert math.dist(rig.speakers[0].position_m, rig.mics[0].position_m) > 2.5 * np.max(dc)
+    assert schroeder_frequency_hz(float(ra.rt60_eyring_s[0]), room.volume_m3) < 100.0
+    plan = plan_rig(rig, fraction=1, f_lo_hz=500.0, f_hi_hz=4000.0, peak_statistics=False)
+    stat_db = plan.mics[0].loop_gain_db
+    irs, mix = rig_loop_irs(rig, FS, max_order=5, seed=11)
+    f, H = loop_response(irs[0, 0] * mix[0, 0], FS)
+    img_db = band_loop_gain_db(f, H, plan.bands_hz, 1)
+    np.testing.assert_allclose(img_db, stat_db, atol=2.0)
+
+
+def test_plan_with_images_gives_phase_aware_margins_beside_the_statistical_spread():
+    from howl.images import plan_with_images
+
+    room = shoebox((12.0, 9.0, 5.0), (0.15, 0.15, 0.18, 0.2, 0.22, 0.25, 0.3))
+    rig = one_pair_rig(room, (2.0, 2.0, 2.5), (6.0, 5.0, 1.4), pattern="cardioid", mic_aim=(math.pi, 0.0),
+                       gain_db=30.0, cov=(300, 240, 180, 120, 90, 90, 90))
+    out = plan_with_images(rig, sample_rate_hz=8000)
+    m = out["mics"][0]
+    assert m["name"] == "m1"
+    # phase-aware margin is never below the phase-blind one (|Re L| ≤ |L|)
+    assert m["gain_margin_db"] >= m["magnitude_margin_db"] - 1e-6
+    assert out["band_hz"][0] <= m["howl_freq_hz"] <= out["band_hz"][1]
+    lo, hi = m["statistical_spread_db"]
+    assert lo <= m["statistical_margin_db"] <= hi
+    assert m["max_channel_gain_db"] == pytest.approx(m["gain_margin_db"] - rig.fsm_db, abs=0.011)
+    assert "depend" in out["caution"] or "Predicted" in out["caution"]
+    assert any("Caution" in line for line in out["lines"])
+    assert out["system"]["worst_mic"] == "m1"
