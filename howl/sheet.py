@@ -472,6 +472,81 @@ def cut_set_from_ringout(loop: str, result) -> CutSet:
     )
 
 
+def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
+    """Cuts from a listen/scan session JSON (``howl listen --json`` / ``howl scan --json``).
+
+    Takes the summary notch list (key ``notches``, ``summary_notches`` or
+    ``summary.notches``), else every event's ``notch``. Each cut needs
+    ``freq_hz`` and ``q``; ``gain_db`` null is a full notch. Returns
+    (list of ``howl.notch.Notch``, a label for the sheet).
+    """
+    from .notch import Notch
+
+    p = Path(path)
+    name = str(path)
+    if not p.is_file():
+        raise InputError("file not found; expected the JSON of howl listen or howl scan", key="--cuts", file=name)
+    try:
+        obj = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"cannot be read as JSON ({exc})", key="--cuts", file=name) from None
+    if not isinstance(obj, dict):
+        raise InputError("must hold one JSON object", key="--cuts", file=name)
+    raw = obj.get("notches") or obj.get("summary_notches")
+    if raw is None and isinstance(obj.get("summary"), dict):
+        raw = obj["summary"].get("notches")
+    if raw is None and isinstance(obj.get("events"), list):
+        raw = [e.get("notch") for e in obj["events"] if isinstance(e, dict) and isinstance(e.get("notch"), dict)]
+    if not isinstance(raw, list):
+        raise InputError("holds no notch list (notches, summary.notches or events[].notch)", key="--cuts", file=name)
+    cuts = []
+    for i, n in enumerate(raw):
+        if not isinstance(n, dict):
+            raise InputError("must be an object {freq_hz, gain_db, q}", key=f"notches[{i}]", file=name)
+        try:
+            g = n.get("gain_db")
+            cuts.append(Notch(float(n["freq_hz"]), None if g is None else float(g), float(n["q"])))
+        except (KeyError, TypeError, ValueError) as exc:
+            msg = exc.message if isinstance(exc, InputError) else f"needs numbers freq_hz and q ({exc})"
+            raise InputError(msg, key=f"notches[{i}]", file=name) from None
+    return cuts, p.name
+
+
+def cut_sets_from_listen(notches, label: str, session: Session | None = None, margins: Sequence | None = None) -> list[CutSet]:
+    """Cut sets for cuts found by listening; with measured loops, the ASG they buy on each.
+
+    The ASG on a measured loop is ``nyquist_margin`` with the cuts' cascade
+    (``howl.notch.cascade_sos``) in the loop, minus the margin without:
+    the definition of added stable gain in van Waterschoot & Moonen [4]_.
+    """
+    cuts = tuple(Cut(float(n.freq_hz), n.gain_db, float(n.q), float(n.bandwidth_oct)) for n in notches)
+    if session is None or not margins:
+        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None)]
+    from .loop import nyquist_margin
+    from .notch import cascade_sos
+
+    befores, afters, lines = [], [], []
+    for pair, before in zip(session.pairs, margins):
+        after = nyquist_margin(pair.ir, pair.sample_rate_hz, filters_sos=cascade_sos(list(notches), pair.sample_rate_hz)) if notches else before
+        bm, am = float(before.gain_margin_db), float(after.gain_margin_db)
+        befores.append(bm)
+        afters.append(am)
+        lines.append(f"{pair.speaker} \u2192 {pair.mic}: phase-aware margin {_num(_f(bm))} \u2192 {_num(_f(am))} dB")
+    # the rig is limited by its worst loop: ASG = worst margin with the cuts - worst margin without
+    b, a = _f(min(befores)), _f(min(afters))
+    return [
+        CutSet(
+            loop=f"{label}, on every measured loop",
+            source="listen",
+            cuts=cuts,
+            added_stable_gain_db=None if a is None or b is None else a - b,
+            margin_before_db=b,
+            margin_after_db=a,
+            advice=tuple(lines),
+        )
+    ]
+
+
 def placement_from_rig(rig) -> PlacementMap:
     items = []
     for s in rig.speakers:
@@ -541,9 +616,9 @@ def default_notes(data_basis: str, fsm_db: float, plan_json: dict | None, has_cu
         )
     if has_cuts:
         notes.append(
-            "Cuts: RBJ Audio EQ Cookbook peaking cuts (a blank gain = full notch); Q as the cookbook defines "
+            "Cuts: RBJ Audio EQ Cookbook peaking cuts ('notch' = full notch); Q as the cookbook defines "
             "it for that filter type, width in octaves. ASG = the rise in phase-aware margin with the cuts in "
-            "the loop (margin after - margin before)."
+            "the loop (margin after - margin before); for cuts found by listening, of the worst measured loop."
         )
     notes.append(
         "Assumed: the rig file's positions, aims, patterns and mix gains; air at the room file's temperature; "
@@ -560,6 +635,7 @@ def build_sheet_data(
     session: Session | None = None,
     margins: Sequence | None = None,
     ringouts: Sequence | None = None,
+    listen_cuts: tuple[list, str] | None = None,
     date: str | None = None,
 ) -> SheetData:
     """Assemble the sheet from the planner's JSON and measured analyses.
@@ -571,6 +647,7 @@ def build_sheet_data(
     session: a :class:`Session` from :func:`read_session` or None.
     margins: one ``howl.loop.MarginResult`` per session pair (same order).
     ringouts: one ``howl.ringout.RingOutResult`` per session pair, or None.
+    listen_cuts: (notches, label) from :func:`read_cuts`, or None.
     date: the sheet's date (ISO); today by default.
     """
     if plan_json is None and session is None:
@@ -602,6 +679,8 @@ def build_sheet_data(
     if ringouts is not None and session is not None:
         for pair, ro in zip(session.pairs, ringouts):
             cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro))
+    if listen_cuts is not None:
+        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins)
     if plan_json is not None and session is not None:
         basis = "planned+measured"
         words = f"PLANNED from the room model + MEASURED {session.date}"
@@ -1042,12 +1121,14 @@ def _cuts_blocks(data: SheetData) -> list[_Block]:
     cols = [("n", "#", 0.07), ("hz", "CENTRE Hz", 0.27), ("g", "GAIN dB", 0.23), ("q", "Q", 0.18), ("bw", "WIDTH oct", 0.25)]
     for cs in data.cut_sets:
         n_rows = max(len(cs.cuts), 1)
-        foot_h = 12.0 * (bool(cs.stopped_because) + len(cs.advice[:2])) + 4.0
+        n_adv = len(cs.advice) if cs.source == "listen" else min(len(cs.advice), 2)
+        foot_h = 12.0 * (bool(cs.stopped_because) + n_adv) + 4.0
         h = title_h + head_h + row_h * n_rows + max(foot_h, 0.0)
         h = max(h, title_h + 78.0)
 
-        def draw(page: _Page, y: float, cs=cs, n_rows=n_rows) -> None:
-            page.text(page.left, y + 11, f"CUTS ({cs.source}) for {cs.loop}", size=10, weight="bold", max_w=page.width)
+        def draw(page: _Page, y: float, cs=cs, n_rows=n_rows, n_adv=n_adv) -> None:
+            title = f"CUTS FROM RING-OUT for {cs.loop}" if cs.source == "ring-out" else f"CUTS FOUND BY LISTENING: {cs.loop}"
+            page.text(page.left, y + 11, title, size=10, weight="bold", max_w=page.width)
             tw = table_frac * page.width
             yh = y + title_h
             page.rect(page.left, yh, tw, head_h, lw=0, fill=_LIGHT)
@@ -1073,7 +1154,8 @@ def _cuts_blocks(data: SheetData) -> list[_Block]:
                 page.hline(page.left, page.left + tw, yy + row_h, lw=0.3, color=_GREY)
                 yy += row_h
             for j, line in enumerate(
-                ([f"Stopped because: {cs.stopped_because}"] if cs.stopped_because else []) + [f"Advice: {a}" for a in cs.advice[:2]]
+                ([f"Stopped because: {cs.stopped_because}"] if cs.stopped_because else [])
+                + [(a if cs.source == "listen" else f"Advice: {a}") for a in cs.advice[:n_adv]]
             ):
                 page.text(page.left + 4, yy + 11 + 12 * j, line, size=7.5, max_w=page.width - 8)
             # what they buy
@@ -1082,6 +1164,10 @@ def _cuts_blocks(data: SheetData) -> list[_Block]:
             bh = 74.0
             page.rect(bx, yh, bw, bh, lw=1.6)
             page.text(bx + bw / 2, yh + 14, "THESE CUTS BUY", size=8, weight="bold", ha="center")
+            if cs.added_stable_gain_db is None:
+                page.text(bx + bw / 2, yh + 40, "not known", size=16, weight="bold", ha="center", max_w=bw - 8)
+                page.text(bx + bw / 2, yh + 60, "measure the loop (--measured) to know", size=7, ha="center", max_w=bw - 8)
+                return
             page.text(bx + bw / 2, yh + 42, f"{_num(cs.added_stable_gain_db)} dB", size=24, weight="bold", ha="center", max_w=bw - 8)
             page.text(bx + bw / 2, yh + 54, "added stable gain (ASG)", size=7, ha="center", max_w=bw - 8)
             page.text(

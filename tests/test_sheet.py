@@ -73,7 +73,7 @@ def _freq_hz(cell: list[str]) -> float:
     return value * (1000.0 if unit.lower() == "khz" else 1.0)
 
 
-def _table_rows(words, header_titles: list[str], first_col_names: list[str], below_y: float = 0.0):
+def _table_rows(words, header_titles: list[str], first_col_names: list[str], below_y: float = 0.0, last_w: float = 130.0):
     """Read a table: columns from the header words, rows from the first-column names.
 
     Returns {name: {header: [words top-to-bottom, left-to-right]}}.
@@ -82,7 +82,10 @@ def _table_rows(words, header_titles: list[str], first_col_names: list[str], bel
     for title in header_titles:
         cands = [w for w in words if w[4] == title and w[1] > below_y]
         assert cands, f"column {title!r} not found on the page"
-        heads.append((min(cands, key=lambda w: w[1]), title))
+        if not heads:  # the first column's title fixes the header line
+            heads.append((min(cands, key=lambda w: w[1]), title))
+        else:
+            heads.append((min(cands, key=lambda w: abs(w[1] - heads[0][0][1])), title))
     head_y = max(h[0][3] for h in heads)
     heads.sort(key=lambda h: h[0][0])
     col_x = [h[0][0] for h in heads]
@@ -102,7 +105,7 @@ def _table_rows(words, header_titles: list[str], first_col_names: list[str], bel
             if not (top <= yc < bottom):
                 continue
             k = max([j for j, x in enumerate(col_x) if w[0] >= x - 1.0], default=None)
-            if k is not None:
+            if k is not None and w[0] < col_x[-1] + last_w:
                 cells[heads[k][1]].append(w)
         rows[name] = {t: [w[4] for w in sorted(ws, key=lambda w: (round(w[1] / 3.0), w[0]))] for t, ws in cells.items()}
     return rows
@@ -401,3 +404,46 @@ def test_session_naming_a_mic_the_rig_lacks_is_refused(tmp_path):
     res = runner.invoke(app, ["sheet", str(bundled_rig_path()), "--measured", str(tmp_path / "s"), "-o", str(tmp_path / "x.pdf")])
     assert res.exit_code == 2
     assert "pulpit" in res.stderr and "session.json" in res.stderr
+
+
+@needs_poppler
+def test_cuts_found_by_listening_are_printed_with_the_asg_they_buy(tmp_path):
+    from howl.fileio import read_wav
+    from howl.loop import nyquist_margin
+    from howl.notch import Notch, cascade_sos
+
+    irs = _write_session(tmp_path / "s")
+    # a cut where loop B howls first (as a listener would have found it) and a full notch at 500 Hz
+    f_b = round(float(nyquist_margin(*read_wav(irs["ambo"])).howl_freq_hz), 1)
+    listen = {"notches": [{"freq_hz": f_b, "gain_db": -6.0, "q": 8.0}, {"freq_hz": 500.0, "gain_db": None, "q": 10.0}]}
+    (tmp_path / "listen.json").write_text(json.dumps(listen))
+    out = tmp_path / "sheet.pdf"
+    sheet = _cli_json([
+        "sheet", str(bundled_rig_path()), "--measured", str(tmp_path / "s"), "--no-plan",
+        "--cuts", str(tmp_path / "listen.json"), "-o", str(out), "--json",
+    ])
+    words = _words(out)
+    rows = _table_rows(words, ["#", "CENTRE", "GAIN", "Q", "WIDTH"], ["1", "2"], below_y=0.0, last_w=60.0)
+    notches = [Notch(f_b, -6.0, 8.0), Notch(500.0, None, 10.0)]
+    for key, n in zip(("1", "2"), notches):
+        assert _first_num(rows[key]["CENTRE"]) == pytest.approx(n.freq_hz, abs=0.5)
+        if n.gain_db is None:
+            assert rows[key]["GAIN"][0] == "notch"
+        else:
+            assert _close_to_print(_first_num(rows[key]["GAIN"]), n.gain_db)
+        assert _close_to_print(_first_num(rows[key]["Q"]), n.q, digits=2)
+        assert _close_to_print(_first_num(rows[key]["WIDTH"]), n.bandwidth_oct, digits=3)
+    # ASG of the rig = worst loop's margin with the cuts in the loop minus without (van Waterschoot
+    # & Moonen 2011, ASG definition), each margin from the loop analysis with the RBJ cascade inserted
+    before, after = [], []
+    for p in irs.values():
+        h, fs = read_wav(p)
+        before.append(nyquist_margin(h, fs).gain_margin_db)
+        after.append(nyquist_margin(h, fs, filters_sos=cascade_sos(notches, fs)).gain_margin_db)
+    asg = min(after) - min(before)
+    assert asg > 0.1  # the cut at the howl frequency buys something
+    (cs,) = sheet["cut_sets"]
+    assert cs["added_stable_gain_db"] == pytest.approx(asg, abs=1e-9)
+    text = subprocess.run(["pdftotext", str(out), "-"], capture_output=True, text=True, check=True).stdout
+    assert f"{asg:+.1f} dB".replace("-", "\u2212") in text
+    assert "THESE CUTS BUY" in text

@@ -23,6 +23,9 @@ def register(app: typer.Typer) -> None:
         ringout: bool = typer.Option(
             False, "--ringout", help="Run the virtual ring-out on each measured loop and print the cuts (needs --measured)."
         ),
+        cuts: Optional[Path] = typer.Option(
+            None, "--cuts", metavar="LISTEN.json", help="Cuts found by listening: the JSON of howl listen/scan (with --measured, the ASG they buy on each loop)."
+        ),
         paper: str = typer.Option("a4", "--paper", help="Paper size: a4 or letter."),
         no_plan: bool = typer.Option(False, "--no-plan", help="Leave the room-model plan out (measured numbers only)."),
         date: Optional[str] = typer.Option(None, "--date", metavar="YYYY-MM-DD", help="Date printed on the sheet (default: today)."),
@@ -50,13 +53,14 @@ def register(app: typer.Typer) -> None:
 
         with capture_warnings():
             from ..rig import bundled_rig_path, load_rig
-            from ..sheet import build_sheet_data, check_session, read_session, render_sheet
+            from ..sheet import build_sheet_data, check_session, read_cuts, read_session, render_sheet
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
             session = margins = ringouts = None
             if measured is not None:
                 session = read_session(measured)
                 check_session(session, rig)
+            listen_cuts = read_cuts(cuts) if cuts is not None else None
             plan_json = None
             if not no_plan:
                 from ..plan import plan_rig, plan_to_json
@@ -70,7 +74,9 @@ def register(app: typer.Typer) -> None:
                     from ..ringout import ring_out
 
                     ringouts = [ring_out(p.ir, p.sample_rate_hz) for p in session.pairs]
-            data = build_sheet_data(rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, date=date)
+            data = build_sheet_data(
+                rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts, date=date
+            )
             written = render_sheet(data, out, paper=paper_l)
 
         if as_json:
