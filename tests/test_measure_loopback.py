@@ -69,7 +69,7 @@ def test_devices_lists_the_jack_loopback(jack_env):
 def test_measure_through_the_loopback_finds_latency_snr_and_an_impulse(jack_env, tmp_path):
     out = tmp_path / "session"
     r = _howl(jack_env, "measure", "--device", "loopback, JACK", "--reference-channel", "2", "--out", str(out),
-              "--yes", "--json", "--sweep-s", "1", "--tail-s", "0.5")
+              "--yes", "--json", "--sweep-s", "0.5", "--tail-s", "0.3")
     assert r.returncode == 0, r.stderr  # also: no SIGABRT (134) at exit
     res = json.loads(r.stdout)
     assert res["session_dir"] == str(out)
@@ -87,3 +87,90 @@ def test_measure_through_the_loopback_finds_latency_snr_and_an_impulse(jack_env,
     assert ir[0] ** 2 / np.sum(ir**2) > 0.75
     rec = json.loads((out / "session.json").read_text())
     assert all((out / f["file"]).exists() for f in rec["pairs"][0]["raw_files"])
+
+
+def _wait_for(path, text, timeout_s=60.0):
+    import time
+
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout_s:
+        if path.exists() and text in path.read_text(errors="replace"):
+            return True
+        time.sleep(0.05)
+    return False
+
+
+def test_calibration_is_stored_and_then_gives_the_latency_without_a_reference(jack_env, tmp_path):
+    cal = tmp_path / "latency.json"
+    r = _howl(jack_env, "measure", "--device", "loopback, JACK", "--calibrate", "--calibration-file", str(cal),
+              "--out", str(tmp_path / "cal"), "--yes", "--json", "--sweep-s", "0.5", "--tail-s", "0.3")
+    assert r.returncode == 0, r.stderr
+    assert json.loads(r.stdout)["latency_samples"] == PERIOD
+    r = _howl(jack_env, "measure", "--device", "loopback, JACK", "--calibration-file", str(cal),
+              "--out", str(tmp_path / "m"), "--yes", "--json", "--sweep-s", "0.5", "--tail-s", "0.3",
+              "--repeats", "1")
+    assert r.returncode == 0, r.stderr
+    (pair,) = json.loads(r.stdout)["pairs"]
+    assert pair["latency_samples"] == PERIOD and pair["latency_source"] == "calibration"
+
+
+def test_ctrl_c_stops_at_once_and_keeps_the_partial_recording(jack_env, tmp_path):
+    import signal
+    import time
+
+    out = tmp_path / "s"
+    err = tmp_path / "stderr.txt"
+    with open(err, "w") as fh:
+        p = subprocess.Popen([sys.executable, "-m", "howl", "measure", "--device", "loopback, JACK", "--out", str(out),
+                              "--yes", "--json", "--sweep-s", "4", "--tail-s", "0.5"],
+                             env=jack_env, stdout=subprocess.PIPE, stderr=fh, text=True)
+        assert _wait_for(err, "sweep at"), err.read_text()
+        time.sleep(1.0)
+        t0 = time.monotonic()
+        p.send_signal(signal.SIGINT)
+        rc = p.wait(timeout=30)
+        stopped_s = time.monotonic() - t0
+    assert rc == 130, err.read_text()
+    assert stopped_s < 5.0  # the remaining 3.5 s of sweep were not played out
+    rec = json.loads((out / "session.json").read_text())
+    assert rec["status"] == "interrupted"
+    kept = [f for f in rec["pairs"][0]["raw_files"] if f["status"] == "interrupted"]
+    assert kept and (out / kept[0]["file"]).exists()
+    data, _ = sf.read(out / kept[0]["file"])
+    assert 0.3 * RATE < data.shape[0] < 4.0 * RATE
+
+
+def test_server_going_away_mid_sweep_is_reported_not_hung(jack_env, tmp_path):
+    # A private, short-lived jackd (never the shared one), killed during the sweep.
+    import time
+
+    jackd = shutil.which("jackd")
+    require_or_skip(jackd is not None, "jackd not installed (apt-get install jackd2)")
+    env = dict(jack_env)
+    env["JACK_DEFAULT_SERVER"] = f"howlwatchdog{os.getpid()}"
+    server = subprocess.Popen([jackd, "--no-realtime", "--sync", "--name", env["JACK_DEFAULT_SERVER"], "-L", "2",
+                               "-d", "dummy", "--rate", "48000", "--period", "1024", "--capture", "2",
+                               "--playback", "2"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        for _ in range(100):
+            if subprocess.run(["jack_lsp"], env=env, capture_output=True).returncode == 0:
+                break
+            time.sleep(0.05)
+        out = tmp_path / "s"
+        err = tmp_path / "stderr.txt"
+        with open(err, "w") as fh:
+            p = subprocess.Popen([sys.executable, "-m", "howl", "measure", "--device", "loopback, JACK", "--out",
+                                  str(out), "--yes", "--json", "--sweep-s", "4", "--tail-s", "0.5"],
+                                 env=env, stdout=subprocess.PIPE, stderr=fh, text=True)
+            assert _wait_for(err, "sweep at"), err.read_text()
+            time.sleep(0.8)
+            server.kill()
+            server.wait(timeout=10)
+            rc = p.wait(timeout=30)
+        assert rc == 2, err.read_text()  # one-line error, neither a hang nor SIGABRT (134)
+        assert "went away" in err.read_text()
+        assert json.loads((out / "session.json").read_text())["status"] == "failed"
+    finally:
+        if server.poll() is None:
+            server.kill()
+            server.wait(timeout=10)
