@@ -115,3 +115,28 @@ def test_a_point_at_the_speaker_is_an_input_error():
     rig = _rig((3.0, 5.0, 2.0))
     with pytest.raises(InputError, match="zero-distance|longer"):
         tr.speaker_field_pa2(rig.speakers, np.array([[1.0, 5.0, 2.0]]), F, _acoustics())
+
+
+def test_critical_distance_forms_agree_and_differ_from_the_room_constant_form_by_sqrt_one_minus_alpha():
+    # 20×15×8 m, S = 1160 m², ᾱ = 0.25, Q = 2: 0.057·√(QV/T_Sabine) = √(Q·A/16π) = 3.397 m, while
+    # √(Q·R/16π) = 3.922 m (Hopkins-Stryker with R); the two differ by √(1 − ᾱ) (derived, see the Handbook
+    # ch. 34 note that its Dc uses S·ā)
+    a_area, volume = 290.0, 2400.0
+    t = float(room_mod.sabine_rt60_s(volume, a_area))
+    d_t = float(room_mod.critical_distance_from_rt60_m(2.0, volume, t))
+    d_a = float(room_mod.critical_distance_m(2.0, a_area))
+    d_r = float(room_mod.critical_distance_m(2.0, float(room_mod.room_constant_m2(1160.0, 0.25))))
+    assert d_t == pytest.approx(d_a, rel=1e-3)
+    assert d_t == pytest.approx(3.397, abs=0.002)
+    assert d_r == pytest.approx(3.922, abs=0.002)
+    assert d_a / d_r == pytest.approx(math.sqrt(1 - 0.25), rel=1e-9)
+    # and the transfer model's direct = reverberant point is the R form, with the loudspeaker's own Q
+    # (on axis toward the mic)
+    ac = _acoustics()
+    from howl.directivity import coverage_q
+
+    q = float(coverage_q(180.0, 180.0))
+    dc_q = float(room_mod.critical_distance_m(q, tr.effective_room_constant_m2(ac)[0]))
+    rig = _rig((1.0 + dc_q, 5.0, 2.0), cov=(180.0, 180.0))
+    t_pair = tr.statistical_transfer(rig, F, ac, ideal_mics=True)
+    np.testing.assert_allclose(t_pair.direct_power[0, 0] / t_pair.reverberant_power[0, 0], 1.0, rtol=1e-9)

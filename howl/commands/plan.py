@@ -70,7 +70,12 @@ def register(app: typer.Typer) -> None:
                         "the images method is unavailable (howl.images.plan_with_images is missing); "
                         "use --method statistical", key="--method",
                     ) from None
-                images = plan_with_images(rig, sample_rate_hz=16000)
+                import inspect
+
+                extra = {"fraction": fraction, "f_lo_hz": f_lo_hz, "f_hi_hz": f_hi_hz}
+                accepted = inspect.signature(plan_with_images).parameters
+                images = plan_with_images(rig, sample_rate_hz=16000,
+                                          **{k: v for k, v in extra.items() if k in accepted})
                 obj["images"] = images
                 obj["method"] = "statistical+images"
 
