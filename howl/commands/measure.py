@@ -122,6 +122,9 @@ def register(app: typer.Typer) -> None:
             raise InputError(f"already holds a session ({session_dir / 'session.json'}); choose a new folder",
                              key="--out")
 
+        if not (device or (input_device and output_device)):
+            raise InputError("must name the audio interface (index or words of its name, see `howl devices`); "
+                             "howl never falls back to a default device", key="--device")
         backend = audio.open_backend()
         try:
             out_dev = backend.resolve(output_device or device, "output")
