@@ -284,3 +284,16 @@ def test_room_command_refuses_a_bad_q_and_a_missing_file(tmp_path):
 def test_room_command_given_a_rig_file_says_so():
     _room_error(runner.invoke(app, ["room", str(REPO / "examples" / "gym_assembly.toml")]),
                 "gym_assembly.toml", "room_file", "rig file")
+
+
+def test_air_attenuation_at_altitude_agrees_with_pyfar_for_the_same_vapour_concentration():
+    # ISO 9613-1 Eq. (B.1): h = h_r·(p_sat/p_r)/(p_a/p_r), the mole fraction of water vapour
+    # (partial pressure over total pressure, Dalton's law). pyfar 0.8.1 multiplies by p_a/p_r
+    # instead (its source), which only matters away from 101.325 kPa. Giving pyfar the relative
+    # humidity that yields the same h, every other pressure term (Eqs. 3–5) must agree.
+    pf_const = pytest.importorskip("pyfar.constants")
+    f = band_centres_hz(1, 63, 8000)
+    ratio = 85.0 / 101.325
+    ref = pf_const.air_attenuation(15.0, f, 0.6 / ratio**2, atmospheric_pressure=85000.0)[0]  # pressure in Pa
+    np.testing.assert_allclose(air_attenuation_db_per_m(f, 15.0, 60.0, pressure_kpa=85.0), ref, rtol=1e-9)
+
