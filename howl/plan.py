@@ -473,7 +473,9 @@ def _plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_
     rc = effective_room_constant_m2(acoustics)
     air = np.asarray(acoustics.air_m_inv, float)
     lst_pos = np.array([x.position_m for x in rig.listeners], float)
-    spk_dir_l, spk_rev, spk_r_l, _ = speaker_field_pa2(rig.speakers, lst_pos, freqs, acoustics, room_constant_m2=rc)
+    spk_dir_l, spk_rev, spk_r_l, _ = speaker_field_pa2(rig.speakers, lst_pos, freqs, acoustics, room_constant_m2=rc,
+                                                        point_names=[x.name for x in rig.listeners],
+                                                        point_kind="listener")
     mic_objs = [rig.mics[k] for k in act]
     sens2 = (10.0 ** (np.array([mc.sensitivity_dbv_pa for mc in mic_objs]) / 20.0)) ** 2
     temp = float(getattr(rig.room, "temperature_c", 20.0))

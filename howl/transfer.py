@@ -109,18 +109,21 @@ def _speaker_arrays(speakers: tuple[Speaker, ...], freq_hz: np.ndarray):
     return pos, frames, q, p1
 
 
-def _check_distance(r: np.ndarray, what: str, names: list[str], key: str, min_m: float = 1e-3) -> None:
+def _check_distance(r: np.ndarray, speakers, point_names, point_kind: str, min_m: float = 1e-3) -> None:
+    """Refuse zero-distance loudspeaker → point paths (the direct field has 1/r²)."""
     bad = np.argwhere(r < min_m)
     if bad.size:
-        idx = tuple(bad[0])
+        s, p = (int(i) for i in bad[0])
+        who = f"{point_kind} {point_names[p]!r}" if point_names else f"{point_kind} {p}"
         raise InputError(
-            f"{what} {names[idx[0]] if names else ''} is {float(r[idx]):.3g} m away; expected a path longer than "
-            f"{min_m:g} m (zero-distance paths have no inverse-square level)",
-            key=key,
+            f"{who} is {float(r[s, p]):.3g} m from loudspeaker {speakers[s].name!r}; expected a path longer than "
+            f"{min_m:g} m (a zero-distance path has no inverse-square level)",
+            key=f"{point_kind}s.{point_names[p]}.position_m" if point_names else f"speakers.{speakers[s].name}.position_m",
         )
 
 
-def speaker_field_pa2(speakers, points_m, freq_hz, acoustics, *, room_constant_m2=None):
+def speaker_field_pa2(speakers, points_m, freq_hz, acoustics, *, room_constant_m2=None, point_names=None,
+                      point_kind: str = "point"):
     """Band-average p² per speaker input V² at points: direct (S, P, F) and reverberant (S, F).
 
     The direct part includes the loudspeaker's polar gain toward each point and
@@ -133,7 +136,7 @@ def speaker_field_pa2(speakers, points_m, freq_hz, acoustics, *, room_constant_m
     pts = np.atleast_2d(np.asarray(points_m, float))
     vec = pts[None, :, :] - pos[:, None, :]
     r = np.linalg.norm(vec, axis=-1)
-    _check_distance(r, "a point is at loudspeaker", [s.name for s in speakers], "speakers.position_m")
+    _check_distance(r, speakers, point_names, point_kind)
     u = vec / r[..., None]
     local = np.einsum("spk,sjk->spj", u, frames)  # (S, P, 3) components forward/left/up
     g = _dir.speakers_gain_local(speakers, local, f)  # (S, P, F)
@@ -162,7 +165,8 @@ def statistical_transfer(rig: Rig, freq_hz, acoustics=None, *, ideal_mics: bool 
         acoustics = room_acoustics(rig.room, f)
     mics = rig.mics
     mic_pos = np.array([m.position_m for m in mics], float)
-    direct_p, reverb_p, r, u = speaker_field_pa2(rig.speakers, mic_pos, f, acoustics)
+    direct_p, reverb_p, r, u = speaker_field_pa2(rig.speakers, mic_pos, f, acoustics,
+                                                 point_names=[m.name for m in mics], point_kind="mic")
     # mic side: gain toward the speaker (unit vector mic → speaker = −u)
     axes = np.array([_dir.aim_vector(m.azimuth_rad, m.elevation_rad) for m in mics], float)  # (M, 3)
     cos_m = -np.einsum("smk,mk->sm", u, axes)
