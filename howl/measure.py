@@ -62,8 +62,13 @@ class SweepSettings:
 
     def build(self, sample_rate_hz: int) -> Sweep:
         f_hi = self.f_hi_hz if self.f_hi_hz is not None else min(20000.0, 0.45 * sample_rate_hz)
+        v.in_range(self.duration_s, "--sweep-s", 0.05, 120.0, unit="s")
+        v.positive(self.f_lo_hz, "--f-lo-hz", unit="Hz")
         if f_hi >= sample_rate_hz / 2:
             raise InputError(f"must be below half the sample rate ({sample_rate_hz / 2:g} Hz), got {f_hi:g} Hz",
+                             key="--f-hi-hz")
+        if f_hi < 2 * self.f_lo_hz:
+            raise InputError(f"must be at least an octave above --f-lo-hz ({self.f_lo_hz:g} Hz), got {f_hi:g} Hz",
                              key="--f-hi-hz")
         v.positive(self.tail_s, "--tail-s", unit="s")
         return exponential_sweep(self.duration_s, self.f_lo_hz, f_hi, sample_rate_hz,
@@ -412,7 +417,14 @@ class Session:
                 "sounds were loud during the measurement")
         linearity = None
         if prev is not None and prev[0] != level:
+            # ISO 18233 linearity: the level-normalised IRs of two levels must agree
             linearity = ir_difference_db(final.ir, prev[1].ir[: final.ir.shape[0]])
+            noise_db = -min(final.snr_db, prev[1].snr_db) + 10 * math.log10(max(final.ir.shape[0], 1))
+            if linearity > max(q.max_repeat_difference_db, noise_db + q.noise_allowance_db):
+                entry["warnings"].append(
+                    f"the IRs at {prev[0]:+.0f} and {level:+.0f} dBFS differ by {linearity:.1f} dB: the chain is not "
+                    "linear at these levels (a limiter or compressor working? distortion?); check the dynamics "
+                    "processing and measure at the lower level")
         self._finish(pair, entry, level, final, linearity)
 
     def _repeat_block(self, pair: Pair, level: float, entry: dict) -> Analysis:

@@ -282,3 +282,23 @@ def test_cli_combine_shows_the_arithmetic(tmp_path):
     assert out["loop_scale_db"] == pytest.approx((100 - 93.9794) - 54 + 40, abs=1e-3)
     loop, _ = sf.read(tmp_path / "loop.wav")
     assert 20 * np.log10(np.max(np.abs(loop))) == pytest.approx(-20 + out["loop_scale_db"], abs=1e-3)
+
+
+def test_a_chain_that_compresses_at_higher_levels_is_flagged_as_not_linear(tmp_path):
+    # y = x − 1.5x³ before the room: the fundamental's gain is 1 − (3/4)·1.5·A² (trig identity),
+    # 0.93 at A = 0.25 (−12 dBFS) and 0.72 at A = 0.5 (−6 dBFS): about −12 dB of difference.
+    fb = fake(noise_rms=1e-4, nonlinear_coeffs=(0.0, -1.5))
+    lv = LevelPolicy(start_level_dbfs=-12, max_level_dbfs=-6, step_db=6, target_snr_db=200)
+    e = session(fb, tmp_path, level=lv).measure_pair(Pair("main", "lectern"))
+    assert e["level_dbfs"] == -6
+    assert e["linearity_difference_db"] > -16
+    assert any("not linear" in w for w in e["warnings"])
+    assert e["distortion"]["thd_pct"] > 1.0  # the cubic term's third harmonic: (1.5/4)·A²/gain ≈ 13 %
+
+
+def test_a_linear_chain_is_not_flagged(tmp_path):
+    fb = fake(noise_rms=1e-4)
+    lv = LevelPolicy(start_level_dbfs=-12, max_level_dbfs=-6, step_db=6, target_snr_db=200)
+    e = session(fb, tmp_path, level=lv).measure_pair(Pair("main", "lectern"))
+    assert e["linearity_difference_db"] < -30
+    assert not any("not linear" in w for w in e["warnings"])
