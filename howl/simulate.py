@@ -65,10 +65,61 @@ def soft_limit(u: np.ndarray, ceiling: float) -> np.ndarray:
     return out
 
 
-def _partition_size(n_taps: int) -> int:
-    """Partition size P ≈ 2·√N (balances the O(P) head and O(N/P) tail cost), a power of two."""
-    p = 1 << int(round(math.log2(max(2.0, 2.0 * math.sqrt(max(n_taps, 1))))))
-    return int(min(max(p, 64), 8192))
+def _first_partition(delay: int, n_taps: int) -> int:
+    """Size S0 of the first FFT partition: a power of two ≤ the loop delay when the delay is long
+    (then no tap needs direct convolution), else 256; within [64, 4096]."""
+    if delay >= 256:
+        p = 1 << int(math.floor(math.log2(delay)))
+    else:
+        p = 256
+    return int(min(max(p, 64), 4096))
+
+
+#: Growth factor between the partition sizes of successive levels (non-uniform partitioning).
+LEVEL_RATIO = 8
+
+
+class _Level:
+    """Uniformly partitioned overlap-save convolution of one tap range [lo, hi) with partition S ≤ lo.
+
+    Every S samples, :meth:`block` returns the contribution of these taps to the next S outputs,
+    from outputs that are all in the past (every tap is at least S samples late).
+    """
+
+    def __init__(self, l: np.ndarray, lo: int, hi: int, S: int):
+        n = l.shape[0]
+        self.S = S
+        taps = l[:, :, lo:hi]
+        Q = -(-taps.shape[2] // S)
+        tp = np.zeros((n, n, Q * S))
+        tp[:, :, : taps.shape[2]] = taps
+        pad = np.zeros((n, n, Q, 2 * S))
+        pad[..., :S] = tp.reshape(n, n, Q, S)
+        spec = np.fft.rfft(pad, axis=3)  # (i, j, Q, S+1)
+        self.spec = [[np.ascontiguousarray(spec[i, j]) if np.any(tp[i, j]) else None for j in range(n)] for i in range(n)]
+        self.Q = Q
+        self.n = n
+        # taps start at lo = S·m; the input window for output block k is [kS − lo − S, kS − lo + S)
+        self.shift = lo - S
+        self.fdl = np.zeros((n, 2 * Q, S + 1), dtype=complex)
+        self.w = 0
+
+    def block(self, y: np.ndarray, s0: int, hist: int) -> np.ndarray:
+        """Contribution to outputs [s0, s0 + S); ``y`` holds outputs with ``hist`` samples of zeros in front."""
+        S = self.S
+        a = s0 - self.shift - 2 * S + hist
+        seg = y[:, a : a + 2 * S]
+        X = np.fft.rfft(seg, axis=1)  # (j, S+1)
+        self.w = (self.w - 1) % self.Q
+        self.fdl[:, self.w] = X
+        self.fdl[:, self.w + self.Q] = X
+        acc = np.zeros((self.n, S + 1), dtype=complex)
+        for i in range(self.n):
+            for j in range(self.n):
+                t = self.spec[i][j]
+                if t is not None:
+                    acc[i] += (self.fdl[j, self.w : self.w + self.Q] * t).sum(axis=0)
+        return np.fft.irfft(acc, n=2 * S, axis=1)[:, S:]
 
 
 def _gain_array(gain_db, n: int, name: str = "gain_db") -> np.ndarray | float:
@@ -83,10 +134,14 @@ def _gain_array(gain_db, n: int, name: str = "gain_db") -> np.ndarray | float:
 
 
 def _engine(l: np.ndarray, x: np.ndarray, g, ceiling: float | None, partition: int | None = None) -> np.ndarray:
-    """Closed loop y_i = sat(x_i + g·Σ_j l[i, j] * y_j) for loop IRs l (n, n, N), program x (n, T)."""
+    """Closed loop y_i = sat(x_i + g·Σ_j l[i, j] * y_j) for loop IRs l (n, n, N), program x (n, T).
+
+    Taps [d, S0) by direct convolution per sub-block of ≤ d samples; taps [S0, S1), [S1, S2), …
+    by partitioned FFT convolution with partitions S0, S1 = 8·S0, … (non-uniform partitioning,
+    Gardner 1995), each level computed every S_ℓ samples from outputs already final.
+    """
     n_ch, _, N = l.shape
     T = x.shape[1]
-    # trim trailing zeros
     nzk = np.flatnonzero(np.any(l != 0, axis=(0, 1)))
     if nzk.size == 0:
         return x.copy() if ceiling is None else np.vstack([soft_limit(xi, ceiling) for xi in x])
@@ -96,73 +151,49 @@ def _engine(l: np.ndarray, x: np.ndarray, g, ceiling: float | None, partition: i
     implicit = bool(np.any(h0))
     rest = np.flatnonzero(np.any(l[:, :, 1:] != 0, axis=(0, 1)))
     d = int(rest[0]) + 1 if rest.size else N + T  # loop delay in samples (taps ≥ 1)
-    P = int(partition) if partition else _partition_size(N)
-    B = max(1, min(d, P))
-    n_blocks = -(-T // P)
-    Tp = n_blocks * P
+    S0 = int(partition) if partition else _first_partition(d, N)
+    B = max(1, min(d, S0))
+    # levels: [S0, 8·S0), [8·S0, 64·S0), ... the last one runs to N
+    levels: list[_Level] = []
+    lo, S = S0, S0
+    while lo < N:
+        hi = min(N, lo * LEVEL_RATIO)
+        if (N - lo) <= 2 * (LEVEL_RATIO - 1) * S or S >= 65536:  # few partitions left: finish at this size
+            hi = N
+        levels.append(_Level(l, lo, hi, S))
+        lo, S = hi, S * LEVEL_RATIO
+    S_max = max([lv.S for lv in levels], default=S0)
+    n_blocks = -(-T // S0)
+    Tp = n_blocks * S0
     xp = np.zeros((n_ch, Tp))
     xp[:, :T] = x
     g_arr = np.full(Tp, g) if np.ndim(g) == 0 else np.concatenate([g, np.full(Tp - T, g[-1])])
-    # outputs with P zeros of history in front
-    y = np.zeros((n_ch, P + Tp))
-
-    # head taps [d, P) (direct), tail taps [P, N) (partitioned FFT)
-    head_lo = d
-    head = l[:, :, head_lo:P] if head_lo < P else None
+    hist = 2 * max(S_max, S0) + max((lv.shift for lv in levels), default=0)
+    hist = max(hist, S0)
+    y = np.zeros((n_ch, hist + Tp))  # outputs with `hist` zeros of history in front
+    fb = np.zeros((n_ch, Tp + S_max))
+    head_hi = min(S0, N)
+    head = l[:, :, d:head_hi] if d < head_hi else None
+    n_head = head_hi - d
     head_nz = [[head is not None and bool(np.any(head[i, j])) for j in range(n_ch)] for i in range(n_ch)]
-    tail = l[:, :, P:] if N > P else None
-    if tail is not None:
-        Q = -(-tail.shape[2] // P)
-        tp = np.zeros((n_ch, n_ch, Q * P))
-        tp[:, :, : tail.shape[2]] = tail
-        parts = tp.reshape(n_ch, n_ch, Q, P)
-        pad = np.zeros((n_ch, n_ch, Q, 2 * P))
-        pad[..., :P] = parts
-        Tspec = np.fft.rfft(pad, axis=3)  # (i, j, Q, P+1)
-        Tspec = np.ascontiguousarray(np.moveaxis(Tspec, 2, 0))  # (Q, i, j, P+1)
-        fdl = np.zeros((2 * Q, n_ch, P + 1), dtype=complex)
-        w = 0
-        tail_nz = np.array([[np.any(tp[i, j]) for j in range(n_ch)] for i in range(n_ch)])
     eye = np.eye(n_ch)
-    fb = np.zeros((n_ch, P))
     for blk in range(n_blocks):
-        s0 = blk * P
-        # ---- tail contribution for the whole block, from outputs before it
-        if tail is not None:
-            # input spectrum of [y block blk-2, y block blk-1] (history offset P in y)
-            # y index of sample m is m + P; we need samples [s0 - 2P, s0) → y[:, s0 - P : s0 + P]
-            lo_i = s0 - P
-            if lo_i < 0:
-                seg = np.concatenate([np.zeros((n_ch, -lo_i)), y[:, 0 : s0 + P]], axis=1)
-            else:
-                seg = y[:, lo_i : s0 + P]
-            X = np.fft.rfft(seg, axis=1)  # (j, P+1)
-            w = (w - 1) % Q
-            fdl[w] = X
-            fdl[w + Q] = X
-            win = fdl[w : w + Q]  # (Q, j, P+1): newest first
-            acc = np.zeros((n_ch, P + 1), dtype=complex)
-            for i in range(n_ch):
-                for j in range(n_ch):
-                    if tail_nz[i, j]:
-                        acc[i] += (win[:, j] * Tspec[:, i, j]).sum(axis=0)
-            fb[:] = np.fft.irfft(acc, n=2 * P, axis=1)[:, P:]
-        else:
-            fb[:] = 0.0
-        # ---- sub-blocks of length ≤ d, sample-accurate
+        s0 = blk * S0
+        for lv in levels:
+            if s0 % lv.S == 0:
+                fb[:, s0 : s0 + lv.S] += lv.block(y, s0, hist)
         s = s0
-        end = s0 + P
+        end = s0 + S0
         while s < end:
             e = min(s + B, end)
-            nb = e - s
-            f_sub = fb[:, s - s0 : e - s0].copy()
+            f_sub = fb[:, s:e].copy()
             if head is not None:
-                # needed outputs: samples [s - P + 1, e - d] → y[:, s + 1 : e - d + P]
+                # taps k in [d, d + n_head) need outputs s − d − n_head + 1 … e − 1 − d (all final)
                 for i in range(n_ch):
                     for j in range(n_ch):
                         if head_nz[i][j]:
-                            seg = y[j, s + 1 : e - d + P]
-                            f_sub[i] += np.convolve(seg, head[i, j], mode="valid")[:nb]
+                            seg = y[j, hist + s - d - n_head + 1 : hist + e - d]
+                            f_sub[i] += np.convolve(seg, head[i, j], mode="valid")
             gs = g_arr[s:e]
             if not implicit:
                 u = xp[:, s:e] + gs * f_sub
@@ -174,9 +205,9 @@ def _engine(l: np.ndarray, x: np.ndarray, g, ceiling: float | None, partition: i
                 u = np.linalg.solve(A, rhs)[:, :, 0].T
             if ceiling is not None:
                 u = soft_limit(u, ceiling)
-            y[:, s + P : e + P] = u
+            y[:, hist + s : hist + e] = u
             s = e
-    return y[:, P : P + T]
+    return y[:, hist : hist + T]
 
 
 def simulate_closed_loop(

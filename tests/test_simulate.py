@@ -27,8 +27,9 @@ def _recursion(h, x, g_lin, ceiling):
 @pytest.mark.parametrize(
     "delay,n_taps,h0,partition",
     [(1, 300, 0.0, 64), (3, 700, 0.0, 64), (50, 2000, 0.0, 64), (5, 200, 0.2, 32), (400, 1000, 0.0, 64),
-     (7, 900, 0.0, None)],
-    ids=["delay-1", "delay-3", "delay-50", "nonzero-first-tap", "delay-beyond-partition", "default-partition"],
+     (7, 900, 0.0, None), (20, 100, 0.0, None)],
+    ids=["delay-1", "delay-3", "delay-50", "nonzero-first-tap", "delay-beyond-partition", "default-partition",
+         "ir-shorter-than-partition"],
 )
 def test_simulator_equals_the_per_sample_recursion_with_schedule_and_limiter(delay, n_taps, h0, partition):
     rng = np.random.default_rng(11)
@@ -43,14 +44,17 @@ def test_simulator_equals_the_per_sample_recursion_with_schedule_and_limiter(del
     assert np.max(np.abs(y)) > 0.5  # it did saturate
 
 
-def test_linear_constant_gain_loop_equals_scipy_lfilter_all_pole_filter():
+@pytest.mark.parametrize(
+    "n_taps,delay,partition", [(3000, 37, None), (20000, 5, 32)], ids=["two-levels", "four-levels"]
+)
+def test_linear_constant_gain_loop_equals_scipy_lfilter_all_pole_filter(n_taps, delay, partition):
     # closed loop 1/(1 − g·H(z)) with FIR H is the IIR filter b = [1], a = [1, −g h1, −g h2, ...]
     rng = np.random.default_rng(5)
-    h = np.zeros(3000)
-    h[37:] = rng.standard_normal(3000 - 37) * np.exp(-np.arange(3000 - 37) / 400.0) * 0.02
+    h = np.zeros(n_taps)
+    h[delay:] = rng.standard_normal(n_taps - delay) * np.exp(-np.arange(n_taps - delay) / 400.0) * 0.02
     x = rng.standard_normal(20000)
     g = 10 ** (-2 / 20)
-    y = simulate_closed_loop(h, x, 16000, gain_db=-2.0, limiter_dbfs=None)
+    y = simulate_closed_loop(h, x, 16000, gain_db=-2.0, limiter_dbfs=None, partition=partition)
     a = np.concatenate([[1.0], -g * h[1:]])
     assert np.allclose(y, lfilter([1.0], a, x), rtol=1e-9, atol=1e-9)
 
