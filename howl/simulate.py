@@ -16,15 +16,20 @@ Sample-accurate feedback with fast convolution
 Let d ≥ 1 be the first nonzero tap of h after tap 0 (the loop delay). The
 feedback for samples [s, s + B) with B ≤ d depends only on outputs before s,
 which are already known, so the loop is computed in sub-blocks of length
-B = min(d, P) and exact to rounding:
+B = min(d, S0) and is exact to rounding:
 
-* the **head** taps [d, P) by direct convolution of the recent outputs
+* the first taps [d, S0) by direct convolution of the recent outputs
   (``numpy.convolve``, valid part) for each sub-block;
-* the **tail** taps [P, N) by uniformly partitioned overlap-save convolution
-  in the frequency domain ([1]_, [2]_): because every tail tap is at least P
-  samples late, the tail's contribution to a whole block of P outputs is known
-  before the block starts, and costs one FFT, one multiply-accumulate over the
-  frequency-domain delay line and one inverse FFT per block.
+* the taps [S0, N) by partitioned overlap-save convolution in the frequency
+  domain ([1]_, [2]_), in levels of growing partition size S0, 8·S0, 64·S0, …
+  (level ℓ holds the taps [S_ℓ, 8·S_ℓ) in 7 partitions of S_ℓ; the last level
+  runs to the end of the IR). Because every tap of a level is at least S_ℓ
+  samples late, that level's contribution to the next S_ℓ outputs is known
+  before they start: one FFT, one multiply-accumulate over the level's
+  frequency-domain delay line and one inverse FFT every S_ℓ samples.
+
+S0 is a power of two ≤ d when the delay is long (no direct taps at all),
+else 256.
 
 A nonzero tap 0 makes the loop implicit; it is solved exactly in the linear
 regime (u = (x + g·rest)/(1 − g·h[0])) before the limiter.
@@ -228,7 +233,7 @@ def simulate_closed_loop(
     sample_rate_hz : the common sample rate.
     gain_db : added loop gain in dB: a number, or one value per program sample (a schedule).
     limiter_dbfs : ceiling of the soft limiter in dBFS (None: no limiter, purely linear).
-    partition : FFT partition size (default ≈ 2·√len(ir), a power of two).
+    partition : size of the first FFT partition S0 (default: see the module docstring).
 
     Returns
     -------

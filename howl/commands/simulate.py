@@ -91,7 +91,7 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     from ..errors import HowlWarning, InputError
     from ..fileio import read_wav, write_wav_atomic
     from ..loop import check_ir, ir_warnings, nyquist_margin
-    from ..simulate import gain_schedule_db, simulate_closed_loop, soft_limit  # noqa: F401
+    from ..simulate import gain_schedule_db, simulate_closed_loop
 
     h, fs = read_wav(ir, channel=channel)
     try:
