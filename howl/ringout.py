@@ -1,0 +1,658 @@
+"""Virtual ring-out: choose feedback cuts on a loop IR and say what each one buys.
+
+A technician rings a system out by raising the gain until it rings, cutting the
+ringing frequency and repeating. howl does it on the loop IR, with no one's ears
+at risk. The loop with the cuts in it is L(f) = H(f)·C(f) (H the DTFT of the
+loop IR, C the cascade of RBJ cuts, :mod:`howl.notch`); its phase-aware gain
+margin is the Nyquist margin of :func:`howl.loop.nyquist_margin` [1]_. The added
+stable gain (ASG) is the margin with the cuts minus the margin without [2]_.
+
+How the cuts are chosen
+-----------------------
+In a reverberant room the next crossing is rarely more than a dB below the one
+that limits the margin, so a cut at the single worst crossing buys little. howl
+plans the cuts together, as a covering problem over the crossings:
+
+1. the positive real-axis crossings of L on the analysis grid (the zero-padded
+   FFT used by the margin analysis) are the points to cover, each with its
+   value |L| there;
+2. for a target level T, every crossing above T must come down by its excess
+   (dB). Sweeping up the frequency axis, each cut covers the lowest uncovered
+   crossing and as many of its neighbours as a cut no wider than 1/3 octave and
+   no deeper than 18 dB can bring below T, each crossing counted with its
+   temperature drift band (±``swing_c``, :func:`howl.notch.drift_bandwidth_oct`)
+   and with what the other cuts' skirts already take off. The depth of every
+   cut is the shallowest that does it (the exact RBJ response, closed form);
+3. a bisection on T finds the lowest level the budget of cuts reaches;
+4. cuts move the phase, so crossings move: the cascade is put in the loop, the
+   crossings are found again, any new offender joins the set and the plan is
+   made again (a few rounds; the best cascade is kept);
+5. the ring-out itself then runs as a technician would: find the crossing that
+   limits the margin, insert the planned cut that covers it, recompute the loop
+   with the cascade in it, repeat, until the target margin is met, the budget is
+   spent, or the last cuts buy less than ``min_gain_per_notch_db`` each.
+
+The margins before and after are exact (:func:`howl.loop.nyquist_margin` with
+the cascade passed as ``filters_sos``); the per-step margins come from the same
+grid (linear interpolation of Im L between grid points; within a few hundredths
+of a dB of the exact values).
+
+References
+----------
+.. [1] H. Nyquist, "Regeneration theory", Bell System Technical Journal 11(1),
+   126–147, 1932.
+.. [2] T. van Waterschoot and M. Moonen, "Fifty years of acoustic feedback
+   control: state of the art and future challenges", Proc. IEEE 99(2),
+   288–327, 2011 (MSG and ASG definitions).
+.. [3] R. Bristow-Johnson, "Audio EQ Cookbook", W3C Working Group Note, 2021,
+   https://www.w3.org/TR/audio-eq-cookbook/ (peakingEQ; the digital filter is
+   the bilinear transform of the analog prototype prewarped at f0, so its
+   magnitude at f equals the prototype's at tan(πf/fs)/tan(πf0/fs)).
+.. [4] D. A. Bies, C. H. Hansen and C. Howard, *Engineering Noise Control*,
+   5th ed., Table 4.3: male speech, normal effort, octave-band levels at 1 m
+   (250–4000 Hz: 72.5, 74.0, 68.0, 62.0, 57.0 dB), used to weight the
+   speech tonal cost.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from fractions import Fraction
+
+import numpy as np
+
+from . import _validate as v
+from .notch import (
+    MAX_NOTCH_BANDWIDTH_OCT,
+    Notch,
+    cascade_response,
+    cascade_sos,
+    drift_bandwidth_oct,
+    merge_notches,
+    q_from_bandwidth_oct,
+)
+from .units import temperature_frequency_ratio
+
+#: Deepest peaking cut the planner uses (dB). Deeper cuts cost tone for little
+#: extra margin in a reverberant loop (common practice, no source).
+PLAN_MAX_DEPTH_DB = 18.0
+
+#: Bandwidths (octaves) the planner tries for each cut, up to the 1/3-octave cap.
+PLAN_BANDWIDTHS_OCT = (1 / 24, 1 / 16, 1 / 12, 1 / 9, 1 / 7, 1 / 6, 1 / 5, 1 / 4, 1 / 3)
+
+#: Rounds of "insert the cascade, find the crossings again, re-plan".
+PLAN_ROUNDS = 5
+
+#: Male speech octave-band levels at 1 m, normal effort [4]_ (dB), for the
+#: speech-weighted tonal cost.
+SPEECH_OCTAVES_HZ = (250.0, 500.0, 1000.0, 2000.0, 4000.0)
+SPEECH_LEVELS_DB = (72.5, 74.0, 68.0, 62.0, 57.0)
+
+#: Cuts whose centres lie within this span (octaves) count as one cluster.
+CLUSTER_SPAN_OCT = 1.0
+CLUSTER_MIN_CUTS = 3
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True)
+class RingOutStep:
+    """One step of the ring-out: the cut inserted at the crossing that limited the loop.
+
+    ``target_freq_hz`` is that crossing; ``gain_margin_db`` the margin with all
+    cuts so far; ``added_stable_gain_db`` what this step bought;
+    ``total_added_stable_gain_db`` the ASG so far.
+    """
+
+    index: int
+    notch: Notch
+    target_freq_hz: float
+    gain_margin_db: float
+    added_stable_gain_db: float
+    total_added_stable_gain_db: float
+
+
+@dataclass(frozen=True)
+class RingOutResult:
+    """Result of :func:`ring_out` (all margins in dB; positive = stable headroom).
+
+    added_stable_gain_db: margin after − margin before (in robust mode: the
+        worst over the perturbed loops, after − before).
+    gain_margin_db_before, gain_margin_db_after: phase-aware Nyquist margins.
+    notches: the cuts, in the order the ring-out inserted them.
+    steps: one :class:`RingOutStep` per cut.
+    stopped_because: why the ring-out stopped, in words.
+    tonal_cost_db: broadband tonal cost: the pink-noise (equal energy per
+        octave) power the cascade removes over the analysis band, in dB (≥ 0).
+    tonal_cost_speech_db: the same, weighted by a male speech spectrum [4]_
+        (octave bands 250 Hz–4 kHz).
+    advice: plain-language notes (clusters, cuts at the width cap, cautions).
+    """
+
+    added_stable_gain_db: float
+    gain_margin_db_before: float
+    gain_margin_db_after: float
+    notches: tuple
+    steps: tuple
+    stopped_because: str
+    tonal_cost_db: float
+    advice: tuple
+    tonal_cost_speech_db: float = 0.0
+    magnitude_margin_db_before: float = float("nan")
+    magnitude_margin_db_after: float = float("nan")
+    howl_freq_hz_before: float = float("nan")
+    howl_freq_hz_after: float = float("nan")
+    planned_gain_margin_db: float = float("nan")
+    sample_rate_hz: float = 0.0
+    band_hz: tuple = (0.0, 0.0)
+    temperature_c: float = 20.0
+    swing_c: float = 3.0
+    robust: bool = False
+    robust_loops: tuple = field(default_factory=tuple)  # (name, margin_before_db, margin_after_db)
+
+
+# --------------------------------------------------------------------------- grid evaluation
+
+
+def _crossing_values(L: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Positive real-axis crossings of L on a grid: (freq_hz, Re L), by linear interpolation."""
+    im, re = L.imag, L.real
+    s = np.sign(im)
+    i = np.flatnonzero(s[:-1] * s[1:] < 0)
+    t = im[i] / (im[i] - im[i + 1])
+    rc = re[i] + t * (re[i + 1] - re[i])
+    fc = f[i] + t * (f[i + 1] - f[i])
+    keep = rc > 0
+    ex = np.flatnonzero((im == 0.0) & (re > 0))  # crossings that fall exactly on a grid point
+    if ex.size:
+        return np.concatenate([fc[keep], f[ex]]), np.concatenate([rc[keep], re[ex]])
+    return fc[keep], rc[keep]
+
+
+def _grid_margin_db(L: np.ndarray, f: np.ndarray) -> tuple[float, float]:
+    fc, rc = _crossing_values(L, f)
+    if rc.size == 0:
+        return float("inf"), float("nan")
+    k = int(np.argmax(rc))
+    return float(-20.0 * np.log10(rc[k])), float(fc[k])
+
+
+class _GridLoop:
+    """One loop (nominal or perturbed) on the analysis grid, with each cut's response cached."""
+
+    def __init__(self, name: str, ir: np.ndarray, f: np.ndarray, H: np.ndarray, fs: float):
+        self.name, self.ir, self.f, self.H, self.fs = name, ir, f, H, fs
+        self._zi = np.exp(-2j * np.pi * f / fs)  # z^-1 on the grid
+        self._zi2 = self._zi * self._zi
+        self._cache: dict[Notch, np.ndarray] = {}
+
+    def cut(self, notch: Notch) -> np.ndarray:
+        c = self._cache.get(notch)
+        if c is None:
+            b0, b1, b2, a0, a1, a2 = cascade_sos([notch], self.fs)[0]
+            c = (b0 + b1 * self._zi + b2 * self._zi2) / (a0 + a1 * self._zi + a2 * self._zi2)
+            if len(self._cache) > 256:
+                self._cache.clear()
+            self._cache[notch] = c
+        return c
+
+    def cascade(self, notches) -> np.ndarray | float:
+        out = 1.0
+        for n in notches:
+            out = out * self.cut(n)
+        return out
+
+
+def _grid(ir: np.ndarray, fs: float, n_fft: int, band: tuple[float, float], name: str) -> _GridLoop:
+    from .loop import loop_response
+
+    f, H = loop_response(ir, fs, n_fft=max(n_fft, 1 << int(math.ceil(math.log2(4 * ir.size)))))
+    m = (f >= band[0]) & (f <= band[1])
+    return _GridLoop(name, ir, f[m], H[m], fs)
+
+
+# --------------------------------------------------------------------------- planning
+
+
+def _warped(f: np.ndarray, fc: float, fs: float) -> np.ndarray:
+    """tan(πf/fs)/tan(πfc/fs): where the digital RBJ cut equals its analog prototype [3]_."""
+    return np.tan(np.pi * np.minimum(f, 0.4999 * fs) / fs) / np.tan(np.pi * np.asarray(fc) / fs)
+
+
+def _cut_atten_db(f: np.ndarray, fc: float, gain_db: float, q: float, fs: float) -> np.ndarray:
+    """Attenuation (dB, ≥ 0) of the digital RBJ peaking cut at f (exact, via the prototype)."""
+    w = _warped(f, fc, fs)
+    a2 = 10.0 ** (gain_db / 20.0)  # A² with A = 10^(gain/40)
+    x = (1.0 - w * w) ** 2
+    y = (w / q) ** 2
+    return -10.0 * np.log10((x + y * a2) / (x + y / a2))
+
+
+def _min_gain_db(f: np.ndarray, need_db: np.ndarray, fc: float, q: float, fs: float) -> np.ndarray:
+    """Smallest-magnitude peaking gain (dB < 0) that attenuates f by ``need_db``.
+
+    The prototype's |H|² at w is (x + y·A²)/(x + y/A²) with x = (1−w²)²,
+    y = (w/Q)² [3]_; setting it to the target a² gives a quadratic in A²:
+    A² = [−x(1−a²) + sqrt(x²(1−a²)² + 4a²y²)] / (2y).
+    """
+    w = _warped(f, fc, fs)
+    x = (1.0 - w * w) ** 2
+    y = (w / q) ** 2
+    a2 = 10.0 ** (-np.maximum(need_db, 0.0) / 10.0)
+    big = (-x * (1.0 - a2) + np.sqrt((x * (1.0 - a2)) ** 2 + 4.0 * a2 * y * y)) / (2.0 * y)
+    return 20.0 * np.log10(np.maximum(big, 1e-300))
+
+
+class _Planner:
+    """Greedy covering of crossings by at most R cuts, bisection on the level T."""
+
+    def __init__(self, fs: float, drift_oct: float, max_depth_db: float = PLAN_MAX_DEPTH_DB):
+        self.fs = fs
+        self.drift = drift_oct
+        self.gmax = max_depth_db
+        self.bw_arr = np.array(PLAN_BANDWIDTHS_OCT)
+        self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in PLAN_BANDWIDTHS_OCT])
+
+    def _one_cut(self, f: np.ndarray, need: np.ndarray):
+        """The shallowest cut covering all of (f, need), drift included; None if none can."""
+        lf0, lf1 = math.log2(f[0]), math.log2(f[-1])
+        span = lf1 - lf0
+        ok = self.bw_arr >= 0.5 * span + 0.5 * self.drift
+        if not np.any(ok):
+            return None
+        bw, q = self.bw_arr[ok], self.q_arr[ok]
+        u = np.array([0.0, -0.25, 0.25])
+        fc = (2.0 ** (0.5 * (lf0 + lf1) + u * span / 2.0))[None, :].repeat(bw.size, 0).ravel()
+        qq = np.repeat(q, u.size)
+        bb = np.repeat(bw, u.size)
+        good = fc < 0.49 * self.fs
+        if not np.any(good):
+            return None
+        fc, qq, bb = fc[good], qq[good], bb[good]
+        half = 2.0 ** (self.drift / 2.0)
+        fx = np.concatenate([f / half, f, f * half])
+        nx = np.concatenate([need, need, need])
+        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs).min(axis=1)
+        g = np.where(g >= -self.gmax, g, -np.inf)
+        k = int(np.argmax(g))  # shallowest; ties go to the narrowest (listed first)
+        if not np.isfinite(g[k]):
+            return None
+        return float(g[k]), float(fc[k]), float(bb[k]), float(qq[k])
+
+    def cover(self, f: np.ndarray, need: np.ndarray, budget: int):
+        """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget."""
+        need = need.copy()
+        cuts = []
+        cap = MAX_NOTCH_BANDWIDTH_OCT * 1.5
+        while True:
+            open_ = np.flatnonzero(need > 1e-6)
+            if open_.size == 0:
+                return cuts
+            if len(cuts) >= budget:
+                return None
+            a = open_[0]
+            cand = open_[f[open_] <= f[a] * 2.0**cap]
+            lo, hi, sol = 0, cand.size - 1, None
+            while lo <= hi:  # the widest run starting at a that one cut covers
+                mid = (lo + hi) // 2
+                r = self._one_cut(f[cand[: mid + 1]], need[cand[: mid + 1]])
+                if r is not None:
+                    sol, lo = r, mid + 1
+                else:
+                    hi = mid - 1
+            if sol is None:
+                return None
+            g, fc, bw, q = sol
+            cuts.append((fc, g, q))
+            need = need - _cut_atten_db(f, fc, g, q, self.fs)
+
+    def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.03):
+        """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
+        o = np.argsort(f)
+        f, vdb = f[o], 20.0 * np.log10(value[o])
+        top = float(vdb.max())
+        lo, hi = top - self.gmax, top
+        best = (top, [])
+        while hi - lo > tol_db:
+            t = 0.5 * (lo + hi)
+            off = vdb > t
+            cuts = self.cover(f[off], vdb[off] - t, budget)
+            if cuts is None:
+                lo = t
+            else:
+                hi, best = t, (t, cuts)
+        return best
+
+
+def _as_notches(cuts) -> list[Notch]:
+    return [Notch(float(fc), float(min(g, -0.01)), float(q)) for fc, g, q in cuts]
+
+
+def _worst_margin(loops: list[_GridLoop], notches: list[Notch], fs: float) -> tuple[float, float, int]:
+    """Worst grid margin over the loops with the cascade in: (margin_db, freq_hz, loop index)."""
+    worst = (float("inf"), float("nan"), 0)
+    for k, lp in enumerate(loops):
+        m, fh = _grid_margin_db(lp.H * lp.cascade(notches), lp.f)
+        if m < worst[0]:
+            worst = (m, fh, k)
+    return worst
+
+
+def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float):
+    """Plan, insert, find the moved crossings, re-plan; keep the best cascade."""
+    pts_f, pts_v = [], []
+    for lp in loops:
+        fc, rc = _crossing_values(lp.H, lp.f)
+        pts_f.append(fc)
+        pts_v.append(rc)
+    best = ([], _worst_margin(loops, [], fs)[0], float("nan"))
+    for _ in range(PLAN_ROUNDS):
+        pf, pv = np.concatenate(pts_f), np.concatenate(pts_v)
+        if pf.size == 0:
+            break
+        t_db, cuts = planner.plan(pf, pv, budget)
+        notches = _as_notches(cuts)
+        m, _, _ = _worst_margin(loops, notches, fs)
+        if m > best[1]:
+            best = (notches, m, -t_db)
+        new = False
+        for lp in loops:  # crossings of the loop with this cascade in it, above the level
+            fc, rc = _crossing_values(lp.H * lp.cascade(notches), lp.f)
+            bad = 20.0 * np.log10(rc) > t_db + 0.05
+            if np.any(bad):
+                new = True
+                pts_f.append(fc[bad])
+                pts_v.append(rc[bad] / np.abs(cascade_response(notches, fc[bad], fs)))
+        if not new:
+            break
+    return best
+
+
+# --------------------------------------------------------------------------- perturbed loops
+
+
+def temperature_shifted_ir(ir: np.ndarray, sample_rate_hz: float, temperature_c: float, delta_c: float) -> np.ndarray:
+    """The loop IR after the air warms by ``delta_c`` (cools if negative).
+
+    Every acoustic arrival comes earlier by the factor r = c(T+ΔT)/c(T)
+    (:func:`howl.units.temperature_frequency_ratio`): h'(t) = r·h(r·t), so that
+    H'(f) = H(f/r) (each arrival keeps its strength). The whole delay is treated
+    as acoustic, which errs toward more drift than a loop with a digital
+    processing delay. Band-limited resampling (scipy.signal.resample_poly with
+    r approximated by a ratio of integers ≤ 2000).
+    """
+    from scipy.signal import resample_poly
+
+    r = temperature_frequency_ratio(temperature_c, delta_c)
+    frac = Fraction(r).limit_denominator(2000)
+    up, down = frac.denominator, frac.numerator  # output at fs·up/down, read at fs: time × down/up = r
+    if up == down:
+        return np.asarray(ir, float).copy()
+    out = resample_poly(np.asarray(ir, float), up, down)
+    return out * (down / up)
+
+
+def perturbed_irs(ir, sample_rate_hz, *, temperature_c=20.0, swing_c=3.0, seed=0) -> list[tuple[str, np.ndarray]]:
+    """The loops a robust ring-out must survive: ±swing and ±swing/2 °C, and two with room movement.
+
+    "Movement" adds an independent reverberant tail 20 dB below the IR's own
+    (noise with the IR's 5 ms RMS envelope, after the first 10 ms past the
+    onset), a stand-in for people and air moving (our own model).
+    """
+    h = np.asarray(ir, float)
+    fs = float(sample_rate_hz)
+    out = [(f"{delta:+g} C", temperature_shifted_ir(h, fs, temperature_c, delta))
+           for delta in (-swing_c, swing_c, -swing_c / 2, swing_c / 2) if delta != 0.0]
+    rng = np.random.default_rng(seed)
+    win = max(1, int(round(0.005 * fs)))
+    env = np.sqrt(np.convolve(h * h, np.ones(win) / win, mode="same"))
+    onset = int(np.flatnonzero(np.abs(h) >= 0.1 * np.max(np.abs(h)))[0])
+    start = min(h.size, onset + int(round(0.010 * fs)))
+    for k in range(2):
+        noise = rng.standard_normal(h.size) * env
+        noise[:start] = 0.0
+        out.append((f"movement {k + 1}", h + 0.1 * noise))
+    return out
+
+
+# --------------------------------------------------------------------------- tonal cost and advice
+
+
+def tonal_cost_db(notches, band_hz, sample_rate_hz, *, weighting: str = "pink") -> float:
+    """Program power the cascade removes, in dB (≥ 0).
+
+    ``weighting="pink"``: pink noise (equal power per octave) over the band
+    (from 20 Hz if the band starts lower). ``"speech"``: a male speech spectrum
+    [4]_, octave bands 250 Hz–4 kHz, pink within each band.
+    """
+    notches = list(notches)
+    if not notches:
+        return 0.0
+    fs = float(sample_rate_hz)
+    if weighting == "speech":
+        num = den = 0.0
+        for fc, lev in zip(SPEECH_OCTAVES_HZ, SPEECH_LEVELS_DB):
+            f = np.geomspace(fc / math.sqrt(2), min(fc * math.sqrt(2), 0.499 * fs), 400)
+            w = 10.0 ** (lev / 10.0)
+            num += w * float(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2))
+            den += w
+        return float(-10.0 * math.log10(num / den))
+    lo = max(20.0, band_hz[0])
+    hi = min(band_hz[1], 0.499 * fs)
+    f = np.geomspace(lo, hi, 8000)
+    return float(-10.0 * math.log10(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2)))
+
+
+def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> list[str]:
+    out = []
+    fs_sorted = sorted(n.freq_hz for n in notches)
+    # clusters: the most cuts whose centres fit in one octave
+    best = (0, 0.0, 0.0)
+    for i, f0 in enumerate(fs_sorted):
+        inside = [f for f in fs_sorted[i:] if math.log2(f / f0) <= CLUSTER_SPAN_OCT]
+        if len(inside) > best[0]:
+            best = (len(inside), f0, inside[-1])
+    if best[0] >= CLUSTER_MIN_CUTS:
+        out.append(
+            f"{best[0]} cuts cluster between {best[1]:.0f} and {best[2]:.0f} Hz: a broad EQ cut over that region, "
+            "or moving the mic or speaker (or aiming the speaker away from the mic), would serve better than notches."
+        )
+    wide = [n for n in notches if n.bandwidth_oct >= MAX_NOTCH_BANDWIDTH_OCT - 1e-6]
+    if wide:
+        fl = ", ".join(f"{n.freq_hz:.0f}" for n in sorted(wide, key=lambda n: n.freq_hz))
+        out.append(
+            f"{len(wide)} of {len(notches)} cut(s) ({fl} Hz) use the full 1/3-octave cap: the need there is "
+            "broader than a notch, a broad-EQ or placement problem as much as a notch one."
+        )
+    if notches and asg_db < 3.0:
+        out.append(
+            "notches buy little here: many crossings stand nearly as high as the worst one (a diffuse loop); "
+            "mic choice, distance and placement buy more gain than cuts."
+        )
+    if margin_before_db < 0:
+        out.append(
+            f"the loop is already unstable at the measured settings (margin {margin_before_db:.1f} dB): "
+            "bring the gain down before anything else."
+        )
+    out.append(
+        "This is a virtual ring-out on a frozen IR: confirm at low level, raise the gain slowly, keep a hand on "
+        "the fader, and protect ears and tweeters (local codes and licensed practice come first)."
+    )
+    return out
+
+
+# --------------------------------------------------------------------------- the ring-out
+
+
+def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
+    """Insert the planned cuts one by one at the crossing that limits the loop."""
+    used: list[Notch] = []
+    left = list(planned)
+    steps = []
+    cur = m0
+    while left:
+        m, fh, _ = _worst_margin(loops, used, fs)
+        cover = [n for n in left if abs(math.log2(fh / n.freq_hz)) <= n.bandwidth_oct / 2.0] if math.isfinite(fh) else []
+        if cover:
+            pick = min(cover, key=lambda n: abs(math.log2(fh / n.freq_hz)) / n.bandwidth_oct)
+        else:  # the limit is not under any planned cut: take the one that helps most now
+            pick = max(left, key=lambda n: _worst_margin(loops, used + [n], fs)[0])
+        left.remove(pick)
+        used.append(pick)
+        m_new = _worst_margin(loops, used, fs)[0]
+        steps.append((pick, fh, m_new, m_new - cur))
+        cur = m_new
+    return steps
+
+
+def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
+    """Drop cuts of ~0 dB; merge overlapping cuts when that costs no margin."""
+    cuts = [n for n in cuts if n.gain_db is None or n.gain_db < -0.05]
+    merged = merge_notches(cuts, fs)
+    if len(merged) < len(cuts) and _worst_margin(loops, merged, fs)[0] >= _worst_margin(loops, cuts, fs)[0] - 0.05:
+        return merged
+    return cuts
+
+
+def ring_out(
+    ir,
+    sample_rate_hz,
+    *,
+    max_notches: int = 6,
+    target_margin_db: float | None = None,
+    min_gain_per_notch_db: float = 0.5,
+    band_hz=None,
+    temperature_c: float = 20.0,
+    swing_c: float = 3.0,
+    robust: bool = False,
+    seed: int = 0,
+) -> RingOutResult:
+    """Ring a loop out virtually: the cuts that buy the most stable gain, step by step.
+
+    Parameters
+    ----------
+    ir : loop IR at the reference settings (1-D, time zero = sample 0).
+    sample_rate_hz : its sample rate; cuts are evaluated as digital filters at it.
+    max_notches : the budget of cuts (default 6).
+    target_margin_db : stop as soon as the margin reaches this (default: spend the budget).
+    min_gain_per_notch_db : drop trailing cuts that buy less than this each (on average).
+    band_hz : (lo, hi) analysis band (default: all the file holds, as :func:`howl.loop.nyquist_margin`).
+    temperature_c, swing_c : air temperature and the swing every cut must cover.
+    robust : design and judge the cuts on the loop and on perturbed copies of it
+        (:func:`perturbed_irs`); the reported margins are the worst over them.
+    seed : seed of the movement perturbation (robust mode).
+    """
+    from .loop import check_ir, nyquist_margin
+
+    h = check_ir(ir, sample_rate_hz)
+    fs = v.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    budget = v.integer(max_notches, "max_notches", 0, 64)
+    min_gain = v.in_range(min_gain_per_notch_db, "min_gain_per_notch_db", 0.0, None, unit="dB")
+    target = None if target_margin_db is None else v.number(target_margin_db, "target_margin_db", unit="dB")
+    temperature_c = v.in_range(temperature_c, "temperature_c", -50.0, 60.0, unit="°C")
+    swing_c = v.in_range(swing_c, "swing_c", 0.0, 30.0, unit="°C")
+    drift = drift_bandwidth_oct(temperature_c, swing_c)
+
+    before = nyquist_margin(h, fs, band_hz=band_hz)
+    band = tuple(float(x) for x in before.band_hz)
+    irs = [("nominal", h)]
+    if robust:
+        irs += perturbed_irs(h, fs, temperature_c=temperature_c, swing_c=swing_c, seed=seed)
+    loops = [_grid(x, fs, before.n_fft, band, name) for name, x in irs]
+    m0_grid = _worst_margin(loops, [], fs)[0]
+
+    planned: list[Notch] = []
+    planned_margin = float("nan")
+    reason = None
+    if budget == 0:
+        reason = "no cuts allowed (max_notches = 0)"
+    elif not math.isfinite(m0_grid):
+        reason = "the loop never crosses the positive real axis in the band: nothing to cut"
+    elif target is not None and m0_grid >= target:
+        reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
+    else:
+        planner = _Planner(fs, drift)
+        plans = {0: ([], m0_grid)}
+        for b in range(1, budget + 1):
+            cuts, m_b, _ = _plan_cuts(loops, b, planner, fs)
+            cuts = _tidy(loops, cuts, fs)
+            m_b = _worst_margin(loops, cuts, fs)[0] if cuts else m0_grid
+            if m_b < plans[b - 1][1]:  # more budget never has to do worse
+                cuts, m_b = plans[b - 1]
+            plans[b] = (cuts, m_b)
+            if target is not None and m_b >= target:
+                break
+        gains = {b: plans[b][1] - m0_grid for b in plans}
+        chosen = 0
+        for b in sorted(plans)[1:]:
+            if all(gains[b] - gains[j] >= min_gain * (b - j) - 1e-9 for j in plans if j < b):
+                chosen = b
+        planned, planned_margin = plans[chosen]
+        n_used = len(planned)
+        if target is not None and planned_margin >= target:
+            reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
+        elif chosen < max(plans):
+            best_b = max(plans, key=lambda k: gains[k])
+            reason = (
+                f"a further cut would buy less than {min_gain:g} dB per notch (the best plan with "
+                f"{best_b} cut(s) buys {gains[best_b]:.2f} dB, with {chosen}: {gains[chosen]:.2f} dB)"
+            )
+        elif n_used < budget and chosen == budget:
+            reason = f"budget of {budget} cut(s) spent ({n_used} after merging cuts that overlap)"
+        elif chosen == budget:
+            reason = f"budget spent ({budget} cut(s))"
+        else:
+            reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
+
+    steps_raw = _order_as_ringout(loops, planned, fs, m0_grid) if planned else []
+    n_keep = len(steps_raw)
+    if target is not None:
+        for k, s in enumerate(steps_raw):
+            if s[2] >= target:
+                n_keep = k + 1
+                reason = f"target margin met ({s[2]:.2f} dB >= {target:g} dB) after {n_keep} cut(s)"
+                break
+    steps_raw = steps_raw[:n_keep]
+    notches = tuple(s[0] for s in steps_raw)
+
+    sos = cascade_sos(notches, fs) if notches else None
+    after = nyquist_margin(h, fs, band_hz=band, filters_sos=sos)
+    m_before, m_after = before.gain_margin_db, after.gain_margin_db
+    robust_loops = []
+    if robust:
+        robust_loops.append(("nominal", m_before, m_after))
+        for name, x in irs[1:]:
+            b = nyquist_margin(x, fs, band_hz=band).gain_margin_db
+            a = nyquist_margin(x, fs, band_hz=band, filters_sos=sos).gain_margin_db
+            robust_loops.append((name, b, a))
+        m_before = min(r[1] for r in robust_loops)
+        m_after = min(r[2] for r in robust_loops)
+    asg = m_after - m_before if math.isfinite(m_before) and math.isfinite(m_after) else 0.0
+
+    steps = []
+    for i, (n, fh, m, gain) in enumerate(steps_raw):
+        steps.append(RingOutStep(i + 1, n, float(fh), float(m), float(gain), float(m - m0_grid)))
+    return RingOutResult(
+        added_stable_gain_db=float(asg),
+        gain_margin_db_before=float(m_before),
+        gain_margin_db_after=float(m_after),
+        notches=notches,
+        steps=tuple(steps),
+        stopped_because=reason,
+        tonal_cost_db=tonal_cost_db(notches, band, fs),
+        advice=tuple(_advice(list(notches), asg, m_before)),
+        tonal_cost_speech_db=tonal_cost_db(notches, band, fs, weighting="speech"),
+        magnitude_margin_db_before=float(before.magnitude_margin_db),
+        magnitude_margin_db_after=float(after.magnitude_margin_db),
+        howl_freq_hz_before=float(before.howl_freq_hz),
+        howl_freq_hz_after=float(after.howl_freq_hz),
+        planned_gain_margin_db=float(planned_margin),
+        sample_rate_hz=fs,
+        band_hz=band,
+        temperature_c=float(temperature_c),
+        swing_c=float(swing_c),
+        robust=bool(robust),
+        robust_loops=tuple(robust_loops),
+    )
