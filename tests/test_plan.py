@@ -362,3 +362,40 @@ def test_pag_does_not_depend_much_on_the_band_resolution():
     pags = {fr: [m.pag_db for m in _plan(rig, peaks=True, ideal=False, fraction=fr).mics] for fr in (3, 12, 24)}
     np.testing.assert_allclose(pags[12], pags[3], atol=0.5)
     np.testing.assert_allclose(pags[24], pags[3], atol=0.5)
+
+
+def test_random_rigs_never_give_nan_or_an_unknown_verdict():
+    # property test (hypothesis, explicit seed via derandomize): any computable rig gives finite numbers or null
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    coord = st.floats(1.0, 39.0)
+    pos = st.tuples(st.floats(1.0, 59.0), coord, st.floats(0.3, 9.0))
+
+    @settings(max_examples=12, deadline=None, derandomize=True)
+    @given(spk=st.lists(pos, min_size=1, max_size=3), mics=st.lists(pos, min_size=1, max_size=3),
+           gains=st.lists(st.floats(-40.0, 60.0), min_size=3, max_size=3),
+           pattern=st.sampled_from(["omni", "cardioid", "supercardioid", "hypercardioid", "figure8"]),
+           cov=st.floats(20.0, 360.0))
+    def run(spk, mics, gains, pattern, cov):
+        speakers = tuple(Speaker(f"s{k}", p, 0.3 * k, -0.1, (cov,) * 7, (cov / 2,) * 7, 100.0)
+                         for k, p in enumerate(spk))
+        mic_objs = tuple(Mic(f"m{k}", p, 1.0 + k, 0.0, pattern, None, -50.0) for k, p in enumerate(mics))
+        for m in mic_objs:
+            for s in speakers:
+                if math.dist(m.position_m, s.position_m) < 0.1:
+                    return
+        talkers = tuple(Talker(f"t{k}", (p[0] + 0.3, p[1], p[2]), f"m{k}", 60.0) for k, p in enumerate(mics))
+        mix = Mix("mains", tuple(s.name for s in speakers), tuple((m.name, gains[k]) for k, m in enumerate(mic_objs)))
+        rig = Rig("r", ROOM, speakers, mic_objs, talkers, (Listener("far", (59.5, 39.5, 1.2)),), (mix,),
+                  target_spl_db=75.0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            obj = pl.plan_to_json(_plan(rig, peaks=True, ideal=False, fraction=1))
+        json.dumps(obj, allow_nan=False)
+        for m in obj["mics"]:
+            assert m["verdict"] in pl.VERDICTS
+            assert all(v is None or math.isfinite(v) for v in m["loop_gain_db"])
+            assert math.isfinite(m["pag_db"]) and math.isfinite(m["nag_db"])
+
+    run()

@@ -91,16 +91,17 @@ def _fmt(v, spec="+.1f", none="—") -> str:
 
 def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     from rich.console import Console
+    from rich.markup import escape
     from rich.table import Table
 
     con = Console(highlight=False)
-    con.print(f"[bold]{obj['rig']}[/bold]  ({obj['rig_file'] or 'rig'})")
+    con.print(f"[bold]{escape(str(obj['rig']))}[/bold]  ({escape(str(obj['rig_file'] or 'rig'))})")
     con.print(
         f"FSM {obj['fsm_db']:g} dB · {obj['nom']} open mic(s) in the loop · 1/{obj['fraction']} octave bands · "
         f"headroom of the rig as set: {_fmt(obj['stated_margin_db'])} dB (worst-peak loop gain to unity)"
     )
     if obj["what_if"]:
-        con.print("what if: " + ", ".join(obj["what_if"]))
+        con.print("what if: " + escape(", ".join(obj["what_if"])))
     t = Table(title="Gain before feedback per mic (dB)", show_lines=False, pad_edge=False)
     for col, just in (("mic", "left"), ("PAG", "right"), ("10–90 %", "right"), ("NAG", "right"),
                       ("margin", "right"), ("limit Hz", "right"), ("max ch.", "right"), ("verdict", "left"),
@@ -110,16 +111,16 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     for m in obj["mics"]:
         lo, hi = m["pag_spread_db"]
         t.add_row(
-            m["name"], _fmt(m["pag_db"]), f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
+            escape(m["name"]), _fmt(m["pag_db"]), f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
             f"{m['limiting_band_hz']:.0f}", _fmt(m["max_channel_gain_db"]),
             f"[{style.get(m['verdict'], '')}]{m['verdict']}[/]",
             f"{_fmt(m['davis_pag_db'])}/{_fmt(m['davis_nag_db'])}",
         )
     con.print(t)
     if obj["muted_mics"]:
-        con.print("muted (not in the loop): " + ", ".join(obj["muted_mics"]))
+        con.print("muted (not in the loop): " + escape(", ".join(obj["muted_mics"])))
     if obj["unrouted_mics"]:
-        con.print("open but in no mix: " + ", ".join(obj["unrouted_mics"]))
+        con.print("open but in no mix: " + escape(", ".join(obj["unrouted_mics"])))
     con.print(
         "PAG: gain the talker gets at the farthest listener when all open mics are raised together until the "
         "worst-peak loop gain is −FSM. NAG: gain needed for the target level (EAD). margin = PAG − NAG. "
@@ -131,7 +132,7 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
         for col in ("band", "RT60 s", "ρ avg", "peak", "ρ peak"):
             bt.add_column(col, justify="right")
         for m in obj["mics"]:
-            bt.add_column(m["name"], justify="right")
+            bt.add_column(escape(m["name"]), justify="right")
         room = obj["room"]
         for i, label in enumerate(obj["band_labels"]):
             row = [label, f"{room['rt60_s'][i]:.2f}", _fmt(obj["spectral_radius_db"][i]), _fmt(obj["peak_factor_db"][i]),
@@ -146,5 +147,5 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
         )
     if images is not None:
         for line in images.get("lines", []):
-            con.print(line)
+            con.print(escape(str(line)))
     con.print(f"[dim]{_CAUTION}[/dim]")
