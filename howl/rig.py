@@ -825,6 +825,9 @@ def rig_to_dict(rig: Rig) -> dict:
     def pos(p):
         return [float(c) for c in p]
 
+    def deg(rad):  # rounded so that a round trip never leaves the valid range (e.g. 90.00000000000001)
+        return round(_math.degrees(rad), 9)
+
     out: dict = {"name": rig.name, "description": rig.description, "notes": list(rig.notes), "fsm_db": rig.fsm_db}
     if rig.ead_m is not None:
         out["ead_m"] = rig.ead_m
@@ -833,10 +836,10 @@ def rig_to_dict(rig: Rig) -> dict:
     out["speakers"] = []
     for s in rig.speakers:
         d = {
-            "name": s.name, "position_m": pos(s.position_m), "azimuth_deg": _math.degrees(s.azimuth_rad),
-            "elevation_deg": _math.degrees(s.elevation_rad), "coverage_h_deg": list(s.coverage_h_deg),
+            "name": s.name, "position_m": pos(s.position_m), "azimuth_deg": deg(s.azimuth_rad),
+            "elevation_deg": deg(s.elevation_rad), "coverage_h_deg": list(s.coverage_h_deg),
             "coverage_v_deg": list(s.coverage_v_deg), "sensitivity_db_spl_1v_1m": s.sensitivity_db_spl_1v_1m,
-            "role": s.role, "delay_ms": s.delay_s * 1000.0,
+            "role": s.role, "delay_ms": round(s.delay_s * 1000.0, 9),
         }
         if s.directivity_file:
             d["directivity_file"] = s.directivity_file
@@ -844,8 +847,8 @@ def rig_to_dict(rig: Rig) -> dict:
     out["mics"] = []
     for m in rig.mics:
         d = {
-            "name": m.name, "position_m": pos(m.position_m), "azimuth_deg": _math.degrees(m.azimuth_rad),
-            "elevation_deg": _math.degrees(m.elevation_rad), "pattern": m.pattern,
+            "name": m.name, "position_m": pos(m.position_m), "azimuth_deg": deg(m.azimuth_rad),
+            "elevation_deg": deg(m.elevation_rad), "pattern": m.pattern,
             "sensitivity_dbv_pa": m.sensitivity_dbv_pa, "open": m.open,
         }
         if m.pattern_file:
