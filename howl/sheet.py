@@ -142,6 +142,9 @@ class CutSet:
     margin_after_db: float | None
     stopped_because: str = ""
     advice: tuple[str, ...] = ()
+    tonal_cost_db: float | None = None  # broadband (pink) power the cuts remove
+    tonal_cost_speech_db: float | None = None  # the same, speech-weighted
+    mark_after_db: float | None = None  # measured "don't go past" with the cuts in
 
 
 @dataclass(frozen=True)
@@ -451,8 +454,12 @@ def _measured_curve(pair: SessionPair, margin, label: str) -> Curve:
     return Curve(panel=pair.mic, label=label, kind="measured", freq_hz=tuple(ff), loop_gain_db=tuple(gg), marks=tuple(marks))
 
 
-def cut_set_from_ringout(loop: str, result) -> CutSet:
-    """Turn a ``howl.ringout.RingOutResult`` into a :class:`CutSet`."""
+def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutSet:
+    """Turn a ``howl.ringout.RingOutResult`` into a :class:`CutSet`.
+
+    With ``fsm_db``, also the measured "don't go past" mark with the cuts in
+    (:func:`measured_mark_db` of the margins after the ring-out).
+    """
     cuts = []
     for n in result.notches:
         bw = getattr(n, "bandwidth_oct", None)
@@ -469,7 +476,19 @@ def cut_set_from_ringout(loop: str, result) -> CutSet:
         margin_after_db=_f(result.gain_margin_db_after),
         stopped_because=str(getattr(result, "stopped_because", "") or ""),
         advice=tuple(str(a) for a in advice),
+        tonal_cost_db=_f(getattr(result, "tonal_cost_db", None)),
+        tonal_cost_speech_db=_f(getattr(result, "tonal_cost_speech_db", None)),
+        mark_after_db=_mark_or_none(result.gain_margin_db_after, getattr(result, "magnitude_margin_db_after", None), fsm_db),
     )
+
+
+def _mark_or_none(gm, mm, fsm_db) -> float | None:
+    if fsm_db is None or gm is None or mm is None:
+        return None
+    gm, mm = float(gm), float(mm)
+    if math.isnan(gm) or math.isnan(mm):
+        return None
+    return _f(measured_mark_db(gm, mm, float(fsm_db)))
 
 
 def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
@@ -512,7 +531,9 @@ def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
     return cuts, p.name
 
 
-def cut_sets_from_listen(notches, label: str, session: Session | None = None, margins: Sequence | None = None) -> list[CutSet]:
+def cut_sets_from_listen(
+    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None
+) -> list[CutSet]:
     """Cut sets for cuts found by listening; with measured loops, the ASG they buy on each.
 
     The ASG on a measured loop is ``nyquist_margin`` with the cuts' cascade
@@ -525,10 +546,11 @@ def cut_sets_from_listen(notches, label: str, session: Session | None = None, ma
     from .loop import nyquist_margin
     from .notch import cascade_sos
 
-    befores, afters, lines = [], [], []
+    befores, afters, lines, marks = [], [], [], []
     for pair, before in zip(session.pairs, margins):
         after = nyquist_margin(pair.ir, pair.sample_rate_hz, filters_sos=cascade_sos(list(notches), pair.sample_rate_hz)) if notches else before
         bm, am = float(before.gain_margin_db), float(after.gain_margin_db)
+        marks.append(_mark_or_none(am, after.magnitude_margin_db, fsm_db))
         befores.append(bm)
         afters.append(am)
         lines.append(f"{pair.speaker} \u2192 {pair.mic}: phase-aware margin {_num(_f(bm))} \u2192 {_num(_f(am))} dB")
@@ -543,6 +565,7 @@ def cut_sets_from_listen(notches, label: str, session: Session | None = None, ma
             margin_before_db=b,
             margin_after_db=a,
             advice=tuple(lines),
+            mark_after_db=None if any(m is None for m in marks) or not marks else min(marks),
         )
     ]
 
@@ -678,9 +701,9 @@ def build_sheet_data(
     cut_sets = []
     if ringouts is not None and session is not None:
         for pair, ro in zip(session.pairs, ringouts):
-            cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro))
+            cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro, fsm))
     if listen_cuts is not None:
-        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins)
+        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins, fsm)
     if plan_json is not None and session is not None:
         basis = "planned+measured"
         words = f"PLANNED from the room model + MEASURED {session.date}"
@@ -1111,7 +1134,7 @@ def _measured_table_blocks(data: SheetData) -> list[_Block]:
     return blocks
 
 
-def _cuts_blocks(data: SheetData) -> list[_Block]:
+def _cuts_blocks(data: SheetData, proto: _Page) -> list[_Block]:
     """One block per loop: the cuts (left) and what they buy (right, big)."""
     if not data.cut_sets:
         return []
@@ -1119,14 +1142,26 @@ def _cuts_blocks(data: SheetData) -> list[_Block]:
     title_h, head_h, row_h = 16.0, 22.0, 18.0
     table_frac = 0.60
     cols = [("n", "#", 0.07), ("hz", "CENTRE Hz", 0.27), ("g", "GAIN dB", 0.23), ("q", "Q", 0.18), ("bw", "WIDTH oct", 0.25)]
+    foot_size = 7.5
     for cs in data.cut_sets:
         n_rows = max(len(cs.cuts), 1)
-        n_adv = len(cs.advice) if cs.source == "listen" else min(len(cs.advice), 2)
-        foot_h = 12.0 * (bool(cs.stopped_because) + n_adv) + 4.0
-        h = title_h + head_h + row_h * n_rows + max(foot_h, 0.0)
-        h = max(h, title_h + 78.0)
+        n_adv = len(cs.advice) if cs.source == "listen" else min(len(cs.advice), 3)
+        foot = (
+            ([f"Stopped because: {cs.stopped_because}"] if cs.stopped_because else [])
+            + (
+                [f"Tonal cost: {_num(cs.tonal_cost_db, sign=False)} dB of broadband (pink) program, "
+                 f"{_num(cs.tonal_cost_speech_db, sign=False)} dB speech-weighted"]
+                if cs.tonal_cost_db is not None else []
+            )
+            + [(a if cs.source == "listen" else f"Advice: {a}") for a in cs.advice[:n_adv]]
+        )
+        # the foot runs under the table, clear of the ASG box on the right
+        foot_lines = [ln for f in foot for ln in proto.wrap(f, foot_size, table_frac * proto.width - 8)]
+        foot_h = 10.0 * len(foot_lines) + 6.0
+        h = title_h + head_h + row_h * n_rows + foot_h
+        h = max(h, title_h + 94.0)
 
-        def draw(page: _Page, y: float, cs=cs, n_rows=n_rows, n_adv=n_adv) -> None:
+        def draw(page: _Page, y: float, cs=cs, n_rows=n_rows, foot_lines=foot_lines) -> None:
             title = f"CUTS FROM RING-OUT for {cs.loop}" if cs.source == "ring-out" else f"CUTS FOUND BY LISTENING: {cs.loop}"
             page.text(page.left, y + 11, title, size=10, weight="bold", max_w=page.width)
             tw = table_frac * page.width
@@ -1153,16 +1188,16 @@ def _cuts_blocks(data: SheetData) -> list[_Block]:
                 page.text(xs["bw"][0] + 4, base, f"{c.bandwidth_oct:.3f}", size=11)
                 page.hline(page.left, page.left + tw, yy + row_h, lw=0.3, color=_GREY)
                 yy += row_h
-            for j, line in enumerate(
-                ([f"Stopped because: {cs.stopped_because}"] if cs.stopped_because else [])
-                + [(a if cs.source == "listen" else f"Advice: {a}") for a in cs.advice[:n_adv]]
-            ):
-                page.text(page.left + 4, yy + 11 + 12 * j, line, size=7.5, max_w=page.width - 8)
+            for j, line in enumerate(foot_lines):
+                page.text(page.left + 4, yy + 11 + 10 * j, line, size=foot_size)
             # what they buy
             bx = page.left + tw + 14.0
             bw = page.width - tw - 14.0
-            bh = 74.0
+            bh = 74.0 if cs.mark_after_db is None else 90.0
             page.rect(bx, yh, bw, bh, lw=1.6)
+            if cs.mark_after_db is not None:
+                page.text(bx + bw / 2, yh + 83, f"with these cuts in: DON'T GO PAST {_num(cs.mark_after_db)} dB", size=8,
+                          weight="bold", ha="center", max_w=bw - 8)
             page.text(bx + bw / 2, yh + 14, "THESE CUTS BUY", size=8, weight="bold", ha="center")
             if cs.added_stable_gain_db is None:
                 page.text(bx + bw / 2, yh + 40, "not known", size=16, weight="bold", ha="center", max_w=bw - 8)
@@ -1451,7 +1486,7 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
         blocks += _mic_table_blocks(proto.width, data, scale)
         blocks += _measured_table_blocks(data)
         blocks += _plot_blocks(data, panel_h, map_h)
-        blocks += _cuts_blocks(data)
+        blocks += _cuts_blocks(data, proto)
         blocks.append(_notes_block(proto, data, notes_size))
         return blocks
 

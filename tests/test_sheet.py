@@ -56,6 +56,17 @@ def _words(pdf: Path, page: int = 1) -> list[tuple[float, float, float, float, s
     return words
 
 
+def _words_on_page_with(pdf: Path, word: str):
+    """The words of the first page that holds ``word``."""
+    info = subprocess.run(["pdfinfo", str(pdf)], capture_output=True, text=True, check=True).stdout
+    n = int(re.search(r"Pages:\s+(\d+)", info).group(1))
+    for page in range(1, n + 1):
+        words = _words(pdf, page)
+        if any(w[4] == word for w in words):
+            return words
+    raise AssertionError(f"{word!r} is on no page")
+
+
 def _num(text: str) -> float:
     """A number as printed on the sheet (typographic minus, signs, brackets, units around it)."""
     t = text.replace("\u2212", "-").strip("()")
@@ -422,7 +433,7 @@ def test_cuts_found_by_listening_are_printed_with_the_asg_they_buy(tmp_path):
         "sheet", str(bundled_rig_path()), "--measured", str(tmp_path / "s"), "--no-plan",
         "--cuts", str(tmp_path / "listen.json"), "-o", str(out), "--json",
     ])
-    words = _words(out)
+    words = _words_on_page_with(out, "#")
     rows = _table_rows(words, ["#", "CENTRE", "GAIN", "Q", "WIDTH"], ["1", "2"], below_y=0.0, last_w=60.0)
     notches = [Notch(f_b, -6.0, 8.0), Notch(500.0, None, 10.0)]
     for key, n in zip(("1", "2"), notches):
@@ -445,5 +456,37 @@ def test_cuts_found_by_listening_are_printed_with_the_asg_they_buy(tmp_path):
     (cs,) = sheet["cut_sets"]
     assert cs["added_stable_gain_db"] == pytest.approx(asg, abs=1e-9)
     text = subprocess.run(["pdftotext", str(out), "-"], capture_output=True, text=True, check=True).stdout
+    assert f"{asg:+.1f} dB".replace("-", "\u2212") in text
+    assert "THESE CUTS BUY" in text
+
+
+@needs_poppler
+def test_ringout_cuts_on_the_page_equal_the_ringout_json(tmp_path):
+    irs = _write_session(tmp_path / "s")
+    meta = json.loads((tmp_path / "s" / "session.json").read_text())
+    meta["pairs"] = meta["pairs"][1:]  # loop B only (unstable as measured: the ring-out has work to do)
+    (tmp_path / "s" / "session.json").write_text(json.dumps(meta))
+    out = tmp_path / "sheet.pdf"
+    sheet = _cli_json([
+        "sheet", str(bundled_rig_path()), "--measured", str(tmp_path / "s"), "--no-plan", "--ringout", "-o", str(out), "--json",
+    ])
+    ro = _cli_json(["ringout", str(irs["ambo"]), "--json"])
+    assert ro["notches"], "the ring-out found nothing to cut"
+    words = _words_on_page_with(out, "#")
+    names = [str(i) for i in range(1, len(ro["notches"]) + 1)]
+    rows = _table_rows(words, ["#", "CENTRE", "GAIN", "Q", "WIDTH"], names, last_w=60.0)
+    for name, n in zip(names, ro["notches"]):
+        row = rows[name]
+        assert abs(_first_num(row["CENTRE"]) - n["freq_hz"]) <= 0.5 + 1e-9, row
+        if n["gain_db"] is None:
+            assert row["GAIN"][0] == "notch"
+        else:
+            assert _close_to_print(_first_num(row["GAIN"]), n["gain_db"]), row
+        assert _close_to_print(_first_num(row["Q"]), n["q"], digits=2), row
+        assert _close_to_print(_first_num(row["WIDTH"]), n["bandwidth_oct"], digits=3), row
+    (cs,) = sheet["cut_sets"]
+    assert cs["added_stable_gain_db"] == pytest.approx(ro["added_stable_gain_db"], abs=1e-9)
+    text = subprocess.run(["pdftotext", str(out), "-"], capture_output=True, text=True, check=True).stdout
+    asg = round(ro["added_stable_gain_db"], 1)
     assert f"{asg:+.1f} dB".replace("-", "\u2212") in text
     assert "THESE CUTS BUY" in text
