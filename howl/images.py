@@ -628,10 +628,10 @@ def rig_loop_irs(
 
 
 IMAGES_CAUTION = (
-    "Predicted howl frequencies come from an idealised shoebox with flat, smooth walls, point sources and "
-    "statistically modelled late sound. Real rooms, furniture, people, temperature and the exact positions "
-    "move the crossings: treat the frequencies as examples of where the loop is closest to unity, and the "
-    "statistical spread as the range to expect."
+    "Predicted exact howl frequencies depend on details the model lacks: it is an idealised shoebox with flat, "
+    "smooth walls, point sources and a statistically modelled late tail, while furniture, people, temperature "
+    "and the exact positions move the crossings. Treat the frequencies as examples of where the loop comes "
+    "closest to unity, and the statistical spread beside them as the range to expect."
 )
 
 
