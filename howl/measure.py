@@ -331,7 +331,10 @@ class Session:
             raise MeasurementQualityError(
                 f"{who}: input {pair.in_channel} is loud ({an.recording_rms_dbfs:.0f} dBFS rms) but does not contain "
                 f"the sweep (peak-to-noise {an.snr_db:.0f} dB, {100 * max(an.explained, 0):.0f} % explained); "
-                "wrong channel or wrong routing? check --in-channel/--out-channel and the console routing")
+                "wrong channel or wrong routing? check --in-channel/--out-channel and the console routing"
+                + ("" if an.decay_reached_noise else
+                   f"; or the room's decay outlasts the {an.window_samples / self.sample_rate_hz:.2f} s window "
+                   "(lengthen --tail-s)"))
 
     # -- one pair
     def measure_pair(self, pair: Pair) -> dict:
@@ -411,6 +414,10 @@ class Session:
             entry["warnings"].append(
                 f"SNR {final.snr_db:.1f} dB is below the target {lp.target_snr_db:g} dB at {level:+.1f} dBFS; the IR's "
                 "late part is noise-limited (raise the gain, lengthen the sweep or quieten the room)")
+        if not final.decay_reached_noise:
+            entry["warnings"].append(
+                f"the IR was still decaying at the end of the {final.window_samples / self.sample_rate_hz:.2f} s "
+                "window: lengthen --tail-s (its SNR is then underestimated, the IR's tail is cut)")
         if final.explained < 0.5:
             entry["warnings"].append(
                 f"only {100 * max(final.explained, 0):.0f} % of the recording is explained by the sweep: other "

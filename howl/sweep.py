@@ -346,6 +346,8 @@ def decay_end_index(
        level is the crossing point.
     3. The noise is re-estimated from the blocks later than the crossing plus the time
        the decay takes to fall 5 dB further (but from at least the last 10 %), and 2–3 repeat.
+    4. If what lies after the crossing still falls by more than 3 dB along a fitted line,
+       it is reverberation, not noise: the whole IR is kept (the window ends in the decay).
 
     Returns
     -------
@@ -369,8 +371,9 @@ def decay_end_index(
         above = np.nonzero(e_db[p:] < noise_db + headroom_db)[0]
         stop = p + (int(above[0]) if above.size else nb - p)
         if stop - p < 2:
-            # the IR falls into the noise within one or two blocks (a wire, an impulse)
-            cross = min(n, (p + 1) * block)
+            # the IR falls into the noise within one or two blocks (a wire, an impulse) —
+            # unless what follows still decays: then it is reverberation, not noise
+            cross = n if _still_decaying(e_db[p + 1 :], block / fs) else min(n, (p + 1) * block)
             break
         slope, intercept = np.polyfit(t[p:stop], e_db[p:stop], 1)
         if slope >= 0:
@@ -382,7 +385,18 @@ def decay_end_index(
         start = int(min(cross + round((-5.0 / slope) * fs), int(0.9 * n)))
         if n - start >= block:
             noise_lin = float(np.mean(h[start:] ** 2))
+    if cross < n and _still_decaying(e_db[min(nb - 1, cross // block) :], block / fs):
+        cross = n  # the "noise" after the crossing still decays: the window ends inside the decay
     return int(cross), float(noise_lin)
+
+
+def _still_decaying(e_db: np.ndarray, block_s: float, min_drop_db: float = 3.0) -> bool:
+    """True when block energies fall by more than ``min_drop_db`` along a fitted line (noise is flat)."""
+    if e_db.shape[0] < 4:
+        return False
+    t = np.arange(e_db.shape[0]) * block_s
+    slope = float(np.polyfit(t, e_db, 1)[0])
+    return slope * (t[-1] - t[0]) < -min_drop_db
 
 
 @dataclass(frozen=True)
@@ -700,6 +714,8 @@ class Analysis:
     band_loop_gain_db: np.ndarray
     band_noise_floor_db: np.ndarray
     per_repeat_irs: np.ndarray  # (n_repeats, len(ir)), untrimmed-fade, for linearity checks
+    window_samples: int = 0  # the IR window available after the latency
+    decay_reached_noise: bool = True  # False: the IR was still decaying at the end of the window
 
 
 def analyse(
@@ -783,4 +799,5 @@ def analyse(
         reference_snr_db=ref_snr, recording_rms_dbfs=float(20 * np.log10(max(rms, 1e-15))),
         band_centres_hz=centres, band_loop_gain_db=g_db, band_noise_floor_db=n_db,
         per_repeat_irs=mic[:, :end].copy(),
+        window_samples=int(mic.shape[1]), decay_reached_noise=bool(end < 0.9 * mic.shape[1]),
     )

@@ -302,3 +302,11 @@ def test_a_linear_chain_is_not_flagged(tmp_path):
     e = session(fb, tmp_path, level=lv).measure_pair(Pair("main", "lectern"))
     assert e["linearity_difference_db"] < -30
     assert not any("not linear" in w for w in e["warnings"])
+
+
+def test_an_ir_longer_than_the_window_asks_for_a_longer_tail(tmp_path):
+    t = np.arange(int(1.0 * FS)) / FS
+    h = 0.02 * np.random.default_rng(2).standard_normal(t.size) * np.exp(-6.9 * t / 2.0)  # RT60 2 s
+    h[24] += 0.3  # direct sound
+    e = session(fake(h=h), tmp_path, sweep=SweepSettings(0.5, 40.0, None, 0.3)).measure_pair(Pair("main", "lectern"))
+    assert any("lengthen --tail-s" in w for w in e["warnings"])
