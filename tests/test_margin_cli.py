@@ -194,3 +194,29 @@ def test_simulate_refuses_two_schedules(tmp_path):
     res = runner.invoke(app, ["simulate", str(ir), str(prog), "-o", str(tmp_path / "o.wav"), "--gain-db", "1", "--steps", "0:1"])
     assert res.exit_code == 2 and "only one of" in res.stderr
     assert not (tmp_path / "o.wav").exists()
+
+
+def test_simulate_a_folder_loop_writes_one_channel_per_mic(tmp_path):
+    from howl.rig import bundled_rig_path
+    from howl.simulate import simulate_mimo
+
+    folder = tmp_path / "irs"
+    folder.mkdir()
+    irs = _pair_irs()
+    for (s, m), h in irs.items():
+        _wav(folder / f"{s}__{m}.wav", h, fs=16000)
+    x = 0.05 * np.random.default_rng(3).standard_normal(8000)
+    prog = _wav(tmp_path / "prog.wav", x, fs=16000)
+    out = tmp_path / "out.wav"
+    args = ["simulate", str(folder), str(prog), "-o", str(out), "--rig", str(bundled_rig_path()),
+            "--program-mic", "lectern", "--gain-db", "-40", "--tail-s", "0", "--json"]
+    rep = _json(runner.invoke(app, args))
+    y, fs = sf.read(str(out))
+    assert rep["channels"] == ["ambo", "lectern"] and y.shape == (8000, 2)
+    arr = np.array([[irs[(s, m)] for m in ["ambo", "lectern"]] for s in ["column_north", "column_south"]])
+    xx = np.zeros((2, 8000))
+    xx[1] = x.astype(np.float32)
+    ref = simulate_mimo(arr.astype(np.float32).astype(float), np.full((2, 2), 10 ** (25 / 20)), xx, 16000, gain_db=-40.0)
+    assert np.allclose(y.T, ref, atol=1e-6)
+    res = runner.invoke(app, ["simulate", str(folder), str(prog), "-o", str(out), "--rig", str(bundled_rig_path())])
+    assert res.exit_code == 2 and "--program-mic" in res.stderr

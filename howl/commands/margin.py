@@ -200,14 +200,17 @@ def _pairs(paths: list[Path]):
     return out
 
 
-def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None, max_length_s=20.0, trim_s=None):
-    """The `howl margin --json` object for a loop of several speakers and mics."""
+def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, trim_s=None):
+    """Read <speaker>__<mic>.wav loop IRs and the sends.
+
+    Returns (irs (n_spk, n_mic, n), mix_lin (n_spk, n_mic), speakers, mics, sample_rate_hz,
+    pair paths, mix_source). Speakers and mics are sorted by name.
+    """
     import warnings
 
     import numpy as np
 
     from ..errors import HowlWarning, InputError
-    from ..loop import mimo_margin
     from ..units import from_db
 
     pairs = _pairs(list(paths))
@@ -260,6 +263,20 @@ def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None
             raise InputError("sends no open mic of the IR files to any of their speakers", file=str(rig_file))
     else:
         warnings.warn("no --rig given: every mic is taken as sent to every speaker at 0 dB", HowlWarning)
+    return irs, mix, speakers, mics, fs0, pairs, mix_source
+
+
+def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None, max_length_s=20.0, trim_s=None):
+    """The `howl margin --json` object for a loop of several speakers and mics."""
+    import numpy as np
+
+    from ..errors import InputError
+    from ..loop import mimo_margin
+    from ..units import from_db
+
+    irs, mix, speakers, mics, fs0, pairs, mix_source = load_pair_loop(
+        paths, rig_file=rig_file, channel=channel, max_length_s=max_length_s, trim_s=trim_s
+    )
     band = None if band_hz is None else (float(band_hz[0]), float(band_hz[1]))
     try:
         r = mimo_margin(irs, mix * from_db(gain_db), fs0, band_hz=band)

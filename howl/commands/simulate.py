@@ -48,7 +48,10 @@ def register(app: typer.Typer) -> None:
         ),
     )
     def simulate_cmd(
-        ir: Path = typer.Argument(..., metavar="IR.wav", help="Loop IR at the reference settings."),
+        ir: Path = typer.Argument(
+            ..., metavar="IR.wav | FOLDER",
+            help="Loop IR at the reference settings, or a folder of <speaker>__<mic>.wav loop IRs.",
+        ),
         program: Path = typer.Argument(..., metavar="PROGRAM.wav", help="Speech or music at the mic."),
         out: Path = typer.Option(..., "-o", "--out", metavar="OUT.wav", help="Output WAV (float32, written atomically)."),
         gain_db: Optional[float] = typer.Option(None, "--gain-db", help="Constant added loop gain (dB)."),
@@ -62,21 +65,128 @@ def register(app: typer.Typer) -> None:
         program_channel: Optional[int] = typer.Option(
             None, "--program-channel", help="Channel (1-based) of a multichannel program."
         ),
+        rig_file: Optional[Path] = typer.Option(
+            None, "--rig", metavar="RIG.toml", help="Folder mode: the rig whose mixes give the sends."
+        ),
+        program_mic: Optional[str] = typer.Option(
+            None, "--program-mic", help="Folder mode: the mic a mono program is heard at (others hear silence)."
+        ),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
         from ._common import capture_warnings, emit_json, warn
 
         warn(CAUTION)
         with capture_warnings():
-            rep = run_simulation(
-                ir, program, out, gain_db=gain_db, ramp_db=ramp_db, steps=steps, limiter_dbfs=limiter_dbfs,
-                tail_s=tail_s, channel=channel, program_channel=program_channel,
-            )
+            if ir.is_dir():
+                rep = run_mimo_simulation(
+                    ir, program, out, rig_file=rig_file, program_mic=program_mic, gain_db=gain_db,
+                    ramp_db=ramp_db, steps=steps, limiter_dbfs=limiter_dbfs, tail_s=tail_s,
+                    program_channel=program_channel,
+                )
+            else:
+                rep = run_simulation(
+                    ir, program, out, gain_db=gain_db, ramp_db=ramp_db, steps=steps, limiter_dbfs=limiter_dbfs,
+                    tail_s=tail_s, channel=channel, program_channel=program_channel,
+                )
         if json_out:
             emit_json(rep)
             return
         for line in simulation_lines(rep):
             typer.echo(line)
+
+
+def _schedule(n, fs, gain_db, ramp_db, steps):
+    from ..errors import InputError
+    from ..simulate import gain_schedule_db
+
+    given = [k for k, v in (("--gain-db", gain_db), ("--ramp-db", ramp_db), ("--steps", steps)) if v is not None]
+    if len(given) > 1:
+        raise InputError(f"give only one of --gain-db, --ramp-db, --steps; got {' and '.join(given)}", key=given[1])
+    return gain_schedule_db(
+        n, fs, gain_db=gain_db, ramp_db=None if ramp_db is None else tuple(ramp_db),
+        steps=None if steps is None else _parse_steps(steps),
+    )
+
+
+def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None, gain_db=None, ramp_db=None,
+                        steps=None, limiter_dbfs=-1.0, tail_s=1.0, program_channel=None) -> dict:
+    """Folder mode: one output channel per mic (sorted by name); returns the JSON object."""
+    import math
+    import warnings
+
+    import numpy as np
+
+    from .. import _validate as V
+    from ..errors import HowlWarning, InputError
+    from ..fileio import read_wav, write_wav_atomic
+    from ..loop import mimo_margin
+    from ..simulate import simulate_mimo
+    from .margin import load_pair_loop
+
+    irs, mix, speakers, mics, fs, _, mix_source = load_pair_loop([folder], rig_file=rig_file)
+    V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
+    V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
+    import soundfile as sf
+
+    try:
+        n_prog_ch = sf.info(str(program)).channels
+    except Exception:
+        n_prog_ch = 1  # read_wav below gives the clear message
+    if n_prog_ch > 1 and program_channel is None:
+        if n_prog_ch != len(mics):
+            raise InputError(
+                f"has {n_prog_ch} channels; a multichannel program needs one per mic ({len(mics)}: "
+                f"{', '.join(mics)}), or pass --program-channel N and --program-mic NAME", file=str(program)
+            )
+        chans = [read_wav(program, channel=c + 1, option="--program-channel") for c in range(n_prog_ch)]
+        fs_p = chans[0][1]
+        x = np.vstack([c[0] for c in chans])
+    else:
+        x1, fs_p = read_wav(program, channel=program_channel, option="--program-channel")
+        if program_mic is None:
+            if len(mics) > 1:
+                raise InputError(f"must name the mic a mono program is heard at (one of {', '.join(mics)})",
+                                 key="--program-mic")
+            program_mic = mics[0]
+        if program_mic not in mics:
+            raise InputError(f"must be one of {', '.join(mics)}, got {program_mic!r}", key="--program-mic")
+        x = np.zeros((len(mics), x1.size))
+        x[mics.index(program_mic)] = x1
+    if fs_p != fs:
+        from scipy.signal import resample_poly
+
+        g = math.gcd(int(fs), int(fs_p))
+        x = resample_poly(x, int(fs) // g, int(fs_p) // g, axis=1)
+        warnings.warn(f"{program}: resampled from {fs_p} Hz to the IRs' {fs} Hz", HowlWarning)
+    x = np.concatenate([x, np.zeros((x.shape[0], int(round(tail_s * fs))))], axis=1)
+    sched = _schedule(x.shape[1], fs, gain_db, ramp_db, steps)
+    r = mimo_margin(irs, mix, fs)
+    y = simulate_mimo(irs, mix, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
+    write_wav_atomic(out, y.T, fs)
+    gmax = float(np.max(sched))
+    finite = bool(np.isfinite(r.gain_margin_db))
+    ceiling = 10 ** (limiter_dbfs / 20)
+    return {
+        "irs": str(folder),
+        "program": str(program),
+        "output": str(out),
+        "channels": mics,
+        "mix_source": mix_source,
+        "sample_rate_hz": fs,
+        "duration_s": y.shape[1] / fs,
+        "gain_db_start": float(sched[0]),
+        "gain_db_end": float(sched[-1]),
+        "gain_db_max": gmax,
+        "gain_margin_db": r.gain_margin_db if finite else None,
+        "howl_freq_hz": r.howl_freq_hz if finite else None,
+        "margin_at_max_gain_db": (r.gain_margin_db - gmax) if finite else None,
+        "expected": ("stable" if (not finite or r.gain_margin_db - gmax > 0) else "howls"),
+        "peak_dbfs": float(20 * np.log10(max(float(np.max(np.abs(y))), 1e-12))),
+        "limiter_dbfs": limiter_dbfs,
+        "limited_fraction": float(np.mean(np.abs(y) > 0.5 * ceiling)),
+        "level_change_db": None,
+        "caution": CAUTION,
+    }
 
 
 def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, limiter_dbfs=-1.0, tail_s=1.0,
@@ -91,7 +201,7 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     from ..errors import HowlWarning, InputError
     from ..fileio import read_wav, write_wav_atomic
     from ..loop import check_ir, ir_warnings, nyquist_margin
-    from ..simulate import gain_schedule_db, simulate_closed_loop
+    from ..simulate import simulate_closed_loop
 
     h, fs = read_wav(ir, channel=channel)
     try:
@@ -110,13 +220,7 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
     V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
     x = np.concatenate([x, np.zeros(int(round(tail_s * fs)))])
-    given = [n for n, v in (("--gain-db", gain_db), ("--ramp-db", ramp_db), ("--steps", steps)) if v is not None]
-    if len(given) > 1:
-        raise InputError(f"give only one of --gain-db, --ramp-db, --steps; got {' and '.join(given)}", key=given[1])
-    sched = gain_schedule_db(
-        x.size, fs, gain_db=gain_db, ramp_db=None if ramp_db is None else tuple(ramp_db),
-        steps=None if steps is None else _parse_steps(steps),
-    )
+    sched = _schedule(x.size, fs, gain_db, ramp_db, steps)
     r = nyquist_margin(h, fs)
     y = simulate_closed_loop(h, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
     write_wav_atomic(out, y, fs)
