@@ -75,6 +75,9 @@ from .units import speed_of_sound_m_s
 
 GainFunction = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
+#: Largest image set one IR may use (memory: about 1 kB per image during synthesis).
+MAX_IMAGES = 3_000_000
+
 #: Energy decay rate for a reverberation time T: 60 dB in T seconds → k = 6·ln(10)/T.
 _DECAY_LN = 6.0 * math.log(10.0)
 
@@ -413,7 +416,13 @@ def image_source_ir(
     mic = _check_inside(room, mic_position_m, "mic_position_m")
     if max_order is None:
         max_order = 6 if tail else 20
-    max_order = V.integer(max_order, "max_order", 0, 200)
+    max_order = V.integer(max_order, "max_order", 0, 150)
+    n_img = (2 * max_order + 1) * (2 * max_order**2 + 2 * max_order + 3) // 3  # |kx|+|ky|+|kz| ≤ N
+    if n_img > MAX_IMAGES:
+        raise InputError(
+            f"gives {n_img} image sources; expected at most {MAX_IMAGES} (lower the order: the statistical "
+            "tail takes over the late part)", key="max_order",
+        )
     half_width = V.integer(half_width, "half_width", 2, 512)
     c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
         speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"

@@ -306,28 +306,30 @@ def _images_band_loop(rig: Rig, mic_name: str, talker: str, freqs: np.ndarray, f
     e = mix[:, act]
     lo, hi = band_edges_hz(freqs, fraction)
     n_len = irs0.shape[2]
+    n_fft = 1 << int(math.ceil(math.log2(max(2 * n_len, 4096))))
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    a_idx = np.searchsorted(f, lo)
+    b_idx = np.searchsorted(f, hi)
+    hs0 = np.fft.rfft(irs0, n_fft, axis=2)  # (S, M, F): the fixed mics' transfers, once
 
     def fn(points: np.ndarray) -> np.ndarray:
         out = np.empty((points.shape[0], freqs.size))
         for q, p in enumerate(points):
             r = moved_rig(rig, mic_name, p, talker=talker)
             mic = r.mics[k]
-            irs = irs0.copy()
+            row = np.empty((len(r.speakers), n_len))
             for si, spk in enumerate(r.speakers):
                 h = image_source_ir(r.room, spk.position_m, mic.position_m, fs, max_order=max_order,
                                     source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic),
                                     seed=np.random.SeedSequence([int(seed), si, k]).generate_state(1)[0],
                                     duration_s=n_len / fs, delay_s=spk.delay_s)
-                irs[si, c, :] = h[:n_len] * _electrical_gain(spk, mic)
-            n_fft = 1 << int(math.ceil(math.log2(max(2 * n_len, 4096))))
-            f = np.fft.rfftfreq(n_fft, 1.0 / fs)
-            Hs = np.fft.rfft(irs, n_fft, axis=2)  # (S, M, F)
-            L = np.einsum("sif,sj->fij", Hs, e)  # (F, M, M)
+                row[si] = h[:n_len] * _electrical_gain(spk, mic)
+            hs = hs0.copy()
+            hs[:, c, :] = np.fft.rfft(row, n_fft, axis=1)  # only the moved mic's row changes
+            L = np.einsum("sif,sj->fij", hs, e)  # (F, M, M)
             sr = np.max(np.abs(np.linalg.eigvals(L)), axis=-1) if L.shape[-1] > 1 else np.abs(L[:, 0, 0])
-            a = np.searchsorted(f, lo)
-            b = np.searchsorted(f, hi)
             out[q] = [20.0 * np.log10(max(float(np.max(sr[i:j])) if j > i else 1e-15, 1e-15))
-                      for i, j in zip(a, b)]
+                      for i, j in zip(a_idx, b_idx)]
         return out
 
     return fn

@@ -442,3 +442,21 @@ def test_plan_with_images_gives_phase_aware_margins_beside_the_statistical_sprea
     assert "depend on details the model lacks" in out["caution"]
     assert any("Caution" in line for line in out["lines"])
     assert out["system"]["worst_mic"] == "m1"
+
+
+def test_image_count_is_the_octahedral_number_and_omni_irs_are_reciprocal():
+    """|kx|+|ky|+|kz| ≤ N holds (2N+1)(2N²+2N+3)/3 points (the centred octahedral numbers,
+    OEIS A001845); with omni ends and equal walls, swapping source and mic leaves the IR
+    unchanged (acoustic reciprocity; Allen & Berkley 1979 build on it)."""
+    for n in (0, 1, 2, 7):
+        assert shoebox_images((5.0, 4.0, 3.0), (1.0, 1.0, 1.0), n).order.size == (2 * n + 1) * (2 * n * n + 2 * n + 3) // 3
+    room = shoebox((7.0, 5.0, 3.0), (0.1, 0.2, 0.3, 0.3, 0.4, 0.5, 0.6))
+    a = image_source_ir(room, (1.2, 3.1, 1.1), (5.3, 1.4, 2.2), FS, max_order=6, tail=False)
+    b = image_source_ir(room, (5.3, 1.4, 2.2), (1.2, 3.1, 1.1), FS, max_order=6, tail=False)
+    np.testing.assert_allclose(a, b, atol=1e-12 * np.abs(a).max())
+
+
+def test_too_many_images_are_refused_with_the_order_named():
+    room = shoebox((7.0, 5.0, 3.0), 0.2)
+    with pytest.raises(InputError, match="max_order"):
+        image_source_ir(room, (1, 1, 1), (2, 2, 2), FS, max_order=140, tail=False)
