@@ -56,6 +56,9 @@ MIN_N_FFT = 1 << 16
 #: Two crossings whose margins differ by less than this are both "the" howl frequency.
 TIE_DB = 0.02
 
+#: At most this many tied howl frequencies are listed (a flat, real loop ties everywhere).
+MAX_TIES = 1000
+
 #: Longest loop IR accepted (s); longer files are almost always a wrong file.
 MAX_IR_S = 20.0
 
@@ -222,7 +225,8 @@ class MarginResult:
     gain_margin_db : phase-aware margin (inf when H never crosses the positive real axis in the band).
     magnitude_margin_db : phase-blind margin −20·log10 max|H| in the band.
     howl_freq_hz : frequency of the limiting crossing (nan when there is none).
-    howl_freqs_hz : every crossing whose margin ties with the limiting one within ``TIE_DB``.
+    howl_freqs_hz : every crossing whose margin ties with the limiting one within ``TIE_DB``
+        (worst first, at most ``MAX_TIES``).
     risks : worst first.
     crossings_freq_hz, crossings_value : every positive real-axis crossing in the band
         (frequency, Re H there), sorted by frequency; the worst ones are refined.
@@ -513,7 +517,7 @@ def nyquist_margin(
         gain_margin_db = float(margins[0])
         howl_freq_hz = float(cand_f[0])
         tie = margins <= gain_margin_db + tie_db
-        howl_freqs = tuple(float(x) for x in cand_f[tie])
+        howl_freqs = tuple(float(x) for x in cand_f[tie][:MAX_TIES])
         # ring-down prediction at the howl frequency
         v, dv = L.with_deriv(howl_freq_hz)
         dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
@@ -676,6 +680,31 @@ class _MatrixLoop:
         self.n = l.shape[0]
         self.parts = [[_FastDTFT(l[i, j]) if np.any(l[i, j]) else None for j in range(self.n)] for i in range(self.n)]
 
+    def matrices(self, f) -> np.ndarray:
+        """L at frequencies ``f`` (M,) → (M, n, n)."""
+        return self.with_deriv(f, deriv=False)
+
+    def with_deriv(self, f, deriv: bool = True):
+        """L and dL/df (per Hz) at frequencies ``f`` (M,) → (M, n, n) each."""
+        f = np.atleast_1d(np.asarray(f, dtype=float))
+        w = 2.0 * np.pi * f / self.fs
+        Lm = np.zeros((f.size, self.n, self.n), dtype=complex)
+        dL = np.zeros_like(Lm)
+        for i in range(self.n):
+            for j in range(self.n):
+                part = self.parts[i][j]
+                if part is None:
+                    continue
+                if deriv:
+                    Lm[:, i, j], d = part(w, deriv=True)
+                    dL[:, i, j] = d * (2.0 * np.pi / self.fs)
+                else:
+                    Lm[:, i, j] = part(w)
+        edge = (f == 0.0) | (f == self.fs / 2.0)
+        if np.any(edge):
+            Lm[edge] = Lm[edge].real
+        return (Lm, dL) if deriv else Lm
+
     def __call__(self, f: float) -> np.ndarray:
         w = 2.0 * np.pi * f / self.fs
         Lm = np.zeros((self.n, self.n), dtype=complex)
@@ -698,6 +727,12 @@ def _track_loci(lam: np.ndarray) -> np.ndarray:
     # best permutation of row q's raw order to match row q-1's raw order
     cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
     step = np.argmin(cost, axis=1)
+    if n == 2:  # the two orders form a group of two: the running order is the parity of the swaps
+        parity = np.concatenate([[0], np.cumsum(step != 0) % 2])
+        out = lam.copy()
+        sw = parity == 1
+        out[sw] = lam[sw][:, ::-1]
+        return out
     index = {p: k for k, p in enumerate(perms)}
     # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
     table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
@@ -711,21 +746,54 @@ def _track_loci(lam: np.ndarray) -> np.ndarray:
     return out
 
 
-def _refine_locus(ev_at: _MatrixLoop, a: float, b: float, za: complex, zb: complex, iters: int = 44):
-    """Bisect the frequency where one eigenvalue locus crosses the real axis (continuation by nearest)."""
-    zc = za
-    for _ in range(iters):
-        m = 0.5 * (a + b)
-        ev = np.linalg.eigvals(ev_at(m))
-        zm = ev[np.argmin(np.abs(ev - 0.5 * (za + zb)))]
-        if np.sign(zm.imag) == np.sign(za.imag):
-            a, za = m, zm
-        else:
-            b, zb = m, zm
-        zc = zm
-        if b - a < 1e-10 * max(b, 1.0):
+def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
+    """Frequencies where eigenvalue loci cross the real axis, one per bracket (vectorised).
+
+    Newton steps on Im λ(f) with the eigenvalue derivative dλ/df = wᵀ (dL/df) v (v the right
+    eigenvector, wᵀ the matching row of V⁻¹, so wᵀv = 1), kept inside the shrinking bracket
+    (bisection when a step leaves it); the locus is followed by taking, at each step, the
+    eigenvalue nearest to the previous one. Returns (f, λ).
+    """
+    a = np.array(a, dtype=float)
+    b = np.array(b, dtype=float)
+    za = np.asarray(za, dtype=complex)
+    zb = np.asarray(zb, dtype=complex)
+    sa = np.sign(za.imag)
+    t = za.imag / (za.imag - zb.imag)
+    x = a + t * (b - a)
+    z = za + t * (zb - za)
+    active = np.ones(x.size, bool)
+    tol = 1e-12 * ev_at.fs
+    for _ in range(max_iter):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
             break
-    return 0.5 * (a + b), complex(zc)
+        Lm, dL = ev_at.with_deriv(x[idx])
+        ev, V = np.linalg.eig(Lm)
+        k = np.argmin(np.abs(ev - z[idx, None]), axis=1)
+        lam = ev[np.arange(idx.size), k]
+        W = np.linalg.inv(V)
+        w = W[np.arange(idx.size), k, :]
+        v = V[np.arange(idx.size), :, k]
+        dlam = np.einsum("mi,mij,mj->m", w, dL, v)
+        z[idx] = lam
+        fx = lam.imag
+        left = np.sign(fx) == sa[idx]
+        a[idx[left]] = x[idx[left]]
+        b[idx[~left]] = x[idx[~left]]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xn = x[idx] - fx / dlam.imag
+        bad = ~np.isfinite(xn) | (xn <= a[idx]) | (xn >= b[idx])
+        xn[bad] = 0.5 * (a[idx[bad]] + b[idx[bad]])
+        step_tol = tol + 1e-11 * np.abs(x[idx])
+        done = (fx == 0.0) | (np.abs(xn - x[idx]) < step_tol) | (b[idx] - a[idx] < step_tol)
+        x[idx] = np.where(fx == 0.0, x[idx], xn)
+        active[idx[done]] = False
+    # final values at the final frequencies, on the same loci
+    Lm = ev_at.matrices(x)
+    ev = np.linalg.eigvals(Lm)
+    k = np.argmin(np.abs(ev - z[:, None]), axis=1)
+    return x, ev[np.arange(x.size), k]
 
 
 def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
@@ -750,7 +818,13 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
     sel = (f_all >= lo) & (f_all <= hi)
     f = f_all[sel]
     Lf = np.moveaxis(Hs[:, :, sel], 2, 0)  # (F, i, j)
-    lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
+    if n_mic == 2:  # closed form: λ = tr/2 ± √((tr/2)² − det)
+        half = 0.5 * (Lf[:, 0, 0] + Lf[:, 1, 1])
+        det = Lf[:, 0, 0] * Lf[:, 1, 1] - Lf[:, 0, 1] * Lf[:, 1, 0]
+        root = np.sqrt(half * half - det)
+        lam = np.stack([half + root, half - root], axis=1)
+    else:
+        lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
     if n_mic > 1:
         lam = _track_loci(lam)
     rad = np.max(np.abs(lam), axis=1)
@@ -775,19 +849,22 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
         best = c_r[order[0]]
         n_ref = int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1
         ev_at = _MatrixLoop(l, fs)
-        for j in order[: min(max(n_ref, 4), 32)]:
-            i = c_i[j]
-            fz, zc = _refine_locus(ev_at, f[i], f[i + 1], lam[i, c_e[j]], lam[i + 1, c_e[j]])
-            # a locus mismatch between grid points can fake a sign change: keep true crossings only
-            if zc.real > 0 and abs(zc.imag) <= 1e-6 * abs(zc):
-                cr_f.append(fz)
-                cr_v.append(zc)
-        for j in order[min(max(n_ref, 4), 32) :]:
-            if c_r[j] > 0:
-                i = c_i[j]
-                t = lam[i, c_e[j]].imag / (lam[i, c_e[j]].imag - lam[i + 1, c_e[j]].imag)
-                cr_f.append(float(f[i] + t * (f[i + 1] - f[i])))
-                cr_v.append(complex(c_r[j]))
+        sel = order[: min(max(n_ref, 4), 64)]
+        ii = c_i[sel]
+        fz, zc = _refine_loci(ev_at, f[ii], f[ii + 1], lam[ii, c_e[sel]], lam[ii + 1, c_e[sel]])
+        # a locus mismatch between grid points can fake a sign change: keep true crossings only
+        for fq, zq in zip(fz, zc):
+            if zq.real > 0 and abs(zq.imag) <= 1e-6 * abs(zq):
+                cr_f.append(float(fq))
+                cr_v.append(complex(zq))
+        rest_j = order[min(max(n_ref, 4), 64) :]
+        rest_j = rest_j[c_r[rest_j] > 0]
+        if rest_j.size:
+            i = c_i[rest_j]
+            za_, zb_ = lam[i, c_e[rest_j]], lam[i + 1, c_e[rest_j]]
+            t = za_.imag / (za_.imag - zb_.imag)
+            cr_f.extend((f[i] + t * (f[i + 1] - f[i])).tolist())
+            cr_v.extend(c_r[rest_j].astype(complex).tolist())
     cr_f = np.asarray(cr_f, dtype=float)
     cr_v = np.asarray(cr_v, dtype=complex)
     if cr_f.size == 0:

@@ -425,3 +425,22 @@ def test_margin_agrees_with_a_brute_force_scan_on_a_64_times_finer_grid(seed):
     r = nyquist_margin(h, FS16)
     assert r.gain_margin_db == pytest.approx(-20 * np.log10(rc[k]), abs=2e-3)
     assert r.howl_freq_hz == pytest.approx(fc[k], rel=1e-5)
+
+
+def test_a_three_mic_loop_of_two_separate_parts_has_the_worse_part_s_margin():
+    # Generalized Nyquist: det(I − L) of a block-diagonal L factors into its blocks (linear
+    # algebra), so the margin is the smaller of the blocks' margins.
+    irs, mix = _two_by_two()
+    solo = _room_ir(**ROOMS["small-4x3"])[: irs.shape[2]]
+    big = np.zeros((3, 3, irs.shape[2]))
+    big[:2, :2] = irs
+    big[2, 2] = solo * 3.0
+    mix3 = np.zeros((3, 3))
+    mix3[:2, :2] = mix
+    mix3[2, 2] = 1.0
+    pair = mimo_margin(irs, mix, FS16, band_hz=(20.0, 7900.0))
+    one = nyquist_margin(solo * 3.0, FS16, band_hz=(20.0, 7900.0))
+    r = mimo_margin(big, mix3, FS16, band_hz=(20.0, 7900.0))
+    assert r.gain_margin_db == pytest.approx(min(pair.gain_margin_db, one.gain_margin_db), abs=1e-5)
+    expect_mic = 2 if one.gain_margin_db < pair.gain_margin_db else pair.worst_mic_index
+    assert r.worst_mic_index == expect_mic
