@@ -174,3 +174,35 @@ def test_server_going_away_mid_sweep_is_reported_not_hung(jack_env, tmp_path):
         if server.poll() is None:
             server.kill()
             server.wait(timeout=10)
+
+
+_BACKEND_SCRIPT = r"""
+import json, numpy as np
+from howl.audio import PortAudioBackend
+b = PortAudioBackend()
+sd = b._sd
+before = (list(sd.default.device), sd.default.samplerate, list(sd.default.channels))
+dev = b.resolve("loopback, JACK", "both")
+rng = np.random.default_rng(0)
+x = np.zeros((24000, 2), dtype=np.float32)
+x[:12000] = (0.25 * rng.standard_normal((12000, 2))).astype(np.float32)
+res = b.play_record(x, sample_rate_hz=48000, output_device=dev, input_device=dev,
+                    output_channels=[1, 2], input_channels=[2, 1])
+after = (list(sd.default.device), sd.default.samplerate, list(sd.default.channels))
+y = res.recording
+lag = int(np.argmax(np.abs(np.correlate(y[:16000, 1], x[:4000, 0], mode="valid"))))
+exact = bool(np.array_equal(y[lag:lag + 12000, 1], x[:12000, 0]) and np.array_equal(y[lag:lag + 12000, 0], x[:12000, 1]))
+b.close()
+print(json.dumps({"lag": lag, "exact": exact, "flags": list(res.status_flags), "same_defaults": before == after}))
+"""
+
+
+def test_portaudio_backend_round_trip_is_bit_exact_and_leaves_defaults_alone(jack_env):
+    r = subprocess.run([sys.executable, "-c", _BACKEND_SCRIPT], env=jack_env, capture_output=True, text=True,
+                       timeout=120)
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout.strip().splitlines()[-1])
+    assert out["lag"] == PERIOD  # one JACK period
+    assert out["exact"]  # float32 in, the same float32 out, channels in the order asked for
+    assert not [f for f in out["flags"] if f != "priming_output"]  # no over/underflow
+    assert out["same_defaults"]  # sounddevice's global defaults never touched
