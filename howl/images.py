@@ -30,7 +30,9 @@ images (numpy; no Python loop per image):
   whose band gains are all equal therefore comes out as exactly its
   fractional delay; otherwise its spectrum is the smooth interpolation of its
   band gains with no added phase. (Where band gains differ, each arrival gets
-  a short symmetric spread in time, ≈ one period of the crossover frequency.)
+  a short symmetric spread in time, ≈ one period of the crossover frequency,
+  at about 1e-4 of its level; the IR is set to zero before the first
+  arrival's fractional-delay filter, so the loop stays causal.)
 * **Late tail.** Beyond the order used, the image set is incomplete. From the
   transition time (the earliest arrival of the first missing order) the
   images are faded out and Gaussian noise is faded in (equal-power
@@ -515,6 +517,10 @@ def image_source_ir(
 
     spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
     ir = sfft.irfft(spec, n_fft)[:n]
+    # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
+    # crossovers leak ~1e-4 of the peak ahead of an arrival whose band gains differ)
+    if delay.size:
+        ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
     return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
 
 
@@ -644,6 +650,10 @@ IMAGES_CAUTION = (
 )
 
 
+def _fmt_hz(v) -> str:
+    return "—" if v is None or not np.isfinite(v) else f"{v:.0f} Hz"
+
+
 def _fmt_db(v) -> str:
     return "—" if v is None or not np.isfinite(v) else f"{v:+.1f}"
 
@@ -694,7 +704,7 @@ def plan_with_images(
     lines = [
         f"Image-source loops ({fs:g} Hz, shoebox {rig.room.dimensions_m[0]:g} × {rig.room.dimensions_m[1]:g} × "
         f"{rig.room.dimensions_m[2]:g} m), each mic alone at the rig's settings:",
-        f"{'mic':<14}{'margin':>9}{'howl at':>11}{'|L| max':>9}{'statistical (10–90 %)':>26}",
+        f"{'mic':<14}{'margin':>9}{'howl at':>12}{'|L| max':>9}{'statistical (10–90 %)':>26}",
     ]
     for k in active:
         mic = rig.mics[k]
@@ -726,7 +736,7 @@ def plan_with_images(
             "statistical_spread_db": [_json_num(stat_lo), _json_num(stat_hi)],
         })
         lines.append(
-            f"{mic.name:<14}{_fmt_db(gm):>9}{res.howl_freq_hz:>9.0f} Hz{_fmt_db(res.magnitude_margin_db):>9}"
+            f"{mic.name:<14}{_fmt_db(gm):>9}{_fmt_hz(res.howl_freq_hz):>12}{_fmt_db(res.magnitude_margin_db):>9}"
             f"{_fmt_db(stat):>12} ({_fmt_db(stat_lo)} … {_fmt_db(stat_hi)})"
         )
     mm = mimo_margin(irs[:, active, :], mix[:, active], fs, band_hz=band)
@@ -740,7 +750,7 @@ def plan_with_images(
     }
     lines.append(
         f"all open mics together: margin {_fmt_db(mm.gain_margin_db)} dB, first howl near "
-        f"{mm.howl_freq_hz:.0f} Hz, most at fault: {worst}"
+        f"{_fmt_hz(mm.howl_freq_hz)}, most at fault: {worst}"
     )
     lines.append("margin: phase-aware (Nyquist) gain margin of the estimated loop; |L| max: phase-blind margin.")
     lines.append("Caution: " + IMAGES_CAUTION)
