@@ -874,3 +874,55 @@ def summarise_notches(notches, sample_rate_hz: float, *, max_notches: int = 6):
 def event_to_dict(event: Event) -> dict:
     """JSON-ready dict of an event (None fields kept as null)."""
     return dataclasses.asdict(event)
+
+
+def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: float | None = None,
+           max_notches: int = 6, temperature_c: float = 20.0, swing_c: float = 3.0,
+           target_margin_db: float = TARGET_MARGIN_DB) -> dict:
+    """The JSON-ready report shared by ``howl scan`` and ``howl listen``.
+
+    ``events``: each with its suggested cut (``notch``) and the cut depth it needs;
+    ``notches``: the cuts merged across events (same frequency → one cut) within the
+    budget ``max_notches``; ``advice``: when a broad EQ or placement would serve better.
+    """
+    ev_out = []
+    cuts = []
+    for e in events:
+        notch, needed, margin_used = suggest_event_cut(
+            e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
+            temperature_c=temperature_c, swing_c=swing_c)
+        cuts.append(notch)
+        d = {
+            "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
+            "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
+            "decay_db_per_s": e.decay_db_per_s, "steady": e.steady,
+            "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
+                      "bandwidth_oct": notch.bandwidth_oct},
+            "needed_cut_db": needed,
+            "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
+                         "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd},
+        }
+        if loop_delay_s is not None:
+            d["margin_db"] = e.margin_db
+        else:
+            d["margin_assumed_db"] = margin_used
+        ev_out.append(d)
+    kept, advice = summarise_notches(cuts, sample_rate_hz, max_notches=max_notches)
+    notches = []
+    for n in kept:
+        lo, hi = n.band_edges_hz()
+        members = [e for e in events if lo <= e.freq_hz <= hi]
+        notches.append({"freq_hz": n.freq_hz, "gain_db": n.gain_db, "q": n.q, "bandwidth_oct": n.bandwidth_oct,
+                        "n_events": len(members), "kinds": sorted({e.kind for e in members})})
+    return {
+        "sample_rate_hz": float(sample_rate_hz),
+        "duration_s": float(duration_s),
+        "loop_delay_ms": None if loop_delay_s is None else 1000.0 * loop_delay_s,
+        "assumed_loop_delay_ms": None if loop_delay_s is not None else 1000.0 * DEFAULT_LOOP_DELAY_S,
+        "target_margin_db": target_margin_db,
+        "events": ev_out,
+        "notches": notches,
+        "advice": advice,
+        "n_howl": sum(e.kind == "howl" for e in events),
+        "n_ringing": sum(e.kind == "ringing" for e in events),
+    }
