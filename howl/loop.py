@@ -412,9 +412,11 @@ def nyquist_margin(
     Every positive real-axis crossing of L(f) = g·H(f)·C(f) (g = 10^(gain_db/20),
     C the optional second-order-section cascade in the loop) is located on a
     zero-padded FFT grid (``oversample``·len(ir) points, at least 65536), then
-    the worst ones are refined by regula falsi on Im L(f) evaluated as an exact
-    DTFT (and exact filter response) at arbitrary frequency, so the frequency is
-    exact to ~1e-9 relative and the margin to the rounding of the sum.
+    the worst ones (the ``n_risks`` worst and all within 1 dB of the worst, up to
+    512) are refined by Newton steps kept inside the bracketing grid interval, on
+    Im L(f) evaluated as an exact DTFT (and exact filter response) at arbitrary
+    frequency, so the frequency is exact to ~1e-10 relative and the margin to the
+    rounding of the sum. Crossings farther down keep their grid-interpolated values.
 
     Parameters
     ----------

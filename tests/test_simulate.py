@@ -119,3 +119,26 @@ def test_bad_inputs_are_refused():
         simulate_closed_loop(np.array([0.0, 0.5]), np.zeros(10), 1000, gain_db=np.zeros(3))
     with pytest.raises(InputError, match="silent"):
         simulate_closed_loop(np.zeros(10), np.zeros(10), 1000)
+
+
+from hypothesis import given, settings, strategies as st  # noqa: E402
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    delay=st.integers(1, 70),
+    extra=st.integers(0, 900),
+    partition=st.sampled_from([16, 32, 64, 128, None]),
+    seed=st.integers(0, 2**16),
+)
+def test_any_delay_length_and_partition_matches_lfilter(delay, extra, partition, seed):
+    # property: the partitioned loop equals the all-pole IIR filter 1/(1 − g·H) (scipy.signal.lfilter)
+    rng = np.random.default_rng(seed)
+    n = delay + 1 + extra
+    h = np.zeros(n)
+    h[delay:] = rng.standard_normal(n - delay) * 0.6 / np.sqrt(n - delay)
+    x = rng.standard_normal(1200)
+    y = simulate_closed_loop(h, x, 8000, gain_db=-3.0, limiter_dbfs=None, partition=partition)
+    g = 10 ** (-3 / 20)
+    ref = lfilter([1.0], np.concatenate([[1.0], -g * h[1:]]), x)
+    assert np.allclose(y, ref, rtol=1e-8, atol=1e-8 * max(1.0, np.max(np.abs(ref))))
