@@ -17,6 +17,7 @@ from .sheet import (
     PAPER_PT,
     Curve,
     MapItem,
+    MarginMap,
     MeasuredLine,
     MicLine,
     PlacementMap,
@@ -528,8 +529,41 @@ def _loop_panel(ax, mic: str, curves: list[Curve], fsm_db: float, legend: bool) 
         )
 
 
-def _map_panel(ax, pm: PlacementMap, legend_right: bool = False) -> None:
+def _margin_contours(ax, mm: MarginMap) -> None:
+    """The placement map in black and white: labelled contour lines of the margin
+    (0 dB solid and thick, negative dashed) and hatching where the margin is below 0 dB."""
     import numpy as np
+
+    z = np.array([[np.nan if v is None else v for v in row] for row in mm.margin_db], dtype=float)
+    if not np.isfinite(z).any():
+        return
+    x, y = np.asarray(mm.x_m), np.asarray(mm.y_m)
+    lo, hi = float(np.nanmin(z)), float(np.nanmax(z))
+    if lo < 0.0:
+        ax.contourf(x, y, z, levels=[lo - 1.0, 0.0], colors="none", hatches=["////"], zorder=1)
+    span = max(hi - lo, 1e-6)
+    step = next((st for st in (0.25, 0.5, 1.0, 2.0, 5.0, 10.0) if span / st <= 6.0), 20.0)
+    levels = [float(v) for v in np.arange(math.floor(lo / step) * step, hi + step, step) if lo < v < hi]
+    if lo < 0.0 < hi and 0.0 not in levels:
+        levels = sorted(levels + [0.0])
+    if levels:
+        cs = ax.contour(
+            x, y, z, levels=levels, colors=_BLACK, zorder=2,
+            linewidths=[1.6 if abs(v) < 1e-9 else 0.6 for v in levels],
+            linestyles=["-" if v >= 0 else "--" for v in levels],
+        )
+        digits = 0 if step >= 1.0 else (1 if step >= 0.5 else 2)
+        ax.clabel(cs, fmt=lambda v: f"{v:+.{digits}f}".replace("-", "\u2212"), fontsize=5.5, inline=True)
+    if mm.best_position_m is not None:
+        bx, by = mm.best_position_m[0], mm.best_position_m[1]
+        ax.plot([bx], [by], marker="P", ms=8, mfc="white", mec=_BLACK, mew=1.2, ls="none", zorder=6, label="best spot")
+
+
+def _map_panel(ax, pm: PlacementMap, legend_right: bool = False, mm: MarginMap | None = None) -> None:
+    import numpy as np
+
+    if mm is not None:
+        _margin_contours(ax, mm)
 
     marker = {"speaker": ("s", _BLACK, _BLACK), "mic": ("o", "white", _BLACK), "listener": ("D", "white", _BLACK), "talker": ("+", _BLACK, _BLACK)}
     xs = [i.x_m for i in pm.items] or [0.0]
@@ -559,7 +593,12 @@ def _map_panel(ax, pm: PlacementMap, legend_right: bool = False) -> None:
     ax.set_aspect("equal", adjustable="box")
     _place_map_labels(ax, [it for it in pm.items if it.kind in ("speaker", "mic")])
     _style_axes(ax)
-    ax.set_title("PLAN VIEW", fontsize=10, weight="bold", loc="left", pad=3)
+    if mm is None:
+        ax.set_title("PLAN VIEW", fontsize=10, weight="bold", loc="left", pad=3)
+    else:
+        best = "" if mm.best_margin_db is None else f", best {_num(mm.best_margin_db)}"
+        now = "" if mm.current_margin_db is None else f" (now {_num(mm.current_margin_db)})"
+        ax.set_title(f"WHERE {mm.mic} COULD GO: margin dB{best}{now}", fontsize=8, weight="bold", loc="left", pad=3)
     ax.set_xlabel("x m (length)", fontsize=7, labelpad=1)
     ax.set_ylabel("y m", fontsize=7, labelpad=1)
     if legend_right:
@@ -619,13 +658,19 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) 
     items: list[tuple[str, Any]] = [("loop", (k, v)) for k, v in panels.items()]
     ncol = 3
     own_map = None
-    if data.placement is not None and data.placement.items:
+    if data.placement is not None and data.placement.items and data.margin_maps:
+        # placement maps get their own rows, full size: the contours need the room
+        own_maps = [(data.placement, mm) for mm in data.margin_maps]
+    elif data.placement is not None and data.placement.items:
+        own_maps = []
         crowded = len(data.placement.items) > 14
         if not crowded and len(items) % ncol != 0:
             items.append(("map", data.placement))
         else:
-            own_map = data.placement
-    if not items and own_map is None:
+            own_maps = [(data.placement, None)]
+    else:
+        own_maps = []
+    if not items and not own_maps:
         return []
     title_h = 26.0
     blocks = []
@@ -659,11 +704,20 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) 
                     _map_panel(ax, obj)
 
         blocks.append(_Block((title_h if first else 0.0) + panel_h + extra, draw))
-    if own_map is not None:
+    for pm, mm in own_maps:
 
-        def draw_map(page: _Page, y: float) -> None:
+        def draw_map(page: _Page, y: float, pm=pm, mm=mm) -> None:
             ax = page.axes(page.left + 28.0, y + 16.0, page.width * 0.62, map_h - 46.0)
-            _map_panel(ax, own_map, legend_right=True)
+            _map_panel(ax, pm, legend_right=True, mm=mm)
+            if mm is not None:
+                page.text(
+                    page.left + page.width * 0.70, y + map_h - 40.0,
+                    "contours: margin dB with the mic there", size=6.5, max_w=page.width * 0.3,
+                )
+                page.text(
+                    page.left + page.width * 0.70, y + map_h - 30.0,
+                    "hatched: below 0 dB", size=6.5, max_w=page.width * 0.3,
+                )
 
         blocks.append(_Block(map_h, draw_map))
     return blocks
@@ -800,6 +854,8 @@ def render(data: SheetData, path: str | os.PathLike, *, paper: str = "a4", png_d
         "font.family": "DejaVu Sans",
         "axes.unicode_minus": True,
         "path.simplify": True,
+        "hatch.color": "black",
+        "hatch.linewidth": 0.5,
     }
     written = []
     with matplotlib.rc_context(rc):

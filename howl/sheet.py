@@ -165,6 +165,21 @@ class PlacementMap:
 
 
 @dataclass(frozen=True)
+class MarginMap:
+    """A placement map of one mic (the JSON of ``howl map``): margin over a floor grid."""
+
+    mic: str
+    method: str
+    height_m: float
+    x_m: tuple[float, ...]
+    y_m: tuple[float, ...]
+    margin_db: tuple[tuple[float | None, ...], ...]  # (ny, nx), None where not evaluated
+    best_position_m: tuple[float, float, float] | None
+    best_margin_db: float | None
+    current_margin_db: float | None
+
+
+@dataclass(frozen=True)
 class SheetData:
     """Everything the page shows, already computed."""
 
@@ -184,6 +199,7 @@ class SheetData:
     notes: tuple[str, ...] = ()
     rig_file: str | None = None
     measured_settings_db: tuple[tuple[str, float], ...] = ()  # reference gains typed in at the measurement
+    margin_maps: tuple[MarginMap, ...] = ()
 
     def to_json(self) -> dict:
         """The sheet's numbers as a JSON-ready dict (``howl sheet --json``)."""
@@ -570,6 +586,43 @@ def cut_sets_from_listen(
     ]
 
 
+def read_margin_map(path: str | os.PathLike, rig=None) -> MarginMap:
+    """Read a placement map: the JSON that ``howl map --json`` prints."""
+    p = Path(path)
+    name = str(path)
+    if not p.is_file():
+        raise InputError("file not found; expected the JSON of howl map --json", key="--map", file=name)
+    try:
+        obj = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"cannot be read as JSON ({exc})", key="--map", file=name) from None
+    grid = obj.get("grid") if isinstance(obj, dict) else None
+    if not isinstance(grid, dict) or not all(isinstance(grid.get(k), list) for k in ("x_m", "y_m", "margin_db")):
+        raise InputError("holds no grid {x_m, y_m, margin_db}; expected the JSON of howl map --json", key="--map", file=name)
+    x = [_f(v) for v in grid["x_m"]]
+    y = [_f(v) for v in grid["y_m"]]
+    rows = grid["margin_db"]
+    if None in x or None in y or len(rows) != len(y) or any(not isinstance(r, list) or len(r) != len(x) for r in rows):
+        raise InputError(f"grid.margin_db must be {len(y)} rows of {len(x)} values", key="--map", file=name)
+    mic = str(obj.get("mic", ""))
+    if rig is not None and mic not in {m.name for m in rig.mics}:
+        raise InputError(f"maps mic {mic!r}, which the rig does not have", key="--map", file=name)
+    best = obj.get("best") or {}
+    cur = obj.get("current") or {}
+    pos = best.get("position_m")
+    return MarginMap(
+        mic=mic,
+        method=str(obj.get("method", "")),
+        height_m=float(_f(obj.get("height_m")) or 0.0),
+        x_m=tuple(x),
+        y_m=tuple(y),
+        margin_db=tuple(tuple(_f(v) for v in r) for r in rows),
+        best_position_m=tuple(float(v) for v in pos) if isinstance(pos, list) and len(pos) == 3 else None,
+        best_margin_db=_f(best.get("margin_db")),
+        current_margin_db=_f(cur.get("margin_db")),
+    )
+
+
 def placement_from_rig(rig) -> PlacementMap:
     items = []
     for s in rig.speakers:
@@ -659,6 +712,7 @@ def build_sheet_data(
     margins: Sequence | None = None,
     ringouts: Sequence | None = None,
     listen_cuts: tuple[list, str] | None = None,
+    margin_maps: Sequence[MarginMap] = (),
     date: str | None = None,
 ) -> SheetData:
     """Assemble the sheet from the planner's JSON and measured analyses.
@@ -671,6 +725,7 @@ def build_sheet_data(
     margins: one ``howl.loop.MarginResult`` per session pair (same order).
     ringouts: one ``howl.ringout.RingOutResult`` per session pair, or None.
     listen_cuts: (notches, label) from :func:`read_cuts`, or None.
+    margin_maps: placement maps from :func:`read_margin_map`.
     date: the sheet's date (ISO); today by default.
     """
     if plan_json is None and session is None:
@@ -730,6 +785,7 @@ def build_sheet_data(
         notes=default_notes(basis, fsm, plan_json, bool(cut_sets)),
         rig_file=rig.source_file,
         measured_settings_db=_settings(session),
+        margin_maps=tuple(margin_maps),
     )
 
 

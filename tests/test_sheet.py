@@ -490,3 +490,23 @@ def test_ringout_cuts_on_the_page_equal_the_ringout_json(tmp_path):
     asg = round(ro["added_stable_gain_db"], 1)
     assert f"{asg:+.1f} dB".replace("-", "\u2212") in text
     assert "THESE CUTS BUY" in text
+
+
+@needs_poppler
+def test_placement_map_is_drawn_with_the_best_spot_of_howl_map(tmp_path):
+    rig = str(bundled_rig_path())
+    m = _cli_json(["map", rig, "--mic", "lectern", "--step-m", "2.0", "--json"])
+    (tmp_path / "map.json").write_text(json.dumps(m))
+    out = tmp_path / "sheet.pdf"
+    res = runner.invoke(app, ["sheet", rig, "--map", str(tmp_path / "map.json"), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    text = subprocess.run(["pdftotext", str(out), "-"], capture_output=True, text=True, check=True).stdout
+    best = m["best"]["margin_db"]
+    assert f"WHERE lectern COULD GO: margin dB, best {best:+.1f}".replace("-", "\u2212") in text.replace("\n", " ")
+
+
+def test_map_of_a_mic_the_rig_lacks_is_refused(tmp_path):
+    (tmp_path / "map.json").write_text(json.dumps({"mic": "pulpit", "grid": {"x_m": [1.0], "y_m": [1.0], "margin_db": [[0.0]]}}))
+    res = runner.invoke(app, ["sheet", str(bundled_rig_path()), "--map", str(tmp_path / "map.json"), "-o", str(tmp_path / "x.pdf")])
+    assert res.exit_code == 2
+    assert "pulpit" in res.stderr and "--map" in res.stderr

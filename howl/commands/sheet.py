@@ -26,6 +26,9 @@ def register(app: typer.Typer) -> None:
         cuts: Optional[Path] = typer.Option(
             None, "--cuts", metavar="LISTEN.json", help="Cuts found by listening: the JSON of howl listen/scan (with --measured, the ASG they buy on each loop)."
         ),
+        maps: list[Path] = typer.Option(
+            [], "--map", metavar="MAP.json", help="A placement map (the JSON of howl map --json) to draw on the plan view (repeatable)."
+        ),
         paper: str = typer.Option("a4", "--paper", help="Paper size: a4 or letter."),
         no_plan: bool = typer.Option(False, "--no-plan", help="Leave the room-model plan out (measured numbers only)."),
         date: Optional[str] = typer.Option(None, "--date", metavar="YYYY-MM-DD", help="Date printed on the sheet (default: today)."),
@@ -53,7 +56,7 @@ def register(app: typer.Typer) -> None:
 
         with capture_warnings():
             from ..rig import bundled_rig_path, load_rig
-            from ..sheet import build_sheet_data, check_session, read_cuts, read_session, render_sheet
+            from ..sheet import build_sheet_data, check_session, read_cuts, read_margin_map, read_session, render_sheet
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
             session = margins = ringouts = None
@@ -61,6 +64,7 @@ def register(app: typer.Typer) -> None:
                 session = read_session(measured)
                 check_session(session, rig)
             listen_cuts = read_cuts(cuts) if cuts is not None else None
+            margin_maps = [read_margin_map(m, rig) for m in maps]
             plan_json = None
             if not no_plan:
                 from ..plan import plan_rig, plan_to_json
@@ -75,7 +79,8 @@ def register(app: typer.Typer) -> None:
 
                     ringouts = [ring_out(p.ir, p.sample_rate_hz) for p in session.pairs]
             data = build_sheet_data(
-                rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts, date=date
+                rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
+                margin_maps=margin_maps, date=date,
             )
             written = render_sheet(data, out, paper=paper_l)
 
