@@ -47,7 +47,7 @@ def map_figure(m: PlacementMap, rig: Rig):
         )
         cb = fig.colorbar(mesh, ax=ax, fraction=0.046, pad=0.03)
         cb.set_label("margin PAG − NAG (dB)" if m.method == "statistical" else "margin PAG − NAG, image-source loop (dB)")
-        if x.size > 1 and y.size > 1 and zmax - zmin > 0.2:
+        if x.size >= 4 and y.size >= 4 and zmax - zmin > 0.2:  # contours need a few points each way
             levels = _nice_levels(zmin, zmax)
             if len(levels) >= 1:
                 cs = ax.contour(x, y, np.ma.masked_invalid(z), levels=levels, colors="k", linewidths=0.7)
