@@ -59,6 +59,9 @@ TIE_DB = 0.02
 #: At most this many tied howl frequencies are listed (a flat, real loop ties everywhere).
 MAX_TIES = 1000
 
+#: A first sample above this fraction of the peak (−50 dB) is taken as a real arrival at time zero.
+FIRST_SAMPLE_LIM = 10 ** (-50 / 20)
+
 #: Longest loop IR accepted (s); longer files are almost always a wrong file.
 MAX_IR_S = 20.0
 
@@ -81,8 +84,9 @@ def check_ir(ir, sample_rate_hz, *, name: str = "ir", file: str | None = None) -
 def ir_warnings(ir: np.ndarray, sample_rate_hz: float, *, max_length_s: float = MAX_IR_S) -> list[str]:
     """Doubts about a loop IR that do not stop the analysis (the CLI prints them).
 
-    * first sample not zero: a zero-delay loop is unphysical (every real loop
-      has at least converter and acoustic delay);
+    * first sample not zero (above −50 dB re the peak, so measurement noise
+      does not count): a zero-delay loop is unphysical (every real loop has at
+      least converter and acoustic delay);
     * DC gain not about zero: real loops block DC (transformers, coupling
       capacitors, loudspeakers); a DC crossing would then dominate the margin;
     * samples at full scale: the IR was probably clipped when measured.
@@ -90,10 +94,10 @@ def ir_warnings(ir: np.ndarray, sample_rate_hz: float, *, max_length_s: float = 
     h = np.asarray(ir, dtype=float)
     out: list[str] = []
     peak = float(np.max(np.abs(h)))
-    if abs(h[0]) > 1e-6 * peak:
+    if abs(h[0]) > FIRST_SAMPLE_LIM * peak:
         out.append(
-            f"first sample of the loop IR is {h[0]:.3g}, not zero: a zero-delay loop is unphysical "
-            "(check the IR alignment)"
+            f"first sample of the loop IR is {h[0]:.3g} ({db(h[0]) - db(peak):.0f} dB re the peak), not zero: "
+            "a zero-delay loop is unphysical (check the IR alignment)"
         )
     dc = float(np.sum(h))
     hmax = float(np.max(np.abs(np.fft.rfft(h, 1 << max(10, int(math.ceil(math.log2(h.size))) + 1)))))
