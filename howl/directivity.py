@@ -607,14 +607,27 @@ def mics_ree(mics, freq_hz, *, ideal: bool = False, temperature_c: float = 20.0)
     return out
 
 
-def speakers_gain_local(speakers, local_directions, freq_hz) -> np.ndarray:
-    """Gains (S, P, F) of several loudspeakers toward local directions (S, P, 3) (forward, left, up)."""
+def speakers_model(speakers, freq_hz) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Coverage-model exponents n_h, n_v and Q, each (S, F), for several loudspeakers (tables override Q)."""
     w = octave_interp_matrix(freq_hz)
-    cov_h = np.array([s.coverage_h_deg for s in speakers], float) @ w.T
-    cov_v = np.array([s.coverage_v_deg for s in speakers], float) @ w.T
-    n_h = coverage_exponent(cov_h, with_floor=True)[:, None, :]
-    n_v = coverage_exponent(cov_v, with_floor=True)[:, None, :]
-    out = coverage_gain(n_h, n_v, local_directions)
+    cov = np.array([s.coverage_h_deg for s in speakers] + [s.coverage_v_deg for s in speakers], float) @ w.T
+    n = coverage_exponent(cov, with_floor=True)
+    n_h, n_v = n[: len(speakers)], n[len(speakers):]
+    e2 = _floor2()
+    q = (1.0 + e2) / (1.0 / np.sqrt((2.0 * n_h + 1.0) * (2.0 * n_v + 1.0)) + e2)  # = coverage_q
+    for k, s in enumerate(speakers):
+        if s.directivity_file:
+            q[k] = _table_speaker_q(_speaker_table(s), freq_hz)
+    return n_h, n_v, q
+
+
+def speakers_gain_local(speakers, local_directions, freq_hz, *, model=None) -> np.ndarray:
+    """Gains (S, P, F) of several loudspeakers toward local directions (S, P, 3) (forward, left, up).
+
+    ``model``: the result of :func:`speakers_model` for these speakers and frequencies, if already known.
+    """
+    n_h, n_v, _ = speakers_model(speakers, freq_hz) if model is None else model
+    out = coverage_gain(n_h[:, None, :], n_v[:, None, :], local_directions)
     for k, s in enumerate(speakers):
         if s.directivity_file:
             out[k] = _table_speaker_gain(_speaker_table(s), np.asarray(local_directions)[k], freq_hz)
@@ -623,11 +636,4 @@ def speakers_gain_local(speakers, local_directions, freq_hz) -> np.ndarray:
 
 def speakers_q(speakers, freq_hz) -> np.ndarray:
     """Directivity factors (S, F) of several loudspeakers."""
-    w = octave_interp_matrix(freq_hz)
-    cov_h = np.array([s.coverage_h_deg for s in speakers], float) @ w.T
-    cov_v = np.array([s.coverage_v_deg for s in speakers], float) @ w.T
-    q = coverage_q(cov_h, cov_v)
-    for k, s in enumerate(speakers):
-        if s.directivity_file:
-            q[k] = _table_speaker_q(_speaker_table(s), freq_hz)
-    return q
+    return speakers_model(speakers, freq_hz)[2]

@@ -101,12 +101,12 @@ class BandTransfer:
 
 
 def _speaker_arrays(speakers: tuple[Speaker, ...], freq_hz: np.ndarray):
-    """Positions (S,3), frames (S,3,3), Q (S,F), p₁² (S,)."""
+    """Positions (S,3), frames (S,3,3), the polar model (n_h, n_v, Q; each (S,F)), p₁² (S,)."""
     pos = np.array([s.position_m for s in speakers], float)
     frames = _dir._frame(np.array([s.azimuth_rad for s in speakers]), np.array([s.elevation_rad for s in speakers]))
-    q = _dir.speakers_q(speakers, freq_hz)
+    model = _dir.speakers_model(speakers, freq_hz)
     p1 = on_axis_pressure2_pa2([s.sensitivity_db_spl_1v_1m for s in speakers])
-    return pos, frames, q, p1
+    return pos, frames, model, p1
 
 
 def _check_distance(r: np.ndarray, speakers, point_names, point_kind: str, min_m: float = 1e-3) -> None:
@@ -132,14 +132,15 @@ def speaker_field_pa2(speakers, points_m, freq_hz, acoustics, *, room_constant_m
     """
     f = np.asarray(freq_hz, float)
     speakers = tuple(speakers)
-    pos, frames, q, p1 = _speaker_arrays(speakers, f)
+    pos, frames, model, p1 = _speaker_arrays(speakers, f)
+    q = model[2]
     pts = np.atleast_2d(np.asarray(points_m, float))
     vec = pts[None, :, :] - pos[:, None, :]
     r = np.linalg.norm(vec, axis=-1)
     _check_distance(r, speakers, point_names, point_kind)
     u = vec / r[..., None]
     local = np.einsum("spk,sjk->spj", u, frames)  # (S, P, 3) components forward/left/up
-    g = _dir.speakers_gain_local(speakers, local, f)  # (S, P, F)
+    g = _dir.speakers_gain_local(speakers, local, f, model=model)  # (S, P, F)
     air = np.asarray(acoustics.air_m_inv, float)
     direct = p1[:, None, None] * g * g * np.exp(-air[None, None, :] * r[..., None]) / (r * r)[..., None]
     rc = effective_room_constant_m2(acoustics) if room_constant_m2 is None else np.asarray(room_constant_m2, float)

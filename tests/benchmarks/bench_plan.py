@@ -1,7 +1,8 @@
 """Benchmark: `plan_rig` for 8 mics × 12 loudspeakers at 1/12 octave (100 Hz–10 kHz).
 
-Target: under 20 ms of compute per plan after import (median of repeated runs, the
-once-per-process peak-statistics table excluded by a warm-up call).
+Target: under 20 ms of compute per plan after import (median CPU time of this process
+over repeated runs, the once-per-process peak-statistics table excluded by a warm-up
+call); the wall-clock median and best run are printed beside it.
 Run by hand: ``python tests/benchmarks/bench_plan.py``; prints a table of medians and
 writes JSON to tests/benchmarks/results/bench_plan.json.
 """
@@ -85,8 +86,12 @@ def main() -> int:
     print(f"{'case':48s} {'bands':>5s} {'median ms':>10s} {'target ms':>10s}")
     for name, nb, ms, tgt in rows:
         print(f"{name:48s} {nb:5d} {ms:10.2f} {('%.0f' % tgt) if tgt else '':>10s}")
-    ok = med < TARGET_MS
-    print("PASS" if ok else "FAIL", f"(median {med:.2f} ms wall clock vs target {TARGET_MS:.0f} ms)")
+    cpu_med = statistics.median(cpu)
+    # the target is compute time: judged on this process's CPU time, which waiting for a busy CPU does not
+    # inflate; the wall-clock median and minimum are printed beside it
+    ok = cpu_med < TARGET_MS
+    print("PASS" if ok else "FAIL", f"(CPU median {cpu_med:.2f} ms vs target {TARGET_MS:.0f} ms; wall clock median "
+          f"{med:.2f} ms, best {min(times):.2f} ms)")
     try:
         import os
 
@@ -98,7 +103,7 @@ def main() -> int:
     (out / "bench_plan.json").write_text(json.dumps({
         "benchmark": "bench_plan", "python": sys.version.split()[0], "machine": platform.machine(),
         "n_mics": 8, "n_speakers": 12, "fraction": 12, "n_bands": len(res.bands_hz),
-        "median_ms": med, "cpu_median_ms": statistics.median(cpu), "json_median_ms": statistics.median(times_json), "first_call_ms": first_ms,
+        "median_ms": med, "best_ms": min(times), "cpu_median_ms": statistics.median(cpu), "json_median_ms": statistics.median(times_json), "first_call_ms": first_ms,
         "target_ms": TARGET_MS, "pass": ok, "runs": len(times),
     }, indent=2))
     return 0
