@@ -54,6 +54,13 @@ its −6 dB angles; it is given here for comparison (:func:`molloy_q`). For
 typical horns (60–120° by 40–90°) the polar-model Q is 1–2 dB of DI above
 Molloy's; docs/plan.md shows the comparison.
 
+Tables
+------
+Instead of the models, a mic may name a polar table (``pattern = "table"``) and a
+loudspeaker a table or an AES69 (SOFA) FreeFieldDirectivityTF file
+(``directivity_file``), read with sofar; REE and Q are then integrated
+numerically (see the table section below and docs/plan.md).
+
 Coordinates: a direction is a unit vector in room coordinates (x along the
 length, y along the width, z up). Aim: azimuth from +x toward +y, elevation
 up (see :mod:`howl.rig`).
