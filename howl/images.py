@@ -642,6 +642,35 @@ def rig_loop_irs(
     return irs, mix
 
 
+def mic_loop_ir(rig: Rig, mic_name: str, sample_rate_hz: float, *, max_order: int | None = None, seed: int = 0,
+                tail: bool = True) -> np.ndarray:
+    """The loop IR of one mic alone (the other mics closed): Σ_s H[s, m]·mix[s, m] from image sources."""
+    from .plan import mix_matrix
+
+    names = [m.name for m in rig.mics]
+    if mic_name not in names:
+        raise InputError(f"must name a mic of the rig ({', '.join(names)}), got {mic_name!r}", key="mic")
+    k = names.index(mic_name)
+    mic = rig.mics[k]
+    mix = mix_matrix(rig)
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    parts = []
+    for si, spk in enumerate(rig.speakers):
+        if mix[si, k] == 0:
+            continue
+        h = image_source_ir(rig.room, spk.position_m, mic.position_m, fs, max_order=max_order,
+                            source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic), tail=tail,
+                            seed=np.random.SeedSequence([int(seed), si, k]).generate_state(1)[0],
+                            delay_s=spk.delay_s)
+        parts.append(h * (_electrical_gain(spk, mic) * mix[si, k]))
+    if not parts:
+        raise InputError(f"mic {mic_name!r} reaches no loudspeaker through the mixes", key="mixes")
+    out = np.zeros(max(p.size for p in parts))
+    for p in parts:
+        out[: p.size] += p
+    return out
+
+
 IMAGES_CAUTION = (
     "Predicted exact howl frequencies depend on details the model lacks: it is an idealised shoebox with flat, "
     "smooth walls, point sources and a statistically modelled late tail, while furniture, people, temperature "

@@ -434,6 +434,19 @@ def margin_map(
 
     best = point(i_best)
     best["on_grid"] = bool(i_best < pts.shape[0])
+    if method == "images":  # the phase-aware margin of the mic alone at its best position
+        from .images import IMAGES_CAUTION, mic_loop_ir
+        from .loop import nyquist_margin
+
+        r = moved_rig(rig, mic_name, pts_all[i_best], talker=talker)
+        loop = mic_loop_ir(r, mic_name, sample_rate_hz, max_order=max_order, seed=seed)
+        nm = nyquist_margin(loop, sample_rate_hz, band_hz=(float(f_lo_hz), float(f_hi_hz)), n_risks=3)
+        best["gain_margin_db"] = _num(nm.gain_margin_db)
+        best["magnitude_margin_db"] = _num(nm.magnitude_margin_db)
+        best["howl_freq_hz"] = _num(nm.howl_freq_hz, 1)
+        notes.append("best position, the mic alone: phase-aware gain margin "
+                     f"{nm.gain_margin_db:+.1f} dB at the rig's settings, first howl near {nm.howl_freq_hz:.0f} Hz. "
+                     + IMAGES_CAUTION)
     current = point(pts_all.shape[0] - 1)
     return PlacementMap(
         rig_name=rig.name, mic=mic_name, method=method, talker_mode=talker, height_m=z, x_m=xs, y_m=ys,

@@ -111,6 +111,10 @@ def test_images_map_agrees_with_the_statistical_map_in_the_reverberant_field():
     # the image loop's band peaks are one realisation of the statistics the planner's spread describes
     lo, hi = stat.margin_spread_db[..., 0], stat.margin_spread_db[..., 1]
     assert np.all(img.margin_db > lo - 3.0) and np.all(img.margin_db < hi + 3.0)
+    # and the best spot gets a phase-aware margin and a howl frequency, with the caution beside it
+    assert img.best["gain_margin_db"] >= img.best["magnitude_margin_db"] - 1e-6
+    assert 100.0 <= img.best["howl_freq_hz"] <= 1800.0
+    assert any("depend on details the model lacks" in n for n in img.notes)
 
 
 def test_muted_or_unknown_mic_and_bad_area_are_refused():
