@@ -40,3 +40,17 @@ def capture_warnings():
                         warn(msg)
 
     return _cm()
+
+
+def make_console(*, stderr: bool = False):
+    """A rich Console for tables: the terminal's width, or 120 columns when piped to a file.
+
+    rich falls back to 80 columns off a terminal, which truncates the wide per-mic tables
+    in a saved log; a log is read later in an editor, so give it room.
+    """
+    from rich.console import Console
+
+    con = Console(highlight=False, stderr=stderr)
+    if not con.is_terminal:
+        con = Console(highlight=False, stderr=stderr, width=max(120, con.width))
+    return con

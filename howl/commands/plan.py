@@ -90,11 +90,12 @@ def _fmt(v, spec="+.1f", none="—") -> str:
 
 
 def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
-    from rich.console import Console
     from rich.markup import escape
     from rich.table import Table
 
-    con = Console(highlight=False)
+    from ._common import make_console
+
+    con = make_console()
     con.print(f"[bold]{escape(str(obj['rig']))}[/bold]  ({escape(str(obj['rig_file'] or 'rig'))})")
     con.print(
         f"FSM {obj['fsm_db']:g} dB · {obj['nom']} open mic(s) in the loop · 1/{obj['fraction']} octave bands · "
