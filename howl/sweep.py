@@ -351,6 +351,7 @@ def decay_end_index(
     block_s: float = 0.01,
     headroom_db: float = 10.0,
     n_iterations: int = 3,
+    dynamic_range_db: float = 100.0,
 ) -> tuple[int, float]:
     """Where the decay of an IR meets its noise floor (simplified Lundeby et al. [3]_).
 
@@ -360,8 +361,11 @@ def decay_end_index(
        level is the crossing point.
     3. The noise is re-estimated from the blocks later than the crossing plus the time
        the decay takes to fall 5 dB further (but from at least the last 10 %), and 2–3 repeat.
-    4. If what lies after the crossing still falls by more than 3 dB along a fitted line,
-       it is reverberation, not noise: the whole IR is kept (the window ends in the decay).
+    4. If the later half of what lies after the crossing still falls by more than 3 dB
+       along a fitted line, it is reverberation, not noise: the whole IR is kept (the window ends in the decay).
+    Levels more than ``dynamic_range_db`` below the peak block count as noise (the
+    slow band-limiting ringing of an electrical loopback decays to the rounding floor
+    only after a long time, and no loop analysis needs more range than that).
 
     Returns
     -------
@@ -375,9 +379,11 @@ def decay_end_index(
     if n < 4 * block:
         return n, noise_power(h)
     e_db = _block_energy_db(h, block)
+    floor_db = float(np.max(e_db)) - dynamic_range_db
+    e_db = np.maximum(e_db, floor_db)
     nb = e_db.shape[0]
     t = (np.arange(nb) + 0.5) * block / fs
-    noise_lin = noise_power(h)
+    noise_lin = max(noise_power(h), 10.0 ** (floor_db / 10.0))
     p = int(np.argmax(e_db))
     cross = n
     for _ in range(n_iterations):
@@ -398,14 +404,16 @@ def decay_end_index(
         # re-estimate the noise after the crossing (+5 dB further decay), at least the last 10 %
         start = int(min(cross + round((-5.0 / slope) * fs), int(0.9 * n)))
         if n - start >= block:
-            noise_lin = float(np.mean(h[start:] ** 2))
+            noise_lin = max(float(np.mean(h[start:] ** 2)), 10.0 ** (floor_db / 10.0))
     if cross < n and _still_decaying(e_db[min(nb - 1, cross // block) :], block / fs):
         cross = n  # the "noise" after the crossing still decays: the window ends inside the decay
     return int(cross), float(noise_lin)
 
 
 def _still_decaying(e_db: np.ndarray, block_s: float, min_drop_db: float = 3.0) -> bool:
-    """True when block energies fall by more than ``min_drop_db`` along a fitted line (noise is flat)."""
+    """True when the later half of the block energies still falls by more than ``min_drop_db``
+    along a fitted line (noise is flat; the first half may hold the last of the decay)."""
+    e_db = e_db[e_db.shape[0] // 2 :]
     if e_db.shape[0] < 4:
         return False
     t = np.arange(e_db.shape[0]) * block_s
