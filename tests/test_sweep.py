@@ -220,3 +220,16 @@ def test_octave_noise_floor_of_white_noise_is_its_power_times_length():
     np.testing.assert_allclose(gain_db, 0.0, atol=1e-9)  # a unit impulse is 0 dB everywhere
     # Parseval: E|DFT_M(n)|² = M·σ²
     np.testing.assert_allclose(floor_db, 10 * np.log10(1600 * sigma**2), atol=1.5)
+
+
+def test_trimming_keeps_a_wire_short_and_a_long_decay_whole():
+    fs = 16000
+    sw = exponential_sweep(0.5, 40.0, 7000.0, fs)
+    rec = np.concatenate([sw.signal.astype(np.float32), np.zeros(fs // 2, np.float32)])
+    wire = deconvolve(rec, sw).linear_all[0, 0]
+    end, _ = decay_end_index(wire, fs)
+    assert end < 0.25 * wire.size  # band-limiting ringing below −100 dB re peak counts as noise
+    t = np.arange(wire.size) / fs
+    reverb = np.random.default_rng(4).standard_normal(t.size) * np.exp(-6.9 * t / 3.0)  # RT60 3 s
+    end, _ = decay_end_index(reverb, fs)
+    assert end == reverb.size  # the window ends inside the decay: nothing is cut as "noise"
