@@ -156,7 +156,11 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
         "ring_decay_db_per_s": r.ring_decay_db_per_s if finite else None,
         "group_delay_s": r.group_delay_s if finite else None,
         "n_crossings": int(r.crossings_freq_hz.size),
-        "risks": [{"freq_hz": k.freq_hz, "margin_db": k.margin_db, "kind": k.kind} for k in r.risks],
+        "risks": [
+            {"freq_hz": k.freq_hz, "margin_db": k.margin_db, "kind": k.kind,
+             "magnitude_margin_db": k.magnitude_margin_db, "peak_freq_hz": k.peak_freq_hz}
+            for k in r.risks
+        ],
         "third_octave": [
             {"centre_hz": float(c), "label": nominal_label(float(c), 3), "loop_gain_db": (float(g) if np.isfinite(g) else None)}
             for c, g in zip(centres, bands_db)
@@ -223,8 +227,7 @@ def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, tri
             raise InputError(f"pair {spk}{PAIR_SEPARATOR}{mic} is given twice", file=str(q))
         h, fs, warns = _load_ir(q, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
         for w in warns:
-            if "DC gain" not in w:
-                warnings.warn(w, HowlWarning)
+            warnings.warn(w, HowlWarning)
         if fs0 is None:
             fs0 = fs
         elif fs != fs0:
@@ -350,9 +353,12 @@ def report_lines(rep: dict) -> list[str]:
         lines.append(f"a tone at the howl frequency rings down at about {rep['ring_decay_db_per_s']:.0f} dB/s")
     if rep["risks"]:
         lines.append("risk frequencies (worst first):")
-        lines.append("    freq_hz  margin_db  kind")
+        lines.append("    freq_hz  margin_db  kind      phase-blind (lobe peak)")
         for k in rep["risks"]:
-            lines.append(f"  {k['freq_hz']:9.1f}  {k['margin_db']:9.2f}  {k['kind']}")
+            extra = ""
+            if k.get("magnitude_margin_db") is not None and k["kind"] == "crossing":
+                extra = f"{k['magnitude_margin_db']:9.2f} dB at {k['peak_freq_hz']:.1f} Hz"
+            lines.append(f"  {k['freq_hz']:9.1f}  {k['margin_db']:9.2f}  {k['kind']:<8}  {extra}")
     if rep.get("third_octave"):
         lines.append("loop gain per 1/3 octave (dB, power average):")
         row = [f"{b['label']:>5}:{b['loop_gain_db']:6.1f}" for b in rep["third_octave"] if b["loop_gain_db"] is not None]
