@@ -283,13 +283,17 @@ def test_predicted_margin_separates_decay_from_growth_in_the_simulated_loop(room
     assert change[0.3] / 3.0 == pytest.approx(abs(rate_at_03), rel=0.25)
 
 
-def test_image_source_ir_margin_is_at_most_the_phase_blind_margin_plus_and_risks_are_worst_first():
+def test_phase_aware_margin_is_never_below_the_phase_blind_one_and_risks_list_the_howl_worst_first():
     h = _room_ir(**ROOMS["small-4x3"])
     r = nyquist_margin(h, FS16, band_hz=(20.0, 7900.0), n_risks=8)
     assert r.gain_margin_db >= r.magnitude_margin_db - 1e-9
     m = [k.margin_db for k in r.risks]
     assert m == sorted(m) and len(m) == 8
     assert any(k.kind == "crossing" and k.freq_hz == r.howl_freq_hz for k in r.risks)
+    # a crossing's phase-blind margin (its lobe's peak) is never above its phase-aware one
+    assert all(k.magnitude_margin_db <= k.margin_db + 1e-9 for k in r.risks)
+    short = nyquist_margin(h, FS16, band_hz=(20.0, 7900.0), n_risks=1)
+    assert short.risks[0].kind == "crossing" and short.risks[0].freq_hz == r.howl_freq_hz
 
 
 # ----------------------------------------------------------------- bands
