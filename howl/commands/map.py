@@ -138,7 +138,9 @@ def _print(obj: dict, m) -> None:
 
     con.print(line("best", b) + ("" if b.get("on_grid", True) else "  (the rig's own position)"))
     con.print(line("now", c))
-    if b["margin_db"] is not None and c["margin_db"] is not None:
+    if not b.get("on_grid", True):
+        con.print("the mic's present position is already the best of the candidates")
+    elif b["margin_db"] is not None and c["margin_db"] is not None:
         con.print(f"moving there gains {b['margin_db'] - c['margin_db']:+.1f} dB of margin (PAG − NAG, worst-peak statistics)")
     for n in obj.get("notes", []):
         con.print(n)
