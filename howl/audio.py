@@ -420,3 +420,94 @@ class FakeBackend:
 def open_backend() -> AudioBackend:
     """The backend the CLI uses (tests replace this function with one returning a FakeBackend)."""
     return PortAudioBackend()
+
+
+# ----------------------------------------------------------------------- live input
+# (added by the listen work: one class for `howl listen`; the measurement code above is untouched)
+
+
+class LiveInput:
+    """A callback input stream of one channel for live listening.
+
+    Blocks go into a queue that :meth:`read` drains. Every PortAudio input status
+    flag is counted (``overflows`` for ``input_overflow``, ``flags`` for all), never
+    ignored. The watchdog of :meth:`PortAudioBackend.play_record` applies: a stream
+    that is neither active nor stopped, or no callback for ``stall_timeout_s``, means
+    the server or device went away (:class:`AudioServerGone`); ``stop``/``close``
+    are then skipped because they hang on PortAudio 19.6's JACK host API.
+    The sample rate defaults to the device's own.
+    """
+
+    def __init__(self, device: str | int | None, channel: int = 1, *, sample_rate_hz: float | None = None,
+                 block_frames: int = 1024, stall_timeout_s: float = 3.0, max_queue_blocks: int = 1000):
+        import queue
+
+        self._backend = PortAudioBackend(stall_timeout_s=stall_timeout_s)
+        sd = self._backend._sd
+        try:
+            dev = self._backend.resolve(device, "input")
+            _check_channels([channel], dev, "input", "--in-channel")
+        except InputError as exc:
+            self._backend.close()
+            raise InputError(exc.message, key=exc.key if exc.key == "--in-channel" else "--device") from None
+        self.device = dev
+        self.channel = int(channel)
+        self.sample_rate_hz = float(sample_rate_hz or dev.default_sample_rate_hz)
+        self.overflows = 0
+        self.flags: set[str] = set()
+        self.dropped_blocks = 0
+        self._q: queue.Queue = queue.Queue(maxsize=max_queue_blocks)
+        self._last = time.monotonic()
+        self.stall_timeout_s = float(stall_timeout_s)
+
+        def callback(indata, frames, _time, status):
+            if status:
+                for name in DROPOUT_FLAGS:
+                    if getattr(status, name, False):
+                        self.flags.add(name)
+                if getattr(status, "input_overflow", False):
+                    self.overflows += 1
+            self._last = time.monotonic()
+            try:
+                self._q.put_nowait(indata[:, self.channel - 1].copy())
+            except queue.Full:  # the reader fell behind: count it as an overflow too
+                self.dropped_blocks += 1
+                self.overflows += 1
+
+        try:
+            self._stream = sd.InputStream(samplerate=self.sample_rate_hz, device=dev.index, channels=self.channel,
+                                          dtype="float32", blocksize=int(block_frames), latency="high",
+                                          callback=callback)
+            self._stream.start()
+        except Exception as exc:  # PortAudioError (wrong rate, device busy), ValueError
+            self._backend.close()
+            raise AudioUnavailableError(f"cannot open input {dev.label!r} at {self.sample_rate_hz:g} Hz: {exc}") from None
+        self._last = time.monotonic()
+
+    def read(self, timeout_s: float = 0.1) -> np.ndarray | None:
+        """The next block (float32, 1-D), or None if none arrived within ``timeout_s``."""
+        import queue
+
+        try:
+            return self._q.get(timeout=timeout_s)
+        except queue.Empty:
+            pass
+        st = self._stream
+        if not st.active and not st.stopped:
+            self._backend._lose_server()
+            raise AudioServerGone("the audio server or input device went away; check it and start again")
+        if time.monotonic() - self._last > self.stall_timeout_s:
+            self._backend._lose_server()
+            raise AudioServerGone(f"no audio for {self.stall_timeout_s:g} s from {self.device.label!r}: "
+                                  "the audio server or device stopped responding")
+        return None
+
+    def close(self) -> None:
+        """Stop the stream and terminate PortAudio (skipped if the server went away)."""
+        if not self._backend._server_lost:
+            try:
+                self._stream.abort()
+                self._stream.close()
+            except Exception:
+                pass
+        self._backend.close()

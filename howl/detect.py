@@ -876,6 +876,28 @@ def event_to_dict(event: Event) -> dict:
     return dataclasses.asdict(event)
 
 
+def event_record(e: Event, *, loop_delay_s: float | None = None, target_margin_db: float = TARGET_MARGIN_DB,
+                 temperature_c: float = 20.0, swing_c: float = 3.0) -> dict:
+    """One event as the JSON of ``howl scan``/``howl listen`` shows it, with its suggested cut."""
+    notch, needed, margin_used = suggest_event_cut(
+        e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db, temperature_c=temperature_c, swing_c=swing_c)
+    d = {
+        "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
+        "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
+        "decay_db_per_s": e.decay_db_per_s, "steady": e.steady,
+        "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
+                  "bandwidth_oct": notch.bandwidth_oct},
+        "needed_cut_db": needed,
+        "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
+                     "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd},
+    }
+    if loop_delay_s is not None:
+        d["margin_db"] = e.margin_db
+    else:
+        d["margin_assumed_db"] = margin_used
+    return d
+
+
 def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: float | None = None,
            max_notches: int = 6, temperature_c: float = 20.0, swing_c: float = 3.0,
            target_margin_db: float = TARGET_MARGIN_DB) -> dict:
@@ -885,28 +907,11 @@ def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: fl
     ``notches``: the cuts merged across events (same frequency → one cut) within the
     budget ``max_notches``; ``advice``: when a broad EQ or placement would serve better.
     """
-    ev_out = []
-    cuts = []
-    for e in events:
-        notch, needed, margin_used = suggest_event_cut(
-            e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
-            temperature_c=temperature_c, swing_c=swing_c)
-        cuts.append(notch)
-        d = {
-            "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
-            "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
-            "decay_db_per_s": e.decay_db_per_s, "steady": e.steady,
-            "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
-                      "bandwidth_oct": notch.bandwidth_oct},
-            "needed_cut_db": needed,
-            "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
-                         "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd},
-        }
-        if loop_delay_s is not None:
-            d["margin_db"] = e.margin_db
-        else:
-            d["margin_assumed_db"] = margin_used
-        ev_out.append(d)
+    ev_out = [event_record(e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
+                           temperature_c=temperature_c, swing_c=swing_c) for e in events]
+    from .notch import Notch
+
+    cuts = [Notch(d["notch"]["freq_hz"], d["notch"]["gain_db"], d["notch"]["q"]) for d in ev_out]
     kept, advice = summarise_notches(cuts, sample_rate_hz, max_notches=max_notches)
     notches = []
     for n in kept:
