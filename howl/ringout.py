@@ -26,11 +26,16 @@ plans the cuts together, as a covering problem over the crossings:
 3. a bisection on T finds the lowest level the budget of cuts reaches;
 4. cuts move the phase, so crossings move: the cascade is put in the loop, the
    crossings are found again, any new offender joins the set and the plan is
-   made again (a few rounds; the best cascade is kept);
+   made again (a few rounds; the best cascade is kept); then a small exact search
+   around each cut of the chosen plan (depth ×0.7…1.3, width ±25 %, centre ±1/8
+   of its band, judged on the whole grid with the other cuts in) keeps any change
+   that lifts the margin;
 5. the ring-out itself then runs as a technician would: find the crossing that
    limits the margin, insert the planned cut that covers it, recompute the loop
    with the cascade in it, repeat, until the target margin is met, the budget is
-   spent, or the last cuts buy less than ``min_gain_per_notch_db`` each.
+   spent, or more cuts would buy less than ``min_gain_per_notch_db`` each (plans for
+   1..``max_notches`` cuts are compared; a larger plan is taken only if it pays that much per
+   extra cut over the last plan taken).
 
 The margins before and after are exact (:func:`howl.loop.nyquist_margin` with
 the cascade passed as ``filters_sos``); the per-step margins come from the same
@@ -488,23 +493,64 @@ def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> lis
 
 def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
     """Insert the planned cuts one by one at the crossing that limits the loop."""
-    used: list[Notch] = []
     left = list(planned)
     steps = []
     cur = m0
+    loop_now = [lp.H for lp in loops]  # each loop with the cuts inserted so far
+
+    def worst(arrs):
+        best = (float("inf"), float("nan"))
+        for lp, arr in zip(loops, arrs):
+            m, fh = _grid_margin_db(arr, lp.f)
+            if m < best[0]:
+                best = (m, fh)
+        return best
+
+    _, fh = worst(loop_now)
     while left:
-        m, fh, _ = _worst_margin(loops, used, fs)
         cover = [n for n in left if abs(math.log2(fh / n.freq_hz)) <= n.bandwidth_oct / 2.0] if math.isfinite(fh) else []
         if cover:
             pick = min(cover, key=lambda n: abs(math.log2(fh / n.freq_hz)) / n.bandwidth_oct)
         else:  # the limit is not under any planned cut: take the one that helps most now
-            pick = max(left, key=lambda n: _worst_margin(loops, used + [n], fs)[0])
+            pick = max(left, key=lambda n: worst([a * lp.cut(n) for lp, a in zip(loops, loop_now)])[0])
         left.remove(pick)
-        used.append(pick)
-        m_new = _worst_margin(loops, used, fs)[0]
+        loop_now = [a * lp.cut(pick) for lp, a in zip(loops, loop_now)]
+        m_new, fh_next = worst(loop_now)
         steps.append((pick, fh, m_new, m_new - cur))
-        cur = m_new
+        cur, fh = m_new, fh_next
     return steps
+
+
+def _polish(loops, cuts: list[Notch], fs: float, passes: int = 1) -> tuple[list[Notch], float]:
+    """Small exact search around each planned cut (depth, width, centre), keeping what lifts the margin.
+
+    Each candidate is judged on the whole grid with the other cuts in the loop, so the phase the
+    cuts add (which moves the crossings) is accounted for exactly.
+    """
+    cuts = list(cuts)
+    best = _worst_margin(loops, cuts, fs)[0]
+    for _ in range(passes):
+        improved = False
+        for i in range(len(cuts)):
+            c0 = cuts[i]
+            others = [lp.H * lp.cascade(cuts[:i] + cuts[i + 1 :]) for lp in loops]
+            bw0 = c0.bandwidth_oct
+            g0 = -12.0 if c0.gain_db is None else c0.gain_db
+            cands = []
+            for k in (0.7, 0.85, 1.15, 1.3):
+                cands.append(Notch(c0.freq_hz, float(max(-PLAN_MAX_DEPTH_DB, min(-0.1, g0 * k))), c0.q))
+            for bw in (bw0 * 0.8, min(MAX_NOTCH_BANDWIDTH_OCT, bw0 * 1.25)):
+                if abs(bw - bw0) > 1e-9:
+                    cands.append(Notch(c0.freq_hz, g0, q_from_bandwidth_oct(bw)))
+            for u in (-0.125, 0.125):
+                cands.append(Notch(c0.freq_hz * 2.0 ** (u * bw0), g0, c0.q))
+            for cand in cands:
+                m = min(_grid_margin_db(o * lp.cut(cand), lp.f)[0] for lp, o in zip(loops, others))
+                if m > best + 0.02:
+                    best, cuts[i], improved = m, cand, True
+        if not improved:
+            break
+    return cuts, best
 
 
 def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
@@ -528,6 +574,7 @@ def ring_out(
     swing_c: float = 3.0,
     robust: bool = False,
     seed: int = 0,
+    polish: int = 1,
 ) -> RingOutResult:
     """Ring a loop out virtually: the cuts that buy the most stable gain, step by step.
 
@@ -537,12 +584,14 @@ def ring_out(
     sample_rate_hz : its sample rate; cuts are evaluated as digital filters at it.
     max_notches : the budget of cuts (default 6).
     target_margin_db : stop as soon as the margin reaches this (default: spend the budget).
-    min_gain_per_notch_db : drop trailing cuts that buy less than this each (on average).
+    min_gain_per_notch_db : plans for 1..max_notches cuts are compared; a larger plan is taken
+        only if it buys at least this much per extra cut (dB) over the last one taken.
     band_hz : (lo, hi) analysis band (default: all the file holds, as :func:`howl.loop.nyquist_margin`).
     temperature_c, swing_c : air temperature and the swing every cut must cover.
     robust : design and judge the cuts on the loop and on perturbed copies of it
         (:func:`perturbed_irs`); the reported margins are the worst over them.
     seed : seed of the movement perturbation (robust mode).
+    polish : passes of the small exact search around each planned cut (0 = plan only).
     """
     from .loop import check_ir, nyquist_margin
 
@@ -575,21 +624,26 @@ def ring_out(
     else:
         planner = _Planner(fs, drift)
         plans = {0: ([], m0_grid)}
+        # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
+        # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one
         for b in range(1, budget + 1):
             cuts, m_b, _ = _plan_cuts(loops, b, planner, fs)
             cuts = _tidy(loops, cuts, fs)
             m_b = _worst_margin(loops, cuts, fs)[0] if cuts else m0_grid
-            if m_b < plans[b - 1][1]:  # more budget never has to do worse
-                cuts, m_b = plans[b - 1]
+            prev = plans[max(plans)]
+            if m_b < prev[1]:  # more budget never has to do worse
+                cuts, m_b = prev
             plans[b] = (cuts, m_b)
             if target is not None and m_b >= target:
                 break
         gains = {b: plans[b][1] - m0_grid for b in plans}
-        chosen = 0
+        chosen = 0  # grow the plan while each step up pays min_gain per extra cut over the last one kept
         for b in sorted(plans)[1:]:
-            if all(gains[b] - gains[j] >= min_gain * (b - j) - 1e-9 for j in plans if j < b):
+            if gains[b] - gains[chosen] >= min_gain * (b - chosen) - 1e-9:
                 chosen = b
         planned, planned_margin = plans[chosen]
+        if polish and planned:
+            planned, planned_margin = _polish(loops, planned, fs, passes=polish)
         n_used = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
