@@ -214,7 +214,7 @@ def _verdict(page: _Page, x: float, y: float, verdict: str | None, size: float, 
     page.fit(t, max_w - 4)
 
 
-def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Block]:
+def _mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = "a4") -> list[_Block]:
     """The per-mic table, split into blocks of rows that fit a page."""
     measured_by_mic: dict[str, list[MeasuredLine]] = {}
     for m in data.measured:
@@ -293,7 +293,7 @@ def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Blo
         page.text(mx + 4, sub + 1, mark_src, size=small, color=_BLACK, max_w=mw - 6)
         page.text(xs["ring"][0] + 4, base, ring, size=mid, max_w=xs["ring"][1] - 6)
         _verdict(page, xs["verdict"][0] + 6, base, verdict, mid, xs["verdict"][1] - 6)
-        if verdict_src:
+        if verdict_src and scale >= 0.9:  # small rows: the verdict box needs the room
             page.text(xs["verdict"][0] + 4, sub + 1, verdict_src, size=small, max_w=xs["verdict"][1] - 6)
         page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
 
@@ -312,8 +312,10 @@ def _mic_table_blocks(page_w: float, data: SheetData, scale: float) -> list[_Blo
 
         return _Block(title_h + head_h + row_h * len(chunk) + 8.0, draw)
 
-    # chunks of at most 12 rows so a long list can break across pages
-    n_max = 12
+    # chunks that fit page 1 beside the header and the cautions (about 120 and 190 pt),
+    # so a long list breaks across pages without leaving page 1 half empty
+    page_h = PAPER_PT[paper][1]
+    n_max = max(6, int((page_h - 2 * _MARGIN_PT - 12.0 - 120.0 - 190.0 - title_h - head_h - 8.0) // row_h))
     for i in range(0, max(len(rows), 1), n_max):
         blocks.append(make(rows[i : i + n_max], i == 0))
     return blocks
@@ -775,7 +777,7 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
 
     def flow(panel_h: float, map_h: float, notes_size: float) -> list[_Block]:
         blocks: list[_Block] = []
-        blocks += _mic_table_blocks(proto.width, data, scale)
+        blocks += _mic_table_blocks(proto.width, data, scale, paper)
         blocks += _measured_table_blocks(data)
         blocks += _plot_blocks(data, panel_h, map_h)
         blocks += _cuts_blocks(data, proto)
