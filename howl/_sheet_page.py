@@ -157,10 +157,10 @@ class _Page:
 class _Block:
     """A piece of the page flow: knows its height and draws itself at a y."""
 
-    def __init__(self, height: float, draw, keep_with_next: bool = False):
+    def __init__(self, height: float, draw, gap: float = 8.0):
         self.height = height
         self.draw = draw
-        self.keep_with_next = keep_with_next
+        self.gap = gap  # space after the block
 
 
 # --- header ------------------------------------------------------------------
@@ -750,21 +750,25 @@ def _cautions_block(page_proto: _Page, data: SheetData) -> _Block:
     return _Block(h, draw)
 
 
-def _notes_block(page_proto: _Page, data: SheetData, size: float = 6.5) -> _Block:
+def _notes_blocks(page_proto: _Page, data: SheetData, size: float = 6.5) -> list[_Block]:
+    """The small print, one block per paragraph so it can run on over a page break."""
     lead = size * 1.23
-    wrapped = [page_proto.wrap(n, size, page_proto.width) for n in data.notes]
-    h = 14.0 + sum(len(ls) * lead + 2.0 for ls in wrapped)
+    blocks = []
+    for i, note in enumerate(data.notes):
+        lines = page_proto.wrap(note, size, page_proto.width)
+        head = 10.0 if i == 0 else 0.0
+        h = head + len(lines) * lead + 2.0
 
-    def draw(page: _Page, y: float) -> None:
-        page.text(page.left, y + 9, "HOW THESE NUMBERS WERE MADE", size=7, weight="bold")
-        yy = y + 9 + 10
-        for ls in wrapped:
-            for line in ls:
+        def draw(page: _Page, y: float, lines=lines, head=head) -> None:
+            if head:
+                page.text(page.left, y + 7, "HOW THESE NUMBERS WERE MADE", size=7, weight="bold")
+            yy = y + head + lead
+            for line in lines:
                 page.text(page.left, yy, line, size=size)
                 yy += lead
-            yy += 2.0
 
-    return _Block(h, draw)
+        blocks.append(_Block(h, draw, gap=0.0))
+    return blocks
 
 
 # --- page flow -----------------------------------------------------------------------
@@ -781,7 +785,7 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
         blocks += _measured_table_blocks(data)
         blocks += _plot_blocks(data, panel_h, map_h)
         blocks += _cuts_blocks(data, proto)
-        blocks.append(_notes_block(proto, data, notes_size))
+        blocks += _notes_blocks(proto, data, notes_size)
         return blocks
 
     cautions = _cautions_block(proto, data)
@@ -790,7 +794,7 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
     room = (hp.bottom - cautions.height - 8.0) - (hp.top + header_h)
 
     def free(blocks: list[_Block]) -> float:
-        return room - sum(b.height + 8.0 for b in blocks)
+        return room - sum(b.height + b.gap for b in blocks)
 
     # the normal layout; if it spills over a little, a compact one that fits one page
     base_h = 112.0
@@ -823,7 +827,7 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
         if page.y + b.height > page.bottom and page.y > page.top + 130:
             page = new_page()
         b.draw(page, page.y)
-        page.y += b.height + 8.0
+        page.y += b.height + b.gap
     for p in pages:
         foot = f"howl gain sheet \u2022 {data.rig_name} \u2022 page {p.number} of {len(pages)}"
         p.text(p.left, p.h_pt - _MARGIN_PT + 4, foot, size=6.5, color=_GREY)
