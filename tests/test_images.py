@@ -338,7 +338,7 @@ def one_pair_rig(room, spk_pos, mic_pos, *, pattern="omni", mic_aim=(0.0, 0.0), 
     tpos = tuple(np.asarray(mic_pos) + 0.3 * np.array([math.cos(mic_aim[0]), math.sin(mic_aim[0]), 0.0]))
     return Rig(
         "test", room, (spk,), (mic,), (Talker("t", tpos, "m1"),), (Listener("far", (room.dimensions_m[0] - 1, 2.0, 1.2)),),
-        (Mix("mains", ("main",), (("m1", gain_db),)),),
+        (Mix("mains", ("main",), (("m1", gain_db),)),), target_spl_db=65.0,
     )
 
 
