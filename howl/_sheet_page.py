@@ -505,10 +505,12 @@ def _loop_panel(ax, mic: str, curves: list[Curve], fsm_db: float, legend: bool) 
                 ax.plot([f], [g], marker="^", ms=7, mfc="white", mec=_BLACK, mew=1.4, zorder=5, ls="none")
                 ax.annotate(_band_hz(f), (f, g), xytext=(0, 6), textcoords="offset points", ha=ha, fontsize=6.5, weight="bold",
                             bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none"), zorder=7)
-            else:
+            elif txt == "howls first":
                 ax.plot([f], [g], marker="v", ms=7, mfc=_BLACK, mec=_BLACK, zorder=6, ls="none")
                 ax.annotate(_hz(f, exact=True), (f, g), xytext=(0, 7), textcoords="offset points", ha=ha, fontsize=6.5, weight="bold",
                             bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none"), zorder=7)
+            else:  # the next worst crossings: hollow, unlabelled
+                ax.plot([f], [g], marker="v", ms=5, mfc="white", mec=_BLACK, mew=1.0, zorder=6, ls="none")
     ax.set_xlim(fmin / 1.1, fmax * 1.1)
     ax.set_ylim(ymin, ymax)
     ticks = [t for t in (31.5, 63, 125, 250, 500, 1000, 2000, 4000, 8000, 16000) if fmin / 1.1 <= t <= fmax * 1.1]
@@ -674,7 +676,7 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) 
         own_maps = []
     if not items and not own_maps:
         return []
-    title_h = 26.0
+    title_h = 35.0 if data.measured else 26.0
     blocks = []
     rows = [items[i : i + ncol] for i in range(0, len(items), ncol)]
     for r, row in enumerate(rows):
@@ -689,10 +691,12 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) 
                 page.text(page.left, y + 11, "LOOP GAIN vs FREQUENCY", size=10, weight="bold")
                 page.text(
                     page.left, y + 22,
-                    "solid line at 0 dB: howls    dashed: \u2212FSM    thick steps: planned band worst peak (\u25b3 rings first)    dotted: band average"
-                    + ("    thin lines: measured |H| (\u25bc howls first)" if data.measured else ""),
+                    "solid line at 0 dB: howls    dashed: \u2212FSM    thick steps: planned band worst peak (\u25b3 rings first)    dotted: band average",
                     size=7, max_w=page.width,
                 )
+                if data.measured:
+                    page.text(page.left, y + 31, "thin lines: measured |H|, one style per loudspeaker    "
+                              "\u25bc howls first    \u25bd the next crossings", size=7, max_w=page.width)
             gap = 36.0
             w = (page.width - gap * (ncol - 1) - 24.0) / ncol
             for i, (kind, obj) in enumerate(row):

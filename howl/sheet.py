@@ -467,6 +467,16 @@ def _measured_curve(pair: SessionPair, margin, label: str) -> Curve:
     hz = _f(margin.howl_freq_hz)
     if hz is not None:
         marks.append((hz, -float(margin.gain_margin_db), "howls first"))
+    # the next worst crossings (LOOP's risk list, worst first), unlabelled
+    for r in getattr(margin, "risks", ()) or ():
+        if len(marks) >= 4:
+            break
+        rf, rm = _f(getattr(r, "freq_hz", None)), _f(getattr(r, "margin_db", None))
+        if getattr(r, "kind", "") != "crossing" or rf is None or rm is None:
+            continue
+        if hz is not None and abs(rf - hz) <= 1e-6 * hz:
+            continue
+        marks.append((rf, -rm, "next crossing"))
     return Curve(panel=pair.mic, label=label, kind="measured", freq_hz=tuple(ff), loop_gain_db=tuple(gg), marks=tuple(marks))
 
 
