@@ -141,6 +141,10 @@ class DetectorConfig:
     min_growth_db_per_s: 6 dB/s (a loop 0.5 dB past unity with τ = 80 ms grows this
         fast); slower growth is not distinguishable from a crescendo or a note caught
         by a loop resonance within the window, and is caught by ``persist_s``.
+    fast_growth_db_per_s: growth of at least 20 dB/s is decided on half the window
+        (0.15 s): such a howl gains 6 dB in the time the full window would add. The
+        half window is held to stricter tests (PNPR 6 dB higher, all PHPR multipliers,
+        IMSD below a quarter of the growth) because it sees fewer frames.
     max_imsd_db_per_s: straightness of the growth: IMSD below 6 dB/s, or below
         0.6 × the growth rate for fast growth (level scatter ±0.3 dB gives a few dB/s).
     persist_s: a pure, steady tone present this long with level not falling
@@ -170,6 +174,7 @@ class DetectorConfig:
     min_ipmp: float = 0.8
     decision_window_s: float = 0.3
     min_growth_db_per_s: float = 6.0
+    fast_growth_db_per_s: float = 20.0
     max_imsd_db_per_s: float = 6.0
     imsd_points: int = 6
     persist_s: float = 1.5
@@ -181,7 +186,7 @@ class DetectorConfig:
     track_tol_bins: float = 1.0
     max_gap_frames: int = 4
     max_tracks: int = 40
-    eval_every_frames: int = 3
+    eval_every_frames: int = 4
 
     def validated(self) -> "DetectorConfig":
         v.in_range(self.window_s, "window_s", 0.01, 1.0, unit="s")
@@ -382,34 +387,31 @@ def loop_delay_s(ir: np.ndarray, sample_rate_hz: float, freq_hz: float, *, effec
 
 
 class _Track:
-    __slots__ = ("tid", "frames", "kf", "level", "papr", "pnpr", "phpr", "nb", "phf", "gap", "reported", "state",
-                 "last_eval")
+    """One tracked peak. Per frame: the frame index and a row
+    (kf, level, papr, pnpr, phpr, nb, phf); columns are built only when evaluated."""
+
+    __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval")
+    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6}
 
     def __init__(self, tid: int):
         self.tid = tid
         self.frames: list[int] = []
-        self.kf: list[float] = []
-        self.level: list[float] = []
-        self.papr: list[float] = []
-        self.pnpr: list[float] = []
-        self.phpr: list[float] = []
-        self.nb: list[float] = []
-        self.phf: list[float] = []
+        self.rows: list[tuple] = []
+        self.last_kf = 0.0
         self.gap = 0
         self.reported: str | None = None
         self.state = "program"
         self.last_eval = -1
 
-    def add(self, t, kf, level, papr, pnpr, phpr, nb, phf):
+    def add(self, t: int, row: tuple) -> None:
         self.frames.append(t)
-        self.kf.append(kf)
-        self.level.append(level)
-        self.papr.append(papr)
-        self.pnpr.append(pnpr)
-        self.phpr.append(phpr)
-        self.nb.append(nb)
-        self.phf.append(phf)
+        self.rows.append(row)
+        self.last_kf = row[0]
         self.gap = 0
+
+    def col(self, name: str, start: int = 0) -> list[float]:
+        k = self.FIELDS[name]
+        return [r[k] for r in self.rows[start:]]
 
 
 def _median(values: list[float]) -> float:
@@ -468,6 +470,7 @@ class Detector:
         self.k_lo = max(7, int(np.floor(self.cfg.f_lo_hz / self.bin_hz)))
         self.k_hi = min(self.n_bins - 8, int(np.ceil(f_hi / self.bin_hz)))
         self.win_frames = max(3, int(round(self.cfg.decision_window_s / self.dt)))
+        self.fast_frames = max(3, self.win_frames // 2)
         self.persist_frames = max(self.win_frames, int(round(self.cfg.persist_s / self.dt)))
         self._buf = np.zeros(0)
         self._frame = 0  # index of the next frame to compute
@@ -523,15 +526,15 @@ class Detector:
         for tr in self._tracks:
             if len(tr.frames) < 3 or tr.gap > 0:
                 continue
-            sel = slice(-min(len(tr.frames), self.win_frames), None)
-            fr = np.asarray(tr.frames[sel], float)
-            lv = np.asarray(tr.level[sel])
+            i0 = len(tr.frames) - min(len(tr.frames), self.win_frames)
+            fr = np.asarray(tr.frames[i0:], float)
+            lv = np.asarray(tr.col("level", i0))
             slope = _linfit(fr * self.dt, lv)[0] if fr.size >= 3 else 0.0
-            kf = np.asarray(tr.kf[sel])
+            kf = np.asarray(tr.col("kf", i0))
             out.append(Candidate(
                 track_id=tr.tid, freq_hz=float(np.median(kf)) * self.bin_hz, level_db=float(lv[-1]),
                 trend_db_per_s=float(slope), age_s=(tr.frames[-1] - tr.frames[0] + 1) * self.dt,
-                pnpr_db=float(np.median(tr.pnpr[sel])), phpr_db=float(np.median(tr.phpr[sel])),
+                pnpr_db=_median(tr.col("pnpr", i0)), phpr_db=_median(tr.col("phpr", i0)),
                 fsd=float(np.std(kf) / max(np.mean(kf), _TINY)), state=tr.reported or tr.state,
             ))
         out.sort(key=lambda c: -c.level_db)
@@ -550,15 +553,15 @@ class Detector:
         lo, hi = self.k_lo, self.k_hi
         band = power[:, lo:hi]
         mean_p = band.mean(axis=1, dtype=np.float64) + _TINY
-        mid = band[:, 1:-1]
         gate = (mean_p * 10.0 ** (self.cfg.min_papr_db / 10.0)).astype(np.float32)
         floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
         gate = np.maximum(gate, floor)
-        ok = (mid >= gate[:, None])
-        ok &= mid > band[:, :-2]
-        ok &= mid >= band[:, 2:]
-        rows, cols = np.nonzero(ok)
+        # PAPR gate first (sparse), then the local-maximum test on the survivors only
+        rows, cols = np.nonzero(band[:, 1:-1] >= gate[:, None])
         k = cols + lo + 1  # absolute bin
+        pk = power[rows, k]
+        is_max = (pk > power[rows, k - 1]) & (pk >= power[rows, k + 1])
+        rows, k = rows[is_max], k[is_max]
         nmax = self.n_bins - 1
         pm1 = power[rows, k - 1].astype(np.float64)
         p0 = power[rows, k].astype(np.float64)
@@ -590,36 +593,41 @@ class Detector:
         order = np.lexsort((-peak_p, rows))
         rows_o = rows[order]
         bounds = np.searchsorted(rows_o, np.arange(n_f + 1))
-        cols = [a.tolist() for a in (kf[order], level_db[order], papr[order], pnpr[order], phpr[order], nb_db[order],
-                                     phf[order])]
+        allrows = list(zip(*(a.tolist() for a in (kf[order], level_db[order], papr[order], pnpr[order],
+                                                   phpr[order], nb_db[order], phf[order]))))
         c = self.cfg.n_candidates
         t0 = self._frame
         for i in range(n_f):
             i0 = int(bounds[i])
             i1 = min(int(bounds[i + 1]), i0 + c)
-            self._step(t0 + i, *(col[i0:i1] for col in cols))
+            self._step(t0 + i, allrows[i0:i1])
         self._frame += n_f
 
-    def _step(self, t, kf, level, papr, pnpr, phpr, nb, phf) -> None:
+    def _step(self, t, rows) -> None:
         tol = self.cfg.track_tol_bins
         matched = set()
-        tracks = self._tracks
-        lasts = [tr.kf[-1] for tr in tracks]
-        for j in range(len(kf)):
+        # tracks sorted by their last frequency: each candidate looks only at its neighbours
+        tracks = sorted(self._tracks, key=lambda tr: tr.last_kf)
+        lasts = [tr.last_kf for tr in tracks]
+        n_tr = len(tracks)
+        bl = bisect.bisect_left
+        for j in range(len(rows)):
+            kj = rows[j][0]
             best = None
             bd = tol
-            kj = kf[j]
-            for i, lk in enumerate(lasts):
-                d = lk - kj
-                if -bd <= d <= bd and tracks[i].tid not in matched:
-                    bd, best = abs(d), tracks[i]
+            i = bl(lasts, kj - tol)
+            while i < n_tr and lasts[i] <= kj + tol:
+                d = abs(lasts[i] - kj)
+                if d <= bd and tracks[i].tid not in matched:
+                    bd, best = d, tracks[i]
+                i += 1
             if best is None:
                 if len(self._tracks) >= self.cfg.max_tracks:
                     continue
                 best = _Track(self._next_tid)
                 self._next_tid += 1
                 self._tracks.append(best)
-            best.add(t, kj, level[j], papr[j], pnpr[j], phpr[j], nb[j], phf[j])
+            best.add(t, rows[j])
             matched.add(best.tid)
         alive = []
         for tr in self._tracks:
@@ -639,47 +647,61 @@ class Detector:
         i0 = np.searchsorted(fr, t - n_frames + 1)
         return i0, fr[i0:]
 
-    def _evaluate(self, tr: _Track, t: int) -> None:
+    def _window_test(self, tr: _Track, t: int, W: int, min_growth: float, strict: bool = False):
+        """Features over the last W frames; None when the track is not pure and steady there."""
         cfg = self.cfg
-        W = self.win_frames
-        if tr.frames[-1] - tr.frames[0] + 1 < W:
-            return
         # cheap tests first (pure Python on <= W values): IPMP, PNPR, PHPR, FSD
         i0 = bisect.bisect_left(tr.frames, t - W + 1)
         ip = (len(tr.frames) - i0) / W
         if ip < cfg.min_ipmp:
-            tr.state = "program"
-            return
-        pn = _median(tr.pnpr[i0:])
-        ph = _median(tr.phpr[i0:])
+            return None
+        pn = _median(tr.col('pnpr', i0))
+        ph = _median(tr.col('phpr', i0))
         if pn < cfg.min_pnpr_db or ph < cfg.min_phpr_db:
-            tr.state = "program"
-            return
-        kf = np.asarray(tr.kf[i0:])
+            return None
+        if strict and (pn < cfg.min_pnpr_db + 6.0 or _median(tr.col('phf', i0)) < cfg.min_phpr_db):
+            return None
+        kf = np.asarray(tr.col('kf', i0))
         fsd = float(np.std(kf) / np.mean(kf))
         if fsd > cfg.max_fsd:
-            tr.state = "program"
-            return
+            return None
         fr = np.asarray(tr.frames[i0:])
-        lv = np.asarray(tr.level[i0:])
+        lv = np.asarray(tr.col('level', i0))
         ts = fr * self.dt
-        slope, icpt, _ = _linfit(ts, lv)
+        slope, _, _ = _linfit(ts, lv)
         # IMSD on the level line sampled at Q equally spaced instants of the window
         q = cfg.imsd_points
         tq = np.linspace(ts[0], ts[-1], q)
-        lq = np.interp(tq, ts, lv)
-        imsd = imsd_db_per_s(lq, (ts[-1] - ts[0]) / (q - 1))
-        growing = slope >= cfg.min_growth_db_per_s and imsd <= max(cfg.max_imsd_db_per_s, 0.6 * slope)
+        imsd = imsd_db_per_s(np.interp(tq, ts, lv), (ts[-1] - ts[0]) / (q - 1))
+        limit = 0.25 * slope if strict else max(cfg.max_imsd_db_per_s, 0.6 * slope)
+        growing = slope >= min_growth and imsd <= limit
+        return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing
+
+    def _evaluate(self, tr: _Track, t: int) -> None:
+        cfg = self.cfg
+        span = tr.frames[-1] - tr.frames[0] + 1
+        res = None
+        # fast growth is decided on a half window (a loop well past unity must not wait)
+        if span >= self.fast_frames:
+            res = self._window_test(tr, t, self.fast_frames, cfg.fast_growth_db_per_s, strict=True)
+            if res is not None and not res[-1]:
+                res = None
+        if res is None and span >= self.win_frames:
+            res = self._window_test(tr, t, self.win_frames, cfg.min_growth_db_per_s)
+        if res is None:
+            tr.state = "program" if span >= self.fast_frames else tr.state
+            return
+        i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing = res
         steady = False
         if not growing and tr.frames[-1] - tr.frames[0] + 1 >= self.persist_frames:
             j0, frp = self._window(tr, t, self.persist_frames)
-            kfp = np.asarray(tr.kf[j0:])
-            lvp = np.asarray(tr.level[j0:])
+            kfp = np.asarray(tr.col('kf', j0))
+            lvp = np.asarray(tr.col('level', j0))
             sp = _linfit(frp * self.dt, lvp)[0]
             steady = (frp.size / self.persist_frames >= cfg.min_ipmp
                       and np.std(kfp) / np.mean(kfp) <= cfg.max_fsd
-                      and float(np.median(tr.pnpr[j0:])) >= cfg.min_pnpr_db
-                      and _median(tr.phf[j0:]) >= cfg.min_phpr_db
+                      and float(np.median(tr.col('pnpr', j0))) >= cfg.min_pnpr_db
+                      and _median(tr.col('phf', j0)) >= cfg.min_phpr_db
                       and sp > -cfg.min_decay_db_per_s)
         if (growing or steady) and self._is_howl_product(float(np.median(kf)) * self.bin_hz):
             tr.reported = "product"
@@ -693,7 +715,7 @@ class Detector:
                 time_s=(t * self.hop + self.n_win) / self.fs,
                 onset_s=(tr.frames[0] * self.hop + self.n_win / 2) / self.fs,
                 freq_hz=float(np.median(kf)) * self.bin_hz, kind="howl", level_db=float(lv[-1]),
-                growth_db_per_s=float(slope), papr_db=float(np.median(tr.papr[i0:])), pnpr_db=pn, phpr_db=ph,
+                growth_db_per_s=float(slope), papr_db=float(np.median(tr.col('papr', i0))), pnpr_db=pn, phpr_db=ph,
                 ipmp=float(ip), imsd_db_per_s=float(imsd), fsd=fsd, track_id=tr.tid, margin_db=margin,
                 steady=bool(steady and not growing),
             ))
@@ -738,9 +760,9 @@ class Detector:
         if n < min_frames + 2:
             return None
         # cheap tests first: a ring-down is pure over most of the track
-        if _median(tr.pnpr) < cfg.min_pnpr_db - 6.0 or _median(tr.phf) < cfg.min_phpr_db - 6.0:
+        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0 or _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
             return None
-        lv = np.asarray(tr.level)
+        lv = np.asarray(tr.col('level'))
         fr = np.asarray(tr.frames)
         ipk = int(np.argmax(lv))
         # skip the frames in which the window still straddles the transient
@@ -759,10 +781,10 @@ class Detector:
             return None
         slope, icpt, res = _linfit(ts, lv[seg])
         span = -slope * (ts[-1] - ts[0])
-        kf = np.asarray(tr.kf)[seg]
+        kf = np.asarray(tr.col('kf'))[seg]
         fsd = float(np.std(kf) / np.mean(kf))
-        pn = float(np.median(np.asarray(tr.pnpr)[seg]))
-        ph = float(np.median(np.asarray(tr.phf)[seg]))
+        pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
+        ph = float(np.median(np.asarray(tr.col('phf'))[seg]))
         q = cfg.imsd_points
         tq = np.linspace(ts[0], ts[-1], q)
         imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
@@ -772,7 +794,7 @@ class Detector:
               and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
         if not ok:
             return None
-        nb_slope = _linfit(ts, np.asarray(tr.nb)[seg])[0]
+        nb_slope = _linfit(ts, np.asarray(tr.col('nb'))[seg])[0]
         if (cfg.max_decay_ratio is not None and -nb_slope > cfg.min_decay_db_per_s
                 and decay > cfg.max_decay_ratio * (-nb_slope)):
             return None
@@ -782,7 +804,7 @@ class Detector:
             time_s=(t_end * self.hop + self.n_win) / self.fs,
             onset_s=(fr[0] * self.hop + self.n_win / 2) / self.fs,
             freq_hz=float(np.median(kf)) * self.bin_hz, kind="ringing", level_db=float(lv[ipk]),
-            growth_db_per_s=float(slope), papr_db=float(np.median(np.asarray(tr.papr)[seg])), pnpr_db=pn,
+            growth_db_per_s=float(slope), papr_db=float(np.median(np.asarray(tr.col('papr'))[seg])), pnpr_db=pn,
             phpr_db=ph, ipmp=float(seg.size / (fr[seg[-1]] - fr[seg[0]] + 1)), imsd_db_per_s=float(imsd), fsd=fsd,
             track_id=tr.tid, decay_db_per_s=float(decay), margin_db=margin, neighbour_slope_db_per_s=float(nb_slope),
         )

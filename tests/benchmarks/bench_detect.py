@@ -1,0 +1,115 @@
+"""Benchmark of the ringing detector (run by hand: python tests/benchmarks/bench_detect.py [--quick]).
+
+1. Real-time factor at 48 kHz: CPU time (time.process_time, one thread) to analyse 60 s of
+   audio, median of 3 runs, for speech-like, music-like and noise programs.
+   Target: 60 s in under 0.6 s (RTF < 0.01).
+2. Detection latency over the synthetic closed-loop cases: pyroomacoustics loop IRs at 16 kHz,
+   speech-like and music-like programs, the gain stepped 0.5–3 dB past the worst crossing at
+   t = 2 s; latency = detection time − 2 s, lead = (time the howl is as loud as the program)
+   − detection time (positive: detected before it dominates).
+Prints a table of medians and writes JSON to tests/benchmarks/results/bench_detect.json.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import time
+from pathlib import Path
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
+
+from test_detect import music_like, room_loop, speech_like, t_dominates  # noqa: E402
+
+from howl.detect import detect  # noqa: E402
+
+
+def rtf(quick: bool) -> list[dict]:
+    fs = 48000
+    dur = 60.0
+    rng = np.random.default_rng(0)
+    progs = {
+        "speech-like": speech_like(fs, dur, 1),
+        "music-like (vibrato)": music_like(fs, dur, 2),
+        "white noise -30 dBFS": 0.03 * rng.standard_normal(int(dur * fs)),
+    }
+    detect(progs["speech-like"][:fs], fs)  # warm-up (imports, FFT plans)
+    out = []
+    for name, x in progs.items():
+        ts = []
+        for _ in range(1 if quick else 3):
+            t0 = time.process_time()
+            detect(x, fs)
+            ts.append(time.process_time() - t0)
+        med = float(np.median(ts))
+        out.append({"program": name, "audio_s": dur, "cpu_s_median": med, "rtf": med / dur,
+                    "target_cpu_s": 0.6, "meets_target": med < 0.6})
+    return out
+
+
+def latency(quick: bool) -> list[dict]:
+    from howl.simulate import simulate_closed_loop
+
+    fs = 16000
+    rows = []
+    seeds = (0, 1) if quick else (0, 1, 2, 3, 4)
+    overs = (1.0, 3.0) if quick else (0.5, 1.0, 2.0, 3.0)
+    for seed in seeds:
+        h, cf, cm = room_loop(seed)
+        for prog in ("speech", "music"):
+            x = speech_like(fs, 7, seed) if prog == "speech" else music_like(fs, 7, seed + 10)
+            for over in overs:
+                g = np.full(x.size, -6.0)
+                g[2 * fs:] = over
+                y = simulate_closed_loop(h, x, fs, gain_db=g)
+                unstable = cf[cm - over < 0]
+                howls = [e for e in detect(y, fs).events if e.kind == "howl"]
+                row = {"seed": seed, "program": prog, "over_db": over, "n_unstable_crossings": int(unstable.size)}
+                if howls:
+                    e = howls[0]
+                    err = float(np.min(np.abs(unstable / e.freq_hz - 1)))
+                    t_dom = t_dominates(y, fs, unstable[int(np.argmin(np.abs(unstable / e.freq_hz - 1)))],
+                                        float(np.sqrt(np.mean(x ** 2))), 2.0)
+                    row.update(detected=True, freq_hz=e.freq_hz, freq_err_pct=100 * err, latency_s=e.time_s - 2.0,
+                               lead_s=t_dom - e.time_s, growth_db_per_s=e.growth_db_per_s)
+                else:
+                    row.update(detected=False)
+                rows.append(row)
+                print(row, flush=True)
+    return rows
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    r = rtf(quick)
+    print("\nreal-time factor at 48 kHz (60 s of audio, CPU s, median)")
+    print(f"{'program':<24}{'cpu_s':>8}{'rtf':>9}  target < 0.6 s")
+    for row in r:
+        print(f"{row['program']:<24}{row['cpu_s_median']:8.3f}{row['rtf']:9.4f}  {'ok' if row['meets_target'] else 'MISSED'}")
+    lat = latency(quick)
+    det = [row for row in lat if row["detected"]]
+    lats = np.array([row["latency_s"] for row in det])
+    leads = np.array([row["lead_s"] for row in det])
+    errs = np.array([row["freq_err_pct"] for row in det])
+    print(f"\ndetection over {len(lat)} closed-loop cases: {len(det)} detected")
+    if det:
+        q = lambda a: np.percentile(a, [10, 50, 90])  # noqa: E731
+        print(f"latency after the gain step  p10/median/p90: {q(lats).round(2)} s")
+        print(f"lead before it dominates     p10/median/p90: {q(leads).round(2)} s (min {leads.min():.2f})")
+        print(f"frequency error              median/max: {np.median(errs):.4f} / {errs.max():.4f} %")
+    out = {"rtf_48k": r, "latency_cases": lat}
+    path = HERE / "results" / "bench_detect.json"
+    path.parent.mkdir(exist_ok=True)
+    path.write_text(json.dumps(out, indent=2), encoding="utf-8")
+    print(f"\nwrote {path}")
+
+
+if __name__ == "__main__":
+    main()
