@@ -150,3 +150,22 @@ def test_listen_needs_duration_for_json_and_a_device():
     assert res.exit_code == 2 and "--duration" in res.output
     res = CliRunner().invoke(app, ["listen"])
     assert res.exit_code == 2 and "--device" in res.output
+
+
+def test_ctrl_c_stops_the_loop_cleanly_and_overflows_are_reported(tmp_path):
+    from howl.live import ArraySource, listen
+
+    class Interrupting(ArraySource):
+        def read(self, timeout_s=0.1):
+            if self._pos >= 20 * self.block_frames:
+                raise KeyboardInterrupt
+            self.overflows = 3 if self._pos > 5 * self.block_frames else 0  # as a device would count them
+            return super().read(timeout_s)
+
+    fs = 16000
+    y = 10 ** (-40 / 20) * np.sin(2 * np.pi * 1000 * np.arange(4 * fs) / fs)
+    log = tmp_path / "ev.jsonl"
+    res = listen(Interrupting(y, fs, block_frames=512), log_path=log)
+    assert res.interrupted and res.n_samples == 20 * 512
+    assert res.overflows == 3 and res.report["overflows"] == 3
+    assert log.exists()  # closed cleanly, possibly empty
