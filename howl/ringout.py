@@ -29,7 +29,10 @@ plans the cuts together, as a covering problem over the crossings:
    made again (a few rounds; the best cascade is kept); then a small exact search
    around each cut of the chosen plan (depth ×0.7…1.3, width ±25 %, centre ±1/8
    of its band, judged on the whole grid with the other cuts in) keeps any change
-   that lifts the margin;
+   that lifts the margin. Beside each plan, simple ring-outs (a fixed cut, e.g.
+   −15 dB over 1/3 octave, at each limiting crossing in turn, :data:`GREEDY_CUTS`)
+   are run on the same grid, and for each budget the better cascade is kept,
+   provided its broadband tonal cost is at most half the gain it buys;
 5. the ring-out itself then runs as a technician would: find the crossing that
    limits the margin, insert the planned cut that covers it, recompute the loop
    with the cascade in it, repeat, until the target margin is met, the budget is
@@ -521,6 +524,33 @@ def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
     return steps
 
 
+#: The simple ring-outs also tried at every budget (depth dB, bandwidth oct): a fixed cut at each
+#: limiting crossing in turn, on the loop with the earlier cuts in it. Where a few regions dominate
+#: the loop, deep 1/3-octave cuts at the limit found this way often beat the plan. One is kept only
+#: if its pink-noise tonal cost is at most half the gain it buys (otherwise it mostly turns the
+#: whole loop down, which the fader does too).
+GREEDY_CUTS = ((-10.0, 1 / 6), (-6.0, 1 / 6), (-10.0, 1 / 10), (-12.0, 1 / 3), (-15.0, 1 / 3), (-18.0, 1 / 3), (-15.0, 1 / 4))
+
+
+def _greedy_prefixes(loops, budget: int, fs: float) -> dict[int, list[tuple[list[Notch], float]]]:
+    """For each budget b, the cuts and margin of each simple ring-out after b cuts."""
+    out: dict[int, list] = {b: [] for b in range(1, budget + 1)}
+    for depth, bw in GREEDY_CUTS:
+        q = q_from_bandwidth_oct(bw)
+        now = [lp.H for lp in loops]
+        cuts: list[Notch] = []
+        for b in range(1, budget + 1):
+            worst = min((_grid_margin_db(a, lp.f) for lp, a in zip(loops, now)), key=lambda t: t[0])
+            if not math.isfinite(worst[1]) or worst[1] >= 0.49 * fs:
+                break
+            n = Notch(worst[1], depth, q)
+            cuts = cuts + [n]
+            now = [a * lp.cut(n) for lp, a in zip(loops, now)]
+            m = min(_grid_margin_db(a, lp.f)[0] for lp, a in zip(loops, now))
+            out[b].append((cuts, m))
+    return out
+
+
 def _polish(loops, cuts: list[Notch], fs: float, passes: int = 1) -> tuple[list[Notch], float]:
     """Small exact search around each planned cut (depth, width, centre), keeping what lifts the margin.
 
@@ -626,10 +656,15 @@ def ring_out(
         plans = {0: ([], m0_grid)}
         # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
         # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one
+        greedy = _greedy_prefixes(loops, budget, fs)
         for b in range(1, budget + 1):
             cuts, m_b, _ = _plan_cuts(loops, b, planner, fs)
             cuts = _tidy(loops, cuts, fs)
             m_b = _worst_margin(loops, cuts, fs)[0] if cuts else m0_grid
+            for g_cuts, g_m in greedy[b]:
+                # a cascade whose broadband cost is over half its gain mostly turns the loop down
+                if g_m > m_b + 0.01 and tonal_cost_db(g_cuts, band, fs) <= 0.5 * (g_m - m0_grid):
+                    cuts, m_b = _tidy(loops, g_cuts, fs), g_m
             prev = plans[max(plans)]
             if m_b < prev[1]:  # more budget never has to do worse
                 cuts, m_b = prev
