@@ -152,10 +152,15 @@ def test_server_going_away_mid_sweep_is_reported_not_hung(jack_env, tmp_path):
                                "-d", "dummy", "--rate", "48000", "--period", "1024", "--capture", "2",
                                "--playback", "2"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
-        for _ in range(100):
-            if subprocess.run(["jack_lsp"], env=env, capture_output=True).returncode == 0:
+        # Wait until the private server lists its loopback ports (up to 20 s: on a loaded
+        # 2-core machine jackd can take seconds to come up).
+        for _ in range(400):
+            lsp = subprocess.run(["jack_lsp"], env=env, capture_output=True, text=True)
+            if lsp.returncode == 0 and "loopback:" in lsp.stdout:
                 break
             time.sleep(0.05)
+        else:
+            pytest.fail("private jackd did not come up with its loopback ports within 20 s")
         out = tmp_path / "s"
         err = tmp_path / "stderr.txt"
         with open(err, "w") as fh:
@@ -164,7 +169,10 @@ def test_server_going_away_mid_sweep_is_reported_not_hung(jack_env, tmp_path):
                                  env=env, stdout=subprocess.PIPE, stderr=fh, text=True)
             assert _wait_for(err, "sweep at"), err.read_text()
             time.sleep(0.8)
-            server.kill()
+            # SIGTERM: for the client the server is gone just as after a crash, but jackd
+            # releases its slot in JACK's shared registry (SIGKILL leaks one per run, and
+            # after a handful JACK refuses new servers with "Too many servers already active").
+            server.terminate()
             server.wait(timeout=10)
             rc = p.wait(timeout=30)
         assert rc == 2, err.read_text()  # one-line error, neither a hang nor SIGABRT (134)
@@ -172,8 +180,12 @@ def test_server_going_away_mid_sweep_is_reported_not_hung(jack_env, tmp_path):
         assert json.loads((out / "session.json").read_text())["status"] == "failed"
     finally:
         if server.poll() is None:
-            server.kill()
-            server.wait(timeout=10)
+            server.terminate()
+            try:
+                server.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                server.kill()
+                server.wait(timeout=10)
 
 
 _BACKEND_SCRIPT = r"""
