@@ -352,7 +352,8 @@ def report_lines(rep: dict) -> list[str]:
     if rep.get("ring_decay_db_per_s") is not None and gm is not None and gm > 0:
         lines.append(f"a tone at the howl frequency rings down at about {rep['ring_decay_db_per_s']:.0f} dB/s")
     if rep["risks"]:
-        lines.append("risk frequencies (worst first):")
+        lines.append("risk frequencies (worst first; 'crossing' = phase in step now, its margin phase-aware;")
+        lines.append("  'peak' = a loop peak whose phase is not in step now, its margin phase-blind: it howls if the phase drifts):")
         lines.append("    freq_hz  margin_db  kind      phase-blind (lobe peak)")
         for k in rep["risks"]:
             extra = ""
