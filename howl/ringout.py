@@ -683,10 +683,10 @@ def ring_out(
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
         elif chosen < max(plans):
-            best_b = max(plans, key=lambda k: gains[k])
+            top = max(plans)
             reason = (
-                f"a further cut would buy less than {min_gain:g} dB per notch (the best plan with "
-                f"{best_b} cut(s) buys {gains[best_b]:.2f} dB, with {chosen}: {gains[chosen]:.2f} dB)"
+                f"more cuts would buy less than {min_gain:g} dB per notch ({chosen} cut(s) buy "
+                f"{gains[chosen]:.2f} dB; the best plan with {top} buys {gains[top]:.2f} dB)"
             )
         elif n_used < budget and chosen == budget:
             reason = f"budget of {budget} cut(s) spent ({n_used} after merging cuts that overlap)"
