@@ -70,8 +70,12 @@ def register(app: typer.Typer) -> None:
             typer.echo(line)
 
 
-def _load_ir(path: Path, *, channel, max_length_s, trim_s):
-    """Read and check one loop IR; returns (h, fs, warnings list)."""
+def load_loop_ir(path: Path, *, channel, max_length_s, trim_s):
+    """Read and check one loop IR; returns (h, fs, warnings list).
+
+    Shared by every command that reads a loop IR (margin, ringout), so all refuse
+    the same bad files with the same one-line messages.
+    """
     import numpy as np
 
     from .. import _validate as V
@@ -124,7 +128,7 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
     from ..loop import loop_response, nyquist_margin, third_octave_loop_gain
     from ..units import from_db
 
-    h, fs, warns = _load_ir(path, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
+    h, fs, warns = load_loop_ir(path, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
     for w in warns:
         warnings.warn(w, HowlWarning)
     band = None if band_hz is None else (float(band_hz[0]), float(band_hz[1]))
@@ -225,7 +229,7 @@ def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, tri
     for spk, mic, q in pairs:
         if (spk, mic) in data:
             raise InputError(f"pair {spk}{PAIR_SEPARATOR}{mic} is given twice", file=str(q))
-        h, fs, warns = _load_ir(q, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
+        h, fs, warns = load_loop_ir(q, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
         for w in warns:
             warnings.warn(w, HowlWarning)
         if fs0 is None:

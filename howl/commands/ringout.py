@@ -85,9 +85,9 @@ def ringout_report(
     from .. import _validate as V
     from ..errors import HowlWarning, InputError
     from ..ringout import ring_out
-    from .margin import _load_ir
+    from .margin import load_loop_ir
 
-    h, fs, warns = _load_ir(path, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
+    h, fs, warns = load_loop_ir(path, channel=channel, max_length_s=max_length_s, trim_s=trim_s)
     for w in warns:
         warnings.warn(w, HowlWarning)
     V.integer(max_notches, "--max-notches", 0, 64)
