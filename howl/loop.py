@@ -197,11 +197,9 @@ def loop_response(ir, sample_rate_hz, freq_hz=None, n_fft=None) -> tuple[np.ndar
 
 
 def _sos_response(sos, freq_hz, fs):
-    from scipy.signal import sosfreqz
+    from .notch import sos_response
 
-    f = np.atleast_1d(np.asarray(freq_hz, dtype=float))
-    _, c = sosfreqz(sos, worN=f, fs=fs)
-    return c
+    return sos_response(sos, np.atleast_1d(np.asarray(freq_hz, dtype=float)), fs)
 
 
 # --------------------------------------------------------------------------- results
