@@ -24,7 +24,11 @@ def margin_figure(result, freq_hz: np.ndarray, H: np.ndarray, *, title: str | No
     f = np.asarray(freq_hz, dtype=float)
     L = np.asarray(H)
     lo, hi = result.band_hz
-    sel = (f >= max(lo, 1e-3)) & (f <= hi)
+    # The audio band: below 20 Hz a log axis would spend decades on nothing a tech can hear
+    # (an analysis band that starts lower is still analysed; the plot starts at 20 Hz).
+    sel = (f >= max(lo, 20.0)) & (f <= hi)
+    if np.count_nonzero(sel) < 2:
+        sel = (f >= max(lo, 1e-3)) & (f <= hi)
     f, L = f[sel], L[sel]
     fig = Figure(figsize=(11, 4.6), layout="constrained")
     FigureCanvasAgg(fig)
@@ -51,6 +55,7 @@ def margin_figure(result, freq_hz: np.ndarray, H: np.ndarray, *, title: str | No
                 label=f"howl {result.howl_freq_hz:.1f} Hz, margin {result.gain_margin_db:.2f} dB")
     top = max(3.0, float(np.max(mag_db)) + 3.0)
     ax.set_ylim(max(top - 60.0, float(np.min(mag_db))), top)
+    ax.set_xlim(f[0], f[-1])
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("loop gain (dB)")
     ax.grid(True, which="both", lw=0.3)
