@@ -7,7 +7,16 @@ matplotlib.
 
 __version__ = "0.1.0"
 
-from .errors import (  # noqa: F401
+__all__ = [
+    "AudioUnavailableError",
+    "HowlError",
+    "HowlWarning",
+    "InputError",
+    "MeasurementQualityError",
+    "__version__",
+]
+
+from .errors import (  # noqa: E402
     AudioUnavailableError,
     HowlError,
     HowlWarning,

@@ -661,7 +661,6 @@ def _plot_blocks(data: SheetData, panel_h: float = 112.0, map_h: float = 200.0) 
         panels.setdefault(c.panel, []).append(c)
     items: list[tuple[str, Any]] = [("loop", (k, v)) for k, v in panels.items()]
     ncol = 3
-    own_map = None
     if data.placement is not None and data.placement.items and data.margin_maps:
         # placement maps get their own rows, full size: the contours need the room
         own_maps = [(data.placement, mm) for mm in data.margin_maps]

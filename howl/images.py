@@ -64,14 +64,13 @@ References
 from __future__ import annotations
 
 import math
-import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import _validate as V
-from .errors import HowlWarning, InputError
+from .errors import InputError
 from .rig import OCTAVE_BANDS_HZ, SHOEBOX_SURFACES, Mic, Rig, Room, Speaker
 from .units import speed_of_sound_m_s
 

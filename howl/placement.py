@@ -156,7 +156,7 @@ def statistical_margins(
     """
     from . import directivity as _dir
     from .bands import band_centres_hz, band_edges_hz
-    from .plan import DEFAULT_TARGET_SPL_DB, loop_power_matrix, mix_matrix, peak_factor_db, perron_vectors
+    from .plan import DEFAULT_TARGET_SPL_DB, mix_matrix, peak_factor_db, perron_vectors
     from .room import room_acoustics
     from .transfer import TALKER_Q, effective_room_constant_m2, speaker_field_pa2, statistical_transfer
 

@@ -6,17 +6,15 @@ pyroomacoustics image-source IRs (reference room simulator)."""
 from __future__ import annotations
 
 import math
-import warnings
 
 import numpy as np
 import pytest
 from scipy.optimize import brentq
 from scipy.signal import bilinear, butter, iirnotch, lfilter, sosfilt, tf2sos
 
-from howl.errors import HowlWarning, InputError
+from howl.errors import InputError
 from howl.loop import (
     band_loop_gain_db,
-    dtft,
     ir_warnings,
     loop_response,
     mimo_margin,

@@ -163,29 +163,13 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
     r = mimo_margin(irs, mix, fs)
     y = simulate_mimo(irs, mix, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
     write_wav_atomic(out, y.T, fs)
-    gmax = float(np.max(sched))
-    finite = bool(np.isfinite(r.gain_margin_db))
-    ceiling = 10 ** (limiter_dbfs / 20)
     return {
         "irs": str(folder),
         "program": str(program),
         "output": str(out),
         "channels": mics,
         "mix_source": mix_source,
-        "sample_rate_hz": fs,
-        "duration_s": y.shape[1] / fs,
-        "gain_db_start": float(sched[0]),
-        "gain_db_end": float(sched[-1]),
-        "gain_db_max": gmax,
-        "gain_margin_db": r.gain_margin_db if finite else None,
-        "howl_freq_hz": r.howl_freq_hz if finite else None,
-        "margin_at_max_gain_db": (r.gain_margin_db - gmax) if finite else None,
-        "expected": ("stable" if (not finite or r.gain_margin_db - gmax > 0) else "howls"),
-        "peak_dbfs": float(20 * np.log10(max(float(np.max(np.abs(y))), 1e-12))),
-        "limiter_dbfs": limiter_dbfs,
-        "limited_fraction": float(np.mean(np.abs(y) > 0.5 * ceiling)),
-        "level_change_db": None,
-        "caution": CAUTION,
+        **_run_summary(fs, y.shape[1], sched, r, y, limiter_dbfs, level_change_db=None),
     }
 
 
@@ -224,30 +208,14 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     r = nyquist_margin(h, fs)
     y = simulate_closed_loop(h, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
     write_wav_atomic(out, y, fs)
-    ceiling = 10 ** (limiter_dbfs / 20)
-    peak = float(np.max(np.abs(y)))
-    gmax = float(np.max(sched))
-    finite = bool(np.isfinite(r.gain_margin_db))
     rms_in = float(np.sqrt(np.mean(x**2))) if np.any(x) else 0.0
     rms_out = float(np.sqrt(np.mean(y**2)))
+    level_change_db = float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None
     return {
         "ir": str(ir),
         "program": str(program),
         "output": str(out),
-        "sample_rate_hz": fs,
-        "duration_s": y.size / fs,
-        "gain_db_start": float(sched[0]),
-        "gain_db_end": float(sched[-1]),
-        "gain_db_max": gmax,
-        "gain_margin_db": r.gain_margin_db if finite else None,
-        "howl_freq_hz": r.howl_freq_hz if finite else None,
-        "margin_at_max_gain_db": (r.gain_margin_db - gmax) if finite else None,
-        "expected": ("stable" if (not finite or r.gain_margin_db - gmax > 0) else "howls"),
-        "peak_dbfs": float(20 * np.log10(max(peak, 1e-12))),
-        "limiter_dbfs": limiter_dbfs,
-        "limited_fraction": float(np.mean(np.abs(y) > 0.5 * ceiling)),
-        "level_change_db": (float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None),
-        "caution": CAUTION,
+        **_run_summary(fs, y.size, sched, r, y, limiter_dbfs, level_change_db=level_change_db),
     }
 
 
@@ -268,3 +236,28 @@ def simulation_lines(rep: dict) -> list[str]:
         + (f"; level change {rep['level_change_db']:+.1f} dB" if rep["level_change_db"] is not None else "")
     )
     return lines
+
+
+def _run_summary(fs, n_samples, sched, r, y, limiter_dbfs, *, level_change_db):
+    """The JSON fields common to single and multi-IR simulation: schedule, prediction, output level."""
+    import numpy as np
+
+    gmax = float(np.max(sched))
+    finite = bool(np.isfinite(r.gain_margin_db))
+    ceiling = 10 ** (limiter_dbfs / 20)
+    return {
+        "sample_rate_hz": fs,
+        "duration_s": n_samples / fs,
+        "gain_db_start": float(sched[0]),
+        "gain_db_end": float(sched[-1]),
+        "gain_db_max": gmax,
+        "gain_margin_db": r.gain_margin_db if finite else None,
+        "howl_freq_hz": r.howl_freq_hz if finite else None,
+        "margin_at_max_gain_db": (r.gain_margin_db - gmax) if finite else None,
+        "expected": ("stable" if (not finite or r.gain_margin_db - gmax > 0) else "howls"),
+        "peak_dbfs": float(20 * np.log10(max(float(np.max(np.abs(y))), 1e-12))),
+        "limiter_dbfs": limiter_dbfs,
+        "limited_fraction": float(np.mean(np.abs(y) > 0.5 * ceiling)),
+        "level_change_db": level_change_db,
+        "caution": CAUTION,
+    }
