@@ -564,7 +564,8 @@ def nyquist_margin(
         risks_all.append(Risk(float(x), float(m), "crossing", min(pm, float(m)), pf))
         if len(seen) >= n_risks + len(howl_freqs):
             break
-    free = [(lb, ip) for lb, ip in lobe_peak.items() if lb not in set(lobe_cr.tolist())]
+    lobes_with_crossing = set(lobe_cr.tolist())  # built once: a set per item made this quadratic
+    free = [(lb, ip) for lb, ip in lobe_peak.items() if lb not in lobes_with_crossing]
     if free:
         ips = np.array([ip for _, ip in free])
         pm = -10.0 * np.log10(np.maximum(mag2[ips], 1e-300))
