@@ -270,6 +270,14 @@ class Session:
     meta: dict = field(default_factory=dict)
 
 
+def _read_json(path: Path, option: str | None):
+    """Parse one JSON file; a file that is not JSON is a one-line InputError naming it (and the option)."""
+    try:
+        return json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"cannot be read as JSON ({exc})", key=option, file=str(path)) from None
+
+
 def read_session(folder: str | os.PathLike) -> Session:
     """Read a measurement session folder: ``session.json`` and its IR WAVs.
 
@@ -287,10 +295,7 @@ def read_session(folder: str | os.PathLike) -> Session:
     meta_p = folder_p / "session.json"
     if not meta_p.is_file():
         raise InputError("holds no session.json; expected a folder written by howl measure", key="--measured", file=name)
-    try:
-        meta = json.loads(meta_p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", file=str(meta_p)) from None
+    meta = _read_json(meta_p, None)
     if not isinstance(meta, dict):
         raise InputError("must hold a JSON object", file=str(meta_p))
     raw_pairs = meta.get("pairs")
@@ -531,10 +536,7 @@ def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
     name = str(path)
     if not p.is_file():
         raise InputError("file not found; expected the JSON of howl listen or howl scan", key="--cuts", file=name)
-    try:
-        obj = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", key="--cuts", file=name) from None
+    obj = _read_json(p, "--cuts")
     if not isinstance(obj, dict):
         raise InputError("must hold one JSON object", key="--cuts", file=name)
     raw = obj.get("notches") or obj.get("summary_notches")
@@ -602,10 +604,7 @@ def read_margin_map(path: str | os.PathLike, rig=None) -> MarginMap:
     name = str(path)
     if not p.is_file():
         raise InputError("file not found; expected the JSON of howl map --json", key="--map", file=name)
-    try:
-        obj = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", key="--map", file=name) from None
+    obj = _read_json(p, "--map")
     grid = obj.get("grid") if isinstance(obj, dict) else None
     if not isinstance(grid, dict) or not all(isinstance(grid.get(k), list) for k in ("x_m", "y_m", "margin_db")):
         raise InputError("holds no grid {x_m, y_m, margin_db}; expected the JSON of howl map --json", key="--map", file=name)
