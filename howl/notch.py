@@ -188,9 +188,11 @@ def sos_response(sos: np.ndarray, freq_hz: np.ndarray, sample_rate_hz: float) ->
         return out
     zi = np.exp(-2j * np.pi * f / float(sample_rate_hz))  # z^-1
     zi2 = zi * zi
-    for b0, b1, b2, a0, a1, a2 in sos:
-        out *= (b0 + b1 * zi + b2 * zi2) / (a0 + a1 * zi + a2 * zi2)
-    return out
+    den = np.ones(f.shape, dtype=complex)
+    for b0, b1, b2, a0, a1, a2 in sos:  # one division for the whole cascade
+        out *= b0 + b1 * zi + b2 * zi2
+        den *= a0 + a1 * zi + a2 * zi2
+    return out / den
 
 
 def cascade_response(notches: Iterable[Notch], freq_hz: np.ndarray, sample_rate_hz: float) -> np.ndarray:

@@ -164,44 +164,142 @@ class RingOutResult:
 # --------------------------------------------------------------------------- grid evaluation
 
 
-def _crossing_values(L: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Positive real-axis crossings of L on a grid: (freq_hz, Re L), by linear interpolation."""
-    im, re = L.imag, L.real
-    s = np.sign(im)
-    i = np.flatnonzero(s[:-1] * s[1:] < 0)
-    t = im[i] / (im[i] - im[i + 1])
+def _flips(L: np.ndarray, adj: np.ndarray | None):
+    """Indices i where Im L changes sign between points i and i+1 (neighbours per ``adj``), and t."""
+    im = L.imag
+    neg = im < 0.0
+    flip = neg[:-1] != neg[1:]  # exactly one of the two is negative, so im[i] − im[i+1] ≠ 0
+    if adj is not None:
+        flip &= adj
+    i = np.flatnonzero(flip)
+    a = im[i]
+    return i, a / (a - im[i + 1])
+
+
+def _crossing_values(L: np.ndarray, f: np.ndarray, adj: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Positive real-axis crossings of L on a grid: (freq_hz, Re L), by linear interpolation.
+
+    ``adj`` (length n − 1, optional) marks which neighbouring points are neighbours on the
+    underlying uniform grid; crossings are looked for only between those.
+    """
+    i, t = _flips(L, adj)
+    re = L.real
     rc = re[i] + t * (re[i + 1] - re[i])
-    fc = f[i] + t * (f[i + 1] - f[i])
     keep = rc > 0
-    ex = np.flatnonzero((im == 0.0) & (re > 0))  # crossings that fall exactly on a grid point
-    if ex.size:
-        return np.concatenate([fc[keep], f[ex]]), np.concatenate([rc[keep], re[ex]])
-    return fc[keep], rc[keep]
+    i, t = i[keep], t[keep]
+    return f[i] + t * (f[i + 1] - f[i]), rc[keep]
 
 
-def _grid_margin_db(L: np.ndarray, f: np.ndarray) -> tuple[float, float]:
-    fc, rc = _crossing_values(L, f)
-    if rc.size == 0:
+def _grid_margin_db(L: np.ndarray, f: np.ndarray, adj: np.ndarray | None = None) -> tuple[float, float]:
+    """Grid margin −20·log10(largest positive crossing) and its frequency; (inf, nan) if none."""
+    i, t = _flips(L, adj)
+    if i.size == 0:
         return float("inf"), float("nan")
+    re = L.real
+    rc = re[i] + t * (re[i + 1] - re[i])
     k = int(np.argmax(rc))
-    return float(-20.0 * np.log10(rc[k])), float(fc[k])
+    if rc[k] <= 0.0:
+        return float("inf"), float("nan")
+    j = i[k]
+    return float(-20.0 * math.log10(float(rc[k]))), float(f[j] + float(t[k]) * (f[j + 1] - f[j]))
+
+
+#: Residual energy (dB re the whole IR) below which the planning grid ignores the IR's tail.
+PLAN_TAIL_DB = -50.0
+
+#: How far (dB) below the loop's top crossing the planning grid keeps points: every crossing
+#: that could limit a margin up to this much better than the loop's own is on it (cuts never
+#: raise |L|), so margins below the cap are exact on the grid. Widened when a plan reaches it.
+PLAN_CAP_DB = 10.0
+
+
+def planning_ir(ir: np.ndarray, sample_rate_hz: float, tail_db: float = PLAN_TAIL_DB) -> np.ndarray:
+    """The loop IR cut where the energy still to come falls below ``tail_db`` re the whole.
+
+    Schroeder's backward integral [5]_ of h² gives the energy left after each sample; what
+    is cut changes L(f) by at most 10^(tail_db/20) of its RMS (0.3 % at −50 dB), far below
+    what moves a crossing that matters. Only the planning uses it: every margin howl reports
+    is computed on the whole IR. At least 50 ms past the strongest arrival is kept.
+    """
+    h = np.asarray(ir, float)
+    left = np.cumsum((h * h)[::-1])[::-1]
+    if left[0] <= 0.0:
+        return h
+    n = int(np.flatnonzero(left >= left[0] * 10.0 ** (tail_db / 10.0))[-1]) + 1
+    n = max(n, min(h.size, int(np.argmax(np.abs(h))) + int(round(0.05 * sample_rate_hz))))
+    return h[:n]
+
+
+def _cut_on_grid(notch: Notch, cos_w: np.ndarray, inv_sin_w: np.ndarray, fs: float) -> np.ndarray:
+    """Response of one RBJ cut at the grid points with cos w and 1/sin w given (w = 2πf/fs).
+
+    With P = 1 − 2cos w0·z⁻¹ + z⁻² and Q = 1 − z⁻², the cookbook peakingEQ is
+    (P + αA·Q)/(P + (α/A)·Q) and the notch P/(P + α·Q) [3]_; on the unit circle
+    P/Q = j·x with x = (cos w0 − cos w)/sin w, so C = (p + jx)/(q + jx) with
+    (p, q) = (αA, α/A) or (0, α): Re C = (pq + x²)/(q² + x²), Im C = x(q − p)/(q² + x²)
+    (derived here; equal to the biquad's B(z)/A(z), which the tests check with scipy).
+    """
+    from .notch import _w0_alpha
+
+    w0, alpha = _w0_alpha(notch.freq_hz, notch.q, fs)
+    if notch.gain_db is None:
+        p, q = 0.0, alpha
+    else:
+        a = 10.0 ** (notch.gain_db / 40.0)
+        p, q = alpha * a, alpha / a
+    x = (math.cos(w0) - cos_w) * inv_sin_w
+    x2 = x * x
+    d = 1.0 / (q * q + x2)
+    out = np.empty(x.shape, np.complex64 if x.dtype == np.float32 else complex)
+    out.real = (p * q + x2) * d
+    out.imag = x * ((q - p) * d)
+    return out
 
 
 class _GridLoop:
-    """One loop (nominal or perturbed) on the analysis grid, with each cut's response cached."""
+    """One loop (nominal or perturbed) on the planning grid, with each cut's response cached.
 
-    def __init__(self, name: str, ir: np.ndarray, f: np.ndarray, H: np.ndarray, fs: float):
-        self.name, self.ir, self.f, self.H, self.fs = name, ir, f, H, fs
-        self._zi = np.exp(-2j * np.pi * f / fs)  # z^-1 on the grid
-        self._zi2 = self._zi * self._zi
+    The grid is the zero-padded FFT of :func:`planning_ir` (4× oversampled), limited to the
+    analysis band and to the points where |H| is within ``cap_db`` of the loop's top crossing
+    (with their grid neighbours): a cut never raises |L|, so no crossing elsewhere can ever
+    limit a margin below the cap, and the margin on these points equals the margin on the
+    whole grid up to it (``saturated`` tells when a margin reaches the cap).
+    """
+
+    def __init__(self, name: str, ir: np.ndarray, fs: float, band: tuple[float, float], cap_db: float):
+        from .loop import loop_response
+
+        hp = planning_ir(ir, fs)
+        n_fft = max(1 << 14, 1 << int(math.ceil(math.log2(4 * hp.size))))
+        f, H = loop_response(hp, fs, n_fft=n_fft)
+        m = (f >= band[0]) & (f <= band[1])
+        f, H = f[m], H[m]
+        self.name, self.ir, self.fs, self.cap_db = name, ir, fs, cap_db
+        self.n_full = f.size
+        _, rc = _crossing_values(H, f)
+        self.top_db = float(20.0 * np.log10(rc.max())) if rc.size else -np.inf
+        if rc.size and math.isfinite(cap_db):
+            a = np.abs(H)
+            p = np.flatnonzero(np.maximum(a[:-1], a[1:]) >= 10.0 ** ((self.top_db - cap_db) / 20.0))
+            mask = np.zeros(f.size, bool)
+            mask[p] = True
+            mask[p + 1] = True
+            keep = np.flatnonzero(mask)
+        else:
+            keep = np.arange(f.size)
+        # single precision: 7 digits are 1e-5 dB on a margin, and the grid work runs twice as fast
+        self.f, self.H = f[keep], H[keep].astype(np.complex64)
+        self.adj = np.diff(keep) == 1
+        w = 2.0 * np.pi * self.f / fs
+        self._cos_w = np.cos(w).astype(np.float32)
+        self._inv_sin_w = (1.0 / np.maximum(np.sin(w), 1e-9)).astype(np.float32)
         self._cache: dict[Notch, np.ndarray] = {}
 
     def cut(self, notch: Notch) -> np.ndarray:
         c = self._cache.get(notch)
         if c is None:
-            b0, b1, b2, a0, a1, a2 = cascade_sos([notch], self.fs)[0]
-            c = (b0 + b1 * self._zi + b2 * self._zi2) / (a0 + a1 * self._zi + a2 * self._zi2)
-            if len(self._cache) > 256:
+            c = _cut_on_grid(notch, self._cos_w, self._inv_sin_w, self.fs)
+            if len(self._cache) > 512:
                 self._cache.clear()
             self._cache[notch] = c
         return c
@@ -212,13 +310,16 @@ class _GridLoop:
             out = out * self.cut(n)
         return out
 
+    def crossings(self, L: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return _crossing_values(L, self.f, self.adj)
 
-def _grid(ir: np.ndarray, fs: float, n_fft: int, band: tuple[float, float], name: str) -> _GridLoop:
-    from .loop import loop_response
+    def margin(self, L: np.ndarray) -> tuple[float, float]:
+        """Grid margin (dB) and its frequency for ``L`` on this loop's points."""
+        return _grid_margin_db(L, self.f, self.adj)
 
-    f, H = loop_response(ir, fs, n_fft=max(n_fft, 1 << int(math.ceil(math.log2(4 * ir.size)))))
-    m = (f >= band[0]) & (f <= band[1])
-    return _GridLoop(name, ir, f[m], H[m], fs)
+    def saturated(self, margin_db: float) -> bool:
+        """True when ``margin_db`` reaches the cap (the grid may miss crossings beyond it)."""
+        return margin_db >= -self.top_db + self.cap_db - 0.5
 
 
 # --------------------------------------------------------------------------- planning
@@ -342,7 +443,7 @@ def _worst_margin(loops: list[_GridLoop], notches: list[Notch], fs: float) -> tu
     """Worst grid margin over the loops with the cascade in: (margin_db, freq_hz, loop index)."""
     worst = (float("inf"), float("nan"), 0)
     for k, lp in enumerate(loops):
-        m, fh = _grid_margin_db(lp.H * lp.cascade(notches), lp.f)
+        m, fh = lp.margin(lp.H * lp.cascade(notches))
         if m < worst[0]:
             worst = (m, fh, k)
     return worst
@@ -352,7 +453,7 @@ def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float
     """Plan, insert, find the moved crossings, re-plan; keep the best cascade."""
     pts_f, pts_v = [], []
     for lp in loops:
-        fc, rc = _crossing_values(lp.H, lp.f)
+        fc, rc = lp.crossings(lp.H)
         pts_f.append(fc)
         pts_v.append(rc)
     best = ([], _worst_margin(loops, [], fs)[0], float("nan"))
@@ -367,7 +468,7 @@ def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float
             best = (notches, m, -t_db)
         new = False
         for lp in loops:  # crossings of the loop with this cascade in it, above the level
-            fc, rc = _crossing_values(lp.H * lp.cascade(notches), lp.f)
+            fc, rc = lp.crossings(lp.H * lp.cascade(notches))
             bad = 20.0 * np.log10(rc) > t_db + 0.05
             if np.any(bad):
                 new = True
@@ -447,10 +548,15 @@ def tonal_cost_db(notches, band_hz, sample_rate_hz, *, weighting: str = "pink") 
             num += w * float(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2))
             den += w
         return float(-10.0 * math.log10(num / den))
-    lo = max(20.0, band_hz[0])
-    hi = min(band_hz[1], 0.499 * fs)
-    f = np.geomspace(lo, hi, 8000)
+    f = _pink_grid(band_hz, fs, 8000)
     return float(-10.0 * math.log10(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2)))
+
+
+def _pink_grid(band_hz, fs: float, n: int) -> np.ndarray:
+    """n log-spaced frequencies over the band (from 20 Hz, below 0.499·fs): equal weight per octave."""
+    lo = max(20.0, float(band_hz[0]))
+    hi = min(float(band_hz[1]), 0.499 * fs)
+    return np.geomspace(lo, max(hi, lo * 1.001), n)
 
 
 def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> list[str]:
@@ -504,7 +610,7 @@ def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
     def worst(arrs):
         best = (float("inf"), float("nan"))
         for lp, arr in zip(loops, arrs):
-            m, fh = _grid_margin_db(arr, lp.f)
+            m, fh = lp.margin(arr)
             if m < best[0]:
                 best = (m, fh)
         return best
@@ -540,47 +646,146 @@ def _greedy_prefixes(loops, budget: int, fs: float) -> dict[int, list[tuple[list
         now = [lp.H for lp in loops]
         cuts: list[Notch] = []
         for b in range(1, budget + 1):
-            worst = min((_grid_margin_db(a, lp.f) for lp, a in zip(loops, now)), key=lambda t: t[0])
+            worst = min((lp.margin(a) for lp, a in zip(loops, now)), key=lambda t: t[0])
             if not math.isfinite(worst[1]) or worst[1] >= 0.49 * fs:
                 break
             n = Notch(worst[1], depth, q)
             cuts = cuts + [n]
             now = [a * lp.cut(n) for lp, a in zip(loops, now)]
-            m = min(_grid_margin_db(a, lp.f)[0] for lp, a in zip(loops, now))
+            m = min(lp.margin(a)[0] for lp, a in zip(loops, now))
             out[b].append((cuts, m))
     return out
 
 
-def _polish(loops, cuts: list[Notch], fs: float, passes: int = 1) -> tuple[list[Notch], float]:
-    """Small exact search around each planned cut (depth, width, centre), keeping what lifts the margin.
+#: Steps of the pattern search around each cut: centre (fractions of its bandwidth), depth (dB)
+#: and width (log2 of the factor). They are halved when a pass finds nothing better.
+SEARCH_CENTRE_STEPS = (-0.25, -0.1, 0.1, 0.25)
+SEARCH_DEPTH_STEPS_DB = (-3.0, -1.0, 1.0, 3.0)
+SEARCH_WIDTH_STEPS = (-0.5, -0.2, 0.2, 0.5)
 
-    Each candidate is judged on the whole grid with the other cuts in the loop, so the phase the
-    cuts add (which moves the crossings) is accounted for exactly.
+#: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
+#: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
+MAX_TONAL_SHARE = 0.5
+
+#: Tie-break of the search (dB of margin per dB of tonal cost): of two cascades with the same
+#: margin, the one that removes less program wins, so depths stay as shallow as they can.
+TONAL_TIE_BREAK = 0.05
+
+
+class _Score:
+    """What the search maximises: the worst grid margin, less the tonal cost beyond its share.
+
+    The tonal cost is :func:`tonal_cost_db`'s pink-noise figure on a coarser grid of the band
+    (each cut's power response cached), so the search sees what will be reported.
+    """
+
+    def __init__(self, loops, fs: float, band, m0_db: float, share: float = MAX_TONAL_SHARE):
+        self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
+        self.f = _pink_grid(band, fs, 2000)
+        self._power: dict[Notch, np.ndarray] = {}
+
+    def tonal_db(self, cuts) -> float:
+        p = np.ones(self.f.size)
+        for n in cuts:
+            c = self._power.get(n)
+            if c is None:
+                if len(self._power) > 4096:
+                    self._power.clear()
+                if n.gain_db is None:
+                    c = np.abs(cascade_response([n], self.f, self.fs)) ** 2
+                else:  # the exact digital magnitude, in closed form
+                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs) / 10.0)
+                self._power[n] = c
+            p = p * c
+        return float(-10.0 * math.log10(np.mean(p)))
+
+    def __call__(self, cuts, margin_db: float) -> float:
+        t = self.tonal_db(cuts)
+        over = 0.0 if self.share == math.inf else max(0.0, t - self.share * (margin_db - self.m0))
+        return margin_db - TONAL_TIE_BREAK * t - 10.0 * over
+
+
+#: The search judges a candidate cut on the points where the loop without it stands within this
+#: many dB of the current limit (a cut never raises |L|); a candidate that lifts the margin past
+#: that is judged again on the whole planning grid.
+POLISH_VIEW_DB = 4.0
+
+
+class _View:
+    """The points of a loop where |L| ≥ the level of a margin ``ceiling_db``, and their neighbours.
+
+    No crossing elsewhere can stand above that level once a cut (|C| ≤ 1) is added, so a margin
+    below ``ceiling_db`` computed on the view is the margin on the whole grid.
+    """
+
+    def __init__(self, lp: _GridLoop, L: np.ndarray, ceiling_db: float):
+        self.L, self.ceiling_db, self.fs = L, ceiling_db - 0.05, lp.fs
+        a = np.abs(L)
+        p = np.flatnonzero((np.maximum(a[:-1], a[1:]) >= 10.0 ** (-ceiling_db / 20.0)) & lp.adj)
+        mask = np.zeros(a.size, bool)
+        mask[p] = True
+        mask[p + 1] = True
+        idx = np.flatnonzero(mask)
+        self.Lv, self.f = L[idx], lp.f[idx]
+        self.adj = (np.diff(idx) == 1) & lp.adj[idx[:-1]]
+        self.cos_w, self.inv_sin_w = lp._cos_w[idx], lp._inv_sin_w[idx]
+
+    def margin(self, notch: Notch) -> float:
+        c = _cut_on_grid(notch, self.cos_w, self.inv_sin_w, self.fs)
+        return _grid_margin_db(self.Lv * c, self.f, self.adj)[0]
+
+
+def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: float) -> tuple[list[Notch], float]:
+    """Pattern search around each cut (centre, depth, width), keeping every step that scores better.
+
+    Each candidate is judged on the whole planning grid with the other cuts in the loop, so the
+    phase the cuts add (which moves the crossings) is accounted for exactly. Widths stay between
+    ``min_bw_oct`` and the 1/3-octave cap, depths within :data:`PLAN_MAX_DEPTH_DB`.
     """
     cuts = list(cuts)
-    best = _worst_margin(loops, cuts, fs)[0]
+
+    def margin(views, cand):
+        worst = math.inf
+        for lp, view in zip(loops, views):
+            m = view.margin(cand)
+            if m >= view.ceiling_db:  # the candidate lifted the loop past the view: judge it whole
+                m = lp.margin(view.L * lp.cut(cand))[0]
+            worst = min(worst, m)
+        return worst
+
+    m_best = _worst_margin(loops, cuts, score.fs)[0]
+    best = score(cuts, m_best)
+    scale = 1.0
     for _ in range(passes):
         improved = False
         for i in range(len(cuts)):
-            c0 = cuts[i]
-            others = [lp.H * lp.cascade(cuts[:i] + cuts[i + 1 :]) for lp in loops]
-            bw0 = c0.bandwidth_oct
-            g0 = -12.0 if c0.gain_db is None else c0.gain_db
-            cands = []
-            for k in (0.7, 0.85, 1.15, 1.3):
-                cands.append(Notch(c0.freq_hz, float(max(-PLAN_MAX_DEPTH_DB, min(-0.1, g0 * k))), c0.q))
-            for bw in (bw0 * 0.8, min(MAX_NOTCH_BANDWIDTH_OCT, bw0 * 1.25)):
-                if abs(bw - bw0) > 1e-9:
-                    cands.append(Notch(c0.freq_hz, g0, q_from_bandwidth_oct(bw)))
-            for u in (-0.125, 0.125):
-                cands.append(Notch(c0.freq_hz * 2.0 ** (u * bw0), g0, c0.q))
-            for cand in cands:
-                m = min(_grid_margin_db(o * lp.cut(cand), lp.f)[0] for lp, o in zip(loops, others))
-                if m > best + 0.02:
-                    best, cuts[i], improved = m, cand, True
+            c = cuts[i]
+            rest = cuts[:i] + cuts[i + 1 :]
+            others = [_View(lp, lp.H * lp.cascade(rest), m_best + POLISH_VIEW_DB) for lp in loops]
+            for kind in range(3):
+                bw, g = c.bandwidth_oct, (-PLAN_MAX_DEPTH_DB if c.gain_db is None else c.gain_db)
+                if kind == 0:
+                    cands = [Notch(c.freq_hz * 2.0 ** (u * scale * bw), g, c.q) for u in SEARCH_CENTRE_STEPS]
+                elif kind == 1:
+                    cands = [Notch(c.freq_hz, float(min(-0.1, max(-PLAN_MAX_DEPTH_DB, g + d * scale))), c.q)
+                             for d in SEARCH_DEPTH_STEPS_DB]
+                else:
+                    cands = [Notch(c.freq_hz, g, q_from_bandwidth_oct(
+                        float(min(MAX_NOTCH_BANDWIDTH_OCT, max(min_bw_oct, bw * 2.0 ** (w * scale))))))
+                        for w in SEARCH_WIDTH_STEPS]
+                for cand in cands:
+                    if cand == c or cand.freq_hz >= 0.49 * score.fs:
+                        continue
+                    m = margin(others, cand)
+                    j = score(rest + [cand], m)
+                    if j > best + 0.005:
+                        best, m_best, c, improved = j, m, cand, True
+            cuts[i] = c
         if not improved:
-            break
-    return cuts, best
+            scale *= 0.5
+            if scale < 0.2:
+                break
+    return cuts, m_best
 
 
 def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
@@ -590,6 +795,70 @@ def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
     if len(merged) < len(cuts) and _worst_margin(loops, merged, fs)[0] >= _worst_margin(loops, cuts, fs)[0] - 0.05:
         return merged
     return cuts
+
+
+def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share):
+    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops)."""
+    m0_grid = _worst_margin(loops, [], fs)[0]
+    planned: list[Notch] = []
+    planned_margin = float("nan")
+    reason = None
+    if budget == 0:
+        reason = "no cuts allowed (max_notches = 0)"
+    elif not math.isfinite(m0_grid):
+        reason = "the loop never crosses the positive real axis in the band: nothing to cut"
+    elif target is not None and m0_grid >= target:
+        reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
+    else:
+        planner = _Planner(fs, drift)
+        score = _Score(loops, fs, band, m0_grid, tonal_share)
+        plans = {0: ([], m0_grid)}
+        # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
+        # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
+        # At each budget the covering plan and the simple ring-outs compete on the score: the
+        # margin, less any tonal cost beyond its share of the gain.
+        greedy = _greedy_prefixes(loops, budget, fs)
+        for b in range(1, budget + 1):
+            cuts, _, _ = _plan_cuts(loops, b, planner, fs)
+            options = [_tidy(loops, cuts, fs)] + [_tidy(loops, g_cuts, fs) for g_cuts, _ in greedy[b]]
+            scored = []
+            for c in options:
+                m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
+                scored.append((score(c, m_c), m_c, c))
+            j_b, m_b, cuts = max(scored, key=lambda t: t[0])
+            prev = plans[max(plans)]
+            if j_b < score(prev[0], prev[1]):  # more budget never has to do worse
+                cuts, m_b = prev
+            plans[b] = (cuts, m_b)
+            if target is not None and m_b >= target:
+                break
+        gains = {b: plans[b][1] - m0_grid for b in plans}
+        chosen = 0  # grow the plan while each step up pays min_gain per extra cut over the last one kept
+        for b in sorted(plans)[1:]:
+            if gains[b] - gains[chosen] >= min_gain * (b - chosen) - 1e-9:
+                chosen = b
+        planned, planned_margin = plans[chosen]
+        if polish and planned:
+            planned, planned_margin = _polish(loops, planned, score, polish, min(PLAN_BANDWIDTHS_OCT))
+            planned = _tidy(loops, planned, fs)
+            planned_margin = _worst_margin(loops, planned, fs)[0]
+        n_used = len(planned)
+        if target is not None and planned_margin >= target:
+            reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
+        elif chosen < max(plans):
+            top = max(plans)
+            reason = (
+                f"more cuts would buy less than {min_gain:g} dB per notch ({chosen} cut(s) buy "
+                f"{gains[chosen]:.2f} dB; the best plan with {top} buys {gains[top]:.2f} dB)"
+            )
+        elif n_used < budget and chosen == budget:
+            reason = f"budget of {budget} cut(s) spent ({n_used} after merging cuts that overlap)"
+        elif chosen == budget:
+            reason = f"budget spent ({budget} cut(s))"
+        else:
+            reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
+
+    return planned, planned_margin, reason, m0_grid
 
 
 def ring_out(
@@ -604,7 +873,8 @@ def ring_out(
     swing_c: float = 3.0,
     robust: bool = False,
     seed: int = 0,
-    polish: int = 1,
+    polish: int = 6,
+    tonal_share: float = MAX_TONAL_SHARE,
 ) -> RingOutResult:
     """Ring a loop out virtually: the cuts that buy the most stable gain, step by step.
 
@@ -621,7 +891,9 @@ def ring_out(
     robust : design and judge the cuts on the loop and on perturbed copies of it
         (:func:`perturbed_irs`); the reported margins are the worst over them.
     seed : seed of the movement perturbation (robust mode).
-    polish : passes of the small exact search around each planned cut (0 = plan only).
+    polish : at most this many passes of the pattern search around the planned cuts (0 = plan only).
+    tonal_share : the most broadband tonal cost (dB) the cuts may spend per dB of stable gain they
+        buy (default 0.5); a cascade past it is scored down (``math.inf``: no limit).
     """
     from .loop import check_ir, nyquist_margin
 
@@ -633,67 +905,22 @@ def ring_out(
     temperature_c = v.in_range(temperature_c, "temperature_c", -50.0, 60.0, unit="°C")
     swing_c = v.in_range(swing_c, "swing_c", 0.0, 30.0, unit="°C")
     drift = drift_bandwidth_oct(temperature_c, swing_c)
+    if not (isinstance(tonal_share, float) and tonal_share == math.inf):
+        tonal_share = v.in_range(tonal_share, "tonal_share", 0.0, None)
 
     before = nyquist_margin(h, fs, band_hz=band_hz)
     band = tuple(float(x) for x in before.band_hz)
     irs = [("nominal", h)]
     if robust:
         irs += perturbed_irs(h, fs, temperature_c=temperature_c, swing_c=swing_c, seed=seed)
-    loops = [_grid(x, fs, before.n_fft, band, name) for name, x in irs]
-    m0_grid = _worst_margin(loops, [], fs)[0]
-
-    planned: list[Notch] = []
-    planned_margin = float("nan")
-    reason = None
-    if budget == 0:
-        reason = "no cuts allowed (max_notches = 0)"
-    elif not math.isfinite(m0_grid):
-        reason = "the loop never crosses the positive real axis in the band: nothing to cut"
-    elif target is not None and m0_grid >= target:
-        reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
-    else:
-        planner = _Planner(fs, drift)
-        plans = {0: ([], m0_grid)}
-        # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
-        # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one
-        greedy = _greedy_prefixes(loops, budget, fs)
-        for b in range(1, budget + 1):
-            cuts, m_b, _ = _plan_cuts(loops, b, planner, fs)
-            cuts = _tidy(loops, cuts, fs)
-            m_b = _worst_margin(loops, cuts, fs)[0] if cuts else m0_grid
-            for g_cuts, g_m in greedy[b]:
-                # a cascade whose broadband cost is over half its gain mostly turns the loop down
-                if g_m > m_b + 0.01 and tonal_cost_db(g_cuts, band, fs) <= 0.5 * (g_m - m0_grid):
-                    cuts, m_b = _tidy(loops, g_cuts, fs), g_m
-            prev = plans[max(plans)]
-            if m_b < prev[1]:  # more budget never has to do worse
-                cuts, m_b = prev
-            plans[b] = (cuts, m_b)
-            if target is not None and m_b >= target:
-                break
-        gains = {b: plans[b][1] - m0_grid for b in plans}
-        chosen = 0  # grow the plan while each step up pays min_gain per extra cut over the last one kept
-        for b in sorted(plans)[1:]:
-            if gains[b] - gains[chosen] >= min_gain * (b - chosen) - 1e-9:
-                chosen = b
-        planned, planned_margin = plans[chosen]
-        if polish and planned:
-            planned, planned_margin = _polish(loops, planned, fs, passes=polish)
-        n_used = len(planned)
-        if target is not None and planned_margin >= target:
-            reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
-        elif chosen < max(plans):
-            top = max(plans)
-            reason = (
-                f"more cuts would buy less than {min_gain:g} dB per notch ({chosen} cut(s) buy "
-                f"{gains[chosen]:.2f} dB; the best plan with {top} buys {gains[top]:.2f} dB)"
-            )
-        elif n_used < budget and chosen == budget:
-            reason = f"budget of {budget} cut(s) spent ({n_used} after merging cuts that overlap)"
-        elif chosen == budget:
-            reason = f"budget spent ({budget} cut(s))"
-        else:
-            reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
+    loops = [_GridLoop(name, x, fs, band, PLAN_CAP_DB) for name, x in irs]
+    kw = dict(budget=budget, target=target, min_gain=min_gain, fs=fs, drift=drift, band=band, polish=polish,
+              tonal_share=tonal_share)
+    planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
+    if planned and any(lp.saturated(planned_margin) for lp in loops):
+        # the plan reached the grid's cap: plan again on every point of the band
+        loops = [_GridLoop(name, x, fs, band, math.inf) for name, x in irs]
+        planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
 
     steps_raw = _order_as_ringout(loops, planned, fs, m0_grid) if planned else []
     n_keep = len(steps_raw)

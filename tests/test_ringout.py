@@ -182,6 +182,97 @@ def test_robust_cuts_still_meet_the_reported_margin_in_a_warmer_room():
     assert m >= res.gain_margin_db_after - 0.15
 
 
+# ---------------------------------------------------------------- the planning grid
+
+
+def _brute_margin_db(ir, fs, cuts, n_fft):
+    """Largest positive real-axis crossing of H·C on the plain rfft grid, with scipy computing both."""
+    w, H = sig.freqz(ir, worN=n_fft // 2 + 1, whole=False, fs=fs, include_nyquist=True)
+    if cuts:
+        H = H * sig.sosfreqz(cascade_sos(cuts, fs), worN=w, fs=fs)[1]
+    im, re = H.imag, H.real
+    i = np.flatnonzero(np.signbit(im[:-1]) != np.signbit(im[1:]))
+    t = im[i] / (im[i] - im[i + 1])
+    rc = re[i] + t * (re[i + 1] - re[i])
+    return -20 * np.log10(rc[rc > 0].max())
+
+
+@pytest.mark.parametrize("seed", [3, 5])
+def test_planning_grid_margin_equals_the_whole_grid_margin_below_its_cap(seed):
+    # The planning grid keeps only the points within PLAN_CAP_DB of the top crossing (a cut never
+    # raises |L|); below the cap its margin must equal the margin over every point of the same grid,
+    # here computed independently with scipy.signal.freqz / sosfreqz (equal up to the planning grid's
+    # single-precision rounding, 1e-4 dB).
+    from howl.ringout import PLAN_CAP_DB, _GridLoop, planning_ir
+
+    ir = _room_ir(seed)
+    lp = _GridLoop("nominal", ir, FS, (0.0, FS / 2), PLAN_CAP_DB)
+    assert lp.f.size < lp.n_full  # the cap does drop points
+    n_fft = 1 << int(math.ceil(math.log2(4 * planning_ir(ir, FS).size)))
+    n_fft = max(n_fft, 1 << 14)
+    rng = np.random.default_rng(seed)
+    for k in range(4):
+        cuts = [Notch(float(f), float(g), q_from_bandwidth_oct(float(bw)))
+                for f, g, bw in zip(rng.uniform(200, 3500, k + 1), rng.uniform(-15, -2, k + 1),
+                                    rng.uniform(1 / 24, 1 / 3, k + 1))]
+        got = lp.margin(lp.H * lp.cascade(cuts))[0]
+        assert not lp.saturated(got)
+        assert got == pytest.approx(_brute_margin_db(planning_ir(ir, FS), FS, cuts, n_fft), abs=1e-4)
+
+
+def test_closed_form_cut_response_equals_the_biquad():
+    # the planning grid's closed form of a cookbook cut against scipy.signal.sosfreqz of its biquad
+    from howl.notch import notch_sos
+    from howl.ringout import _cut_on_grid
+
+    f = np.linspace(1.0, FS / 2 - 1.0, 5001)
+    w = 2 * np.pi * f / FS
+    for n in (Notch(1000.0, -9.0, 4.3), Notch(3100.0, -2.5, 30.0), Notch(440.0, None, 12.0)):
+        want = sig.sosfreqz(notch_sos(n, FS), worN=f, fs=FS)[1]
+        np.testing.assert_allclose(_cut_on_grid(n, np.cos(w), 1 / np.sin(w), FS), want, rtol=0, atol=1e-9)
+
+
+def test_planning_ir_drops_only_the_tail_below_minus_50_db():
+    # Schroeder backward integration (ISO 3382-1 uses it for decay curves): what is cut holds less
+    # than 1e-5 of the energy, and the loop margin of the cut IR is within 0.01 dB of the whole IR's.
+    from howl.ringout import planning_ir
+
+    rng = np.random.default_rng(0)
+    fs = 16000
+    n = 2 * fs
+    ir = np.zeros(n)
+    t = np.arange(n - 80) / fs
+    ir[80:] = rng.standard_normal(n - 80) * np.exp(-6.9 * t / 0.5)  # RT60 0.5 s, exponential decay
+    ir *= 3.0 / np.sqrt(np.sum(ir**2))
+    hp = planning_ir(ir, fs)
+    assert hp.size < 0.6 * ir.size
+    assert np.sum(ir[hp.size:] ** 2) <= 1e-5 * np.sum(ir**2)
+    assert nyquist_margin(hp, fs).gain_margin_db == pytest.approx(nyquist_margin(ir, fs).gain_margin_db, abs=0.01)
+
+
+def test_search_tonal_estimate_matches_the_reported_tonal_cost():
+    from howl.ringout import _Score
+
+    rng = np.random.default_rng(1)
+    band = (100.0, 3500.0)
+    sc = _Score([], FS, band, 0.0)
+    for k in range(1, 6):
+        cuts = [Notch(float(f), float(g), q_from_bandwidth_oct(float(bw)))
+                for f, g, bw in zip(rng.uniform(150, 3000, k), rng.uniform(-18, -1, k), rng.uniform(1 / 24, 1 / 3, k))]
+        assert sc.tonal_db(cuts) == pytest.approx(tonal_cost_db(cuts, band, FS), abs=0.02)
+
+
+def test_cuts_spend_at_most_their_share_of_tone(room):
+    # our own rule (documented in ringout.py): pink tonal cost <= tonal_share x the gain bought
+    ir, res = room
+    assert res.tonal_cost_db <= 0.5 * res.added_stable_gain_db + 0.1
+    loose = ring_out(ir, FS, band_hz=BAND, min_gain_per_notch_db=0.0, tonal_share=1.0)
+    assert loose.tonal_cost_db <= 1.0 * loose.added_stable_gain_db + 0.1
+    assert loose.added_stable_gain_db >= res.added_stable_gain_db - 0.1
+    with pytest.raises(InputError, match="tonal_share"):
+        ring_out(ir, FS, tonal_share=-1.0)
+
+
 # ---------------------------------------------------------------- tonal cost
 
 
@@ -242,3 +333,6 @@ def test_ringout_command_names_a_bad_option(tmp_path):
     res = CliRunner().invoke(app, ["ringout", str(path), "--max-notches", "-2"])
     assert res.exit_code == 2
     assert "--max-notches" in res.output
+    res = CliRunner().invoke(app, ["ringout", str(path), "--tonal-share", "-0.5"])
+    assert res.exit_code == 2
+    assert "--tonal-share" in res.output and "-0.5" in res.output
