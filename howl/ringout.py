@@ -13,9 +13,13 @@ In a reverberant room the next crossing is rarely more than a dB below the one
 that limits the margin, so a cut at the single worst crossing buys little. howl
 plans the cuts together, as a covering problem over the crossings:
 
-1. the positive real-axis crossings of L on the analysis grid (the zero-padded
-   FFT used by the margin analysis) are the points to cover, each with its
-   value |L| there;
+1. the planning grid: the zero-padded FFT (4× oversampled) of the part of the
+   loop IR that holds all but −50 dB of its energy (:func:`planning_ir`),
+   limited to the band and to the points within :data:`PLAN_CAP_DB` of the top
+   crossing (a cut never raises |L|, so no other point can limit a margin below
+   that cap; the plan is redone on the whole band if it reaches it). The
+   positive real-axis crossings of L on it are the points to cover, each with
+   its value |L| there;
 2. for a target level T, every crossing above T must come down by its excess
    (dB). Sweeping up the frequency axis, each cut covers the lowest uncovered
    crossing and as many of its neighbours as a cut no wider than 1/3 octave and
@@ -26,24 +30,29 @@ plans the cuts together, as a covering problem over the crossings:
 3. a bisection on T finds the lowest level the budget of cuts reaches;
 4. cuts move the phase, so crossings move: the cascade is put in the loop, the
    crossings are found again, any new offender joins the set and the plan is
-   made again (a few rounds; the best cascade is kept); then a small exact search
-   around each cut of the chosen plan (depth ×0.7…1.3, width ±25 %, centre ±1/8
-   of its band, judged on the whole grid with the other cuts in) keeps any change
-   that lifts the margin. Beside each plan, simple ring-outs (a fixed cut, e.g.
-   −15 dB over 1/3 octave, at each limiting crossing in turn, :data:`GREEDY_CUTS`)
-   are run on the same grid, and for each budget the better cascade is kept,
-   provided its broadband tonal cost is at most half the gain it buys;
-5. the ring-out itself then runs as a technician would: find the crossing that
+   made again (a few rounds; the best cascade is kept). Beside each plan, simple
+   ring-outs (a fixed cut, e.g. −15 dB over 1/3 octave, at each limiting crossing
+   in turn, :data:`GREEDY_CUTS`) are run on the same grid. All compete on one
+   score: the margin, less 10 dB per dB of tonal cost beyond ``tonal_share`` ×
+   the gain (default 0.5: the cuts may cost at most half a dB of pink-noise
+   program per dB of stable gain, else they mostly turn the loop down, which the
+   fader does too), less a small tie-break per dB of tonal cost;
+5. from the best :data:`POLISH_STARTS` cascades of the chosen budget, a pattern
+   search (:func:`_polish`) moves each cut's centre, depth and width, or moves a
+   cut to the crossing limiting the loop now, keeping every step that scores
+   better; each candidate is judged exactly on the planning grid with the other
+   cuts in the loop, on the points that can still limit it (:class:`_View`);
+6. the ring-out itself then runs as a technician would: find the crossing that
    limits the margin, insert the planned cut that covers it, recompute the loop
    with the cascade in it, repeat, until the target margin is met, the budget is
    spent, or more cuts would buy less than ``min_gain_per_notch_db`` each (plans for
    1..``max_notches`` cuts are compared; a larger plan is taken only if it pays that much per
    extra cut over the last plan taken).
 
-The margins before and after are exact (:func:`howl.loop.nyquist_margin` with
-the cascade passed as ``filters_sos``); the per-step margins come from the same
-grid (linear interpolation of Im L between grid points; within a few hundredths
-of a dB of the exact values).
+The margins before and after are exact (:func:`howl.loop.nyquist_margin` on the
+whole IR with the cascade passed as ``filters_sos``); the per-step margins come
+from the planning grid (linear interpolation of Im L between grid points; within
+a few hundredths of a dB of the exact values).
 
 References
 ----------
@@ -60,6 +69,8 @@ References
    5th ed., Table 4.3: male speech, normal effort, octave-band levels at 1 m
    (250–4000 Hz: 72.5, 74.0, 68.0, 62.0, 57.0 dB), used to weight the
    speech tonal cost.
+.. [5] M. R. Schroeder, "New method of measuring reverberation time", J. Acoust.
+   Soc. Am. 37, 409–412, 1965 (backward integration of the squared IR).
 """
 
 from __future__ import annotations
@@ -417,7 +428,7 @@ class _Planner:
             cuts.append((fc, g, q))
             need = need - _cut_atten_db(f, fc, g, q, self.fs)
 
-    def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.03):
+    def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.05):
         """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
         o = np.argsort(f)
         f, vdb = f[o], 20.0 * np.log10(value[o])
@@ -450,7 +461,7 @@ def _worst_margin(loops: list[_GridLoop], notches: list[Notch], fs: float) -> tu
 
 
 def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float):
-    """Plan, insert, find the moved crossings, re-plan; keep the best cascade."""
+    """Plan, insert, find the moved crossings, re-plan; keep the best cascade: (cuts, margin, −level)."""
     pts_f, pts_v = [], []
     for lp in loops:
         fc, rc = lp.crossings(lp.H)
@@ -662,6 +673,9 @@ def _greedy_prefixes(loops, budget: int, fs: float) -> dict[int, list[tuple[list
 SEARCH_CENTRE_STEPS = (-0.25, -0.1, 0.1, 0.25)
 SEARCH_DEPTH_STEPS_DB = (-3.0, -1.0, 1.0, 3.0)
 SEARCH_WIDTH_STEPS = (-0.5, -0.2, 0.2, 0.5)
+#: Depths (dB) and widths (octaves) a cut is tried at when moved to the limiting crossing.
+RELOCATE_DEPTHS_DB = (-3.0, -6.0, -10.0)
+RELOCATE_WIDTHS_OCT = (1 / 24, 1 / 10, 1 / 6)
 
 #: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
 #: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
@@ -681,10 +695,11 @@ class _Score:
 
     def __init__(self, loops, fs: float, band, m0_db: float, share: float = MAX_TONAL_SHARE):
         self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
-        self.f = _pink_grid(band, fs, 2000)
+        self.f = _pink_grid(band, fs, 1200)
         self._power: dict[Notch, np.ndarray] = {}
 
-    def tonal_db(self, cuts) -> float:
+    def power(self, cuts) -> np.ndarray:
+        """|C(f)|² of the cascade on the tonal grid."""
         p = np.ones(self.f.size)
         for n in cuts:
             c = self._power.get(n)
@@ -697,13 +712,23 @@ class _Score:
                     c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs) / 10.0)
                 self._power[n] = c
             p = p * c
+        return p
+
+    def tonal_db(self, cuts, rest_power: np.ndarray | None = None) -> float:
+        """Tonal cost of ``cuts`` (times the cascade whose power is ``rest_power``, if given)."""
+        p = self.power(cuts)
+        if rest_power is not None:
+            p = p * rest_power
         return float(-10.0 * math.log10(np.mean(p)))
 
-    def __call__(self, cuts, margin_db: float) -> float:
-        t = self.tonal_db(cuts)
+    def __call__(self, cuts, margin_db: float, rest_power: np.ndarray | None = None) -> float:
+        t = self.tonal_db(cuts, rest_power)
         over = 0.0 if self.share == math.inf else max(0.0, t - self.share * (margin_db - self.m0))
         return margin_db - TONAL_TIE_BREAK * t - 10.0 * over
 
+
+#: How many of the best-scored cascades at the chosen budget the search starts from.
+POLISH_STARTS = 2
 
 #: The search judges a candidate cut on the points where the loop without it stands within this
 #: many dB of the current limit (a cut never raises |L|); a candidate that lifts the margin past
@@ -731,12 +756,20 @@ class _View:
         self.cos_w, self.inv_sin_w = lp._cos_w[idx], lp._inv_sin_w[idx]
 
     def margin(self, notch: Notch) -> float:
+        return self.margin_at(notch)[0]
+
+    def margin_at(self, notch: Notch) -> tuple[float, float]:
+        """(margin dB, its frequency) with ``notch`` added."""
         c = _cut_on_grid(notch, self.cos_w, self.inv_sin_w, self.fs)
-        return _grid_margin_db(self.Lv * c, self.f, self.adj)[0]
+        return _grid_margin_db(self.Lv * c, self.f, self.adj)
 
 
-def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: float) -> tuple[list[Notch], float]:
+def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: float,
+            relocate: bool = True) -> tuple[list[Notch], float]:
     """Pattern search around each cut (centre, depth, width), keeping every step that scores better.
+
+    A fourth move takes a cut away from where it is and puts it, at a few depths and widths, on
+    the crossing that limits the loop now (a cut that has become nearly useless finds new work).
 
     Each candidate is judged on the whole planning grid with the other cuts in the loop, so the
     phase the cuts add (which moves the crossings) is accounted for exactly. Widths stay between
@@ -762,9 +795,22 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
             c = cuts[i]
             rest = cuts[:i] + cuts[i + 1 :]
             others = [_View(lp, lp.H * lp.cascade(rest), m_best + POLISH_VIEW_DB) for lp in loops]
-            for kind in range(3):
+            rest_power = score.power(rest)
+            f_lim = math.nan
+            if relocate and scale == 1.0:  # where the loop is limited now, with every cut in
+                m_now = []
+                for lp, view in zip(loops, others):
+                    mv = view.margin_at(c)
+                    m_now.append(mv if mv[0] < view.ceiling_db else lp.margin(view.L * lp.cut(c)))
+                f_lim = min(m_now)[1]
+            for kind in range(4):
                 bw, g = c.bandwidth_oct, (-PLAN_MAX_DEPTH_DB if c.gain_db is None else c.gain_db)
-                if kind == 0:
+                if kind == 3:  # move the cut to where the loop is limited now
+                    if not math.isfinite(f_lim):
+                        continue
+                    cands = [Notch(f_lim, d, q_from_bandwidth_oct(b)) for d in RELOCATE_DEPTHS_DB
+                             for b in RELOCATE_WIDTHS_OCT]
+                elif kind == 0:
                     cands = [Notch(c.freq_hz * 2.0 ** (u * scale * bw), g, c.q) for u in SEARCH_CENTRE_STEPS]
                 elif kind == 1:
                     cands = [Notch(c.freq_hz, float(min(-0.1, max(-PLAN_MAX_DEPTH_DB, g + d * scale))), c.q)
@@ -777,7 +823,7 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
                     if cand == c or cand.freq_hz >= 0.49 * score.fs:
                         continue
                     m = margin(others, cand)
-                    j = score(rest + [cand], m)
+                    j = score([cand], m, rest_power)
                     if j > best + 0.005:
                         best, m_best, c, improved = j, m, cand, True
             cuts[i] = c
@@ -813,6 +859,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         planner = _Planner(fs, drift)
         score = _Score(loops, fs, band, m0_grid, tonal_share)
         plans = {0: ([], m0_grid)}
+        starts: dict[int, list] = {0: [[]]}
         # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
         # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
         # At each budget the covering plan and the simple ring-outs compete on the score: the
@@ -825,11 +872,14 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
             for c in options:
                 m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
                 scored.append((score(c, m_c), m_c, c))
-            j_b, m_b, cuts = max(scored, key=lambda t: t[0])
+            scored.sort(key=lambda t: -t[0])
+            j_b, m_b, cuts = scored[0]
             prev = plans[max(plans)]
             if j_b < score(prev[0], prev[1]):  # more budget never has to do worse
                 cuts, m_b = prev
+                scored.insert(0, (score(prev[0], prev[1]), prev[1], prev[0]))
             plans[b] = (cuts, m_b)
+            starts[b] = [c for _, _, c in scored[:POLISH_STARTS]]
             if target is not None and m_b >= target:
                 break
         gains = {b: plans[b][1] - m0_grid for b in plans}
@@ -839,9 +889,20 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
                 chosen = b
         planned, planned_margin = plans[chosen]
         if polish and planned:
-            planned, planned_margin = _polish(loops, planned, score, polish, min(PLAN_BANDWIDTHS_OCT))
-            planned = _tidy(loops, planned, fs)
-            planned_margin = _worst_margin(loops, planned, fs)[0]
+            # one pass of the search from each of the best few starts at that budget, then the
+            # search carried on from the best of them
+            best = None
+            for start in starts[chosen]:
+                if start:
+                    c, m_c = _polish(loops, start, score, 1, min(PLAN_BANDWIDTHS_OCT))
+                    if best is None or score(c, m_c) > score(best[0], best[1]):
+                        best = (c, m_c)
+            if best is not None:
+                c, _ = _polish(loops, best[0], score, polish, min(PLAN_BANDWIDTHS_OCT))
+                c = _tidy(loops, c, fs)
+                m_c = _worst_margin(loops, c, fs)[0]
+                if score(c, m_c) >= score(planned, planned_margin):
+                    planned, planned_margin = c, m_c
         n_used = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
