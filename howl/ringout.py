@@ -97,6 +97,10 @@ from .units import temperature_frequency_ratio
 #: extra margin in a reverberant loop (common practice, no source).
 PLAN_MAX_DEPTH_DB = 18.0
 
+#: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
+#: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
+MAX_TONAL_SHARE = 0.5
+
 #: Bandwidths (octaves) the planner tries for each cut, up to the 1/3-octave cap.
 PLAN_BANDWIDTHS_OCT = (1 / 24, 1 / 16, 1 / 12, 1 / 9, 1 / 7, 1 / 6, 1 / 5, 1 / 4, 1 / 3)
 
@@ -170,6 +174,8 @@ class RingOutResult:
     swing_c: float = 3.0
     robust: bool = False
     robust_loops: tuple = field(default_factory=tuple)  # (name, margin_before_db, margin_after_db)
+    tonal_share: float = MAX_TONAL_SHARE
+    tonal_weighting: str = "pink"
 
 
 # --------------------------------------------------------------------------- grid evaluation
@@ -551,26 +557,35 @@ def tonal_cost_db(notches, band_hz, sample_rate_hz, *, weighting: str = "pink") 
     if not notches:
         return 0.0
     fs = float(sample_rate_hz)
+    f, w = tonal_grid(band_hz, fs, weighting, 8000)
+    return float(-10.0 * math.log10(np.sum(w * np.abs(cascade_response(notches, f, fs)) ** 2)))
+
+
+def tonal_grid(band_hz, fs: float, weighting: str = "pink", n: int = 8000) -> tuple[np.ndarray, np.ndarray]:
+    """Frequencies and weights (summing to 1) of a tonal-cost weighting, about ``n`` points.
+
+    Pink: log-spaced over the band from 20 Hz to below 0.499·fs (equal weight per octave).
+    Speech: each octave band 250 Hz–4 kHz [4]_ log-spaced with its share of the speech power.
+    """
     if weighting == "speech":
-        num = den = 0.0
+        fs_, ws_ = [], []
+        k = max(8, n // len(SPEECH_OCTAVES_HZ))
+        tot = sum(10.0 ** (lev / 10.0) for lev in SPEECH_LEVELS_DB)
         for fc, lev in zip(SPEECH_OCTAVES_HZ, SPEECH_LEVELS_DB):
-            f = np.geomspace(fc / math.sqrt(2), min(fc * math.sqrt(2), 0.499 * fs), 400)
-            w = 10.0 ** (lev / 10.0)
-            num += w * float(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2))
-            den += w
-        return float(-10.0 * math.log10(num / den))
-    f = _pink_grid(band_hz, fs, 8000)
-    return float(-10.0 * math.log10(np.mean(np.abs(cascade_response(notches, f, fs)) ** 2)))
-
-
-def _pink_grid(band_hz, fs: float, n: int) -> np.ndarray:
-    """n log-spaced frequencies over the band (from 20 Hz, below 0.499·fs): equal weight per octave."""
+            lo = fc / math.sqrt(2)
+            f = np.geomspace(lo, max(lo * 1.001, min(fc * math.sqrt(2), 0.499 * fs)), k)
+            fs_.append(f)
+            ws_.append(np.full(k, 10.0 ** (lev / 10.0) / tot / k))
+        return np.concatenate(fs_), np.concatenate(ws_)
+    if weighting != "pink":
+        raise ValueError(f"unknown tonal weighting {weighting!r}")
     lo = max(20.0, float(band_hz[0]))
     hi = min(float(band_hz[1]), 0.499 * fs)
-    return np.geomspace(lo, max(hi, lo * 1.001), n)
+    return np.geomspace(lo, max(hi, lo * 1.001), n), np.full(n, 1.0 / n)
 
 
-def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> list[str]:
+def _advice(notches: list[Notch], asg_db: float, margin_before_db: float, tonal_pink_db: float = 0.0,
+            tonal_speech_db: float = 0.0, weighting: str = "pink") -> list[str]:
     out = []
     fs_sorted = sorted(n.freq_hz for n in notches)
     # clusters: the most cuts whose centres fit in one octave
@@ -596,6 +611,11 @@ def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> lis
             "notches buy little here: many crossings stand nearly as high as the worst one (a diffuse loop); "
             "mic choice, distance and placement buy more gain than cuts."
         )
+    if weighting == "pink" and tonal_speech_db >= 3.0 and tonal_speech_db >= 2.0 * tonal_pink_db:
+        out.append(
+            f"these cuts take {tonal_speech_db:.1f} dB out of the speech band ({tonal_pink_db:.1f} dB broadband): "
+            "for a speech mic, plan with the speech weighting (--tonal-weighting speech)."
+        )
     if margin_before_db < 0:
         out.append(
             f"the loop is already unstable at the measured settings (margin {margin_before_db:.1f} dB): "
@@ -612,7 +632,11 @@ def _advice(notches: list[Notch], asg_db: float, margin_before_db: float) -> lis
 
 
 def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
-    """Insert the planned cuts one by one at the crossing that limits the loop."""
+    """Insert the planned cuts one by one at the crossing that limits the loop.
+
+    At each step the cut covering the limiting crossing goes in, unless another planned cut would
+    leave the loop more than 0.1 dB better off now (then that one), so steps rarely lose margin.
+    """
     left = list(planned)
     steps = []
     cur = m0
@@ -629,10 +653,13 @@ def _order_as_ringout(loops, planned: list[Notch], fs: float, m0: float):
     _, fh = worst(loop_now)
     while left:
         cover = [n for n in left if abs(math.log2(fh / n.freq_hz)) <= n.bandwidth_oct / 2.0] if math.isfinite(fh) else []
-        if cover:
-            pick = min(cover, key=lambda n: abs(math.log2(fh / n.freq_hz)) / n.bandwidth_oct)
-        else:  # the limit is not under any planned cut: take the one that helps most now
-            pick = max(left, key=lambda n: worst([a * lp.cut(n) for lp, a in zip(loops, loop_now)])[0])
+        after = {n: worst([a * lp.cut(n) for lp, a in zip(loops, loop_now)])[0] for n in left}
+        best = max(left, key=lambda n: after[n])
+        pick = best  # the limit is not under any planned cut: take the one that helps most now
+        if cover:  # the cut at the ringing frequency, unless another one clearly helps more now
+            near = min(cover, key=lambda n: abs(math.log2(fh / n.freq_hz)) / n.bandwidth_oct)
+            if after[near] >= after[best] - 0.1:
+                pick = near
         left.remove(pick)
         loop_now = [a * lp.cut(pick) for lp, a in zip(loops, loop_now)]
         m_new, fh_next = worst(loop_now)
@@ -677,9 +704,6 @@ SEARCH_WIDTH_STEPS = (-0.5, -0.2, 0.2, 0.5)
 RELOCATE_DEPTHS_DB = (-3.0, -6.0, -10.0)
 RELOCATE_WIDTHS_OCT = (1 / 24, 1 / 10, 1 / 6)
 
-#: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
-#: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
-MAX_TONAL_SHARE = 0.5
 
 #: Tie-break of the search (dB of margin per dB of tonal cost): of two cascades with the same
 #: margin, the one that removes less program wins, so depths stay as shallow as they can.
@@ -689,13 +713,14 @@ TONAL_TIE_BREAK = 0.05
 class _Score:
     """What the search maximises: the worst grid margin, less the tonal cost beyond its share.
 
-    The tonal cost is :func:`tonal_cost_db`'s pink-noise figure on a coarser grid of the band
-    (each cut's power response cached), so the search sees what will be reported.
+    The tonal cost is :func:`tonal_cost_db`'s figure (pink or speech weighting) on a coarser
+    grid (each cut's power response cached), so the search sees what will be reported.
     """
 
-    def __init__(self, loops, fs: float, band, m0_db: float, share: float = MAX_TONAL_SHARE):
+    def __init__(self, loops, fs: float, band, m0_db: float, share: float = MAX_TONAL_SHARE,
+                 weighting: str = "pink"):
         self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
-        self.f = _pink_grid(band, fs, 1200)
+        self.f, self.w = tonal_grid(band, fs, weighting, 1200)
         self._power: dict[Notch, np.ndarray] = {}
 
     def power(self, cuts) -> np.ndarray:
@@ -719,7 +744,7 @@ class _Score:
         p = self.power(cuts)
         if rest_power is not None:
             p = p * rest_power
-        return float(-10.0 * math.log10(np.mean(p)))
+        return float(-10.0 * math.log10(np.dot(self.w, p)))
 
     def __call__(self, cuts, margin_db: float, rest_power: np.ndarray | None = None) -> float:
         t = self.tonal_db(cuts, rest_power)
@@ -843,7 +868,7 @@ def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
     return cuts
 
 
-def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share):
+def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting):
     """The cuts to insert: (cuts, planned grid margin, why the ring-out stops)."""
     m0_grid = _worst_margin(loops, [], fs)[0]
     planned: list[Notch] = []
@@ -857,7 +882,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
     else:
         planner = _Planner(fs, drift)
-        score = _Score(loops, fs, band, m0_grid, tonal_share)
+        score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
         plans = {0: ([], m0_grid)}
         starts: dict[int, list] = {0: [[]]}
         # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
@@ -936,6 +961,7 @@ def ring_out(
     seed: int = 0,
     polish: int = 6,
     tonal_share: float = MAX_TONAL_SHARE,
+    tonal_weighting: str = "pink",
 ) -> RingOutResult:
     """Ring a loop out virtually: the cuts that buy the most stable gain, step by step.
 
@@ -955,6 +981,8 @@ def ring_out(
     polish : at most this many passes of the pattern search around the planned cuts (0 = plan only).
     tonal_share : the most broadband tonal cost (dB) the cuts may spend per dB of stable gain they
         buy (default 0.5); a cascade past it is scored down (``math.inf``: no limit).
+    tonal_weighting : the tonal cost that rule counts: ``"pink"`` (broadband, the default) or
+        ``"speech"`` (a male speech spectrum, for a speech system). Both are reported.
     """
     from .loop import check_ir, nyquist_margin
 
@@ -966,6 +994,7 @@ def ring_out(
     temperature_c = v.in_range(temperature_c, "temperature_c", -50.0, 60.0, unit="°C")
     swing_c = v.in_range(swing_c, "swing_c", 0.0, 30.0, unit="°C")
     drift = drift_bandwidth_oct(temperature_c, swing_c)
+    tonal_weighting = v.choice(tonal_weighting, "tonal_weighting", ("pink", "speech"))
     if not (isinstance(tonal_share, float) and tonal_share == math.inf):
         tonal_share = v.in_range(tonal_share, "tonal_share", 0.0, None)
 
@@ -976,7 +1005,7 @@ def ring_out(
         irs += perturbed_irs(h, fs, temperature_c=temperature_c, swing_c=swing_c, seed=seed)
     loops = [_GridLoop(name, x, fs, band, PLAN_CAP_DB) for name, x in irs]
     kw = dict(budget=budget, target=target, min_gain=min_gain, fs=fs, drift=drift, band=band, polish=polish,
-              tonal_share=tonal_share)
+              tonal_share=tonal_share, tonal_weighting=tonal_weighting)
     planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
     if planned and any(lp.saturated(planned_margin) for lp in loops):
         # the plan reached the grid's cap: plan again on every point of the band
@@ -1008,6 +1037,8 @@ def ring_out(
         m_after = min(r[2] for r in robust_loops)
     asg = m_after - m_before if math.isfinite(m_before) and math.isfinite(m_after) else 0.0
 
+    tonal_pink = tonal_cost_db(notches, band, fs)
+    tonal_speech = tonal_cost_db(notches, band, fs, weighting="speech")
     steps = []
     for i, (n, fh, m, gain) in enumerate(steps_raw):
         steps.append(RingOutStep(i + 1, n, float(fh), float(m), float(gain), float(m - m0_grid)))
@@ -1018,9 +1049,9 @@ def ring_out(
         notches=notches,
         steps=tuple(steps),
         stopped_because=reason,
-        tonal_cost_db=tonal_cost_db(notches, band, fs),
-        advice=tuple(_advice(list(notches), asg, m_before)),
-        tonal_cost_speech_db=tonal_cost_db(notches, band, fs, weighting="speech"),
+        tonal_cost_db=tonal_pink,
+        advice=tuple(_advice(list(notches), asg, m_before, tonal_pink, tonal_speech, tonal_weighting)),
+        tonal_cost_speech_db=tonal_speech,
         magnitude_margin_db_before=float(before.magnitude_margin_db),
         magnitude_margin_db_after=float(after.magnitude_margin_db),
         howl_freq_hz_before=float(before.howl_freq_hz),
@@ -1032,4 +1063,6 @@ def ring_out(
         swing_c=float(swing_c),
         robust=bool(robust),
         robust_loops=tuple(robust_loops),
+        tonal_share=float(tonal_share),
+        tonal_weighting=tonal_weighting,
     )

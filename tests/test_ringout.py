@@ -271,6 +271,11 @@ def test_cuts_spend_at_most_their_share_of_tone(room):
     assert loose.added_stable_gain_db >= res.added_stable_gain_db - 0.1
     with pytest.raises(InputError, match="tonal_share"):
         ring_out(ir, FS, tonal_share=-1.0)
+    speech = ring_out(ir, FS, band_hz=BAND, min_gain_per_notch_db=0.0, tonal_weighting="speech")
+    assert speech.tonal_weighting == "speech"
+    assert speech.tonal_cost_speech_db <= 0.5 * speech.added_stable_gain_db + 0.1
+    with pytest.raises(InputError, match="tonal_weighting"):
+        ring_out(ir, FS, tonal_weighting="loud")
 
 
 # ---------------------------------------------------------------- tonal cost

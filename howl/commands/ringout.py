@@ -39,6 +39,9 @@ def register(app: typer.Typer) -> None:
             0.5, "--tonal-share",
             help="Most tonal cost (dB of pink-noise power removed) the cuts may spend per dB of stable gain.",
         ),
+        tonal_weighting: str = typer.Option(
+            "pink", "--tonal-weighting", help="What --tonal-share counts: pink (broadband) or speech.",
+        ),
         robust: bool = typer.Option(
             False, "--robust", help="Judge the cuts also on the loop warmed/cooled by the swing and with room movement."
         ),
@@ -56,7 +59,7 @@ def register(app: typer.Typer) -> None:
             report = ringout_report(
                 ir, max_notches=max_notches, target_margin_db=target_margin_db, min_gain_db=min_gain_db,
                 band_hz=band_hz, temperature_c=temperature_c, swing_c=swing_c, robust=robust,
-                tonal_share=tonal_share, sample_rate_hz=sample_rate_hz, channel=channel, max_length_s=max_length_s, trim_s=trim_s,
+                tonal_share=tonal_share, tonal_weighting=tonal_weighting, sample_rate_hz=sample_rate_hz, channel=channel, max_length_s=max_length_s, trim_s=trim_s,
             )
         if json_out:
             emit_json(report)
@@ -81,7 +84,7 @@ def _notch_json(n, coeff_fs: float) -> dict:
 
 def ringout_report(
     path: Path, *, max_notches=6, target_margin_db=None, min_gain_db=0.5, band_hz=None, temperature_c=20.0,
-    swing_c=3.0, robust=False, tonal_share=0.5, sample_rate_hz=None, channel=None, max_length_s=20.0, trim_s=None,
+    swing_c=3.0, robust=False, tonal_share=0.5, tonal_weighting="pink", sample_rate_hz=None, channel=None, max_length_s=20.0, trim_s=None,
 ) -> dict:
     """The `howl ringout --json` object."""
     import warnings
@@ -101,11 +104,13 @@ def ringout_report(
         res = ring_out(
             h, fs, max_notches=max_notches, target_margin_db=target_margin_db, min_gain_per_notch_db=min_gain_db,
             band_hz=band, temperature_c=temperature_c, swing_c=swing_c, robust=robust, tonal_share=tonal_share,
+            tonal_weighting=tonal_weighting,
         )
     except InputError as exc:  # name the option the user typed
         opt = {"max_notches": "--max-notches", "min_gain_per_notch_db": "--min-gain-db",
                "target_margin_db": "--target-margin-db", "temperature_c": "--temperature-c",
-               "swing_c": "--swing-c", "tonal_share": "--tonal-share"}.get(exc.key or "", exc.key)
+               "swing_c": "--swing-c", "tonal_share": "--tonal-share",
+               "tonal_weighting": "--tonal-weighting"}.get(exc.key or "", exc.key)
         raise InputError(exc.message, file=str(path), key=opt) from None
     top = max((n.freq_hz for n in res.notches), default=0.0)
     if top >= coeff_fs / 2:
@@ -149,7 +154,8 @@ def ringout_report(
         "tonal_cost_db": res.tonal_cost_db,
         "tonal_cost_weighting": "pink noise (equal power per octave) over the analysis band",
         "tonal_cost_speech_db": res.tonal_cost_speech_db,
-        "tonal_share": tonal_share,
+        "tonal_share": res.tonal_share,
+        "tonal_rule_weighting": res.tonal_weighting,
         "tonal_cost_speech_weighting": "male speech, normal effort, octave bands 250 Hz-4 kHz (Bies, Hansen & Howard, Table 4.3)",
         "temperature_c": res.temperature_c,
         "swing_c": res.swing_c,
