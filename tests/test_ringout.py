@@ -203,7 +203,7 @@ def test_planning_grid_margin_equals_the_whole_grid_margin_below_its_cap(seed):
     # raises |L|); below the cap its margin must equal the margin over every point of the same grid,
     # here computed independently with scipy.signal.freqz / sosfreqz (equal up to the planning grid's
     # single-precision rounding, 1e-4 dB).
-    from howl.ringout import PLAN_CAP_DB, _GridLoop, planning_ir
+    from howl._ringout_grid import PLAN_CAP_DB, _GridLoop, planning_ir
 
     ir = _room_ir(seed)
     lp = _GridLoop("nominal", ir, FS, (0.0, FS / 2), PLAN_CAP_DB)
@@ -223,7 +223,7 @@ def test_planning_grid_margin_equals_the_whole_grid_margin_below_its_cap(seed):
 def test_closed_form_cut_response_equals_the_biquad():
     # the planning grid's closed form of a cookbook cut against scipy.signal.sosfreqz of its biquad
     from howl.notch import notch_sos
-    from howl.ringout import _cut_on_grid
+    from howl._ringout_grid import _cut_on_grid
 
     f = np.linspace(1.0, FS / 2 - 1.0, 5001)
     w = 2 * np.pi * f / FS
@@ -251,7 +251,7 @@ def test_planning_ir_drops_only_the_tail_below_minus_50_db():
 
 
 def test_search_tonal_estimate_matches_the_reported_tonal_cost():
-    from howl.ringout import _Score
+    from howl._ringout_search import _Score
 
     rng = np.random.default_rng(1)
     band = (100.0, 3500.0)
