@@ -333,6 +333,48 @@ def read_session(folder: str | os.PathLike) -> Session:
     return Session(folder=name, date=date, pairs=tuple(pairs), meta=meta)
 
 
+#: How a mic's summed loop is named in the measured table (the "speaker" column).
+COMBINED_SPEAKER = "all {n} speakers"
+
+
+def with_combined_loops(session: Session) -> Session:
+    """The session plus, for each mic measured through two or more loudspeakers, their loops summed.
+
+    Each pair's loop IR holds that mic's send to that loudspeaker at the measurement settings,
+    with time zero at sample 0 for all of them, so the mic's own loop with all those
+    loudspeakers on at once is the sum of its pair loops (superposition of linear paths). The
+    summed pair is named ``all N speakers`` and its ``ir_file`` joins the files with " + ".
+    Loops of other open mics still add to it (the sheet's small print says so). Pairs at a
+    different sample rate from the mic's first are left out of the sum, with a warning.
+    """
+    import warnings
+
+    import numpy as np
+
+    from .errors import HowlWarning
+
+    by_mic: dict[str, list[SessionPair]] = {}
+    for pair in session.pairs:
+        by_mic.setdefault(pair.mic, []).append(pair)
+    extra = []
+    for mic, pairs in by_mic.items():
+        fs = pairs[0].sample_rate_hz
+        same = [p for p in pairs if p.sample_rate_hz == fs]
+        if len(same) < len(pairs):
+            warnings.warn(f"{mic}: loops at other sample rates than {fs} Hz are left out of its summed loop", HowlWarning)
+        if len({p.speaker for p in same}) < 2:
+            continue
+        n = max(np.asarray(p.ir).size for p in same)
+        total = np.zeros(n)
+        for p in same:
+            h = np.asarray(p.ir, dtype=float)
+            total[: h.size] += h
+        extra.append(SessionPair(COMBINED_SPEAKER.format(n=len(same)), mic, " + ".join(p.ir_file for p in same), total, fs))
+    if not extra:
+        return session
+    return Session(folder=session.folder, date=session.date, pairs=session.pairs + tuple(extra), meta=session.meta)
+
+
 def check_session(session: Session, rig) -> None:
     """Refuse a session whose pairs name a mic the rig does not have."""
     mic_names = {m.name for m in rig.mics}
@@ -707,8 +749,9 @@ def default_notes(data_basis: str, fsm_db: float, plan_json: dict | None, has_cu
         )
     notes.append(
         "Assumed: the rig file's positions, aims, patterns and mix gains; air at the room file's temperature; "
-        "a measured IR is one loudspeaker-to-mic loop at the settings of its measurement (loops of other open "
-        "mics and loudspeakers add to it). Positions in metres from the room corner (x along the length, y across)."
+        "a measured IR is one loudspeaker-to-mic loop at the settings of its measurement; a line 'all N speakers' "
+        "is the sum of one mic's measured loops, that mic's own loop with those loudspeakers on at once (loops "
+        "of other open mics add to it). Positions in metres from the room corner (x along the length, y across)."
     )
     return tuple(notes)
 

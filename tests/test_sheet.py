@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import html
 import json
+import math
 import re
 import shutil
 import subprocess
@@ -510,3 +511,30 @@ def test_map_of_a_mic_the_rig_lacks_is_refused(tmp_path):
     res = runner.invoke(app, ["sheet", str(bundled_rig_path()), "--map", str(tmp_path / "map.json"), "-o", str(tmp_path / "x.pdf")])
     assert res.exit_code == 2
     assert "pulpit" in res.stderr and "--map" in res.stderr
+
+
+def test_a_mic_heard_through_two_loudspeakers_gets_their_summed_loop(tmp_path):
+    # Two pure-delay loops into one mic, 0.3·z^-8 and 0.3·z^-20 at 8 kHz. Each alone: margin
+    # -20·log10(0.3) = 10.46 dB; both on at once the loop is 0.3·(z^-8 + z^-20), whose largest
+    # positive real-axis crossing is 0.6 at 0 Hz (and every 666.7 Hz): margin -20·log10(0.6) = 4.44 dB
+    # (first principles: superposition of the two paths; hand calculation).
+    folder = tmp_path / "s"
+    (folder / "ir").mkdir(parents=True)
+    for name, d in (("n", 8), ("s", 20)):
+        h = np.zeros(400)
+        h[d] = 0.3
+        write_wav_atomic(folder / "ir" / f"{name}.wav", h, FS_HZ)
+    meta = {"date": "2026-12-01", "pairs": [
+        {"speaker": "column_north", "mic": "lectern", "ir_file": "ir/n.wav"},
+        {"speaker": "column_south", "mic": "lectern", "ir_file": "ir/s.wav"},
+    ]}
+    (folder / "session.json").write_text(json.dumps(meta), encoding="utf-8")
+    out = tmp_path / "sheet.png"
+    sheet = _cli_json(["sheet", str(bundled_rig_path()), "--measured", str(folder), "--no-plan", "-o", str(out), "--json"])
+    lines = {m["speaker"]: m for m in sheet["measured"]}
+    assert lines["column_north"]["gain_margin_db"] == pytest.approx(-20 * math.log10(0.3), abs=1e-6)
+    assert lines["column_south"]["gain_margin_db"] == pytest.approx(-20 * math.log10(0.3), abs=1e-6)
+    both = lines["all 2 speakers"]
+    assert both["mic"] == "lectern" and both["ir_file"] == "ir/n.wav + ir/s.wav"
+    assert both["gain_margin_db"] == pytest.approx(-20 * math.log10(0.6), abs=1e-6)
+    assert both["magnitude_margin_db"] == pytest.approx(-20 * math.log10(0.6), abs=1e-6)

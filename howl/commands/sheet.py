@@ -56,13 +56,16 @@ def register(app: typer.Typer) -> None:
 
         with capture_warnings():
             from ..rig import bundled_rig_path, load_rig
-            from ..sheet import build_sheet_data, check_session, read_cuts, read_margin_map, read_session, render_sheet
+            from ..sheet import (
+                build_sheet_data, check_session, read_cuts, read_margin_map, read_session, render_sheet, with_combined_loops,
+            )
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
             session = margins = ringouts = None
             if measured is not None:
                 session = read_session(measured)
                 check_session(session, rig)
+                session = with_combined_loops(session)
             listen_cuts = read_cuts(cuts) if cuts is not None else None
             margin_maps = [read_margin_map(m, rig) for m in maps]
             plan_json = None
