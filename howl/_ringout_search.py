@@ -322,10 +322,19 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
     scale = 1.0
     for _ in range(passes):
         improved = False
+        # each loop without cut i is H·(cuts before i, as the pass left them)·(cuts after i): the
+        # products after i are taken once per pass, those before i grow as the pass goes
+        after = []
+        for lp in loops:
+            acc = [np.ones(lp.H.size, lp.H.dtype)]
+            for n in reversed(cuts[1:]):
+                acc.append(acc[-1] * lp.cut(n))
+            after.append(acc[::-1])  # after[k][i] = product of the cuts after i
+        before = [lp.H for lp in loops]
         for i in range(len(cuts)):
             c = cuts[i]
             rest = cuts[:i] + cuts[i + 1 :]
-            others = [_View(lp, lp.H * lp.cascade(rest), m_best + POLISH_VIEW_DB) for lp in loops]
+            others = [_View(lp, b * a[i], m_best + POLISH_VIEW_DB) for lp, b, a in zip(loops, before, after)]
             rest_power = score.power(rest)
             f_lim = math.nan
             if relocate and scale == 1.0:  # where the loop is limited now, with every cut in
@@ -358,6 +367,7 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
                     if j > best + 0.005:
                         best, m_best, c, improved = j, m, cand, True
             cuts[i] = c
+            before = [b * lp.cut(c) for lp, b in zip(loops, before)]
         if not improved:
             scale *= 0.5
             if scale < 0.2:
