@@ -176,6 +176,19 @@ class DetectorConfig:
     decision_window_s: float = 0.3
     min_growth_db_per_s: float = 6.0
     fast_growth_db_per_s: float = 20.0
+    comod_fraction: float = 0.5
+    n_rising_candidates: int = 4
+    rise_lookback_s: float = 0.08
+    rise_min_db_per_s: float = 40.0
+    rise_window_s: float = 0.10
+    rise_max_fsd: float = 0.001
+    rise_min_pnpr_db: float = 15.0
+    rise_max_shift_bins: float = 0.15
+    rise_min_decel_ratio: float = 0.85
+    rise_max_drift: float = 0.0003
+    min_phpr_comod_db: float = 20.0
+    min_phpr_other_db: float = 3.0
+    halves_fraction: float = 0.25
     max_imsd_db_per_s: float = 6.0
     imsd_points: int = 6
     persist_s: float = 1.5
@@ -188,6 +201,8 @@ class DetectorConfig:
     max_gap_frames: int = 4
     max_tracks: int = 40
     eval_every_frames: int = 4
+    hot_rise_db: float = 1.0
+    growth_fit_s: float = 0.5
 
     def validated(self) -> "DetectorConfig":
         v.in_range(self.window_s, "window_s", 0.01, 1.0, unit="s")
@@ -212,8 +227,9 @@ class Event:
     kind: "howl" or "ringing".
     level_db: level of the component at decision time, dBFS of a sine amplitude
         (0 dB = a full-scale sine).
-    growth_db_per_s: straight-line fit of the level over the decision window
-        (negative for ringing: minus the decay rate).
+    growth_db_per_s: howl: Theil-Sen line of the level from where the howl came out of the
+        program (lowest level of the last 0.5 s) to the decision, over at least the decision
+        window; ringing: least-squares line over the decay (negative: minus the decay rate).
     decay_db_per_s: ringing only: the decay rate (positive).
     margin_db: with a known loop delay τ: −growth·τ (ringing: decay·τ, positive
         headroom; howl: negative, the loop gain above 1). None when τ is unknown.
@@ -221,6 +237,12 @@ class Event:
         the window) that made the decision.
     neighbour_slope_db_per_s: ringing only: level slope of the PNPR neighbour
         bins over the same frames (the room's decay near that frequency).
+    steady: a howl found because it persisted at a steady level (already limited).
+    window_s: the span of frames the decision used (howl: the decision window that
+        passed, 0.10, 0.15 or 0.30 s; ringing: the decay segment).
+    phpr_comod_db: howl: PHPR over the partners that grow along with the peak (None
+        when none does: no partial of a same sound).
+    live: ringing only: reported while the track was still fading (else when it ended).
     """
 
     time_s: float
@@ -240,6 +262,9 @@ class Event:
     margin_db: float | None = None
     neighbour_slope_db_per_s: float | None = None
     steady: bool = False
+    window_s: float | None = None
+    phpr_comod_db: float | None = None
+    live: bool = False
 
 
 @dataclass(frozen=True)
@@ -387,12 +412,35 @@ def loop_delay_s(ir: np.ndarray, sample_rate_hz: float, freq_hz: float, *, effec
 # --------------------------------------------------------------------------- tracking
 
 
+@dataclass(frozen=True)
+class _Tier:
+    """One decision window and the tests a growing track must pass on it."""
+
+    frames: int
+    min_growth_db_per_s: float
+    min_pnpr_db: float
+    min_pnpr_each_db: float | None
+    min_phpr_db: float
+    max_fsd: float
+    imsd_fraction: float
+    imsd_floor_db_per_s: float
+    min_ipmp: float
+    halves_fraction: float
+    min_rise_db: float
+    full: bool = False
+    other_partners: bool = True
+    min_decel_ratio: float = 0.0
+    max_drift: float = 1.0
+
+
 class _Track:
     """One tracked peak. Per frame: the frame index and a row
-    (kf, level, papr, pnpr, phpr, nb, phf); columns are built only when evaluated."""
+    (kf, level, papr, pnpr, phpr, nb, phf, ratios); columns are built only when evaluated.
+    ``ratios`` holds the peak-to-partner ratios (dB) at :data:`HARMONIC_MULTIPLIERS`."""
 
-    __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval")
-    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6}
+    __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval", "hot", "peak",
+                 "last_ring")
+    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "ratios": 7}
 
     def __init__(self, tid: int):
         self.tid = tid
@@ -403,14 +451,19 @@ class _Track:
         self.reported: str | None = None
         self.state = "program"
         self.last_eval = -1
+        self.hot = False  # rising lately: evaluated every frame
+        self.peak = -np.inf  # highest level so far (dB)
+        self.last_ring = -1  # frame of the last live ring-down test
 
     def add(self, t: int, row: tuple) -> None:
         self.frames.append(t)
         self.rows.append(row)
         self.last_kf = row[0]
         self.gap = 0
+        if row[1] > self.peak:
+            self.peak = row[1]
 
-    def col(self, name: str, start: int = 0) -> list[float]:
+    def col(self, name: str, start: int = 0) -> list:
         k = self.FIELDS[name]
         return [r[k] for r in self.rows[start:]]
 
@@ -419,6 +472,55 @@ def _median(values: list[float]) -> float:
     s = sorted(values)
     n = len(s)
     return s[n // 2] if n % 2 else 0.5 * (s[n // 2 - 1] + s[n // 2])
+
+
+def _lp_delta(pm1: np.ndarray, p0: np.ndarray, pp1: np.ndarray) -> np.ndarray:
+    """Fractional-bin offset of a peak from the log-parabola through three power bins."""
+    la, lb, lc = (np.log(p.astype(np.float64) + _TINY) for p in (pm1, p0, pp1))
+    den = la - 2.0 * lb + lc
+    with np.errstate(divide="ignore", invalid="ignore"):
+        d = np.where(den < 0, 0.5 * (la - lc) / den, 0.0)
+    return np.clip(d, -0.5, 0.5)
+
+
+def _imsd_on_line(frames: list, levels: list[float], dt: float, q: int) -> float:
+    """IMSD (:func:`imsd_db_per_s`) of the level line sampled at q equally spaced instants of
+    the window (linear interpolation between frames; pure Python for short windows)."""
+    f0, f1 = frames[0], frames[-1]
+    if f1 <= f0:
+        return 0.0
+    step = (f1 - f0) / (q - 1)
+    pts = []
+    j = 0
+    for i in range(q):
+        x = f0 + i * step
+        while j < len(frames) - 2 and frames[j + 1] < x:
+            j += 1
+        xa, xb = frames[j], frames[j + 1]
+        w = (x - xa) / (xb - xa)
+        pts.append(levels[j] + w * (levels[j + 1] - levels[j]))
+    d = step * dt
+    s = [(pts[-1] - pts[-1 - k]) / (k * d) for k in range(1, q)]
+    m = sum(s) / len(s)
+    return sum(abs(v - m) for v in s) / len(s)
+
+
+def _rel_std(values: list[float]) -> float:
+    """Relative standard deviation of a short list (pure Python: cheaper than numpy on < 50 values)."""
+    n = len(values)
+    m = sum(values) / n
+    return (sum((v - m) * (v - m) for v in values) / n) ** 0.5 / m
+
+
+def _slope(x: list, y: list[float]) -> float:
+    """Least-squares slope of a short list (pure Python)."""
+    n = len(x)
+    xm = sum(x) / n
+    ym = sum(y) / n
+    sxx = sum((a - xm) * (a - xm) for a in x)
+    if sxx <= 0:
+        return 0.0
+    return sum((a - xm) * (b - ym) for a, b in zip(x, y)) / sxx
 
 
 def _linfit(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
@@ -472,6 +574,22 @@ class Detector:
         self.k_hi = min(self.n_bins - 8, int(np.ceil(f_hi / self.bin_hz)))
         self.win_frames = max(3, int(round(self.cfg.decision_window_s / self.dt)))
         self.fast_frames = max(3, self.win_frames // 2)
+        c = self.cfg
+        self.rise_win_frames = max(3, int(round(self.cfg.rise_window_s / self.dt)))
+        self._tiers = (
+            _Tier(self.rise_win_frames, c.rise_min_db_per_s, min_pnpr_db=c.rise_min_pnpr_db,
+                  min_pnpr_each_db=c.rise_min_pnpr_db, min_phpr_db=c.min_phpr_comod_db, max_fsd=c.rise_max_fsd,
+                  imsd_fraction=0.15, imsd_floor_db_per_s=0.0, min_ipmp=1.0, halves_fraction=0.7,
+                  min_rise_db=4.0, other_partners=False, min_decel_ratio=c.rise_min_decel_ratio,
+                  max_drift=c.rise_max_drift),
+            _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
+                  min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.25, imsd_floor_db_per_s=0.0,
+                  min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2),
+            _Tier(self.win_frames, c.min_growth_db_per_s, min_pnpr_db=c.min_pnpr_db, min_pnpr_each_db=None,
+                  min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.6,
+                  imsd_floor_db_per_s=c.max_imsd_db_per_s, min_ipmp=c.min_ipmp, halves_fraction=c.halves_fraction,
+                  min_rise_db=0.0, full=True, max_drift=c.max_fsd),
+        )
         self.persist_frames = max(self.win_frames, int(round(self.cfg.persist_s / self.dt)))
         self._buf = np.zeros(0)
         self._frame = 0  # index of the next frame to compute
@@ -480,6 +598,8 @@ class Detector:
         self._next_tid = 0
         self.events: list[Event] = []
         self._pnpr_off = np.array([4, 5, 6])
+        self._ptail = None
+        self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
         self._harm = np.array(HARMONIC_MULTIPLIERS)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
@@ -569,6 +689,8 @@ class Detector:
         rank = np.arange(rows.size) - np.searchsorted(rows, rows)
         keep = rank < self.cfg.n_candidates
         rows, k = rows[keep], k[keep]
+        if self.cfg.n_rising_candidates:
+            rows, k = self._add_rising(power, rows, k, n_f)
         nmax = self.n_bins - 1
         pm1 = power[rows, k - 1].astype(np.float64)
         p0 = power[rows, k].astype(np.float64)
@@ -597,13 +719,85 @@ class Detector:
         phpr = ratio[:, self._basic].min(axis=1)
         phf = ratio.min(axis=1)
         bounds = np.searchsorted(rows, np.arange(n_f + 1))
-        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf))))
+        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), ratio))
         t0 = self._frame
         for i in range(n_f):
             i0 = int(bounds[i])
             i1 = int(bounds[i + 1])
             self._step(t0 + i, allrows[i0:i1])
         self._frame += n_f
+
+    def _add_rising(self, power: np.ndarray, rows: np.ndarray, k: np.ndarray, n_f: int):
+        """Add rising candidates: pure local maxima anywhere above the level floor (also far
+        below the PAPR gate, where a howl starts) whose power rose steadily over the last
+        ``rise_lookback_s``: at least ``rise_min_db_per_s`` over the whole look-back and a
+        third of that over each half. At most ``n_rising_candidates`` per frame, steepest first."""
+        M = self.rise_frames
+        h = M // 2
+        lo, hi = self.k_lo, self.k_hi
+        tail = self._ptail
+        ext = power[:, lo - 1: hi + 1] if tail is None else np.concatenate([tail, power[:, lo - 1: hi + 1]])
+        off = 0 if tail is None else tail.shape[0]
+        self._ptail = ext[-M:].copy() if ext.shape[0] >= M else ext.copy()
+        if ext.shape[0] <= M:
+            return rows, k
+        r_all = 10.0 ** (self.cfg.rise_min_db_per_s * M * self.dt / 10.0)
+        r_half = r_all ** (1.0 / 3.0)
+        first = max(M, off)  # rows of ext that have M frames of history and belong to this chunk
+        floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
+        n = ext.shape[0]
+        cur = ext[first:, 1:-1]
+        old = ext[first - M: n - M, 1:-1]
+        # dense: the whole rise and a local maximum now; then sparse: the halves, a local maximum
+        # at mid look-back
+        ok = cur >= np.float32(r_all) * old
+        ok &= cur > ext[first:, :-2]
+        ok &= cur >= ext[first:, 2:]
+        ok &= cur >= floor
+        rr, cc = np.nonzero(ok)
+        if rr.size == 0:
+            return rows, k
+        e = rr + first
+        c = cc + 1
+        pc, pm, po = ext[e, c], ext[e - h, c], ext[e - M, c]
+        ok = ((pc >= np.float32(r_half) * pm) & (pm >= np.float32(r_half) * po)
+              & (pm > ext[e - h, c - 1]) & (pm >= ext[e - h, c + 1]))
+        rr, cc, e, c = rr[ok], cc[ok], e[ok], c[ok]
+        if rr.size == 0:
+            return rows, k
+        # steady in frequency: the interpolated peak moved less than rise_max_shift_bins since the mid frame
+        shift = np.abs(_lp_delta(ext[e, c - 1], ext[e, c], ext[e, c + 1])
+                       - _lp_delta(ext[e - h, c - 1], ext[e - h, c], ext[e - h, c + 1]))
+        steady = shift <= self.cfg.rise_max_shift_bins
+        rr, cc = rr[steady], cc[steady]
+        if rr.size == 0:
+            return rows, k
+        rr = rr + (first - off)  # frame index within this chunk
+        kk = cc + lo
+        # purity: PNPR >= the howl threshold in this frame
+        p0 = power[rr, kk]
+        offs = np.concatenate([-self._pnpr_off, self._pnpr_off])
+        nb = power[rr[:, None], np.clip(kk[:, None] + offs[None, :], 0, self.n_bins - 1)].max(axis=1)
+        pure = p0 >= nb * np.float32(10.0 ** (self.cfg.rise_min_pnpr_db / 10.0))
+        rr, kk = rr[pure], kk[pure]
+        if rr.size == 0:
+            return rows, k
+        # drop those already candidates, keep the steepest few per frame
+        have = set((rows * self.n_bins + k).tolist())
+        code = rr * self.n_bins + kk
+        new = np.array([c not in have for c in code.tolist()], dtype=bool)
+        rr, kk = rr[new], kk[new]
+        if rr.size == 0:
+            return rows, k
+        steep = power[rr, kk] / (ext[rr + off - M, kk - lo + 1] + np.float32(1e-30))
+        order = np.lexsort((-steep, rr))
+        rr, kk = rr[order], kk[order]
+        rank = np.arange(rr.size) - np.searchsorted(rr, rr)
+        keep = rank < self.cfg.n_rising_candidates
+        rows = np.concatenate([rows, rr[keep]])
+        k = np.concatenate([k, kk[keep]])
+        order = np.argsort(rows, kind="stable")
+        return rows[order], k[order]
 
     def _step(self, t, rows) -> None:
         tol = self.cfg.track_tol_bins
@@ -639,9 +833,18 @@ class Detector:
                     self._close(tr)
                     continue
             alive.append(tr)
-            if tr.reported is None and tr.gap == 0 and t - tr.last_eval >= self.cfg.eval_every_frames:
+            if tr.reported is None and tr.gap == 0 and t - tr.last_eval >= (1 if tr.hot else self.cfg.eval_every_frames):
                 tr.last_eval = t
                 self._evaluate(tr, t)
+            # a ring-down is reported while it still fades, once enough of it has been seen
+            if (tr.reported is None and tr.gap == 0 and tr.peak - tr.rows[-1][1] >= self.cfg.min_decay_span_db
+                    and t - tr.last_ring >= self.cfg.eval_every_frames):
+                tr.last_ring = t
+                ev = self._ringdown(tr, live=True)
+                if ev is not None:
+                    tr.reported = "ringing"
+                    tr.state = "ringing"
+                    self.events.append(ev)
         self._tracks = alive
 
     def _window(self, tr: _Track, t: int, n_frames: int):
@@ -649,51 +852,104 @@ class Detector:
         i0 = np.searchsorted(fr, t - n_frames + 1)
         return i0, fr[i0:]
 
-    def _window_test(self, tr: _Track, t: int, W: int, min_growth: float, strict: bool = False):
-        """Features over the last W frames; None when the track is not pure and steady there."""
-        cfg = self.cfg
-        # cheap tests first (pure Python on <= W values): IPMP, PNPR, PHPR, FSD
+    def _window_test(self, tr: _Track, t: int, tier: "_Tier"):
+        """Features over the last ``tier.frames`` frames; None when the track is not pure and steady there.
+
+        Returns (i0, ipmp, pnpr, phpr, kf, fsd, levels, slope, imsd, growing, phpr_comod).
+        """
+        W = tier.frames
+        # cheap tests first (pure Python on <= W values): IPMP, PNPR, FSD
         i0 = bisect.bisect_left(tr.frames, t - W + 1)
         ip = (len(tr.frames) - i0) / W
-        if ip < cfg.min_ipmp:
+        if ip < tier.min_ipmp:
             return None
-        pn = _median(tr.col('pnpr', i0))
-        ph = _median(tr.col('phpr', i0))
-        if pn < cfg.min_pnpr_db or ph < cfg.min_phpr_db:
+        # quick gate: a growing track has risen over the window (the steady-tone test needs a long track)
+        rows = tr.rows
+        if (rows[-1][1] - rows[i0][1] < 0.3 * tier.min_growth_db_per_s * (W - 1) * self.dt
+                and not (tier.full and tr.frames[-1] - tr.frames[0] + 1 >= self.persist_frames)):
             return None
-        if strict and (pn < cfg.min_pnpr_db + 6.0 or _median(tr.col('phf', i0)) < cfg.min_phpr_db):
+        pns = tr.col('pnpr', i0)
+        pn = _median(pns)
+        if pn < tier.min_pnpr_db or (tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db):
             return None
-        kf = np.asarray(tr.col('kf', i0))
-        fsd = float(np.std(kf) / np.mean(kf))
-        if fsd > cfg.max_fsd:
+        kfl = tr.col('kf', i0)
+        fsd = _rel_std(kfl)
+        if fsd > tier.max_fsd:
             return None
-        fr = np.asarray(tr.frames[i0:])
-        lv = np.asarray(tr.col('level', i0))
-        ts = fr * self.dt
-        slope, _, _ = _linfit(ts, lv)
-        # IMSD on the level line sampled at Q equally spaced instants of the window
-        q = cfg.imsd_points
-        tq = np.linspace(ts[0], ts[-1], q)
-        imsd = imsd_db_per_s(np.interp(tq, ts, lv), (ts[-1] - ts[0]) / (q - 1))
-        limit = 0.25 * slope if strict else max(cfg.max_imsd_db_per_s, 0.6 * slope)
-        growing = slope >= min_growth and imsd <= limit
-        return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing
+        frl = tr.frames[i0:]
+        lvl = tr.col('level', i0)
+        dt = self.dt
+        slope = _slope(frl, lvl) / dt
+        if slope < tier.min_growth_db_per_s and not tier.full:
+            return None
+        # straightness (pure Python): both halves grow, the second not much slower than the
+        # first (an onset or a swell that levels off is not a line), the total rise, IMSD
+        n = len(lvl)
+        h = n // 2
+        s_a = _slope(frl[:h + 1], lvl[:h + 1]) / dt
+        s_b = _slope(frl[h:], lvl[h:]) / dt
+        rise = slope * (frl[-1] - frl[0]) * dt
+        imsd = _imsd_on_line(frl, lvl, dt, self.cfg.imsd_points)
+        # frequency drift over the window (a partial swept through a loop resonance by vibrato or a
+        # glide rises in level while its frequency moves; a howl stays put)
+        drift = abs(_slope(frl, kfl)) * (frl[-1] - frl[0]) / kfl[-1]
+        growing = (slope >= tier.min_growth_db_per_s and drift <= tier.max_drift
+                   and imsd <= max(tier.imsd_floor_db_per_s, tier.imsd_fraction * slope)
+                   and min(s_a, s_b) >= tier.halves_fraction * slope
+                   and s_b >= tier.min_decel_ratio * s_a and rise >= tier.min_rise_db)
+        if not growing and not tier.full:
+            return None
+        ph = _median(tr.col('phf', i0))
+        kf = np.asarray(kfl)
+        lv = np.asarray(lvl)
+        if not growing:
+            # not growing: the full window goes on to the steady-tone test, on the plain PHPR
+            if ph < self.cfg.min_phpr_db:
+                return None
+            return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, False, ph
+        # PHPR over the partners that grow along with the peak (co-modulated: a partial of the
+        # same note); a partner that does not grow with it (other program) does not explain it
+        # unless the peak is not yet min_phpr_other_db above it.
+        cfg = self.cfg
+        ts = np.asarray(frl) * dt
+        R = np.minimum(np.asarray(tr.col('ratios', i0)), 200.0)
+        med = np.median(R, axis=0)
+        dx = ts - ts.mean()
+        r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
+        grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
+        explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
+        if tier.other_partners:
+            explains |= med < cfg.min_phpr_other_db
+        ph_c = float(med[grows_along].min()) if np.any(grows_along) else float("inf")
+        if np.any(explains):
+            return None
+        return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, True, ph_c
 
     def _evaluate(self, tr: _Track, t: int) -> None:
         cfg = self.cfg
         span = tr.frames[-1] - tr.frames[0] + 1
-        res = None
-        # fast growth is decided on a half window (a loop well past unity must not wait)
-        if span >= self.fast_frames:
-            res = self._window_test(tr, t, self.fast_frames, cfg.fast_growth_db_per_s, strict=True)
-            if res is not None and not res[-1]:
-                res = None
-        if res is None and span >= self.win_frames:
-            res = self._window_test(tr, t, self.win_frames, cfg.min_growth_db_per_s)
-        if res is None:
-            tr.state = "program" if span >= self.fast_frames else tr.state
+        rows = tr.rows
+        back = rows[max(0, len(rows) - self.rise_win_frames)]
+        last = rows[-1]
+        tr.hot = last[1] - back[1] >= cfg.hot_rise_db
+        # quick rejections (no window test can pass): the newest frame is far from pure, or the
+        # frequency moved by more than a few times the allowed spread (a glide) since the look-back
+        if last[3] < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * cfg.max_fsd * last[0]:
+            if span >= self._tiers[0].frames:
+                tr.state = "program"
             return
-        i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing = res
+        res = None
+        # fast growth is decided on shorter windows (a loop well past unity must not wait);
+        # the shorter the window, the stricter the tests (fewer frames to judge by)
+        for tier in self._tiers:
+            if span >= tier.frames:
+                res = self._window_test(tr, t, tier)
+                if res is not None:
+                    break
+        if res is None:
+            tr.state = "program" if span >= self._tiers[0].frames else tr.state
+            return
+        i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing, ph_c = res
         steady = False
         if not growing and tr.frames[-1] - tr.frames[0] + 1 >= self.persist_frames:
             j0, frp = self._window(tr, t, self.persist_frames)
@@ -709,7 +965,10 @@ class Detector:
             tr.reported = "product"
             tr.state = "product"
             return
+        if growing:
+            slope = self._growth_estimate(tr, len(lv), slope)
         if growing or steady:
+            fr_end = tr.frames[-1]
             tr.reported = "howl"
             tr.state = "howl"
             margin = None if self.loop_delay_s is None else -slope * self.loop_delay_s
@@ -719,10 +978,27 @@ class Detector:
                 freq_hz=float(np.median(kf)) * self.bin_hz, kind="howl", level_db=float(lv[-1]),
                 growth_db_per_s=float(slope), papr_db=float(np.median(tr.col('papr', i0))), pnpr_db=pn, phpr_db=ph,
                 ipmp=float(ip), imsd_db_per_s=float(imsd), fsd=fsd, track_id=tr.tid, margin_db=margin,
-                steady=bool(steady and not growing),
+                steady=bool(steady and not growing), window_s=len(lv) and (fr_end - tr.frames[i0] + 1) * self.dt,
+                phpr_comod_db=None if not np.isfinite(ph_c) else float(ph_c),
             ))
         else:
             tr.state = "watch"
+
+    def _growth_estimate(self, tr: _Track, n_window: int, slope_window: float) -> float:
+        """The growth rate reported for a howl: a Theil-Sen line (median of pairwise slopes; Sen 1968)
+        from the lowest level of the last ``growth_fit_s`` (where the howl came out of the program
+        or the noise) to now, over at least the decision window. Longer and robust: the first
+        window to pass the tests tends to be a steep one, and a few frames scatter."""
+        n_fit = max(n_window, int(round(self.cfg.growth_fit_s / self.dt)))
+        lv = tr.col('level', max(0, len(tr.rows) - n_fit))
+        fr = tr.frames[len(tr.frames) - len(lv):]
+        j = min(range(len(lv)), key=lv.__getitem__)
+        if len(lv) - j < n_window:
+            j = len(lv) - n_window
+        # Theil-Sen: the median of the pairwise slopes (robust to a few scattered frames)
+        f, y = fr[j:], lv[j:]
+        pairs = [(y[b] - y[a]) / (f[b] - f[a]) for a in range(len(f)) for b in range(a + 1, len(f)) if f[b] > f[a]]
+        return _median(pairs) / self.dt if pairs else slope_window
 
     def _is_howl_product(self, freq_hz: float) -> bool:
         """Is ``freq_hz`` a harmonic or a two-tone product of howls already reported
@@ -755,7 +1031,9 @@ class Detector:
             tr.reported = "ringing"
             self.events.append(ev)
 
-    def _ringdown(self, tr: _Track) -> Event | None:
+    def _ringdown(self, tr: _Track, live: bool = False) -> Event | None:
+        """Was the fall of this track a ring-down? ``live``: the track is still fading (tested on the
+        frames so far); else it has ended (the last frames near the floor it ended at are left out)."""
         cfg = self.cfg
         n = len(tr.frames)
         min_frames = int(round(cfg.min_decay_s / self.dt))
@@ -772,7 +1050,7 @@ class Detector:
         # stop where the level nears the noise floor at which the track ended
         end_level = float(np.min(lv[i0:])) if i0 < n else 0.0
         seg = np.arange(i0, n)
-        if seg.size:
+        if seg.size and not live:
             seg = seg[lv[seg] >= end_level + 3.0]
         if seg.size < min_frames:
             return None
@@ -809,6 +1087,7 @@ class Detector:
             growth_db_per_s=float(slope), papr_db=float(np.median(np.asarray(tr.col('papr'))[seg])), pnpr_db=pn,
             phpr_db=ph, ipmp=float(seg.size / (fr[seg[-1]] - fr[seg[0]] + 1)), imsd_db_per_s=float(imsd), fsd=fsd,
             track_id=tr.tid, decay_db_per_s=float(decay), margin_db=margin, neighbour_slope_db_per_s=float(nb_slope),
+            window_s=float(ts[-1] - ts[0] + self.dt), live=live,
         )
 
 
@@ -908,12 +1187,12 @@ def event_record(e: Event, *, loop_delay_s: float | None = None, target_margin_d
     d = {
         "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
         "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
-        "decay_db_per_s": e.decay_db_per_s, "steady": e.steady,
+        "decay_db_per_s": e.decay_db_per_s, "steady": e.steady, "live": e.live, "window_s": e.window_s,
         "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
                   "bandwidth_oct": notch.bandwidth_oct},
         "needed_cut_db": needed,
         "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
-                     "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd},
+                     "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd, "phpr_comod_db": e.phpr_comod_db},
     }
     if loop_delay_s is not None:
         d["margin_db"] = e.margin_db
