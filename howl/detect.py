@@ -34,11 +34,15 @@ What it does, frame by frame
    * **howl**: a track that is pure (median PNPR and PHPR above their
      thresholds), steady in frequency (FSD), present (IPMP) and either grows on a
      straight line in dB (slope ≥ ``min_growth_db_per_s``, IMSD small) or
-     persists steady for ``persist_s``;
+     persists steady for ``persist_s``. Fast growth is decided on shorter windows
+     (0.10 s from 40 dB/s, 0.15 s from 20 dB/s, else 0.30 s), each shorter one
+     with stricter tests; rising peaks far below the program are candidates too;
+     PHPR counts only partners that grow along with the peak, or that the peak
+     has not yet passed;
    * **ringing**: a pure, steady track whose level falls on a straight line in
      dB at a rate between ``min_decay_db_per_s`` and ``max_decay_db_per_s``
      over at least ``min_decay_span_db`` — the ring-down of a loop close to
-     instability after a transient;
+     instability after a transient; reported while it still fades;
    * everything else is program (harmonics, vibrato, onsets and decays).
 
 Frequency below the bin width: for a Gaussian window the log-magnitude of a
@@ -73,12 +77,40 @@ References
 from __future__ import annotations
 
 import bisect
-import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import _validate as v
+from ._detect_features import (  # noqa: F401  (re-exported)
+    _TINY,
+    BASIC_MULTIPLIERS,
+    HARMONIC_MULTIPLIERS,
+    _imsd_on_line,
+    _linfit,
+    _lp_delta,
+    _median,
+    _rel_std,
+    _slope,
+    estimate_peak,
+    gaussian_window,
+    imsd_db_per_s,
+    ipmp,
+    loop_delay_s,
+    margin_from_decay_db,
+    papr_db,
+    phpr_db,
+    pnpr_db,
+)
+from ._detect_report import (  # noqa: F401  (re-exported)
+    DEFAULT_LOOP_DELAY_S,
+    TARGET_MARGIN_DB,
+    event_record,
+    event_to_dict,
+    report,
+    suggest_event_cut,
+    summarise_notches,
+)
 
 __all__ = [
     "DetectorConfig",
@@ -98,24 +130,16 @@ __all__ = [
     "loop_delay_s",
     "suggest_event_cut",
     "summarise_notches",
+    "event_record",
+    "event_to_dict",
+    "report",
+    "DEFAULT_LOOP_DELAY_S",
+    "TARGET_MARGIN_DB",
+    "HARMONIC_MULTIPLIERS",
+    "BASIC_MULTIPLIERS",
 ]
 
-_TINY = 1e-30
 
-#: Where PHPR looks for partials of a harmonic sound, as multiples of the
-#: candidate's frequency: if the candidate is the h-th partial, the (h−1)-th sits
-#: at (h−1)/h (h = 2…6) and the fundamental at 1/h; if it is the fundamental, the
-#: 2nd and 3rd partials sit at 2 and 3; 3/2 catches a 2nd partial's neighbour.
-HARMONIC_MULTIPLIERS = (1 / 3, 1 / 2, 2 / 3, 3 / 4, 4 / 5, 5 / 6, 3 / 2, 2.0, 3.0)
-#: The subset used for a growing howl: the literature's sub-harmonic and harmonic
-#: set (1/2, 3/2, 2, 3) [1]_. The lower-partial points (2/3 … 5/6) fall inside the
-#: formant region of speech for a howl at 1–5 kHz and would hide a howl that is
-#: already louder than the program there; they are used for the steady-tone and
-#: ringing decisions, where there is time.
-BASIC_MULTIPLIERS = (1 / 2, 3 / 2, 2.0, 3.0)
-
-
-@dataclass(frozen=True)
 class DetectorConfig:
     """Detector settings. Thresholds and why (tuned on synthetic tones, harmonic notes
     with vibrato, speech-like programs and closed-loop simulations in
@@ -134,7 +158,16 @@ class DetectorConfig:
         12 dB about 0.3 s before 20 dB (the literature's 15 dB [M] was a start).
     min_phpr_db: 12 dB. Voiced partials have neighbours at h·f within ~0–10 dB
         (harmonic spectra roll off ~6–12 dB/octave); a howl has none until the
-        loop limits.
+        loop limits. For a growing track PHPR is taken over all of
+        :data:`HARMONIC_MULTIPLIERS` and is co-modulation aware: a partner whose
+        level grows at least ``comod_fraction`` (half) as fast as the peak is a
+        partial of the same sound and rules the peak out when within
+        ``min_phpr_comod_db`` (20 dB: a swelling note with weak upper partials, a
+        sung vowel with its 2nd partial 12 dB down); a partner that does not grow
+        along is other program and rules it out only while the peak is not yet
+        ``min_phpr_other_db`` (3 dB) above it. (Plain PHPR on the basic points let
+        the 3rd partial of a held note in crescendo through: its only basic partner,
+        the 6th, was 13 dB down.)
     max_fsd: 0.2 % relative frequency deviation over the window. Vibrato of a
         sung note is ±0.5…3 %; a howl's estimate scatters by < 0.05 %.
     min_ipmp: present in ≥ 80 % of the window frames (the literature uses 3 of 5).
@@ -144,8 +177,29 @@ class DetectorConfig:
         by a loop resonance within the window, and is caught by ``persist_s``.
     fast_growth_db_per_s: growth of at least 20 dB/s is decided on half the window
         (0.15 s): such a howl gains 6 dB in the time the full window would add. The
-        half window is held to stricter tests (PNPR 6 dB higher, all PHPR multipliers,
-        IMSD below a quarter of the growth) because it sees fewer frames.
+        half window is held to stricter tests (PNPR 6 dB higher, IMSD below a quarter
+        of the growth, each half growing at ≥ half the rate, drift ≤ max_fsd/2)
+        because it sees fewer frames.
+    rise_window_s, rise_min_db_per_s: growth of at least 40 dB/s (a loop 2 dB past
+        unity at τ = 50 ms) is decided on 0.10 s, the tests there being the strictest:
+        present in every frame, PNPR ≥ ``rise_min_pnpr_db`` (15 dB) in every frame,
+        FSD ≤ ``rise_max_fsd`` (0.1 %), frequency drift over the window ≤
+        ``rise_max_drift`` (0.03 %: vibrato sweeping a partial through a loop resonance
+        raises its level while its frequency moves; a howl stays put), IMSD ≤ 0.15 ×
+        the growth, each half ≥ 0.7 × the growth and the second half ≥
+        ``rise_min_decel_ratio`` (0.85) × the first (note onsets and swells decelerate),
+        a rise ≥ 4 dB, and no co-modulated partner within 20 dB; partners that do not
+        grow along are ignored there (the howl is still below the program).
+    n_rising_candidates, rise_lookback_s, rise_max_shift_bins: a howl starts far below
+        the program, below the PAPR gate and outside the strongest peaks. Up to 4 extra
+        candidates per frame are taken among pure local maxima (PNPR ≥ 15 dB) anywhere
+        above ``min_level_dbfs`` whose power rose by ≥ 40 dB/s over the last 80 ms (a
+        third of that in each half, a local maximum also at mid look-back) and whose
+        interpolated frequency moved ≤ 0.15 bin meanwhile (gliding speech partials do not).
+    eval_every_frames, hot_rise_db: tracks are evaluated every 4 frames, or every frame
+        while their level rose ≥ 1 dB over the last 0.10 s.
+    growth_fit_s: the reported growth of a howl is a Theil-Sen line over up to 0.5 s.
+    halves_fraction: the full window's halves must each grow at ≥ 0.25 × its rate.
     max_imsd_db_per_s: straightness of the growth: IMSD below 6 dB/s, or below
         0.6 × the growth rate for fast growth (level scatter ±0.3 dB gives a few dB/s).
     persist_s: a pure, steady tone present this long with level not falling
@@ -159,7 +213,10 @@ class DetectorConfig:
         slower than this fraction of its neighbour bins' decay. Off because near a
         loop crossing the neighbouring closed-loop poles ring almost as slowly
         (seen in reverberant simulated loops), so the test rejects true ringing.
-    min_decay_span_db, min_decay_s: a ring-down must fall ≥ 10 dB over ≥ 0.15 s.
+    min_decay_span_db, min_decay_s: a ring-down must fall ≥ 10 dB over ≥ 0.15 s. It is
+        tested while the track still fades (every 4 frames once the level is 10 dB
+        under the track's peak) and reported as soon as it passes (``live``); a track
+        that ends unreported is tested once more on its whole fall. One event per track.
     """
 
     window_s: float = 0.085
@@ -293,122 +350,6 @@ class DetectionResult:
     loop_delay_s: float | None
 
 
-# --------------------------------------------------------------------------- features
-
-
-def gaussian_window(n: int) -> np.ndarray:
-    """Gaussian window of length n with σ = n/8 (truncated at ±4σ, edge ≈ 3e-4)."""
-    t = np.arange(n) - (n - 1) / 2.0
-    return np.exp(-0.5 * (t / (n / 8.0)) ** 2)
-
-
-def estimate_peak(log_mag: np.ndarray, k: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Quadratic interpolation on natural-log magnitudes around integer peaks ``k``.
-
-    Returns (fractional bin, interpolated natural-log magnitude). For a Gaussian
-    window the log-magnitude main lobe is a parabola, so this is exact up to
-    window truncation [3]_ [4]_. ``log_mag`` may be (n_bins,) or (F, n_bins) with
-    ``k`` of shape (F, C).
-    """
-    k = np.asarray(k)
-    if log_mag.ndim == 1:
-        a, b, c = log_mag[k - 1], log_mag[k], log_mag[k + 1]
-    else:
-        rows = np.arange(log_mag.shape[0])[:, None]
-        a, b, c = log_mag[rows, k - 1], log_mag[rows, k], log_mag[rows, k + 1]
-    den = a - 2.0 * b + c
-    with np.errstate(divide="ignore", invalid="ignore"):
-        delta = np.where(den < 0, 0.5 * (a - c) / den, 0.0)
-    delta = np.clip(delta, -0.5, 0.5)
-    return k + delta, b - 0.25 * (a - c) * delta
-
-
-def papr_db(power: np.ndarray, k: int, band: slice | None = None) -> float:
-    """Peak-to-average power ratio of bin k in dB (mean over ``band``) [1]_."""
-    p = power if band is None else power[band]
-    return float(10.0 * np.log10((power[k] + _TINY) / (np.mean(p) + _TINY)))
-
-
-def pnpr_db(power: np.ndarray, k: int, offsets=(4, 5, 6)) -> float:
-    """Peak-to-neighbouring power ratio in dB: peak over the largest of bins k ± m [1]_."""
-    idx = [k + s * m for m in offsets for s in (-1, 1) if 0 <= k + s * m < power.size]
-    return float(10.0 * np.log10((power[k] + _TINY) / (np.max(power[idx]) + _TINY)))
-
-
-def phpr_db(power: np.ndarray, k_frac: float, multipliers=None, half_width_bins: int = 2) -> float:
-    """Peak-to-harmonic power ratio in dB: min over h of peak / max |Y(h·k ± w)|² [1]_.
-
-    Multipliers whose bin falls outside the spectrum are skipped (inf if none).
-    """
-    k = int(round(k_frac))
-    out = np.inf
-    for h in (HARMONIC_MULTIPLIERS if multipliers is None else multipliers):
-        c = int(round(h * k_frac))
-        if c - half_width_bins < 1 or c + half_width_bins >= power.size:
-            continue
-        ref = np.max(power[c - half_width_bins: c + half_width_bins + 1])
-        out = min(out, 10.0 * np.log10((power[k] + _TINY) / (ref + _TINY)))
-    return float(out)
-
-
-def ipmp(present: np.ndarray) -> float:
-    """Interframe peak magnitude persistence: fraction of frames in which the peak was a candidate [1]_."""
-    present = np.asarray(present, dtype=bool)
-    return float(np.mean(present)) if present.size else 0.0
-
-
-def imsd_db_per_s(levels_db: np.ndarray, dt_s: float) -> float:
-    """Interframe magnitude slope deviation [1]_ of levels sampled every ``dt_s``.
-
-    ``levels_db[-1]`` is the newest. s_j = (L(t) − L(t − j·dt)) / (j·dt) for
-    j = 1…Q−1; IMSD = mean_j |s_j − mean(s)| (dB/s). Zero for a straight line in dB.
-    """
-    lv = np.asarray(levels_db, dtype=float)
-    q = lv.size
-    if q < 3:
-        return float("nan")
-    j = np.arange(1, q)
-    s = (lv[-1] - lv[-1 - j]) / (j * dt_s)
-    return float(np.mean(np.abs(s - np.mean(s))))
-
-
-def margin_from_decay_db(decay_db_per_s: float, loop_delay_s: float) -> float:
-    """Gain margin from a ring-down: margin_db = decay rate (dB/s) × loop delay τ (s).
-
-    A loop peak of gain k < 1 loses k² in energy per round trip τ, so the decay
-    rate is −20·log10(k)/τ dB/s (first principles; pole of 1/(1 − k·e^(−sτ))).
-    """
-    return float(decay_db_per_s) * float(loop_delay_s)
-
-
-def loop_delay_s(ir: np.ndarray, sample_rate_hz: float, freq_hz: float, *, effective: bool = True) -> float:
-    """The loop delay τ (s) that turns a ring-down rate into a margin, from a loop IR.
-
-    With N(ω) = Σ n·h[n]·e^(−jωn) and H(ω) = Σ h[n]·e^(−jωn), d ln H/dω = −j·N/H,
-    so the group delay is τ_g = Re(N/H) and the log-magnitude slope is
-    a = Im(N/H) (samples). ``effective=False`` returns τ_g. ``effective=True``
-    returns τ_eff = (τ_g² + a²)/τ_g = |N/H|²/Re(N/H): lowering the loop gain by
-    m dB below a crossing moves the closed-loop pole to a decay of m·τ_g/(τ_g² + a²)
-    dB/s to first order (pole shift Δs = −Δln g / (d ln L/ds), first principles),
-    so margin_db = decay_db_per_s × τ_eff. For a pure delay both equal the delay.
-    """
-    h = v.finite_array(ir, "ir", ndim=1)
-    fs = v.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
-    f = v.in_range(freq_hz, "freq_hz", 0.0, fs / 2, unit="Hz", lo_open=True)
-    n = np.arange(h.size)
-    e = np.exp(-2j * np.pi * f / fs * n)
-    den = np.sum(h * e)
-    if abs(den) < _TINY:
-        return float("nan")
-    r = np.sum(n * h * e) / den
-    tau_g = float(np.real(r))
-    if not effective:
-        return tau_g / fs
-    if tau_g <= 0:
-        return float("nan")
-    return float(abs(r) ** 2 / tau_g) / fs
-
-
 # --------------------------------------------------------------------------- tracking
 
 
@@ -466,75 +407,6 @@ class _Track:
     def col(self, name: str, start: int = 0) -> list:
         k = self.FIELDS[name]
         return [r[k] for r in self.rows[start:]]
-
-
-def _median(values: list[float]) -> float:
-    s = sorted(values)
-    n = len(s)
-    return s[n // 2] if n % 2 else 0.5 * (s[n // 2 - 1] + s[n // 2])
-
-
-def _lp_delta(pm1: np.ndarray, p0: np.ndarray, pp1: np.ndarray) -> np.ndarray:
-    """Fractional-bin offset of a peak from the log-parabola through three power bins."""
-    la, lb, lc = (np.log(p.astype(np.float64) + _TINY) for p in (pm1, p0, pp1))
-    den = la - 2.0 * lb + lc
-    with np.errstate(divide="ignore", invalid="ignore"):
-        d = np.where(den < 0, 0.5 * (la - lc) / den, 0.0)
-    return np.clip(d, -0.5, 0.5)
-
-
-def _imsd_on_line(frames: list, levels: list[float], dt: float, q: int) -> float:
-    """IMSD (:func:`imsd_db_per_s`) of the level line sampled at q equally spaced instants of
-    the window (linear interpolation between frames; pure Python for short windows)."""
-    f0, f1 = frames[0], frames[-1]
-    if f1 <= f0:
-        return 0.0
-    step = (f1 - f0) / (q - 1)
-    pts = []
-    j = 0
-    for i in range(q):
-        x = f0 + i * step
-        while j < len(frames) - 2 and frames[j + 1] < x:
-            j += 1
-        xa, xb = frames[j], frames[j + 1]
-        w = (x - xa) / (xb - xa)
-        pts.append(levels[j] + w * (levels[j + 1] - levels[j]))
-    d = step * dt
-    s = [(pts[-1] - pts[-1 - k]) / (k * d) for k in range(1, q)]
-    m = sum(s) / len(s)
-    return sum(abs(v - m) for v in s) / len(s)
-
-
-def _rel_std(values: list[float]) -> float:
-    """Relative standard deviation of a short list (pure Python: cheaper than numpy on < 50 values)."""
-    n = len(values)
-    m = sum(values) / n
-    return (sum((v - m) * (v - m) for v in values) / n) ** 0.5 / m
-
-
-def _slope(x: list, y: list[float]) -> float:
-    """Least-squares slope of a short list (pure Python)."""
-    n = len(x)
-    xm = sum(x) / n
-    ym = sum(y) / n
-    sxx = sum((a - xm) * (a - xm) for a in x)
-    if sxx <= 0:
-        return 0.0
-    return sum((a - xm) * (b - ym) for a, b in zip(x, y)) / sxx
-
-
-def _linfit(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
-    """Least-squares line: (slope, intercept, rms residual)."""
-    xm = x.mean()
-    ym = y.mean()
-    dx = x - xm
-    sxx = float(np.dot(dx, dx))
-    if sxx <= 0:
-        return 0.0, float(ym), 0.0
-    slope = float(np.dot(dx, y - ym)) / sxx
-    icpt = float(ym - slope * xm)
-    res = y - (icpt + slope * x)
-    return slope, icpt, float(np.sqrt(np.mean(res * res)))
 
 
 class Detector:
@@ -1107,130 +979,3 @@ def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None =
         events=tuple(det.events), sample_rate_hz=det.fs, duration_s=x.size / det.fs, n_frames=det._frame,
         window_samples=det.n_win, hop_samples=det.hop, loop_delay_s=det.loop_delay_s,
     )
-
-
-# --------------------------------------------------------------------------- notch suggestions
-
-#: Assumed loop delay when none is known: 20 ms ≈ 6.9 m of acoustic path, a
-#: typical speaker-to-mic distance on a small stage (common practice, no source).
-DEFAULT_LOOP_DELAY_S = 0.020
-#: Headroom a suggested cut aims for beyond "just stops it" (3 dB: the lower end of
-#: the usual 3–6 dB feedback stability margin, common practice, no source).
-TARGET_MARGIN_DB = 3.0
-
-
-def suggest_event_cut(event: Event, *, loop_delay_s: float | None = None, target_margin_db: float = TARGET_MARGIN_DB,
-                      temperature_c: float = 20.0, swing_c: float = 3.0):
-    """The cut (a :class:`howl.notch.Notch`) that stops an event, by the ring-out rules.
-
-    needed_db = target margin − current margin, where the current margin is
-    −growth·τ for a howl (the loop is that far above unity) and decay·τ for a
-    ringing (headroom left). τ is the known loop delay or
-    :data:`DEFAULT_LOOP_DELAY_S`. The width covers the temperature drift
-    (``howl.notch.suggest_cut``). Returns (notch, needed_db, margin_used_db).
-    """
-    from .notch import suggest_cut
-
-    tau = loop_delay_s if loop_delay_s is not None else DEFAULT_LOOP_DELAY_S
-    if event.margin_db is not None:
-        margin = event.margin_db
-    elif event.kind == "howl":
-        margin = -max(event.growth_db_per_s, 0.0) * tau
-    else:
-        margin = (event.decay_db_per_s or 0.0) * tau
-    needed = max(target_margin_db - margin, 0.5)
-    notch = suggest_cut(event.freq_hz, needed, temperature_c=temperature_c, swing_c=swing_c)
-    return notch, float(needed), float(margin)
-
-
-def summarise_notches(notches, sample_rate_hz: float, *, max_notches: int = 6):
-    """Merge cuts at the same frequency (``howl.notch.merge_notches``) and keep a budget.
-
-    Returns (kept notches sorted by frequency, advice strings). When more distinct
-    cuts are needed than the budget, or merged cuts reach the 1/3-octave cap,
-    the advice says a broad EQ or a placement change would serve better.
-    """
-    from .notch import merge_notches
-
-    advice = []
-    if not notches:
-        return [], advice
-    merged = list(merge_notches(list(notches), sample_rate_hz))
-    depth = [(-(n.gain_db if n.gain_db is not None else -60.0)) for n in merged]
-    order = np.argsort(depth)[::-1]
-    kept = [merged[i] for i in order[:max_notches]]
-    if len(merged) > max_notches:
-        advice.append(
-            f"{len(merged)} separate frequencies ring but the cut budget is {max_notches}: "
-            "a broad EQ or moving the mic/speaker would serve better than more notches"
-        )
-    wide = [n for n in kept if n.bandwidth_oct >= 1 / 3 - 1e-9]
-    if wide:
-        advice.append(
-            "cut(s) at " + ", ".join(f"{n.freq_hz:.0f} Hz" for n in wide)
-            + " reached the 1/3-octave width cap: a broad EQ may serve better"
-        )
-    kept.sort(key=lambda n: n.freq_hz)
-    return kept, advice
-
-
-def event_to_dict(event: Event) -> dict:
-    """JSON-ready dict of an event (None fields kept as null)."""
-    return dataclasses.asdict(event)
-
-
-def event_record(e: Event, *, loop_delay_s: float | None = None, target_margin_db: float = TARGET_MARGIN_DB,
-                 temperature_c: float = 20.0, swing_c: float = 3.0) -> dict:
-    """One event as the JSON of ``howl scan``/``howl listen`` shows it, with its suggested cut."""
-    notch, needed, margin_used = suggest_event_cut(
-        e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db, temperature_c=temperature_c, swing_c=swing_c)
-    d = {
-        "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
-        "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
-        "decay_db_per_s": e.decay_db_per_s, "steady": e.steady, "live": e.live, "window_s": e.window_s,
-        "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
-                  "bandwidth_oct": notch.bandwidth_oct},
-        "needed_cut_db": needed,
-        "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
-                     "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd, "phpr_comod_db": e.phpr_comod_db},
-    }
-    if loop_delay_s is not None:
-        d["margin_db"] = e.margin_db
-    else:
-        d["margin_assumed_db"] = margin_used
-    return d
-
-
-def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: float | None = None,
-           max_notches: int = 6, temperature_c: float = 20.0, swing_c: float = 3.0,
-           target_margin_db: float = TARGET_MARGIN_DB) -> dict:
-    """The JSON-ready report shared by ``howl scan`` and ``howl listen``.
-
-    ``events``: each with its suggested cut (``notch``) and the cut depth it needs;
-    ``notches``: the cuts merged across events (same frequency → one cut) within the
-    budget ``max_notches``; ``advice``: when a broad EQ or placement would serve better.
-    """
-    ev_out = [event_record(e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
-                           temperature_c=temperature_c, swing_c=swing_c) for e in events]
-    from .notch import Notch
-
-    cuts = [Notch(d["notch"]["freq_hz"], d["notch"]["gain_db"], d["notch"]["q"]) for d in ev_out]
-    kept, advice = summarise_notches(cuts, sample_rate_hz, max_notches=max_notches)
-    notches = []
-    for n in kept:
-        lo, hi = n.band_edges_hz()
-        members = [e for e in events if lo <= e.freq_hz <= hi]
-        notches.append({"freq_hz": n.freq_hz, "gain_db": n.gain_db, "q": n.q, "bandwidth_oct": n.bandwidth_oct,
-                        "n_events": len(members), "kinds": sorted({e.kind for e in members})})
-    return {
-        "sample_rate_hz": float(sample_rate_hz),
-        "duration_s": float(duration_s),
-        "loop_delay_ms": None if loop_delay_s is None else 1000.0 * loop_delay_s,
-        "assumed_loop_delay_ms": None if loop_delay_s is not None else 1000.0 * DEFAULT_LOOP_DELAY_S,
-        "target_margin_db": target_margin_db,
-        "events": ev_out,
-        "notches": notches,
-        "advice": advice,
-        "n_howl": sum(e.kind == "howl" for e in events),
-        "n_ringing": sum(e.kind == "ringing" for e in events),
-    }
