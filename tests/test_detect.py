@@ -78,6 +78,36 @@ def tone(fs: float, freq_hz: float, dur_s: float, start_db: float, growth_db_per
     return 10 ** ((start_db + growth_db_per_s * t) / 20) * np.sin(2 * np.pi * freq_hz * t + phase)
 
 
+def held_note_crescendo(fs: float, freq_hz: float, growth_db_per_s: float, dur_s: float = 5.0) -> np.ndarray:
+    """A held harmonic note without vibrato (organ- or synth-like, our own model): 6 partials at
+    0.6^(h−1), the whole note swelling on a straight line in dB from −45 dBFS."""
+    t = np.arange(int(dur_s * fs)) / fs
+    ph = 2 * np.pi * freq_hz * t
+    partials = sum(0.6 ** (h - 1) * np.sin(h * ph + h) for h in range(1, 7) if h * freq_hz < 0.45 * fs)
+    return 10 ** ((-45 + growth_db_per_s * t) / 20) * partials
+
+
+def sung_vowel_swell(fs: float, freq_hz: float, growth_db_per_s: float, vibrato: float, dur_s: float = 5.0) -> np.ndarray:
+    """A tone-like sung vowel (our own model): strong fundamental, 2nd partial 12 dB and 3rd 22 dB
+    down, vibrato of ±``vibrato`` at 5.5 Hz fading in over 0.5 s, swelling for 3.5 s."""
+    t = np.arange(int(dur_s * fs)) / fs
+    fi = freq_hz * (1 + vibrato * np.sin(2 * np.pi * 5.5 * t) * np.minimum(1, t / 0.5))
+    ph = 2 * np.pi * np.cumsum(fi) / fs
+    return 10 ** ((-45 + growth_db_per_s * np.minimum(t, 3.5)) / 20) * (
+        np.sin(ph) + 0.25 * np.sin(2 * ph + 1) + 0.08 * np.sin(3 * ph + 2))
+
+
+def flute_swell(fs: float, freq_hz: float, growth_db_per_s: float, tremolo_phase: float, seed: int = 50,
+                dur_s: float = 5.0) -> np.ndarray:
+    """A flute-like near-sinusoid (our own model): ±0.5 % vibrato and ±1.5 dB tremolo at 5 Hz,
+    2nd/3rd partials 26/34 dB down, a 2 s swell from −50 dBFS, breath noise at −70 dBFS."""
+    t = np.arange(int(dur_s * fs)) / fs
+    ph = 2 * np.pi * np.cumsum(freq_hz * (1 + 0.005 * np.sin(2 * np.pi * 5 * t))) / fs
+    lv = -50 + growth_db_per_s * np.minimum(t, 2.0) + 1.5 * np.sin(2 * np.pi * 5 * t + tremolo_phase)
+    x = 10 ** (lv / 20) * (np.sin(ph) + 0.05 * np.sin(2 * ph) + 0.02 * np.sin(3 * ph))
+    return x + 10 ** (-70 / 20) * np.random.default_rng(seed).standard_normal(t.size)
+
+
 @functools.lru_cache(maxsize=None)
 def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15):
     """A loop IR from pyroomacoustics (image sources, Sabine-inverted absorption) through a
@@ -285,19 +315,65 @@ def test_no_detection_on_program_alone(case):
     assert _record(case, events) == 0, events
 
 
+HARD_NO_HOWL = {
+    # sustained notes in slow crescendo (straight lines in dB, pure partials, no vibrato)
+    "held note 220 Hz +6 dB/s": lambda fs: held_note_crescendo(fs, 220.0, 6.0),
+    "held note 523 Hz +10 dB/s": lambda fs: held_note_crescendo(fs, 523.25, 10.0),
+    "held note 880 Hz +15 dB/s": lambda fs: held_note_crescendo(fs, 880.0, 15.0),
+    "held note 1319 Hz +8 dB/s": lambda fs: held_note_crescendo(fs, 1318.5, 8.0),
+    # tone-like sung vowels swelling, vibrato fading in
+    "sung vowel 392 Hz +10 dB/s, 1 % vibrato": lambda fs: sung_vowel_swell(fs, 392.0, 10.0, 0.01),
+    "sung vowel 659 Hz +12 dB/s, 0.6 % vibrato": lambda fs: sung_vowel_swell(fs, 659.3, 12.0, 0.006),
+    "sung vowel 988 Hz +8 dB/s, 0.8 % vibrato": lambda fs: sung_vowel_swell(fs, 987.8, 8.0, 0.008),
+    # flute-like near-sinusoids with 0.5 % vibrato, tremolo and a swell
+    "flute 587 Hz +12 dB/s": lambda fs: flute_swell(fs, 587.3, 12.0, 0.0),
+    "flute 880 Hz +20 dB/s": lambda fs: flute_swell(fs, 880.0, 20.0, 1.5),
+    "flute 1175 Hz +15 dB/s": lambda fs: flute_swell(fs, 1174.7, 15.0, 3.0),
+    "flute 1568 Hz +25 dB/s": lambda fs: flute_swell(fs, 1568.0, 25.0, 4.5),
+}
+
+
+@pytest.mark.parametrize("case", sorted(HARD_NO_HOWL))
+def test_no_detection_on_hard_no_howl_programs(case):
+    # The classic false alarms, made harder: straight-line swells of pure or nearly pure tones.
+    events = D.detect(HARD_NO_HOWL[case](16000), 16000).events
+    assert _record(case, events) == 0, events
+
+
+@pytest.mark.parametrize("seed", [400, 401, 402])
+def test_no_detection_on_more_programs(seed):
+    fs = 16000
+    for name, x in (("speech", speech_like(fs, 10, seed)), ("music", music_like(fs, 10, seed)),
+                    ("held notes", music_like(fs, 10, seed, vibrato=False))):
+        events = D.detect(x, fs).events
+        assert _record(f"{name} seed {seed}", events) == 0, events
+
+
 # ----------------------------------------------------------------------------- closed-loop truth
 
 
-@pytest.mark.parametrize("seed, program", [(0, "speech"), (2, "music"), (1, "music")])
-def test_howl_in_a_simulated_room_loop_is_found_before_it_dominates(seed, program):
+#: Known misses of "detected before it dominates" (tests/benchmarks/bench_detect.py, docs/scan.md):
+#: low howls (578, 848 Hz, 1.9 kHz) in dense program dominate 0.1–0.3 s after the gain step,
+#: about when the detector's shortest window (0.1 s of growth, 85 ms frames) can decide.
+KNOWN_LATE = {(0, "speech", 3.0), (3, "speech", 1.0), (4, "music", 3.0), (4, "speech", 3.0)}
+CLOSED_LOOP_CASES = ([(s, p, 3.0) for s in range(5) for p in ("speech", "music")]
+                     + [(0, "speech", 1.0), (3, "speech", 1.0)])
+
+
+@pytest.mark.parametrize("seed, program, over_db", [
+    pytest.param(*c, marks=pytest.mark.xfail(strict=True, reason="known late (see KNOWN_LATE)"))
+    if c in KNOWN_LATE else c for c in CLOSED_LOOP_CASES])
+def test_howl_in_a_simulated_room_loop_is_found_before_it_dominates(seed, program, over_db):
+    # The benchmark's cases (same programs, loops and gain step at 2 s), simulated to 2 s + 1.3 s
+    # only (the simulation is causal, so the first 3.3 s are the benchmark's).
     from howl.simulate import simulate_closed_loop
 
     fs = 16000
     h, cross_f, cross_m = room_loop(seed)
-    x = speech_like(fs, 6, seed) if program == "speech" else music_like(fs, 6, seed + 10)
-    over_db = 1.0
+    x = speech_like(fs, 7, seed) if program == "speech" else music_like(fs, 7, seed + 10)
+    x = x[: int(3.3 * fs)]
     g = np.full(x.size, -6.0)
-    g[2 * fs:] = over_db  # the fader goes 1 dB past the worst crossing at t = 2 s
+    g[2 * fs:] = over_db  # the fader goes past the worst crossing at t = 2 s
     y = simulate_closed_loop(h, x, fs, gain_db=g)
     unstable = cross_f[cross_m - over_db < 0]
     r = D.detect(y, fs)
@@ -313,9 +389,11 @@ def test_howl_in_a_simulated_room_loop_is_found_before_it_dominates(seed, progra
         if e.time_s < t_lim:
             err = np.min(np.abs(unstable / e.freq_hz - 1))
             assert err < 1e-3, (e, unstable)
+    # program RMS of the whole 7 s program, as in the benchmark
+    rms = float(np.sqrt(np.mean((speech_like(fs, 7, seed) if program == "speech" else music_like(fs, 7, seed + 10)) ** 2)))
     i = int(np.argmin(np.abs(unstable / first.freq_hz - 1)))
-    t_dom = t_dominates(y, fs, unstable[i], float(np.sqrt(np.mean(x ** 2))), 2.0)
-    print(f"seed {seed} {program}: howl {first.freq_hz:.2f} Hz detected at {first.time_s:.2f} s, "
+    t_dom = t_dominates(y, fs, unstable[i], rms, 2.0)
+    print(f"seed {seed} {program} +{over_db} dB: howl {first.freq_hz:.2f} Hz detected at {first.time_s:.2f} s, "
           f"dominates at {t_dom:.2f} s, latency {first.time_s - 2.0:.2f} s")
     assert first.time_s < t_dom
 
@@ -355,3 +433,26 @@ def test_ring_down_after_a_click_estimates_the_margin_within_1_db(seed, margin_d
         assert abs(est - true_margin) < 1.0
     # the worst crossing (0 dB + margin) is among them
     assert any(abs(e.freq_hz / cross_f[np.argmin(cross_m)] - 1) < 1e-3 for e in ring)
+
+
+def test_ringing_is_reported_while_it_still_fades_once_per_ring_down():
+    # A tone decaying on a straight line at 20 dB/s from -12 dBFS for 3 s (exact by construction):
+    # the event comes once >= 10 dB over >= 0.15 s of decay is seen, long before the tone is gone.
+    fs = 16000
+    rng = np.random.default_rng(13)
+    x = np.concatenate([np.zeros(fs // 2), tone(fs, 2500.0, 3.0, -12, -20.0), np.zeros(fs)])
+    x = x + 10 ** (-95 / 20) * rng.standard_normal(x.size)
+    det = D.Detector(fs, loop_delay_s=0.075)
+    new = []
+    for i in range(0, x.size, 512):
+        new += [(i + 512, e) for e in det.process(x[i: i + 512])]
+    new += [(x.size, e) for e in det.finish()]
+    ring = [(n, e) for n, e in new if e.kind == "ringing"]
+    assert len(ring) == 1, new  # one event per ring-down
+    n_at, e = ring[0]
+    assert e.live and e.time_s < 0.5 + 1.5  # 2.5 kHz fading: reported within ~1 s of the start, not at its end
+    assert n_at / fs < 0.5 + 1.5
+    assert abs(e.freq_hz / 2500.0 - 1) < 1e-3
+    assert e.decay_db_per_s == pytest.approx(20.0, rel=0.05)
+    # first principles: margin = decay * tau = 20 dB/s * 75 ms = 1.5 dB ("~1.5 dB from howling")
+    assert e.margin_db == pytest.approx(1.5, abs=0.1)
