@@ -169,3 +169,25 @@ def test_ctrl_c_stops_the_loop_cleanly_and_overflows_are_reported(tmp_path):
     assert res.interrupted and res.n_samples == 20 * 512
     assert res.overflows == 3 and res.report["overflows"] == 3
     assert log.exists()  # closed cleanly, possibly empty
+
+
+def test_listen_loop_shows_a_ringing_while_it_still_fades(tmp_path):
+    # A 2.5 kHz ring-down at 20 dB/s from -12 dBFS (exact by construction) fed in blocks: the
+    # ringing event is logged, and in the view, before the tone has faded (it lasts 3 s).
+    from howl.commands.listen import _margin_text
+    from howl.live import ArraySource, listen
+
+    fs = 16000
+    t = np.arange(3 * fs) / fs
+    ring = 10 ** ((-12 - 20 * t) / 20) * np.sin(2 * np.pi * 2500.0 * t)
+    y = np.concatenate([np.zeros(fs // 2), ring, np.zeros(fs // 2)])
+    y = y + 10 ** (-95 / 20) * np.random.default_rng(3).standard_normal(y.size)
+    snaps = []
+    res = listen(ArraySource(y, fs, block_frames=512), log_path=tmp_path / "ev.jsonl", on_update=snaps.append,
+                 update_interval_s=0.0, loop_delay_s=0.075)
+    first = next(s for s in snaps if any(e["kind"] == "ringing" for e in s.events))
+    assert first.elapsed_s < 0.5 + 1.5  # seen while fading, not when the track ends (> 3.5 s)
+    rings = [e for e in res.report["events"] if e["kind"] == "ringing"]
+    assert len(rings) == 1 and rings[0]["live"]  # one event per ring-down
+    # margin = decay * tau = 20 dB/s * 75 ms = 1.5 dB (first principles)
+    assert _margin_text(rings[0]) == "1.5 dB from howling"

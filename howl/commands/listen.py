@@ -10,6 +10,19 @@ import typer
 ORDER = 75
 
 
+def _margin_text(rec: dict) -> str:
+    """How far from howling: "1.5 dB from howling" for a ringing, "0.6 dB past" for a howl;
+    "~" when the loop delay was assumed (no --loop-delay-ms)."""
+    m = rec.get("margin_db")
+    approx = ""
+    if m is None:
+        m = rec.get("margin_assumed_db")
+        approx = "~"
+    if m is None:
+        return "-"
+    return f"{approx}{m:.1f} dB from howling" if m > 0 else f"{approx}{-m:.1f} dB past"
+
+
 def _view(snap, device_label: str, fs: float):
     from rich.console import Group
     from rich.table import Table
@@ -24,13 +37,13 @@ def _view(snap, device_label: str, fs: float):
         cand.add_row(f"{c.freq_hz:.1f}", f"{c.level_db:.1f}", f"{c.trend_db_per_s:+.1f}", f"{c.age_s:.1f}",
                      f"{c.pnpr_db:.0f}", f"{c.phpr_db:.0f}", c.state)
     ev = Table(title="events (newest last)", expand=False)
-    for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "suggested cut"):
+    for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "margin", "suggested cut"):
         ev.add_column(col, justify="right")
     for r in snap.events[-6:]:
         n = r["notch"]
         cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
         ev.add_row(f"{r['time_s']:.1f}", r["kind"], f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
-                   f"{r['growth_db_per_s']:+.1f}", f"{cut} Q {n['q']:.1f}")
+                   f"{r['growth_db_per_s']:+.1f}", _margin_text(r), f"{cut} Q {n['q']:.1f}")
     notches = Table(title="running notch list", expand=False)
     for col in ("freq_hz", "cut", "Q", "width_oct"):
         notches.add_column(col, justify="right")
