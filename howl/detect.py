@@ -140,6 +140,7 @@ __all__ = [
 ]
 
 
+@dataclass(frozen=True)
 class DetectorConfig:
     """Detector settings. Thresholds and why (tuned on synthetic tones, harmonic notes
     with vibrato, speech-like programs and closed-loop simulations in
@@ -196,6 +197,9 @@ class DetectorConfig:
         above ``min_level_dbfs`` whose power rose by ≥ 40 dB/s over the last 80 ms (a
         third of that in each half, a local maximum also at mid look-back) and whose
         interpolated frequency moved ≤ 0.15 bin meanwhile (gliding speech partials do not).
+        They are looked for up to ``rise_f_hi_hz`` (8 kHz: most howls sit between 200 Hz
+        and 6 kHz, where loudspeakers and mics have their output and the loop its gain;
+        common practice, no source); above, howls are found from the strongest peaks.
     eval_every_frames, hot_rise_db: tracks are evaluated every 4 frames, or every frame
         while their level rose ≥ 1 dB over the last 0.10 s.
     growth_fit_s: the reported growth of a howl is a Theil-Sen line over up to 0.5 s.
@@ -243,6 +247,7 @@ class DetectorConfig:
     rise_max_shift_bins: float = 0.15
     rise_min_decel_ratio: float = 0.85
     rise_max_drift: float = 0.0003
+    rise_f_hi_hz: float = 8000.0
     min_phpr_comod_db: float = 20.0
     min_phpr_other_db: float = 3.0
     halves_fraction: float = 0.25
@@ -472,6 +477,7 @@ class Detector:
         self._pnpr_off = np.array([4, 5, 6])
         self._ptail = None
         self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
+        self.k_rise_hi = max(self.k_lo + 3, min(self.k_hi, int(np.ceil(self.cfg.rise_f_hi_hz / self.bin_hz))))
         self._harm = np.array(HARMONIC_MULTIPLIERS)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
@@ -591,7 +597,7 @@ class Detector:
         phpr = ratio[:, self._basic].min(axis=1)
         phf = ratio.min(axis=1)
         bounds = np.searchsorted(rows, np.arange(n_f + 1))
-        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), ratio))
+        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf, ratio))))
         t0 = self._frame
         for i in range(n_f):
             i0 = int(bounds[i])
@@ -606,7 +612,7 @@ class Detector:
         third of that over each half. At most ``n_rising_candidates`` per frame, steepest first."""
         M = self.rise_frames
         h = M // 2
-        lo, hi = self.k_lo, self.k_hi
+        lo, hi = self.k_lo, self.k_rise_hi
         tail = self._ptail
         ext = power[:, lo - 1: hi + 1] if tail is None else np.concatenate([tail, power[:, lo - 1: hi + 1]])
         off = 0 if tail is None else tail.shape[0]
@@ -625,14 +631,13 @@ class Detector:
         ok = cur >= np.float32(r_all) * old
         ok &= cur > ext[first:, :-2]
         ok &= cur >= ext[first:, 2:]
-        ok &= cur >= floor
         rr, cc = np.nonzero(ok)
         if rr.size == 0:
             return rows, k
         e = rr + first
         c = cc + 1
         pc, pm, po = ext[e, c], ext[e - h, c], ext[e - M, c]
-        ok = ((pc >= np.float32(r_half) * pm) & (pm >= np.float32(r_half) * po)
+        ok = ((pc >= floor) & (pc >= np.float32(r_half) * pm) & (pm >= np.float32(r_half) * po)
               & (pm > ext[e - h, c - 1]) & (pm >= ext[e - h, c + 1]))
         rr, cc, e, c = rr[ok], cc[ok], e[ok], c[ok]
         if rr.size == 0:
@@ -698,6 +703,8 @@ class Detector:
             best.add(t, rows[j])
             matched.add(best.tid)
         alive = []
+        every = self.cfg.eval_every_frames
+        span_db = self.cfg.min_decay_span_db
         for tr in self._tracks:
             if tr.tid not in matched:
                 tr.gap += 1
@@ -705,12 +712,15 @@ class Detector:
                     self._close(tr)
                     continue
             alive.append(tr)
-            if tr.reported is None and tr.gap == 0 and t - tr.last_eval >= (1 if tr.hot else self.cfg.eval_every_frames):
+            if tr.reported is not None or tr.gap:
+                continue
+            if t - tr.last_eval >= (1 if tr.hot else every):
                 tr.last_eval = t
                 self._evaluate(tr, t)
+                if tr.reported is not None:
+                    continue
             # a ring-down is reported while it still fades, once enough of it has been seen
-            if (tr.reported is None and tr.gap == 0 and tr.peak - tr.rows[-1][1] >= self.cfg.min_decay_span_db
-                    and t - tr.last_ring >= self.cfg.eval_every_frames):
+            if tr.peak - tr.rows[-1][1] >= span_db and t - tr.last_ring >= every:
                 tr.last_ring = t
                 ev = self._ringdown(tr, live=True)
                 if ev is not None:

@@ -6,8 +6,14 @@
 2. Detection latency over the synthetic closed-loop cases: pyroomacoustics loop IRs at 16 kHz,
    speech-like and music-like programs, the gain stepped 0.5–3 dB past the worst crossing at
    t = 2 s; latency = detection time − 2 s, lead = (time the howl is as loud as the program)
-   − detection time (positive: detected before it dominates).
-Prints a table of medians and writes JSON to tests/benchmarks/results/bench_detect.json.
+   − detection time (positive: detected before it dominates), for the unstable crossing nearest
+   the first howl reported; lead_any = (first time any unstable crossing's howl is as loud as
+   the program) − time of the first howl reported (stricter).
+3. False alarms on every no-howl program of tests/test_detect.py (speech-like, music-like with
+   and without vibrato, noise, a held note with vibrato and crescendo, the hard cases: held notes
+   in crescendo, swelling sung vowels, flute-like swells) and on program through the 5 loops at
+   the usual 6 dB margin: the count of events on each.
+Prints tables and writes JSON to tests/benchmarks/results/bench_detect.json.
 """
 
 from __future__ import annotations
@@ -26,7 +32,7 @@ import numpy as np  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
 
-from test_detect import music_like, room_loop, speech_like, t_dominates  # noqa: E402
+from test_detect import HARD_NO_HOWL, music_like, room_loop, speech_like, t_dominates  # noqa: E402
 
 from howl.detect import detect  # noqa: E402
 
@@ -75,15 +81,55 @@ def latency(quick: bool) -> list[dict]:
                 if howls:
                     e = howls[0]
                     err = float(np.min(np.abs(unstable / e.freq_hz - 1)))
-                    t_dom = t_dominates(y, fs, unstable[int(np.argmin(np.abs(unstable / e.freq_hz - 1)))],
-                                        float(np.sqrt(np.mean(x ** 2))), 2.0)
+                    rms = float(np.sqrt(np.mean(x ** 2)))
+                    t_dom = t_dominates(y, fs, unstable[int(np.argmin(np.abs(unstable / e.freq_hz - 1)))], rms, 2.0)
+                    t_any = min(t_dominates(y, fs, f, rms, 2.0) for f in unstable)
+                    knee = 0.5 * 10 ** (-1 / 20)  # the simulator's limiter knee (-1 dBFS ceiling)
+                    over = np.nonzero(np.abs(y) > knee)[0]
+                    t_lim = over[0] / fs if over.size else np.inf
+                    wrong = [h for h in howls if h.time_s < t_lim and np.min(np.abs(unstable / h.freq_hz - 1)) >= 1e-3]
                     row.update(detected=True, freq_hz=e.freq_hz, freq_err_pct=100 * err, latency_s=e.time_s - 2.0,
-                               lead_s=t_dom - e.time_s, growth_db_per_s=e.growth_db_per_s)
+                               lead_s=t_dom - e.time_s, lead_any_s=t_any - e.time_s, window_s=e.window_s,
+                               growth_db_per_s=e.growth_db_per_s, n_howls_off_crossing_before_limiter=len(wrong))
                 else:
                     row.update(detected=False)
                 rows.append(row)
                 print(row, flush=True)
     return rows
+
+
+def false_alarms(quick: bool) -> list[dict]:
+    from howl.simulate import simulate_closed_loop
+
+    fs = 16000
+    rng = np.random.default_rng(21)
+    t = np.arange(4 * fs) / fs
+    f0 = 440 * (1 + 0.008 * np.sin(2 * np.pi * 5.5 * t))
+    ph = 2 * np.pi * np.cumsum(f0) / fs
+    cases = {
+        "vibrato-notes (8 s)": music_like(fs, 8, 31, vibrato=True),
+        "held-harmonic-notes (8 s)": music_like(fs, 8, 32, vibrato=False),
+        "speech (8 s)": speech_like(fs, 8, 33),
+        "noise (8 s)": 0.03 * rng.standard_normal(8 * fs),
+        "held vibrato note, +6 dB/s": 10 ** ((-40 + 6 * t) / 20) * sum(0.6 ** (h - 1) * np.sin(h * ph) for h in range(1, 7)),
+    }
+    cases.update({f"{k} (5 s)": f(fs) for k, f in HARD_NO_HOWL.items()})
+    for seed in range(400, 403 if quick else 412):
+        cases[f"speech seed {seed} (10 s)"] = speech_like(fs, 10, seed)
+        cases[f"music seed {seed} (10 s)"] = music_like(fs, 10, seed)
+        cases[f"held notes seed {seed} (10 s)"] = music_like(fs, 10, seed, vibrato=False)
+    for seed in range(2 if quick else 5):
+        h, _, _ = room_loop(seed)
+        cases[f"speech through loop {seed} at 6 dB margin (5 s)"] = simulate_closed_loop(
+            h, speech_like(fs, 5, seed + 40), fs, gain_db=-6.0)
+        cases[f"music through loop {seed} at 6 dB margin (5 s)"] = simulate_closed_loop(
+            h, music_like(fs, 5, seed + 60), fs, gain_db=-6.0)
+    out = []
+    for name, x in cases.items():
+        ev = detect(x, fs).events
+        out.append({"program": name, "audio_s": x.size / fs, "false_alarms": len(ev),
+                    "events": [{"kind": e.kind, "time_s": e.time_s, "freq_hz": e.freq_hz} for e in ev]})
+    return out
 
 
 def main() -> None:
@@ -104,7 +150,24 @@ def main() -> None:
         print(f"latency after the gain step  p10/median/p90: {q(lats).round(2)} s")
         print(f"lead before it dominates     p10/median/p90: {q(leads).round(2)} s (min {leads.min():.2f})")
         print(f"frequency error              median/max: {np.median(errs):.4f} / {errs.max():.4f} %")
-    out = {"rtf_48k": r, "latency_cases": lat}
+        any_ = np.array([row["lead_any_s"] for row in det])
+        print(f"lead_s <= 0 in {int(np.sum(leads <= 0))} of {len(det)}; lead_any_s <= 0 in {int(np.sum(any_ <= 0))}")
+        print(f"howls off the unstable crossings before the limiter: "
+              f"{sum(row['n_howls_off_crossing_before_limiter'] for row in det)}")
+        print(f"\n{'case':<20}{'latency_s':>10}{'lead_s':>8}{'lead_any_s':>11}{'window_s':>9}{'dB/s':>7}")
+        for row in lat:
+            name = f"{row['seed']} {row['program']} +{row['over_db']:g} dB"
+            if row["detected"]:
+                print(f"{name:<20}{row['latency_s']:10.2f}{row['lead_s']:8.2f}{row['lead_any_s']:11.2f}"
+                      f"{row['window_s']:9.2f}{row['growth_db_per_s']:7.0f}")
+            else:
+                print(f"{name:<20}{'missed':>10}")
+    fa = false_alarms(quick)
+    print(f"\nfalse alarms on {len(fa)} no-howl programs ({sum(c['audio_s'] for c in fa):.0f} s): "
+          f"{sum(c['false_alarms'] for c in fa)}")
+    for c in fa:
+        print(f"  {c['false_alarms']}  {c['program']}")
+    out = {"rtf_48k": r, "latency_cases": lat, "false_alarms": fa}
     path = HERE / "results" / "bench_detect.json"
     path.parent.mkdir(exist_ok=True)
     path.write_text(json.dumps(out, indent=2), encoding="utf-8")
