@@ -476,6 +476,7 @@ class Detector:
         self.events: list[Event] = []
         self._pnpr_off = np.array([4, 5, 6])
         self._ptail = None
+        self._rise_carry = None
         self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
         self.k_rise_hi = max(self.k_lo + 3, min(self.k_hi, int(np.ceil(self.cfg.rise_f_hi_hz / self.bin_hz))))
         self._harm = np.array(HARMONIC_MULTIPLIERS)
@@ -597,7 +598,7 @@ class Detector:
         phpr = ratio[:, self._basic].min(axis=1)
         phf = ratio.min(axis=1)
         bounds = np.searchsorted(rows, np.arange(n_f + 1))
-        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf, ratio))))
+        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), list(ratio)))
         t0 = self._frame
         for i in range(n_f):
             i0 = int(bounds[i])
@@ -609,7 +610,10 @@ class Detector:
         """Add rising candidates: pure local maxima anywhere above the level floor (also far
         below the PAPR gate, where a howl starts) whose power rose steadily over the last
         ``rise_lookback_s``: at least ``rise_min_db_per_s`` over the whole look-back and a
-        third of that over each half. At most ``n_rising_candidates`` per frame, steepest first."""
+        third of that over each half. At most ``n_rising_candidates`` per frame, steepest first.
+
+        The dense search runs on even frames (by the global frame count, so blocks of any size
+        give the same result); a bin found there is tested again, sparsely, on the next frame."""
         M = self.rise_frames
         h = M // 2
         lo, hi = self.k_lo, self.k_rise_hi
@@ -617,40 +621,58 @@ class Detector:
         ext = power[:, lo - 1: hi + 1] if tail is None else np.concatenate([tail, power[:, lo - 1: hi + 1]])
         off = 0 if tail is None else tail.shape[0]
         self._ptail = ext[-M:].copy() if ext.shape[0] >= M else ext.copy()
-        if ext.shape[0] <= M:
-            return rows, k
-        r_all = 10.0 ** (self.cfg.rise_min_db_per_s * M * self.dt / 10.0)
-        r_half = r_all ** (1.0 / 3.0)
-        first = max(M, off)  # rows of ext that have M frames of history and belong to this chunk
-        floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
+        carry, self._rise_carry = self._rise_carry, None
         n = ext.shape[0]
-        cur = ext[first:, 1:-1]
-        old = ext[first - M: n - M, 1:-1]
-        # dense: the whole rise and a local maximum now; then sparse: the halves, a local maximum
-        # at mid look-back
-        ok = cur >= np.float32(r_all) * old
-        ok &= cur > ext[first:, :-2]
-        ok &= cur >= ext[first:, 2:]
-        rr, cc = np.nonzero(ok)
-        if rr.size == 0:
+        if n <= M:
             return rows, k
-        e = rr + first
-        c = cc + 1
-        pc, pm, po = ext[e, c], ext[e - h, c], ext[e - M, c]
-        ok = ((pc >= floor) & (pc >= np.float32(r_half) * pm) & (pm >= np.float32(r_half) * po)
-              & (pm > ext[e - h, c - 1]) & (pm >= ext[e - h, c + 1]))
-        rr, cc, e, c = rr[ok], cc[ok], e[ok], c[ok]
-        if rr.size == 0:
+        r_all = np.float32(10.0 ** (self.cfg.rise_min_db_per_s * M * self.dt / 10.0))
+        r_half = np.float32(r_all ** (1.0 / 3.0))
+        floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
+        first = max(M, off)  # rows of ext that have M frames of history and belong to this chunk
+        t0 = self._frame - off  # global frame index of ext row 0
+        e_even = first + ((t0 + first) % 2)
+        # dense, on even frames and on pairs of bins: the larger of a pair rose by the whole rise
+        inner = ext[:, 1:-1]
+        w2 = inner.shape[1] // 2 * 2
+        cur = inner[e_even::2, :w2]
+        old = inner[e_even - M: n - M: 2, :w2][: cur.shape[0]]
+        pool_c = np.maximum(cur[:, 0::2], cur[:, 1::2])
+        pool_o = np.maximum(old[:, 0::2], old[:, 1::2])
+        rr, jj = np.nonzero(pool_c >= r_all * pool_o)
+        e = e_even + 2 * rr
+        c0 = 2 * jj + 1  # ext column of the pair's first bin
+        c = c0 + (ext[e, c0 + 1] > ext[e, c0])
+
+        def sparse(e, c):
+            """The bin itself rose (whole and halves), is a local maximum now and at mid look-back."""
+            pc, pm, po = ext[e, c], ext[e - h, c], ext[e - M, c]
+            return ((pc >= floor) & (pc >= r_all * po) & (pc > ext[e, c - 1]) & (pc >= ext[e, c + 1])
+                    & (pc >= r_half * pm) & (pm >= r_half * po) & (pm > ext[e - h, c - 1]) & (pm >= ext[e - h, c + 1]))
+
+        ok = sparse(e, c)
+        e, c = e[ok], c[ok]
+        # the next (odd) frame: the same bins, sparsely; one past this chunk is carried over
+        nxt = e + 1 < n
+        if np.any(~nxt):
+            self._rise_carry = (t0 + n, c[~nxt])
+        e1, c1 = e[nxt] + 1, c[nxt]
+        if carry is not None and carry[0] == t0 + first and first < n:
+            e1 = np.concatenate([e1, np.full(carry[1].size, first)])
+            c1 = np.concatenate([c1, carry[1]])
+        ok1 = sparse(e1, c1)
+        e = np.concatenate([e, e1[ok1]])
+        c = np.concatenate([c, c1[ok1]])
+        if e.size == 0:
             return rows, k
         # steady in frequency: the interpolated peak moved less than rise_max_shift_bins since the mid frame
         shift = np.abs(_lp_delta(ext[e, c - 1], ext[e, c], ext[e, c + 1])
                        - _lp_delta(ext[e - h, c - 1], ext[e - h, c], ext[e - h, c + 1]))
         steady = shift <= self.cfg.rise_max_shift_bins
-        rr, cc = rr[steady], cc[steady]
-        if rr.size == 0:
+        e, c = e[steady], c[steady]
+        if e.size == 0:
             return rows, k
-        rr = rr + (first - off)  # frame index within this chunk
-        kk = cc + lo
+        rr = e - off  # frame index within this chunk
+        kk = c - 1 + lo
         # purity: PNPR >= the howl threshold in this frame
         p0 = power[rr, kk]
         offs = np.concatenate([-self._pnpr_off, self._pnpr_off])
@@ -659,10 +681,14 @@ class Detector:
         rr, kk = rr[pure], kk[pure]
         if rr.size == 0:
             return rows, k
-        # drop those already candidates, keep the steepest few per frame
+        # drop those already candidates (or found twice), keep the steepest few per frame
         have = set((rows * self.n_bins + k).tolist())
-        code = rr * self.n_bins + kk
-        new = np.array([c not in have for c in code.tolist()], dtype=bool)
+        code = (rr * self.n_bins + kk).tolist()
+        new = []
+        for cd in code:
+            new.append(cd not in have)
+            have.add(cd)
+        new = np.array(new, dtype=bool)
         rr, kk = rr[new], kk[new]
         if rr.size == 0:
             return rows, k

@@ -251,6 +251,8 @@ def test_bad_sample_rate_and_nan_samples_are_refused():
         D.Detector(100.0)
     with pytest.raises(InputError, match="signal"):
         D.detect(np.array([0.0, np.nan] * 1000), 48000)
+    with pytest.raises(InputError, match="n_candidates"):
+        D.Detector(16000, D.DetectorConfig(n_candidates=0))
 
 
 # ----------------------------------------------------------------------------- synthetic tones
