@@ -37,7 +37,7 @@ def register(app: typer.Typer) -> None:
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing each cut must cover (± °C)."),
         tonal_share: float = typer.Option(
             0.5, "--tonal-share",
-            help="Most tonal cost (dB of pink-noise power removed) the cuts may spend per dB of stable gain.",
+            help="Most tonal cost (dB of program power removed, as --tonal-weighting counts it) the cuts may spend per dB of stable gain.",
         ),
         tonal_weighting: str = typer.Option(
             "pink", "--tonal-weighting", help="What --tonal-share counts: pink (broadband) or speech.",
