@@ -58,6 +58,13 @@ class DetectorConfig:
         ``rise_min_decel_ratio`` (0.85) × the first (note onsets and swells decelerate),
         a rise ≥ 4 dB, and no co-modulated partner within 20 dB; partners that do not
         grow along are ignored there (the howl is still below the program).
+    rise_min_pnpr_contrast_db, rise_contrast_f_hi_hz: contrast of growth on the 0.10 s
+        window. Below 1 kHz, where program partials crowd within the ±4…6 PNPR bins, a
+        howl may grow beside a louder partial, so its PNPR is low for most of the rise.
+        There, frames down to 5 dB PNPR are allowed when the median PNPR and the newest
+        frame still pass 15 dB and the peak outgrows its neighbours: PNPR itself rises
+        at ≥ ``comod_fraction`` × the growth (so the neighbours, peak level − PNPR, rise
+        at most half as fast). None turns this off.
     n_rising_candidates, rise_lookback_s, rise_max_shift_bins: a howl starts far below
         the program, below the PAPR gate and outside the strongest peaks. Up to 4 extra
         candidates per frame are taken among pure local maxima (PNPR ≥ 15 dB) anywhere
@@ -111,6 +118,8 @@ class DetectorConfig:
     rise_window_s: float = 0.10
     rise_max_fsd: float = 0.001
     rise_min_pnpr_db: float = 15.0
+    rise_min_pnpr_contrast_db: float | None = 5.0
+    rise_contrast_f_hi_hz: float | None = 1000.0
     rise_max_shift_bins: float = 0.15
     rise_min_decel_ratio: float = 0.85
     rise_max_drift: float = 0.0003
@@ -143,6 +152,11 @@ class DetectorConfig:
         v.in_range(self.min_ipmp, "min_ipmp", 0.0, 1.0)
         v.in_range(self.decision_window_s, "decision_window_s", 2 * self.hop_s, 5.0, unit="s")
         v.integer(self.imsd_points, "imsd_points", 3, 50)
+        if self.rise_min_pnpr_contrast_db is not None:
+            v.in_range(self.rise_min_pnpr_contrast_db, "rise_min_pnpr_contrast_db", None, self.rise_min_pnpr_db,
+                       unit="dB")
+        if self.rise_contrast_f_hi_hz is not None:
+            v.positive(self.rise_contrast_f_hi_hz, "rise_contrast_f_hi_hz", unit="Hz")
         return self
 
 

@@ -160,6 +160,7 @@ class _Tier:
     other_partners: bool = True
     min_decel_ratio: float = 0.0
     max_drift: float = 1.0
+    min_pnpr_contrast_db: float | None = None
 
 
 class _Track:
@@ -240,6 +241,7 @@ class Detector:
             _Tier(self.rise_win_frames, c.rise_min_db_per_s, min_pnpr_db=c.rise_min_pnpr_db,
                   min_pnpr_each_db=c.rise_min_pnpr_db, min_phpr_db=c.min_phpr_comod_db, max_fsd=c.rise_max_fsd,
                   imsd_fraction=0.15, imsd_floor_db_per_s=0.0, min_ipmp=1.0, halves_fraction=0.7,
+                  min_pnpr_contrast_db=c.rise_min_pnpr_contrast_db,
                   min_rise_db=4.0, other_partners=False, min_decel_ratio=c.rise_min_decel_ratio,
                   max_drift=c.rise_max_drift),
             _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
@@ -262,6 +264,8 @@ class Detector:
         self._rise_carry = None
         self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
         self.k_rise_hi = max(self.k_lo + 3, min(self.k_hi, int(np.ceil(self.cfg.rise_f_hi_hz / self.bin_hz))))
+        c_hi = self.cfg.rise_contrast_f_hi_hz
+        self.k_contrast_hi = -1.0 if c_hi is None else c_hi / self.bin_hz
         self._harm = np.array(HARMONIC_MULTIPLIERS)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
@@ -561,8 +565,16 @@ class Detector:
             return None
         pns = tr.col('pnpr', i0)
         pn = _median(pns)
-        if pn < tier.min_pnpr_db or (tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db):
+        if pn < tier.min_pnpr_db:
             return None
+        contrast = False
+        if tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db:
+            # contrast of growth: a frame below the purity threshold is allowed when the peak
+            # outgrows its neighbours (checked below, on the level line) and is pure by now
+            if (tier.min_pnpr_contrast_db is None or min(pns) < tier.min_pnpr_contrast_db
+                    or pns[-1] < tier.min_pnpr_each_db or tr.last_kf > self.k_contrast_hi):
+                return None
+            contrast = True
         kfl = tr.col('kf', i0)
         fsd = _rel_std(kfl)
         if fsd > tier.max_fsd:
@@ -588,6 +600,10 @@ class Detector:
                    and imsd <= max(tier.imsd_floor_db_per_s, tier.imsd_fraction * slope)
                    and min(s_a, s_b) >= tier.halves_fraction * slope
                    and s_b >= tier.min_decel_ratio * s_a and rise >= tier.min_rise_db)
+        if contrast and growing:
+            # the neighbours' level (peak level − PNPR) rose at most (1 − comod_fraction) × as
+            # fast as the peak: PNPR's own slope is at least comod_fraction × the growth
+            growing = _slope(frl, pns) / dt >= self.cfg.comod_fraction * slope
         if not growing and not tier.full:
             return None
         ph = _median(tr.col('phf', i0))
