@@ -210,8 +210,6 @@ class Detector:
     """
 
     def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None):
-        import scipy.fft  # noqa: F401  (checked here so the error is early)
-
         self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 4000.0, 768000.0, unit="Hz")
         self.cfg = (config or DetectorConfig()).validated()
         self.loop_delay_s = None if loop_delay_s is None else v.positive(loop_delay_s, "loop_delay_s", unit="s")
