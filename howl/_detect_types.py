@@ -28,8 +28,11 @@ class DetectorConfig:
         (harmonic spectra roll off ~6–12 dB/octave); a howl has none until the
         loop limits. For a growing track PHPR is taken over all of
         :data:`HARMONIC_MULTIPLIERS` and is co-modulation aware: a partner whose
-        level grows at least ``comod_fraction`` (half) as fast as the peak is a
-        partial of the same sound and rules the peak out when within
+        level grows at least ``comod_fraction`` (half) as fast as the peak, and that
+        sits at the exact multiple in most frames (its interpolated frequency within
+        ``0.5 × max(1, h)`` bins of h × the peak's: partials of one sound are harmonic,
+        two howls growing at once are not), is a partial of the same sound and rules
+        the peak out when within
         ``min_phpr_comod_db`` (20 dB: a swelling note with weak upper partials, a
         sung vowel with its 2nd partial 12 dB down); a partner that does not grow
         along is other program and rules it out only while the peak is not yet
@@ -58,13 +61,17 @@ class DetectorConfig:
         ``rise_min_decel_ratio`` (0.85) × the first (note onsets and swells decelerate),
         a rise ≥ 4 dB, and no co-modulated partner within 20 dB; partners that do not
         grow along are ignored there (the howl is still below the program).
-    rise_min_pnpr_contrast_db, rise_contrast_f_hi_hz: contrast of growth on the 0.10 s
-        window. Below 1 kHz, where program partials crowd within the ±4…6 PNPR bins, a
-        howl may grow beside a louder partial, so its PNPR is low for most of the rise.
-        There, frames down to 5 dB PNPR are allowed when the median PNPR and the newest
-        frame still pass 15 dB and the peak outgrows its neighbours: PNPR itself rises
-        at ≥ ``comod_fraction`` × the growth (so the neighbours, peak level − PNPR, rise
-        at most half as fast). None turns this off.
+    rise_min_pnpr_one_side_db, rise_contrast_f_hi_hz: contrast of growth on the 0.10 s window.
+        Below 1 kHz, where program partials crowd within the ±4…6 PNPR bins, a howl may grow
+        beside a louder partial, so its PNPR is low (even negative) for most of the rise. There a
+        track whose PNPR fails is still judged when it is pure on its quieter side in every frame
+        (one-sided PNPR, the lower of the two sides' neighbours, ≥ 15 dB) and outgrows its
+        neighbours: PNPR itself rises at ≥ ``comod_fraction`` × the growth (the louder partial,
+        peak level − PNPR, rises at most half as fast). Its frequency is then taken from the
+        quieter side (the Gaussian's log-parabola of known curvature through bin k and its
+        neighbour away from the partial: the partial leaks into the other neighbour and would pull
+        a three-bin estimate toward it). Rising candidates are also accepted there on the
+        one-sided test. None turns this off.
     n_rising_candidates, rise_lookback_s, rise_max_shift_bins: a howl starts far below
         the program, below the PAPR gate and outside the strongest peaks. Up to 4 extra
         candidates per frame are taken among pure local maxima (PNPR ≥ 15 dB) anywhere
@@ -74,6 +81,9 @@ class DetectorConfig:
         They are looked for up to ``rise_f_hi_hz`` (8 kHz: most howls sit between 200 Hz
         and 6 kHz, where loudspeakers and mics have their output and the loop its gain;
         common practice, no source); above, howls are found from the strongest peaks.
+        A rising candidate's peak is held as a candidate for the next ``rise_window_s``
+        (the local maximum within a bin of it in each frame), so a howl the rising test
+        finds in most frames is tracked in all of them (the 0.10 s window needs every frame).
     eval_every_frames, hot_rise_db: tracks are evaluated every 4 frames, or every frame
         while their level rose ≥ 1 dB over the last 0.10 s.
     growth_fit_s: the reported growth of a howl is a Theil-Sen line over up to 0.5 s.
@@ -118,7 +128,7 @@ class DetectorConfig:
     rise_window_s: float = 0.10
     rise_max_fsd: float = 0.001
     rise_min_pnpr_db: float = 15.0
-    rise_min_pnpr_contrast_db: float | None = 5.0
+    rise_min_pnpr_one_side_db: float | None = 15.0
     rise_contrast_f_hi_hz: float | None = 1000.0
     rise_max_shift_bins: float = 0.15
     rise_min_decel_ratio: float = 0.85
@@ -152,9 +162,8 @@ class DetectorConfig:
         v.in_range(self.min_ipmp, "min_ipmp", 0.0, 1.0)
         v.in_range(self.decision_window_s, "decision_window_s", 2 * self.hop_s, 5.0, unit="s")
         v.integer(self.imsd_points, "imsd_points", 3, 50)
-        if self.rise_min_pnpr_contrast_db is not None:
-            v.in_range(self.rise_min_pnpr_contrast_db, "rise_min_pnpr_contrast_db", None, self.rise_min_pnpr_db,
-                       unit="dB")
+        if self.rise_min_pnpr_one_side_db is not None:
+            v.in_range(self.rise_min_pnpr_one_side_db, "rise_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
         if self.rise_contrast_f_hi_hz is not None:
             v.positive(self.rise_contrast_f_hi_hz, "rise_contrast_f_hi_hz", unit="Hz")
         return self

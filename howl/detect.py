@@ -36,9 +36,11 @@ What it does, frame by frame
      straight line in dB (slope ≥ ``min_growth_db_per_s``, IMSD small) or
      persists steady for ``persist_s``. Fast growth is decided on shorter windows
      (0.10 s from 40 dB/s, 0.15 s from 20 dB/s, else 0.30 s), each shorter one
-     with stricter tests; rising peaks far below the program are candidates too;
-     PHPR counts only partners that grow along with the peak, or that the peak
-     has not yet passed;
+     with stricter tests; rising peaks far below the program are candidates too
+     (held for 0.1 s once found); PHPR counts only partners that grow along with
+     the peak at the exact multiple, or that the peak has not yet passed; below
+     1 kHz a peak beside a louder partial may pass on its quieter side when it
+     outgrows its neighbours (contrast of growth);
    * **ringing**: a pure, steady track whose level falls on a straight line in
      dB at a rate between ``min_decay_db_per_s`` and ``max_decay_db_per_s``
      over at least ``min_decay_span_db`` — the ring-down of a loop close to
@@ -77,6 +79,7 @@ References
 from __future__ import annotations
 
 import bisect
+import operator
 from dataclasses import dataclass
 
 import numpy as np
@@ -141,6 +144,12 @@ __all__ = [
 ]
 
 
+_NONE = np.zeros(0, dtype=np.int64)
+_LAST_KF = operator.attrgetter("last_kf")
+_DB_PER_NEPER_POWER = 10.0 / np.log(10.0)  # dB of a power ratio per unit of its natural log
+_GAUSS_S2_BINS = (8.0 / (2.0 * np.pi)) ** 2  # s² of the σ = N/8 Gaussian's main lobe, in bins²
+
+
 @dataclass(frozen=True)
 class _Tier:
     """One decision window and the tests a growing track must pass on it."""
@@ -160,7 +169,7 @@ class _Tier:
     other_partners: bool = True
     min_decel_ratio: float = 0.0
     max_drift: float = 1.0
-    min_pnpr_contrast_db: float | None = None
+    min_pnpr_one_side_db: float | None = None
 
 
 class _Track:
@@ -169,8 +178,8 @@ class _Track:
     ``ratios`` holds the peak-to-partner ratios (dB) at :data:`HARMONIC_MULTIPLIERS`."""
 
     __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval", "hot", "peak",
-                 "last_ring")
-    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "ratios": 7}
+                 "last_ring", "seen")
+    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "partners": 7, "pnpr1": 8, "kf1": 9}
 
     def __init__(self, tid: int):
         self.tid = tid
@@ -184,12 +193,14 @@ class _Track:
         self.hot = False  # rising lately: evaluated every frame
         self.peak = -np.inf  # highest level so far (dB)
         self.last_ring = -1  # frame of the last live ring-down test
+        self.seen = -1  # the last frame in which the track got a peak
 
     def add(self, t: int, row: tuple) -> None:
         self.frames.append(t)
         self.rows.append(row)
         self.last_kf = row[0]
         self.gap = 0
+        self.seen = t
         if row[1] > self.peak:
             self.peak = row[1]
 
@@ -239,7 +250,7 @@ class Detector:
             _Tier(self.rise_win_frames, c.rise_min_db_per_s, min_pnpr_db=c.rise_min_pnpr_db,
                   min_pnpr_each_db=c.rise_min_pnpr_db, min_phpr_db=c.min_phpr_comod_db, max_fsd=c.rise_max_fsd,
                   imsd_fraction=0.15, imsd_floor_db_per_s=0.0, min_ipmp=1.0, halves_fraction=0.7,
-                  min_pnpr_contrast_db=c.rise_min_pnpr_contrast_db,
+                  min_pnpr_one_side_db=c.rise_min_pnpr_one_side_db,
                   min_rise_db=4.0, other_partners=False, min_decel_ratio=c.rise_min_decel_ratio,
                   max_drift=c.rise_max_drift),
             _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
@@ -260,11 +271,13 @@ class Detector:
         self._pnpr_off = np.array([4, 5, 6])
         self._ptail = None
         self._rise_carry = None
+        self._held_carry = None
         self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
         self.k_rise_hi = max(self.k_lo + 3, min(self.k_hi, int(np.ceil(self.cfg.rise_f_hi_hz / self.bin_hz))))
         c_hi = self.cfg.rise_contrast_f_hi_hz
         self.k_contrast_hi = -1.0 if c_hi is None else c_hi / self.bin_hz
         self._harm = np.array(HARMONIC_MULTIPLIERS)
+        self._exact_tol_bins = 0.5 * np.maximum(1.0, self._harm)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
 
@@ -355,6 +368,17 @@ class Detector:
         rows, k = rows[keep], k[keep]
         if self.cfg.n_rising_candidates:
             rows, k = self._add_rising(power, rows, k, n_f)
+        allrows = self._features(power, mean_p, rows, k)
+        bounds = np.searchsorted(rows, np.arange(n_f + 1))
+        t0 = self._frame
+        for i in range(n_f):
+            i0 = int(bounds[i])
+            i1 = int(bounds[i + 1])
+            self._step(t0 + i, allrows[i0:i1])
+        self._frame += n_f
+
+    def _features(self, power: np.ndarray, mean_p: np.ndarray, rows: np.ndarray, k: np.ndarray) -> list[tuple]:
+        """Feature rows (see :class:`_Track`) of the peaks at bins ``k`` of frames ``rows``."""
         nmax = self.n_bins - 1
         pm1 = power[rows, k - 1].astype(np.float64)
         p0 = power[rows, k].astype(np.float64)
@@ -372,26 +396,91 @@ class Detector:
         offs = np.concatenate([-self._pnpr_off, self._pnpr_off])
         nb_pow = power[rows[:, None], np.clip(k[:, None] + offs[None, :], 0, nmax)].astype(np.float64)
         pnpr = 10.0 * np.log10(peak_p / (nb_pow.max(axis=1) + _TINY))
+        m = self._pnpr_off.size
+        nb_lo, nb_hi = nb_pow[:, :m].max(axis=1), nb_pow[:, m:].max(axis=1)
+        pnpr1 = 10.0 * np.log10(peak_p / (np.minimum(nb_lo, nb_hi) + _TINY))
+        # frequency from the quieter side only: bin k and its neighbour away from a louder partial,
+        # on the Gaussian's known log-parabola (curvature 1/s², s = 8/(2π) bins): a partial 4–6 bins
+        # away on the other side leaks into bin k±1 and pulls the three-bin estimate toward it
+        s2 = _GAUSS_S2_BINS
+        d1 = np.where(nb_lo <= nb_hi, s2 * (lb - la) - 0.5, s2 * (lc - lb) + 0.5)
+        kf1 = k + np.clip(d1, -0.6, 0.6)
         nb_db = 10.0 * np.log10(nb_pow.mean(axis=1) * self._amp_norm ** 2 + _TINY)
         # PHPR: largest power within ±2 bins of h·k for each multiplier h
         hk = np.rint(kf[:, None] * self._harm[None, :]).astype(np.int64)  # (n, H)
         inside = (hk >= 3) & (hk <= nmax - 3)
         hk = np.clip(hk, 2, nmax - 2)
         w5 = np.arange(-2, 3)
-        hp = power[rows[:, None, None], hk[:, :, None] + w5[None, None, :]].max(axis=2).astype(np.float64)
-        ratio = np.where(inside, 10.0 * np.log10(peak_p[:, None] / (hp + _TINY)), np.inf)
+        ln_near = np.log(power[rows[:, None, None], hk[:, :, None] + w5[None, None, :]] + np.float32(1e-30))  # (n, H, 5)
+        jmax = ln_near.argmax(axis=2)
+        jc = np.clip(jmax, 1, 3)
+        trio = np.take_along_axis(ln_near, jc[:, :, None] + np.arange(-1, 2)[None, None, :], axis=2)
+        ln_hp = np.take_along_axis(ln_near, jmax[:, :, None], axis=2)[:, :, 0]
+        ratio = np.where(inside, _DB_PER_NEPER_POWER * (2.0 * peak_ln[:, None] - ln_hp), np.inf)
         phpr = ratio[:, self._basic].min(axis=1)
         phf = ratio.min(axis=1)
-        bounds = np.searchsorted(rows, np.arange(n_f + 1))
-        allrows = list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), list(ratio)))
-        t0 = self._frame
-        for i in range(n_f):
-            i0 = int(bounds[i])
-            i1 = int(bounds[i + 1])
-            self._step(t0 + i, allrows[i0:i1])
-        self._frame += n_f
+        # is the partner at the exact multiple? (partials of one sound are; another howl is not). A
+        # partner whose largest bin is at the edge of the ±2-bin search is a peak outside it: not exact
+        den = trio[:, :, 0] - 2.0 * trio[:, :, 1] + trio[:, :, 2]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = np.where(den < 0, 0.5 * (trio[:, :, 0] - trio[:, :, 2]) / den, 0.0)
+        kf_p = hk + jc - 2 + np.clip(d, -0.5, 0.5)
+        exact = (np.abs(kf_p - kf[:, None] * self._harm[None, :]) <= self._exact_tol_bins) & (jmax == jc)
+        # one array per row: the peak-to-partner ratios (dB), then 1.0 where that partner is exact
+        partners = np.concatenate([ratio, exact], axis=1)
+        return list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), list(partners),
+                        pnpr1.tolist(), kf1.tolist()))
 
     def _add_rising(self, power: np.ndarray, rows: np.ndarray, k: np.ndarray, n_f: int):
+        """Add the rising candidates (:meth:`_rising`) and keep each one's peak a candidate for the
+        next ``rise_window_s`` (:meth:`_held`), so that a howl the rising test finds in most frames
+        is tracked in all of them."""
+        rr, kk = self._rising(power, rows, k, n_f)
+        hr, hk = self._held(power, rr, kk, n_f)
+        rr, kk = np.concatenate([rr, hr]), np.concatenate([kk, hk])
+        if rr.size == 0:
+            return rows, k
+        have = set((rows * self.n_bins + k).tolist())
+        new = []
+        for cd in (rr * self.n_bins + kk).tolist():
+            new.append(cd not in have)
+            have.add(cd)
+        new = np.array(new, dtype=bool)
+        rows = np.concatenate([rows, rr[new]])
+        k = np.concatenate([k, kk[new]])
+        order = np.argsort(rows, kind="stable")
+        return rows[order], k[order]
+
+    def _held(self, power: np.ndarray, rr: np.ndarray, kk: np.ndarray, n_f: int):
+        """Peaks held from rising candidates: for each candidate found at (frame, bin), the local
+        maximum within one bin of it in each of the next ``rise_win_frames`` frames (above the
+        level floor). Carried across blocks by global frame index (block size does not matter)."""
+        R = self.rise_win_frames
+        g0 = self._frame
+        gs = [g0 + rr[:, None] + np.arange(1, R + 1)[None, :]]
+        bs = [np.repeat(kk[:, None], R, axis=1)]
+        if self._held_carry is not None:
+            gs.append(self._held_carry[0])
+            bs.append(self._held_carry[1])
+        g = np.concatenate([a.ravel() for a in gs]).astype(np.int64)
+        b = np.concatenate([a.ravel() for a in bs]).astype(np.int64)
+        later = g >= g0 + n_f
+        self._held_carry = (g[later], b[later]) if np.any(later) else None
+        now = (g >= g0) & ~later
+        r, b = g[now] - g0, b[now]
+        if r.size == 0:
+            return _NONE, _NONE
+        code = np.unique(r * self.n_bins + b)
+        r, b = code // self.n_bins, code % self.n_bins
+        b = np.clip(b, self.k_lo + 1, self.k_hi - 2)
+        trio = power[r[:, None], b[:, None] + np.arange(-1, 2)[None, :]]
+        j = b - 1 + np.argmax(trio, axis=1)
+        floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
+        pj = power[r, j]
+        ok = (pj > power[r, j - 1]) & (pj >= power[r, j + 1]) & (pj >= floor)
+        return r[ok], j[ok]
+
+    def _rising(self, power: np.ndarray, rows: np.ndarray, k: np.ndarray, n_f: int):
         """Add rising candidates: pure local maxima anywhere above the level floor (also far
         below the PAPR gate, where a howl starts) whose power rose steadily over the last
         ``rise_lookback_s``: at least ``rise_min_db_per_s`` over the whole look-back and a
@@ -409,7 +498,7 @@ class Detector:
         carry, self._rise_carry = self._rise_carry, None
         n = ext.shape[0]
         if n <= M:
-            return rows, k
+            return _NONE, _NONE
         r_all = np.float32(10.0 ** (self.cfg.rise_min_db_per_s * M * self.dt / 10.0))
         r_half = np.float32(r_all ** (1.0 / 3.0))
         floor = np.float32((10.0 ** (self.cfg.min_level_dbfs / 20.0) / self._amp_norm) ** 2)
@@ -448,24 +537,28 @@ class Detector:
         e = np.concatenate([e, e1[ok1]])
         c = np.concatenate([c, c1[ok1]])
         if e.size == 0:
-            return rows, k
+            return _NONE, _NONE
         # steady in frequency: the interpolated peak moved less than rise_max_shift_bins since the mid frame
         shift = np.abs(_lp_delta(ext[e, c - 1], ext[e, c], ext[e, c + 1])
                        - _lp_delta(ext[e - h, c - 1], ext[e - h, c], ext[e - h, c + 1]))
         steady = shift <= self.cfg.rise_max_shift_bins
         e, c = e[steady], c[steady]
         if e.size == 0:
-            return rows, k
+            return _NONE, _NONE
         rr = e - off  # frame index within this chunk
         kk = c - 1 + lo
-        # purity: PNPR >= the howl threshold in this frame
+        # purity: PNPR >= the howl threshold in this frame; below rise_contrast_f_hi_hz, on the quieter
+        # side is enough (a howl may start beside a louder partial: the contrast-of-growth test)
         p0 = power[rr, kk]
-        offs = np.concatenate([-self._pnpr_off, self._pnpr_off])
-        nb = power[rr[:, None], np.clip(kk[:, None] + offs[None, :], 0, self.n_bins - 1)].max(axis=1)
-        pure = p0 >= nb * np.float32(10.0 ** (self.cfg.rise_min_pnpr_db / 10.0))
+        nb_lo = power[rr[:, None], np.clip(kk[:, None] - self._pnpr_off[None, :], 0, None)].max(axis=1)
+        nb_hi = power[rr[:, None], np.clip(kk[:, None] + self._pnpr_off[None, :], 0, self.n_bins - 1)].max(axis=1)
+        pure = p0 >= np.maximum(nb_lo, nb_hi) * np.float32(10.0 ** (self.cfg.rise_min_pnpr_db / 10.0))
+        one_db = self.cfg.rise_min_pnpr_one_side_db
+        if one_db is not None:
+            pure |= (kk <= self.k_contrast_hi) & (p0 >= np.minimum(nb_lo, nb_hi) * np.float32(10.0 ** (one_db / 10.0)))
         rr, kk = rr[pure], kk[pure]
         if rr.size == 0:
-            return rows, k
+            return _NONE, _NONE
         # drop those already candidates (or found twice), keep the steepest few per frame
         have = set((rows * self.n_bins + k).tolist())
         code = (rr * self.n_bins + kk).tolist()
@@ -476,54 +569,58 @@ class Detector:
         new = np.array(new, dtype=bool)
         rr, kk = rr[new], kk[new]
         if rr.size == 0:
-            return rows, k
+            return _NONE, _NONE
         steep = power[rr, kk] / (ext[rr + off - M, kk - lo + 1] + np.float32(1e-30))
         order = np.lexsort((-steep, rr))
         rr, kk = rr[order], kk[order]
         rank = np.arange(rr.size) - np.searchsorted(rr, rr)
         keep = rank < self.cfg.n_rising_candidates
-        rows = np.concatenate([rows, rr[keep]])
-        k = np.concatenate([k, kk[keep]])
-        order = np.argsort(rows, kind="stable")
-        return rows[order], k[order]
+        return rr[keep], kk[keep]
 
     def _step(self, t, rows) -> None:
-        tol = self.cfg.track_tol_bins
-        matched = set()
-        # tracks sorted by their last frequency: each candidate looks only at its neighbours
-        tracks = sorted(self._tracks, key=lambda tr: tr.last_kf)
+        cfg = self.cfg
+        tol = cfg.track_tol_bins
+        # tracks kept sorted by their last frequency (nearly sorted already: the sort is cheap), so
+        # each candidate looks only at its neighbours; a track matched in this frame has seen == t
+        tracks = self._tracks
+        tracks.sort(key=_LAST_KF)
         lasts = [tr.last_kf for tr in tracks]
         n_tr = len(tracks)
         bl = bisect.bisect_left
-        for j in range(len(rows)):
-            kj = rows[j][0]
+        born = []
+        for row in rows:
+            kj = row[0]
             best = None
             bd = tol
             i = bl(lasts, kj - tol)
             while i < n_tr and lasts[i] <= kj + tol:
                 d = abs(lasts[i] - kj)
-                if d <= bd and tracks[i].tid not in matched:
+                if d <= bd and tracks[i].seen != t:
                     bd, best = d, tracks[i]
                 i += 1
             if best is None:
-                if len(self._tracks) >= self.cfg.max_tracks:
+                if n_tr + len(born) >= cfg.max_tracks:
                     continue
                 best = _Track(self._next_tid)
                 self._next_tid += 1
-                self._tracks.append(best)
-            best.add(t, rows[j])
-            matched.add(best.tid)
+                born.append(best)
+            best.add(t, row)
+        if born:
+            tracks.extend(born)
         alive = []
-        every = self.cfg.eval_every_frames
-        span_db = self.cfg.min_decay_span_db
-        for tr in self._tracks:
-            if tr.tid not in matched:
+        every = cfg.eval_every_frames
+        span_db = cfg.min_decay_span_db
+        max_gap = cfg.max_gap_frames
+        for tr in tracks:
+            if tr.seen != t:
                 tr.gap += 1
-                if tr.gap > self.cfg.max_gap_frames:
+                if tr.gap > max_gap:
                     self._close(tr)
-                    continue
+                else:
+                    alive.append(tr)
+                continue
             alive.append(tr)
-            if tr.reported is not None or tr.gap:
+            if tr.reported is not None:
                 continue
             if t - tr.last_eval >= (1 if tr.hot else every):
                 tr.last_eval = t
@@ -563,17 +660,17 @@ class Detector:
             return None
         pns = tr.col('pnpr', i0)
         pn = _median(pns)
-        if pn < tier.min_pnpr_db:
-            return None
         contrast = False
-        if tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db:
-            # contrast of growth: a frame below the purity threshold is allowed when the peak
-            # outgrows its neighbours (checked below, on the level line) and is pure by now
-            if (tier.min_pnpr_contrast_db is None or min(pns) < tier.min_pnpr_contrast_db
-                    or pns[-1] < tier.min_pnpr_each_db or tr.last_kf > self.k_contrast_hi):
+        if pn < tier.min_pnpr_db or (tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db):
+            # contrast of growth: a peak beside a louder partial is allowed when it is pure on its
+            # other side in every frame and outgrows its neighbours (checked below, on the level line)
+            if tier.min_pnpr_one_side_db is None or tr.last_kf > self.k_contrast_hi:
+                return None
+            if min(tr.col('pnpr1', i0)) < tier.min_pnpr_one_side_db:
                 return None
             contrast = True
-        kfl = tr.col('kf', i0)
+        # beside a louder partial, the frequency comes from the quieter side (kf1: no pull toward it)
+        kfl = tr.col('kf1' if contrast else 'kf', i0)
         fsd = _rel_std(kfl)
         if fsd > tier.max_fsd:
             return None
@@ -617,11 +714,14 @@ class Detector:
         # unless the peak is not yet min_phpr_other_db above it.
         cfg = self.cfg
         ts = np.asarray(frl) * dt
-        R = np.minimum(np.asarray(tr.col('ratios', i0)), 200.0)
+        PE = np.asarray(tr.col('partners', i0))
+        H = PE.shape[1] // 2
+        R = np.minimum(PE[:, :H], 200.0)
         med = np.median(R, axis=0)
         dx = ts - ts.mean()
         r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
         grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
+        grows_along &= np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
         explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
         if tier.other_partners:
             explains |= med < cfg.min_phpr_other_db
@@ -639,7 +739,8 @@ class Detector:
         tr.hot = last[1] - back[1] >= cfg.hot_rise_db
         # quick rejections (no window test can pass): the newest frame is far from pure, or the
         # frequency moved by more than a few times the allowed spread (a glide) since the look-back
-        if last[3] < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * cfg.max_fsd * last[0]:
+        pure_now = max(last[3], last[8]) if last[0] <= self.k_contrast_hi else last[3]
+        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * cfg.max_fsd * last[0]:
             if span >= self._tiers[0].frames:
                 tr.state = "program"
             return

@@ -253,8 +253,8 @@ def test_bad_sample_rate_and_nan_samples_are_refused():
         D.detect(np.array([0.0, np.nan] * 1000), 48000)
     with pytest.raises(InputError, match="n_candidates"):
         D.Detector(16000, D.DetectorConfig(n_candidates=0))
-    with pytest.raises(InputError, match="rise_min_pnpr_contrast_db"):
-        D.Detector(16000, D.DetectorConfig(rise_min_pnpr_contrast_db=20.0))  # above rise_min_pnpr_db
+    with pytest.raises(InputError, match="rise_min_pnpr_one_side_db"):
+        D.Detector(16000, D.DetectorConfig(rise_min_pnpr_one_side_db=-3.0))  # a purity below 0 dB
 
 
 # ----------------------------------------------------------------------------- synthetic tones
@@ -293,6 +293,48 @@ def test_streaming_in_small_blocks_gives_the_same_events_as_one_call():
     a = D.detect(x, fs).events
     b = D.detect(x, fs, block_samples=333).events
     assert [(e.kind, round(e.freq_hz, 6), e.time_s) for e in a] == [(e.kind, round(e.freq_hz, 6), e.time_s) for e in b]
+
+
+def _beside_a_louder_partial(fs: float) -> np.ndarray:
+    """A howl (578.3 Hz, 60 dB/s from -80 dBFS) beginning 2 s into a held harmonic note whose
+    2nd partial (622 Hz) is 4 bins above it at 16 kHz and 25-45 dB louder while the howl rises."""
+    t = np.arange(int(3.0 * fs)) / fs
+    note = 0.03 * sum(0.7 ** (h - 1) * np.sin(2 * np.pi * h * 311.0 * t + h) for h in range(1, 6))
+    howl = np.where(t >= 2.0, tone(fs, 578.3, t.size / fs, -200.0, 60.0), 0.0)  # -80 dBFS at t = 2 s
+    return note + howl
+
+
+def test_a_howl_beside_a_louder_partial_is_found_while_still_under_it_at_the_right_frequency():
+    # Truth by construction (the tone's frequency and start). The partial 4 bins away leaks into the
+    # howl's upper neighbour bin; the frequency from the quieter side must stay within 0.1 %.
+    fs = 16000
+    x = _beside_a_louder_partial(fs)
+    howls = [e for e in D.detect(x, fs).events if e.kind == "howl"]
+    assert howls, "not found"
+    e = howls[0]
+    assert abs(e.freq_hz - 578.3) / 578.3 < 1e-3, e
+    partial_db = 20 * np.log10(0.03 * 0.7)  # the 622 Hz partial, dBFS of a sine amplitude
+    assert e.level_db < partial_db, e  # found while the howl is still under the partial beside it
+    assert e.growth_db_per_s == pytest.approx(60.0, rel=0.15)
+
+
+def test_two_howls_growing_at_once_near_a_harmonic_ratio_are_both_found():
+    # 1395.2 and 1875.6 Hz (0.744: 0.8 % off 3/4) both grow at 60 dB/s: they co-modulate, but they are
+    # not partials of one sound, so neither explains the other away.
+    fs = 16000
+    x = tone(fs, 1395.2, 2.0, -90, 60.0) + tone(fs, 1875.6, 2.0, -92, 60.0, phase=1.1)
+    x = x + 1e-4 * np.random.default_rng(3).standard_normal(x.size)
+    found = sorted(round(e.freq_hz) for e in D.detect(x, fs).events if e.kind == "howl")
+    assert found == [1395, 1876], found
+
+
+def test_streaming_gives_the_same_events_when_held_rising_candidates_cross_blocks():
+    fs = 16000
+    x = _beside_a_louder_partial(fs)
+    a = [(e.kind, round(e.freq_hz, 6), e.time_s) for e in D.detect(x, fs).events]
+    assert a
+    for b in (160, 333, 1024):
+        assert [(e.kind, round(e.freq_hz, 6), e.time_s) for e in D.detect(x, fs, block_samples=b).events] == a
 
 
 # ----------------------------------------------------------------------------- no-howl programs
@@ -359,7 +401,9 @@ def test_no_detection_on_more_programs(seed):
 #: Known misses of "detected before it dominates" (tests/benchmarks/bench_detect.py, docs/scan.md):
 #: low howls (578, 848 Hz, 1.9 kHz) in dense program dominate 0.1–0.3 s after the gain step,
 #: about when the detector's shortest window (0.1 s of growth, 85 ms frames) can decide.
-KNOWN_LATE = {(0, "speech", 3.0), (4, "music", 3.0), (4, "speech", 3.0)}
+#: A stable crossing this close to unity (dB) counts as a right place for a howl report (see below).
+NEAR_UNITY_DB = 0.5
+KNOWN_LATE = {(4, "speech", 3.0)}
 CLOSED_LOOP_CASES = ([(s, p, 3.0) for s in range(5) for p in ("speech", "music")]
                      + [(0, "speech", 1.0), (3, "speech", 1.0),
                         # a 578 Hz howl beside a louder music partial: found by contrast of growth
@@ -387,14 +431,17 @@ def test_howl_in_a_simulated_room_loop_is_found_before_it_dominates(seed, progra
     assert howls, r.events
     first = howls[0]
     assert first.time_s > 2.0
-    # every howl reported before the limiter is reached sits on an unstable crossing (within 0.1 %)
+    # every howl reported before the limiter is reached sits (within 0.1 %) on an unstable crossing
+    # or on one less than NEAR_UNITY_DB from unity: such a loop rings for seconds (decay = margin/τ)
+    # and program pumped through it grows like a howl, so reporting it is right
     knee = 0.5 * 10 ** (-1 / 20)
     over = np.nonzero(np.abs(y) > knee)[0]
     t_lim = over[0] / fs if over.size else np.inf
+    on_edge = cross_f[cross_m - over_db < NEAR_UNITY_DB]
     for e in howls:
         if e.time_s < t_lim:
-            err = np.min(np.abs(unstable / e.freq_hz - 1))
-            assert err < 1e-3, (e, unstable)
+            err = np.min(np.abs(on_edge / e.freq_hz - 1))
+            assert err < 1e-3, (e, on_edge)
     # program RMS of the whole 7 s program, as in the benchmark
     rms = float(np.sqrt(np.mean((speech_like(fs, 7, seed) if program == "speech" else music_like(fs, 7, seed + 10)) ** 2)))
     i = int(np.argmin(np.abs(unstable / first.freq_hz - 1)))
