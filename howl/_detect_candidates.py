@@ -60,7 +60,14 @@ class _CandidateSearch:
         inside = (hk >= 3) & (hk <= nmax - 3)
         hk = np.clip(hk, 2, nmax - 2)
         w5 = np.arange(-2, 3)
-        ln_near = np.log(power[rows[:, None, None], hk[:, :, None] + w5[None, None, :]] + np.float32(1e-30))  # (n, H, 5)
+        jw = hk[:, :, None] + w5[None, None, :]  # (n, H, 5) partner bins
+        ln_near = np.log(power[rows[:, None, None], jw] + np.float32(1e-30))
+        # at low bins the windows of the multiples near 1 (3/4 … 5/6) reach the peak's own main
+        # lobe: those bins (within 3 of the peak, where the Gaussian is above −25 dB) are not partners
+        own = np.abs(jw - k[:, None, None]) <= 3
+        if own.any():
+            ln_near = np.where(own, np.float32(np.log(1e-30)), ln_near)
+            inside &= ~own.all(axis=2)
         jmax = ln_near.argmax(axis=2)
         jc = np.clip(jmax, 1, 3)
         trio = np.take_along_axis(ln_near, jc[:, :, None] + np.arange(-1, 2)[None, None, :], axis=2)

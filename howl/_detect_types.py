@@ -41,6 +41,13 @@ class DetectorConfig:
         the 6th, was 13 dB down.)
     max_fsd: 0.2 % relative frequency deviation over the window. Vibrato of a
         sung note is ±0.5…3 %; a howl's estimate scatters by < 0.05 %.
+    fsd_floor_bins: 0.05 bin: the FSD and drift limits are relative, but the estimate's scatter
+        is absolute (the Cramér-Rao bound of a frequency estimate does not depend on the
+        frequency; program partials beside a howl jitter it by 0.02–0.1 bin), so each relative
+        limit gets a floor of this many bins (scaled as the limit is to ``max_fsd``). It governs
+        below 25 bins (about 290 Hz at 48 kHz, 280 Hz at 16 kHz), where 0.2 % is finer than the
+        estimate: a 158 Hz howl rising through speech scatters by 0.27 %. Vibrato of a sung note
+        there (0.5–3 %) still fails it, or is caught by its co-modulated partials.
     min_ipmp: present in ≥ 80 % of the window frames (the literature uses 3 of 5).
     decision_window_s: 0.3 s of history per decision (30 frames at 10 ms).
     min_growth_db_per_s: 6 dB/s (a loop 0.5 dB past unity with τ = 80 ms grows this
@@ -117,6 +124,7 @@ class DetectorConfig:
     min_pnpr_db: float = 12.0
     min_phpr_db: float = 12.0
     max_fsd: float = 0.002
+    fsd_floor_bins: float = 0.05
     min_ipmp: float = 0.8
     decision_window_s: float = 0.3
     min_growth_db_per_s: float = 6.0
@@ -160,6 +168,7 @@ class DetectorConfig:
             v.in_range(self.f_hi_hz, "f_hi_hz", self.f_lo_hz, None, unit="Hz", lo_open=True)
         v.integer(self.n_candidates, "n_candidates", 1, 64)
         v.in_range(self.min_ipmp, "min_ipmp", 0.0, 1.0)
+        v.in_range(self.fsd_floor_bins, "fsd_floor_bins", 0.0, 1.0, unit="bins")
         v.in_range(self.decision_window_s, "decision_window_s", 2 * self.hop_s, 5.0, unit="s")
         v.integer(self.imsd_points, "imsd_points", 3, 50)
         if self.rise_min_pnpr_one_side_db is not None:

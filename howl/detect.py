@@ -83,6 +83,7 @@ import operator
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 
 from . import _validate as v
 from ._detect_features import (  # noqa: F401  (re-exported)
@@ -91,6 +92,7 @@ from ._detect_features import (  # noqa: F401  (re-exported)
     HARMONIC_MULTIPLIERS,
     _imsd_on_line,
     _linfit,
+    _lp_delta,
     _median,
     _rel_std,
     _slope,
@@ -145,6 +147,8 @@ __all__ = [
 
 
 _LAST_KF = operator.attrgetter("last_kf")
+#: a howl's frequency is refined on a frame this many times the analysis frame (see Detector._refine_kf)
+REFINE_FACTOR = 4
 
 
 @dataclass(frozen=True)
@@ -260,6 +264,9 @@ class Detector(_CandidateSearch):
         )
         self.persist_frames = max(self.win_frames, int(round(self.cfg.persist_s / self.dt)))
         self._buf = np.zeros(0)
+        self.n_long = REFINE_FACTOR * self.n_win  # the frame a howl's frequency is refined on
+        self._win_long = gaussian_window(self.n_long)
+        self._past = np.zeros(0)  # the last n_long samples before _buf[0]
         self._frame = 0  # index of the next frame to compute
         self._buf_start = 0  # sample index of _buf[0]
         self._tracks: list[_Track] = []
@@ -303,6 +310,7 @@ class Detector(_CandidateSearch):
         # drop consumed samples
         keep_from = self._frame * self.hop - self._buf_start
         if keep_from > 0:
+            self._past = np.concatenate([self._past, self._buf[:keep_from]])[-self.n_long:]
             self._buf = self._buf[keep_from:]
             self._buf_start += keep_from
         return self.events[before:]
@@ -338,7 +346,6 @@ class Detector(_CandidateSearch):
     # ------------------------------------------------------------------ internals
 
     def _analyse(self, start0: int, n_f: int) -> None:
-        from numpy.lib.stride_tricks import sliding_window_view
 
         seg = self._buf[start0: start0 + (n_f - 1) * self.hop + self.n_win]
         # float32 FFT: 2x faster; its ~-140 dB rounding floor is far below any decision
@@ -434,6 +441,12 @@ class Detector(_CandidateSearch):
                     self.events.append(ev)
         self._tracks = alive
 
+    def _fsd_limit(self, rel_limit: float, kf: float) -> float:
+        """A relative frequency-spread (or drift) limit, with the floor ``fsd_floor_bins`` (scaled
+        as ``rel_limit`` is to ``max_fsd``): the estimate's scatter is in bins, not relative, so
+        at low frequencies a relative limit alone is finer than the estimate can be."""
+        return max(rel_limit, self.cfg.fsd_floor_bins * rel_limit / (self.cfg.max_fsd * max(kf, 1.0)))
+
     def _window(self, tr: _Track, t: int, n_frames: int):
         fr = np.asarray(tr.frames)
         i0 = np.searchsorted(fr, t - n_frames + 1)
@@ -469,7 +482,7 @@ class Detector(_CandidateSearch):
         # beside a louder partial, the frequency comes from the quieter side (kf1: no pull toward it)
         kfl = tr.col('kf1' if contrast else 'kf', i0)
         fsd = _rel_std(kfl)
-        if fsd > tier.max_fsd:
+        if fsd > self._fsd_limit(tier.max_fsd, kfl[-1]):
             return None
         frl = tr.frames[i0:]
         lvl = tr.col('level', i0)
@@ -488,7 +501,7 @@ class Detector(_CandidateSearch):
         # frequency drift over the window (a partial swept through a loop resonance by vibrato or a
         # glide rises in level while its frequency moves; a howl stays put)
         drift = abs(_slope(frl, kfl)) * (frl[-1] - frl[0]) / kfl[-1]
-        growing = (slope >= tier.min_growth_db_per_s and drift <= tier.max_drift
+        growing = (slope >= tier.min_growth_db_per_s and drift <= self._fsd_limit(tier.max_drift, kfl[-1])
                    and imsd <= max(tier.imsd_floor_db_per_s, tier.imsd_fraction * slope)
                    and min(s_a, s_b) >= tier.halves_fraction * slope
                    and s_b >= tier.min_decel_ratio * s_a and rise >= tier.min_rise_db)
@@ -537,7 +550,7 @@ class Detector(_CandidateSearch):
         # quick rejections (no window test can pass): the newest frame is far from pure, or the
         # frequency moved by more than a few times the allowed spread (a glide) since the look-back
         pure_now = max(last[3], last[8]) if last[0] <= self.k_contrast_hi else last[3]
-        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * cfg.max_fsd * last[0]:
+        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * self._fsd_limit(cfg.max_fsd, last[0]) * last[0]:
             if span >= self._tiers[0].frames:
                 tr.state = "program"
             return
@@ -572,13 +585,16 @@ class Detector(_CandidateSearch):
             slope = self._growth_estimate(tr, len(lv), slope)
         if growing or steady:
             fr_end = tr.frames[-1]
+            kf_med = float(np.median(kf))
+            if (fr_end - tr.frames[0]) * self.hop + self.n_win >= self.n_long:  # tracked over the long frame
+                kf_med = self._refine_kf(kf_med, t * self.hop + self.n_win)
             tr.reported = "howl"
             tr.state = "howl"
             margin = None if self.loop_delay_s is None else -slope * self.loop_delay_s
             self.events.append(Event(
                 time_s=(t * self.hop + self.n_win) / self.fs,
                 onset_s=(tr.frames[0] * self.hop + self.n_win / 2) / self.fs,
-                freq_hz=float(np.median(kf)) * self.bin_hz, kind="howl", level_db=float(lv[-1]),
+                freq_hz=kf_med * self.bin_hz, kind="howl", level_db=float(lv[-1]),
                 growth_db_per_s=float(slope), papr_db=float(np.median(tr.col('papr', i0))), pnpr_db=pn, phpr_db=ph,
                 ipmp=float(ip), imsd_db_per_s=float(imsd), fsd=fsd, track_id=tr.tid, margin_db=margin,
                 steady=bool(steady and not growing), window_s=len(lv) and (fr_end - tr.frames[i0] + 1) * self.dt,
@@ -586,6 +602,35 @@ class Detector(_CandidateSearch):
             ))
         else:
             tr.state = "watch"
+
+    def _refine_kf(self, kf: float, end_sample: int) -> float:
+        """The howl's frequency (in short-frame bins) refined on a frame ``REFINE_FACTOR`` times
+        longer that ends with the decision frame (used when the track spans that frame, so the
+        frame holds the howl and not the program before it), when it is a clean peak there (PNPR ≥
+        ``min_pnpr_db`` over that frame's ±4…6 bins, a quarter of the short ones). Program partials a
+        bin or two away pull the short frame's estimate by up to a few tenths of a bin (0.5 % at
+        150 Hz); the long frame resolves them. Else, or before enough samples, ``kf`` is kept."""
+        n = self.n_long
+        start = end_sample - n
+        past0 = self._buf_start - self._past.size
+        if start < past0:
+            return kf
+        both = np.concatenate([self._past, self._buf]) if self._past.size else self._buf
+        seg = both[start - past0: end_sample - past0]
+        if seg.size < n:
+            return kf
+        p = np.abs(self._fft.rfft(seg * self._win_long)) ** 2
+        c = int(round(kf * REFINE_FACTOR))
+        if c - 9 < 1 or c + 9 >= p.size:
+            return kf
+        j = c - 2 + int(np.argmax(p[c - 2: c + 3]))
+        if not (p[j] > p[j - 1] and p[j] >= p[j + 1]):
+            return kf
+        kf_long = (j + float(_lp_delta(p[j - 1: j], p[j: j + 1], p[j + 1: j + 2])[0])) / REFINE_FACTOR
+        nb = max(p[j + d] for d in (-6, -5, -4, 4, 5, 6))
+        if abs(kf_long - kf) > 0.5 or 10.0 * np.log10(p[j] / max(nb, _TINY)) < self.cfg.min_pnpr_db:
+            return kf
+        return kf_long
 
     def _growth_estimate(self, tr: _Track, n_window: int, slope_window: float) -> float:
         """The growth rate reported for a howl: a Theil-Sen line (median of pairwise slopes; Sen 1968)

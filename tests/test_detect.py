@@ -109,9 +109,9 @@ def flute_swell(fs: float, freq_hz: float, growth_db_per_s: float, tremolo_phase
 
 
 @functools.lru_cache(maxsize=None)
-def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15):
+def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15, hp_hz: float = 120.0):
     """A loop IR from pyroomacoustics (image sources, Sabine-inverted absorption) through a
-    120 Hz 2nd-order high-pass and a 6 kHz 4th-order low-pass (speaker/mic passband),
+    ``hp_hz`` 2nd-order high-pass and a 6 kHz 4th-order low-pass (speaker/mic passband),
     scaled so that its largest positive real-axis crossing is exactly 1 (0 dB margin).
 
     Returns (ir, crossings_freq_hz, crossings_margin_db): the crossings from a dense
@@ -130,7 +130,7 @@ def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15):
     room.add_microphone(mic)
     room.compute_rir()
     h = np.asarray(room.rir[0][0], float)
-    h = sosfilt(butter(2, 120, "highpass", fs=fs, output="sos"), h)
+    h = sosfilt(butter(2, hp_hz, "highpass", fs=fs, output="sos"), h)
     h = sosfilt(butter(4, 6000, "lowpass", fs=fs, output="sos"), h)
     h = h[: int(n_keep_s * fs)]
     h = h * np.hanning(2 * h.size)[h.size:] ** 0.1  # short fade to avoid a truncation step
@@ -145,6 +145,38 @@ def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15):
     h = h / re.max()
     return h, f, -20 * np.log10(re / re.max())
 
+
+def low_room_loop(seed, fs=16000):
+    """A loop whose worst crossings are low (80–170 Hz): a pyroomacoustics room with a longer
+    reverberation (RT60 0.9–1.6 s, image sources to order 20), a 60 Hz high-pass, +10 dB of lift
+    below ~250 Hz (a vocal mic used close: proximity effect) and the 6 kHz low-pass, scaled so its
+    largest positive real-axis crossing is 1. Returns (ir, crossings_freq_hz, crossings_margin_db)
+    as :func:`room_loop` does."""
+    import pyroomacoustics as pra
+    from scipy.signal import butter, freqz, sosfilt
+    rng = np.random.default_rng(seed)
+    dims = [rng.uniform(6, 12), rng.uniform(5, 9), rng.uniform(3, 6)]
+    src = [rng.uniform(1, dims[0] - 1), rng.uniform(1, dims[1] - 1), 1.8]
+    mic = [rng.uniform(1, dims[0] - 1), rng.uniform(1, dims[1] - 1), 1.5]
+    e_abs, order = pra.inverse_sabine(rng.uniform(0.9, 1.6), dims)
+    room = pra.ShoeBox(dims, fs=fs, materials=pra.Material(e_abs), max_order=min(order, 20))
+    room.add_source(src); room.add_microphone(mic); room.compute_rir()
+    h = np.asarray(room.rir[0][0], float)
+    h = sosfilt(butter(2, 60, "highpass", fs=fs, output="sos"), h)
+    h = h + (10 ** (10 / 20) - 1) * sosfilt(butter(2, 250, "lowpass", fs=fs, output="sos"), h)
+    h = sosfilt(butter(4, 6000, "lowpass", fs=fs, output="sos"), h)
+    n = min(h.size, int(1.2 * fs))
+    h = h[:n] * np.hanning(2 * n)[n:] ** 0.1
+    w, H = freqz(h, worN=2 ** 20, fs=fs)
+    im = H.imag
+    idx = np.nonzero((im[:-1] * im[1:] < 0))[0]
+    a = im[idx] / (im[idx] - im[idx + 1])
+    re = H.real[idx] + a * (H.real[idx + 1] - H.real[idx])
+    f = w[idx] + a * (w[idx + 1] - w[idx])
+    pos = re > 0
+    f, re = f[pos], re[pos]
+    h = h / re.max()
+    return h, f, -20 * np.log10(re / re.max())
 
 def t_dominates(y: np.ndarray, fs: float, freq_hz: float, program_rms: float, t_from: float) -> float:
     """First time after ``t_from`` when the power within ±3 % of ``freq_hz`` (scipy STFT,
@@ -335,6 +367,39 @@ def test_streaming_gives_the_same_events_when_held_rising_candidates_cross_block
     assert a
     for b in (160, 333, 1024):
         assert [(e.kind, round(e.freq_hz, 6), e.time_s) for e in D.detect(x, fs, block_samples=b).events] == a
+
+
+def test_a_low_pure_tone_is_not_explained_away_by_its_own_main_lobe():
+    # At low bins the partner windows of the multiples near 1 (3/4 … 5/6) reach the peak's own main
+    # lobe; the peak must not count as its own partner. Truth by construction: a pure 131 Hz tone.
+    fs = 16000
+    x = tone(fs, 131.0, 3.0, -70, 20.0) + 1e-4 * np.random.default_rng(8).standard_normal(3 * fs)
+    howls = [e for e in D.detect(x, fs).events if e.kind == "howl"]
+    assert howls and abs(howls[0].freq_hz - 131.0) / 131.0 < 1e-3, howls
+    assert howls[0].phpr_db > 30.0, howls[0]
+
+
+@pytest.mark.parametrize("seed, program, over_db", [(37, "speech", 2.0), (31, "speech", 3.0), (37, "music", 2.0)])
+def test_low_howl_in_a_reverberant_room_loop_is_found_before_it_dominates(seed, program, over_db):
+    # Low crossings (101 / 120 Hz) in pyroomacoustics rooms with 1–1.6 s of reverberation: the howl
+    # grows slowly (7–15 dB/s) among the voice's own harmonics.
+    from howl.simulate import simulate_closed_loop
+
+    fs = 16000
+    h, cross_f, cross_m = low_room_loop(seed)
+    x = speech_like(fs, 8, seed) if program == "speech" else music_like(fs, 8, seed + 10)
+    g = np.full(x.size, -6.0)
+    g[2 * fs:] = over_db
+    y = simulate_closed_loop(h, x, fs, gain_db=g)
+    unstable = cross_f[cross_m - over_db < 0]
+    howls = [e for e in D.detect(y, fs).events if e.kind == "howl"]
+    assert howls, "not found"
+    first = howls[0]
+    err = np.min(np.abs(unstable / first.freq_hz - 1))
+    assert err < 1e-3, (first, unstable)
+    t_dom = min(t_dominates(y, fs, f, float(np.sqrt(np.mean(x ** 2))), 2.0) for f in unstable)
+    print(f"low loop {seed} {program} +{over_db} dB: {first.freq_hz:.2f} Hz at {first.time_s:.2f} s, dominates {t_dom:.2f} s")
+    assert 2.0 < first.time_s < t_dom
 
 
 # ----------------------------------------------------------------------------- no-howl programs
