@@ -17,8 +17,10 @@ from howl.rig import load_rig, load_room
 
 from test_rig import RIG, ROOM, dumps_toml
 
-SETTINGS = settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,
-                                                                              HealthCheck.too_slow])
+# filter_too_much: the nested-value strategy drops None leaves; on some seeds Hypothesis counts
+# that as too much filtering and fails the health check (seen with --hypothesis-seed=20)
+_QUIET = [HealthCheck.function_scoped_fixture, HealthCheck.too_slow, HealthCheck.filter_too_much]
+SETTINGS = settings(max_examples=200, deadline=None, suppress_health_check=_QUIET)
 
 scalars = st.one_of(
     st.none(),
@@ -119,8 +121,7 @@ def test_garbled_rig_text_loads_or_raises_input_error(tmp_path_factory, data):
     _check(load_rig, p)
 
 
-@settings(max_examples=100, deadline=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET)
 @given(doc=st.dictionaries(st.sampled_from(["name", "shoebox", "surfaces", "free_shape", "materials",
                                             "temperature_c", "humidity_pct", "x"]), values, max_size=6))
 def test_random_room_files_load_or_raise_input_error(tmp_path_factory, doc):
@@ -145,8 +146,7 @@ _VALUE_TEXT = st.one_of(
 )
 
 
-@settings(max_examples=100, deadline=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET)
 @given(edits=st.lists(st.tuples(_PATHS, _VALUE_TEXT), min_size=1, max_size=3))
 def test_random_what_if_edits_give_a_rig_or_an_input_error(tmp_path_factory, edits):
     folder = _folder(tmp_path_factory, "fuzz_whatif")
