@@ -4,7 +4,9 @@
    audio, median and fastest of 5 runs (single runs scatter by ±25 % on a shared machine; the
    fastest is the least disturbed), for speech-like, music-like and noise programs.
    Target: 60 s in under 0.6 s (RTF < 0.01).
-2. Detection latency over the synthetic closed-loop cases: pyroomacoustics loop IRs at 16 kHz,
+2. Detection latency over the synthetic closed-loop cases: pyroomacoustics loop IRs at 16 kHz
+   (two sets: loops 0-4 of room_loop, crossings 0.5-6 kHz; and low_room_loop's reverberant rooms
+   with a proximity lift, worst crossings 100-165 Hz, 8 s programs),
    speech-like and music-like programs, the gain stepped 0.5–3 dB past the worst crossing at
    t = 2 s; latency = detection time − 2 s, lead = (time the howl is as loud as the program)
    − detection time (positive: detected before it dominates), for the unstable crossing nearest
@@ -36,7 +38,8 @@ import numpy as np  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
 
-from test_detect import HARD_NO_HOWL, NEAR_UNITY_DB, music_like, room_loop, speech_like, t_dominates  # noqa: E402
+from test_detect import (HARD_NO_HOWL, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
+                         room_loop, speech_like, sung_vowel_swell, t_dominates)  # noqa: E402
 
 from howl.detect import detect  # noqa: E402
 
@@ -64,17 +67,24 @@ def rtf(quick: bool) -> list[dict]:
     return out
 
 
-def latency(quick: bool) -> list[dict]:
+#: the low set's rooms (low_room_loop seeds whose worst crossing is 100–165 Hz)
+LOW_SEEDS = (30, 31, 33, 35, 37)
+
+
+def latency(quick: bool, low: bool = False) -> list[dict]:
     from howl.simulate import simulate_closed_loop
 
     fs = 16000
     rows = []
-    seeds = (0, 1) if quick else (0, 1, 2, 3, 4)
+    if low:
+        seeds, loop_of, dur = (LOW_SEEDS[:2] if quick else LOW_SEEDS), low_room_loop, 8
+    else:
+        seeds, loop_of, dur = ((0, 1) if quick else (0, 1, 2, 3, 4)), room_loop, 7
     overs = (1.0, 3.0) if quick else (0.5, 1.0, 2.0, 3.0)
     for seed in seeds:
-        h, cf, cm = room_loop(seed)
+        h, cf, cm = loop_of(seed)
         for prog in ("speech", "music"):
-            x = speech_like(fs, 7, seed) if prog == "speech" else music_like(fs, 7, seed + 10)
+            x = speech_like(fs, dur, seed) if prog == "speech" else music_like(fs, dur, seed + 10)
             # the same program with the fader raised to 1 dB below the worst crossing only: the loop
             # stays stable, so whatever passes the dominance test here is program, not a howl
             g_stable = np.full(x.size, -6.0)
@@ -108,7 +118,9 @@ def latency(quick: bool) -> list[dict]:
                                n_howls_near_unity_before_limiter=len(near),
                                program_alone_dominates=program_alone_dominates)
                 else:
-                    row.update(detected=False)
+                    rms = float(np.sqrt(np.mean(x ** 2)))
+                    t_first = min((t_dominates(y, fs, f, rms, 2.0) for f in unstable), default=np.inf)
+                    row.update(detected=False, howl_dominates_s=float(t_first))
                 rows.append(row)
                 print(row, flush=True)
     return rows
@@ -140,6 +152,19 @@ def false_alarms(quick: bool) -> list[dict]:
             h, speech_like(fs, 5, seed + 40), fs, gain_db=-6.0)
         cases[f"music through loop {seed} at 6 dB margin (5 s)"] = simulate_closed_loop(
             h, music_like(fs, 5, seed + 60), fs, gain_db=-6.0)
+    # low-pitched programs (the low set's concern) and program through the low loops
+    for f0, g in ((82.4, 6), (110, 8), (147, 12), (196, 10), (247, 15)):
+        cases[f"held note {f0:g} Hz +{g} dB/s (5 s)"] = held_note_crescendo(fs, f0, g)
+    for f0, g, vib in ((98, 10, 0.008), (110, 15, 0.004), (131, 10, 0.006), (165, 12, 0.01), (220, 8, 0.005)):
+        cases[f"sung vowel {f0:g} Hz +{g} dB/s, {100 * vib:g} % vibrato (5 s)"] = sung_vowel_swell(fs, f0, g, vib)
+    for f0, g in ((196, 15), (262, 20)):
+        cases[f"flute {f0:g} Hz +{g} dB/s (5 s)"] = flute_swell(fs, f0, g, 1.0, seed=f0)
+    for seed in (LOW_SEEDS[:2] if quick else LOW_SEEDS):
+        h, _, _ = low_room_loop(seed)
+        cases[f"speech through low loop {seed} at 6 dB margin (6 s)"] = simulate_closed_loop(
+            h, speech_like(fs, 6, seed + 100), fs, gain_db=-6.0)
+        cases[f"music through low loop {seed} at 6 dB margin (6 s)"] = simulate_closed_loop(
+            h, music_like(fs, 6, seed + 110), fs, gain_db=-6.0)
     out = []
     for name, x in cases.items():
         ev = detect(x, fs).events
@@ -148,24 +173,20 @@ def false_alarms(quick: bool) -> list[dict]:
     return out
 
 
-def main() -> None:
-    quick = "--quick" in sys.argv
-    r = rtf(quick)
-    print("\nreal-time factor at 48 kHz (60 s of audio, CPU s: median and fastest of 5 runs)")
-    print(f"{'program':<24}{'median':>8}{'fastest':>9}{'rtf':>9}  target < 0.6 s (median)")
-    for row in r:
-        print(f"{row['program']:<24}{row['cpu_s_median']:8.3f}{row['cpu_s_min']:9.3f}{row['rtf']:9.4f}  "
-              f"{'ok' if row['meets_target'] else 'MISSED'}")
-    lat = latency(quick)
+def summarise(lat: list[dict], title: str) -> None:
     det = [row for row in lat if row["detected"]]
     lats = np.array([row["latency_s"] for row in det])
     leads = np.array([row["lead_s"] for row in det])
     errs = np.array([row["freq_err_pct"] for row in det])
-    print(f"\ndetection over {len(lat)} closed-loop cases: {len(det)} detected")
+    missed = [row for row in lat if not row["detected"]]
+    n_dom = sum(np.isfinite(row["howl_dominates_s"]) for row in missed)
+    print(f"\ndetection over {len(lat)} {title}: {len(det)} detected; of the {len(missed)} missed, "
+          f"{n_dom} became as loud as the program within the run")
     if det:
         q = lambda a: np.percentile(a, [10, 50, 90])  # noqa: E731
         print(f"latency after the gain step  p10/median/p90: {q(lats).round(2)} s")
         print(f"lead before it dominates     p10/median/p90: {q(leads).round(2)} s (min {leads.min():.2f})")
+        print(f"found within 0.1 %: {int(np.sum(errs < 0.1))} of {len(det)}")
         print(f"frequency error              median/max: {np.median(errs):.4f} / {errs.max():.4f} %")
         any_ = np.array([row["lead_any_s"] for row in det])
         print(f"lead_s <= 0 in {int(np.sum(leads <= 0))} of {len(det)}; lead_any_s <= 0 in {int(np.sum(any_ <= 0))}")
@@ -184,13 +205,28 @@ def main() -> None:
                       f"{row['window_s']:9.2f}{row['growth_db_per_s']:7.0f}  "
                       f"{'dominates' if row['program_alone_dominates'] else '-'}")
             else:
-                print(f"{name:<20}{'missed':>10}")
+                t = row["howl_dominates_s"]
+                print(f"{name:<20}{'missed':>10}  ({'dominates at %.2f s' % t if np.isfinite(t) else 'never dominates'})")
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    r = rtf(quick)
+    print("\nreal-time factor at 48 kHz (60 s of audio, CPU s: median and fastest of 5 runs)")
+    print(f"{'program':<24}{'median':>8}{'fastest':>9}{'rtf':>9}  target < 0.6 s (median)")
+    for row in r:
+        print(f"{row['program']:<24}{row['cpu_s_median']:8.3f}{row['cpu_s_min']:9.3f}{row['rtf']:9.4f}  "
+              f"{'ok' if row['meets_target'] else 'MISSED'}")
+    lat = latency(quick)
+    summarise(lat, "closed-loop cases (loops 0-4: crossings 0.5-6 kHz)")
+    lat_low = latency(quick, low=True)
+    summarise(lat_low, f"low closed-loop cases (low_room_loop seeds {', '.join(map(str, LOW_SEEDS))}: crossings 80-170 Hz)")
     fa = false_alarms(quick)
     print(f"\nfalse alarms on {len(fa)} no-howl programs ({sum(c['audio_s'] for c in fa):.0f} s): "
           f"{sum(c['false_alarms'] for c in fa)}")
     for c in fa:
         print(f"  {c['false_alarms']}  {c['program']}")
-    out = {"rtf_48k": r, "latency_cases": lat, "false_alarms": fa}
+    out = {"rtf_48k": r, "latency_cases": lat, "latency_cases_low": lat_low, "false_alarms": fa}
     path = HERE / "results" / "bench_detect.json"
     path.parent.mkdir(exist_ok=True)
     path.write_text(json.dumps(out, indent=2), encoding="utf-8")
