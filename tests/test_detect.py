@@ -108,6 +108,23 @@ def flute_swell(fs: float, freq_hz: float, growth_db_per_s: float, tremolo_phase
     return x + 10 ** (-70 / 20) * np.random.default_rng(seed).standard_normal(t.size)
 
 
+def _scaled_to_unity(h: np.ndarray, fs: float):
+    """Scale a loop IR so its largest positive real-axis crossing is exactly 1 (0 dB margin).
+    Returns (ir, crossings_freq_hz, crossings_margin_db): the crossings from a dense
+    scipy.signal.freqz grid (2^20 points, linear interpolation of Im = 0)."""
+    from scipy.signal import freqz
+
+    w, H = freqz(h, worN=2 ** 20, fs=fs)
+    im = H.imag
+    idx = np.nonzero((im[:-1] * im[1:] < 0))[0]
+    a = im[idx] / (im[idx] - im[idx + 1])
+    re = H.real[idx] + a * (H.real[idx + 1] - H.real[idx])
+    f = w[idx] + a * (w[idx + 1] - w[idx])
+    pos = re > 0
+    f, re = f[pos], re[pos]
+    return h / re.max(), f, -20 * np.log10(re / re.max())
+
+
 @functools.lru_cache(maxsize=None)
 def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15, hp_hz: float = 120.0):
     """A loop IR from pyroomacoustics (image sources, Sabine-inverted absorption) through a
@@ -118,7 +135,7 @@ def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15, hp_hz: float =
     scipy.signal.freqz grid (2^20 points, linear interpolation of Im = 0).
     """
     import pyroomacoustics as pra
-    from scipy.signal import butter, freqz, sosfilt
+    from scipy.signal import butter, sosfilt
 
     rng = np.random.default_rng(seed)
     dims = [rng.uniform(5, 9), rng.uniform(4, 7), rng.uniform(2.7, 4)]
@@ -134,49 +151,35 @@ def room_loop(seed: int, fs: int = 16000, n_keep_s: float = 0.15, hp_hz: float =
     h = sosfilt(butter(4, 6000, "lowpass", fs=fs, output="sos"), h)
     h = h[: int(n_keep_s * fs)]
     h = h * np.hanning(2 * h.size)[h.size:] ** 0.1  # short fade to avoid a truncation step
-    w, H = freqz(h, worN=2 ** 20, fs=fs)
-    im = H.imag
-    idx = np.nonzero((im[:-1] * im[1:] < 0))[0]
-    a = im[idx] / (im[idx] - im[idx + 1])
-    re = H.real[idx] + a * (H.real[idx + 1] - H.real[idx])
-    f = w[idx] + a * (w[idx + 1] - w[idx])
-    pos = re > 0
-    f, re = f[pos], re[pos]
-    h = h / re.max()
-    return h, f, -20 * np.log10(re / re.max())
+    return _scaled_to_unity(h, fs)
 
 
-def low_room_loop(seed, fs=16000):
+@functools.lru_cache(maxsize=None)
+def low_room_loop(seed: int, fs: int = 16000):
     """A loop whose worst crossings are low (80–170 Hz): a pyroomacoustics room with a longer
     reverberation (RT60 0.9–1.6 s, image sources to order 20), a 60 Hz high-pass, +10 dB of lift
     below ~250 Hz (a vocal mic used close: proximity effect) and the 6 kHz low-pass, scaled so its
     largest positive real-axis crossing is 1. Returns (ir, crossings_freq_hz, crossings_margin_db)
     as :func:`room_loop` does."""
     import pyroomacoustics as pra
-    from scipy.signal import butter, freqz, sosfilt
+    from scipy.signal import butter, sosfilt
     rng = np.random.default_rng(seed)
     dims = [rng.uniform(6, 12), rng.uniform(5, 9), rng.uniform(3, 6)]
     src = [rng.uniform(1, dims[0] - 1), rng.uniform(1, dims[1] - 1), 1.8]
     mic = [rng.uniform(1, dims[0] - 1), rng.uniform(1, dims[1] - 1), 1.5]
     e_abs, order = pra.inverse_sabine(rng.uniform(0.9, 1.6), dims)
     room = pra.ShoeBox(dims, fs=fs, materials=pra.Material(e_abs), max_order=min(order, 20))
-    room.add_source(src); room.add_microphone(mic); room.compute_rir()
+    room.add_source(src)
+    room.add_microphone(mic)
+    room.compute_rir()
     h = np.asarray(room.rir[0][0], float)
     h = sosfilt(butter(2, 60, "highpass", fs=fs, output="sos"), h)
     h = h + (10 ** (10 / 20) - 1) * sosfilt(butter(2, 250, "lowpass", fs=fs, output="sos"), h)
     h = sosfilt(butter(4, 6000, "lowpass", fs=fs, output="sos"), h)
     n = min(h.size, int(1.2 * fs))
     h = h[:n] * np.hanning(2 * n)[n:] ** 0.1
-    w, H = freqz(h, worN=2 ** 20, fs=fs)
-    im = H.imag
-    idx = np.nonzero((im[:-1] * im[1:] < 0))[0]
-    a = im[idx] / (im[idx] - im[idx + 1])
-    re = H.real[idx] + a * (H.real[idx + 1] - H.real[idx])
-    f = w[idx] + a * (w[idx + 1] - w[idx])
-    pos = re > 0
-    f, re = f[pos], re[pos]
-    h = h / re.max()
-    return h, f, -20 * np.log10(re / re.max())
+    return _scaled_to_unity(h, fs)
+
 
 def t_dominates(y: np.ndarray, fs: float, freq_hz: float, program_rms: float, t_from: float) -> float:
     """First time after ``t_from`` when the power within ±3 % of ``freq_hz`` (scipy STFT,
