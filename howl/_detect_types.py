@@ -41,7 +41,7 @@ class DetectorConfig:
         the 6th, was 13 dB down.)
     max_fsd: 0.2 % relative frequency deviation over the window. Vibrato of a
         sung note is ±0.5…3 %; a howl's estimate scatters by < 0.05 %.
-    fsd_floor_bins: 0.05 bin: the FSD and drift limits are relative, but the estimate's scatter
+    fsd_floor_bins: 0.02 bin: the FSD and drift limits are relative, but the estimate's scatter
         is absolute (the Cramér-Rao bound of a frequency estimate does not depend on the
         frequency; program partials beside a howl jitter it by 0.02–0.1 bin), so each relative
         limit gets a floor of this many bins (scaled as the limit is to ``max_fsd``). It governs
@@ -57,7 +57,9 @@ class DetectorConfig:
         (0.15 s): such a howl gains 6 dB in the time the full window would add. The
         half window is held to stricter tests (PNPR 6 dB higher, IMSD below a quarter
         of the growth, each half growing at ≥ half the rate, drift ≤ max_fsd/2)
-        because it sees fewer frames.
+        because it sees fewer frames. Its second half must also grow at ≥ ``fast_min_decel_ratio``
+        (0.6) × the first: program pumped through a loop crossing 1.5 dB below unity rose at
+        37 dB/s and slowed; a howl's growth does not slow before the limiter.
     rise_window_s, rise_min_db_per_s: growth of at least 40 dB/s (a loop 2 dB past
         unity at τ = 50 ms) is decided on 0.10 s, the tests there being the strictest:
         present in every frame, PNPR ≥ ``rise_min_pnpr_db`` (15 dB) in every frame,
@@ -93,6 +95,12 @@ class DetectorConfig:
         finds in most frames is tracked in all of them (the 0.10 s window needs every frame).
     eval_every_frames, hot_rise_db: tracks are evaluated every 4 frames, or every frame
         while their level rose ≥ 1 dB over the last 0.10 s.
+    low_lane_hz: below this (300 Hz) the detector also runs on frames four times longer
+        (0.34 s, 2.9 Hz bins), on a copy of the input decimated to about 2.4 kHz (the low lane,
+        :mod:`howl._detect_lane`): low howls grow slowly among program partials a semitone away,
+        which the 85 ms frame does not separate. The lane reports howls only (ring-downs stay with
+        the main frames); a howl both report within 1 % (or a lane bin) and 3 s is reported once,
+        by whichever decided first. None turns the lane off.
     growth_fit_s: the reported growth of a howl is a Theil-Sen line over up to 0.5 s.
     halves_fraction: the full window's halves must each grow at ≥ 0.25 × its rate.
     max_imsd_db_per_s: straightness of the growth: IMSD below 6 dB/s, or below
@@ -124,11 +132,12 @@ class DetectorConfig:
     min_pnpr_db: float = 12.0
     min_phpr_db: float = 12.0
     max_fsd: float = 0.002
-    fsd_floor_bins: float = 0.05
+    fsd_floor_bins: float = 0.02
     min_ipmp: float = 0.8
     decision_window_s: float = 0.3
     min_growth_db_per_s: float = 6.0
     fast_growth_db_per_s: float = 20.0
+    fast_min_decel_ratio: float = 0.6
     comod_fraction: float = 0.5
     n_rising_candidates: int = 4
     rise_lookback_s: float = 0.08
@@ -159,6 +168,7 @@ class DetectorConfig:
     eval_every_frames: int = 4
     hot_rise_db: float = 1.0
     growth_fit_s: float = 0.5
+    low_lane_hz: float | None = 300.0
 
     def validated(self) -> "DetectorConfig":
         v.in_range(self.window_s, "window_s", 0.01, 1.0, unit="s")
@@ -175,6 +185,8 @@ class DetectorConfig:
             v.in_range(self.rise_min_pnpr_one_side_db, "rise_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
         if self.rise_contrast_f_hi_hz is not None:
             v.positive(self.rise_contrast_f_hi_hz, "rise_contrast_f_hi_hz", unit="Hz")
+        if self.low_lane_hz is not None:
+            v.in_range(self.low_lane_hz, "low_lane_hz", self.f_lo_hz, 500.0, unit="Hz", lo_open=True)
         return self
 
 

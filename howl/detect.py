@@ -116,6 +116,7 @@ from ._detect_report import (  # noqa: F401  (re-exported)
     summarise_notches,
 )
 from ._detect_candidates import _CandidateSearch
+from ._detect_lane import Decimator, lane_config, lane_factor
 from ._detect_types import Candidate, DetectionResult, DetectorConfig, Event  # noqa: F401  (re-exported)
 
 __all__ = [
@@ -149,6 +150,12 @@ __all__ = [
 _LAST_KF = operator.attrgetter("last_kf")
 #: a howl's frequency is refined on a frame this many times the analysis frame (see Detector._refine_kf)
 REFINE_FACTOR = 4
+#: a howl reported by both lanes within this time (s) and max(1 %, a lane bin) is reported once
+LANE_SAME_S = 3.0
+#: track ids of the low lane's events are offset by this (the two lanes number their tracks apart)
+LANE_TRACK_ID_OFFSET = 1_000_000
+#: with the low lane, process() feeds both lanes in pieces of this length (s)
+LANE_STEP_S = 1.0
 
 
 @dataclass(frozen=True)
@@ -222,7 +229,7 @@ class Detector(_CandidateSearch):
     """
 
     def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None):
-        self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 4000.0, 768000.0, unit="Hz")
+        self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 2000.0, 768000.0, unit="Hz")
         self.cfg = (config or DetectorConfig()).validated()
         self.loop_delay_s = None if loop_delay_s is None else v.positive(loop_delay_s, "loop_delay_s", unit="s")
         import scipy.fft as sfft
@@ -256,13 +263,14 @@ class Detector(_CandidateSearch):
                   max_drift=c.rise_max_drift),
             _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.25, imsd_floor_db_per_s=0.0,
-                  min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2),
+                  min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2, min_decel_ratio=c.fast_min_decel_ratio),
             _Tier(self.win_frames, c.min_growth_db_per_s, min_pnpr_db=c.min_pnpr_db, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.6,
                   imsd_floor_db_per_s=c.max_imsd_db_per_s, min_ipmp=c.min_ipmp, halves_fraction=c.halves_fraction,
                   min_rise_db=0.0, full=True, max_drift=c.max_fsd),
         )
-        self.persist_frames = max(self.win_frames, int(round(self.cfg.persist_s / self.dt)))
+        persist = self.cfg.persist_s / self.dt
+        self.persist_frames = max(self.win_frames, int(round(persist))) if np.isfinite(persist) else 2 ** 62
         self._buf = np.zeros(0)
         self.n_long = REFINE_FACTOR * self.n_win  # the frame a howl's frequency is refined on
         self._win_long = gaussian_window(self.n_long)
@@ -284,6 +292,14 @@ class Detector(_CandidateSearch):
         self._exact_tol_bins = 0.5 * np.maximum(1.0, self._harm)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
+        # the low lane (see DetectorConfig.low_lane_hz): the same detector on a decimated copy
+        self._lane = self._dec = None
+        self._howls_at: dict[str, list[int]] = {"main": [], "lane": []}  # indices in self.events
+        self._call_start = 0
+        lane_hz = self.cfg.low_lane_hz
+        if lane_hz is not None and lane_factor(self.fs) >= 2:
+            self._dec = Decimator(self.fs, lane_factor(self.fs))
+            self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz))
 
     # ------------------------------------------------------------------ public
 
@@ -296,9 +312,17 @@ class Detector(_CandidateSearch):
         x = np.asarray(block, dtype=float).ravel()
         if x.size and not np.all(np.isfinite(x)):
             raise v.fail("block", "finite samples", "NaN/inf")
+        self._call_start = before = len(self.events)
+        # with the low lane, in pieces of LANE_STEP_S, so the two lanes stay within a piece of each
+        # other (which reported a howl first is decided on the event times, see _merge_lane)
+        step = x.size if self._lane is None else max(1, int(LANE_STEP_S * self.fs))
+        for i in range(0, x.size, step):
+            self._process_piece(x[i: i + step])
+        return self.events[before:]
+
+    def _process_piece(self, x: np.ndarray) -> None:
         self.n_samples += x.size
         self._buf = np.concatenate([self._buf, x]) if self._buf.size else x.copy()
-        before = len(self.events)
         chunk = 256
         while True:
             start0 = self._frame * self.hop - self._buf_start
@@ -307,13 +331,16 @@ class Detector(_CandidateSearch):
                 break
             n_f = int(min(avail, chunk))
             self._analyse(start0, n_f)
+        if self._lane is not None:
+            y = self._dec.process(x)
+            if y.size:
+                self._merge_lane(self._lane.process(y))
         # drop consumed samples
         keep_from = self._frame * self.hop - self._buf_start
         if keep_from > 0:
             self._past = np.concatenate([self._past, self._buf[:keep_from]])[-self.n_long:]
             self._buf = self._buf[keep_from:]
             self._buf_start += keep_from
-        return self.events[before:]
 
     def finish(self) -> list[Event]:
         """Close all tracks (end of file or of a live run) and return the new events."""
@@ -321,6 +348,8 @@ class Detector(_CandidateSearch):
         for tr in self._tracks:
             self._close(tr)
         self._tracks = []
+        if self._lane is not None:
+            self._merge_lane(self._lane.finish())
         return self.events[before:]
 
     def candidates(self, max_n: int = 8) -> list[Candidate]:
@@ -344,6 +373,40 @@ class Detector(_CandidateSearch):
         return out[:max_n]
 
     # ------------------------------------------------------------------ internals
+
+    def _same_howl(self, freq_hz: float, time_s: float, lane: str) -> int | None:
+        """The index in ``self.events`` of a howl that ``lane`` ("main" or "lane") reported within
+        max(1 %, a lane bin) of ``freq_hz`` and ``LANE_SAME_S`` of ``time_s`` (the other lane's
+        report of it is the same howl), or None."""
+        if self._lane is None:
+            return None
+        tol = max(0.01 * freq_hz, self._lane.bin_hz)
+        for i in self._howls_at[lane]:
+            e = self.events[i]
+            if abs(e.freq_hz - freq_hz) <= tol and abs(time_s - e.time_s) <= LANE_SAME_S:
+                return i
+        return None
+
+    def _merge_lane(self, events: list[Event]) -> None:
+        """Take the low lane's new howls: not its ring-downs (the main frames report those), not
+        products of howls already reported. A howl both lanes report is reported once, at the
+        earlier time: the main lane's report is replaced when it is later and not yet returned."""
+        from dataclasses import replace
+
+        for e in events:
+            if e.kind != "howl" or self._is_howl_product(e.freq_hz):
+                continue
+            e = replace(e, track_id=e.track_id + LANE_TRACK_ID_OFFSET, onset_s=max(0.0, e.onset_s - self._dec.delay_s))
+            i = self._same_howl(e.freq_hz, e.time_s, "main")
+            if i is not None:
+                if self.events[i].time_s <= e.time_s or i < self._call_start:
+                    continue
+                self.events[i] = e
+                self._howls_at["main"].remove(i)
+                self._howls_at["lane"].append(i)
+                continue
+            self._howls_at["lane"].append(len(self.events))
+            self.events.append(e)
 
     def _analyse(self, start0: int, n_f: int) -> None:
 
@@ -530,8 +593,8 @@ class Detector(_CandidateSearch):
         med = np.median(R, axis=0)
         dx = ts - ts.mean()
         r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
-        grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
-        grows_along &= np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
+        exact = np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
+        grows_along = (r_slope <= (1.0 - cfg.comod_fraction) * slope) & exact
         explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
         if tier.other_partners:
             explains |= med < cfg.min_phpr_other_db
@@ -588,11 +651,17 @@ class Detector(_CandidateSearch):
             kf_med = float(np.median(kf))
             if (fr_end - tr.frames[0]) * self.hop + self.n_win >= self.n_long:  # tracked over the long frame
                 kf_med = self._refine_kf(kf_med, t * self.hop + self.n_win)
+            time_s = (t * self.hop + self.n_win) / self.fs
+            if self._same_howl(kf_med * self.bin_hz, time_s, "lane") is not None:
+                tr.reported = "howl"  # the low lane has reported it
+                tr.state = "howl"
+                return
+            self._howls_at["main"].append(len(self.events))
             tr.reported = "howl"
             tr.state = "howl"
             margin = None if self.loop_delay_s is None else -slope * self.loop_delay_s
             self.events.append(Event(
-                time_s=(t * self.hop + self.n_win) / self.fs,
+                time_s=time_s,
                 onset_s=(tr.frames[0] * self.hop + self.n_win / 2) / self.fs,
                 freq_hz=kf_med * self.bin_hz, kind="howl", level_db=float(lv[-1]),
                 growth_db_per_s=float(slope), papr_db=float(np.median(tr.col('papr', i0))), pnpr_db=pn, phpr_db=ph,
@@ -752,6 +821,6 @@ def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None =
             det.process(x[i: i + b])
     det.finish()
     return DetectionResult(
-        events=tuple(det.events), sample_rate_hz=det.fs, duration_s=x.size / det.fs, n_frames=det._frame,
+        events=tuple(sorted(det.events, key=lambda e: e.time_s)), sample_rate_hz=det.fs, duration_s=x.size / det.fs, n_frames=det._frame,
         window_samples=det.n_win, hop_samples=det.hop, loop_delay_s=det.loop_delay_s,
     )
