@@ -577,3 +577,23 @@ def test_ringing_is_reported_while_it_still_fades_once_per_ring_down():
     assert e.decay_db_per_s == pytest.approx(20.0, rel=0.05)
     # first principles: margin = decay * tau = 20 dB/s * 75 ms = 1.5 dB ("~1.5 dB from howling")
     assert e.margin_db == pytest.approx(1.5, abs=0.1)
+
+
+@pytest.mark.parametrize("fs", [16000, 44100, 48000])
+def test_low_lane_decimator_matches_numpy_convolve_for_any_block_split(fs):
+    # Reference: numpy.convolve of the same FIR, every D-th sample (exact up to rounding).
+    from howl._detect_lane import Decimator, lane_factor
+
+    x = np.random.default_rng(1).standard_normal(2 * fs)
+    d = Decimator(fs, lane_factor(fs))
+    ref = np.convolve(x, d.h)[: x.size][:: d.factor]
+    rng = np.random.default_rng(2)
+    outs, i = [], 0
+    while i < x.size:
+        b = int(rng.integers(1, 3000))
+        outs.append(d.process(x[i: i + b]))
+        i += b
+    y = np.concatenate(outs)
+    assert y.size > 0.9 * ref.size
+    assert np.max(np.abs(y - ref[: y.size])) < 1e-12
+    assert np.array_equal(y, Decimator(fs, lane_factor(fs)).process(x)[: y.size])
