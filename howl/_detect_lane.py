@@ -9,9 +9,9 @@ not needed at those rates: such a howl takes seconds to reach the program.
 
 The lane is the same detector (one piece of code per idea) at a lower sample rate: the input is
 low-pass filtered and decimated by an integer factor (:class:`Decimator`), and the time settings
-are scaled (:func:`lane_config`). A long frame also averages away the vibrato of a sung note that
-the short frame sees, so a lane howl is also checked on the short frames (see
-``Detector._lane_note``).
+are scaled (:func:`lane_config`). A long frame also averages away most of the vibrato of a sung
+note that the short frame sees, so the lane's limits on frequency spread and drift are a third of
+the main lane's (see :func:`lane_config`).
 """
 
 from __future__ import annotations

@@ -80,7 +80,7 @@ from __future__ import annotations
 
 import bisect
 import operator
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -263,7 +263,8 @@ class Detector(_CandidateSearch):
                   max_drift=c.rise_max_drift),
             _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.25, imsd_floor_db_per_s=0.0,
-                  min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2, min_decel_ratio=c.fast_min_decel_ratio),
+                  min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2,
+                  min_decel_ratio=c.fast_min_decel_ratio),
             _Tier(self.win_frames, c.min_growth_db_per_s, min_pnpr_db=c.min_pnpr_db, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.6,
                   imsd_floor_db_per_s=c.max_imsd_db_per_s, min_ipmp=c.min_ipmp, halves_fraction=c.halves_fraction,
@@ -391,8 +392,6 @@ class Detector(_CandidateSearch):
         """Take the low lane's new howls: not its ring-downs (the main frames report those), not
         products of howls already reported. A howl both lanes report is reported once, at the
         earlier time: the main lane's report is replaced when it is later and not yet returned."""
-        from dataclasses import replace
-
         for e in events:
             if e.kind != "howl" or self._is_howl_product(e.freq_hz):
                 continue
@@ -593,8 +592,8 @@ class Detector(_CandidateSearch):
         med = np.median(R, axis=0)
         dx = ts - ts.mean()
         r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
-        exact = np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
-        grows_along = (r_slope <= (1.0 - cfg.comod_fraction) * slope) & exact
+        grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
+        grows_along &= np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
         explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
         if tier.other_partners:
             explains |= med < cfg.min_phpr_other_db
@@ -821,6 +820,7 @@ def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None =
             det.process(x[i: i + b])
     det.finish()
     return DetectionResult(
-        events=tuple(sorted(det.events, key=lambda e: e.time_s)), sample_rate_hz=det.fs, duration_s=x.size / det.fs, n_frames=det._frame,
+        events=tuple(sorted(det.events, key=lambda e: e.time_s)), sample_rate_hz=det.fs, duration_s=x.size / det.fs,
+        n_frames=det._frame,
         window_samples=det.n_win, hop_samples=det.hop, loop_delay_s=det.loop_delay_s,
     )
