@@ -382,10 +382,16 @@ def test_a_low_pure_tone_is_not_explained_away_by_its_own_main_lobe():
     assert howls[0].phpr_db > 30.0, howls[0]
 
 
-@pytest.mark.parametrize("seed, program, over_db", [(37, "speech", 2.0), (31, "speech", 3.0), (37, "music", 2.0)])
+#: low cases that the low lane (2.9 Hz bins below 300 Hz) reports first: measured 2026-12-02,
+#: the main lane alone missed both (low_lane_hz=None); the lane finds them 0.5 / 2.2 s early
+LOW_LANE_CASES = [(31, "music", 2.0), (30, "music", 0.5)]
+
+
+@pytest.mark.parametrize("seed, program, over_db",
+                         [(37, "speech", 2.0), (31, "speech", 3.0), (37, "music", 2.0)] + LOW_LANE_CASES)
 def test_low_howl_in_a_reverberant_room_loop_is_found_before_it_dominates(seed, program, over_db):
-    # Low crossings (101 / 120 Hz) in pyroomacoustics rooms with 1–1.6 s of reverberation: the howl
-    # grows slowly (7–15 dB/s) among the voice's own harmonics.
+    # Low crossings (101 / 120 / 129 Hz) in pyroomacoustics rooms with 1–1.6 s of reverberation:
+    # the howl grows slowly (2–15 dB/s) among the voice's own harmonics.
     from howl.simulate import simulate_closed_loop
 
     fs = 16000
@@ -403,6 +409,9 @@ def test_low_howl_in_a_reverberant_room_loop_is_found_before_it_dominates(seed, 
     t_dom = min(t_dominates(y, fs, f, float(np.sqrt(np.mean(x ** 2))), 2.0) for f in unstable)
     print(f"low loop {seed} {program} +{over_db} dB: {first.freq_hz:.2f} Hz at {first.time_s:.2f} s, dominates {t_dom:.2f} s")
     assert 2.0 < first.time_s < t_dom
+    if (seed, program, over_db) in LOW_LANE_CASES:  # reported by the low lane, its onset put back
+        assert first.track_id >= D.LANE_TRACK_ID_OFFSET, first  # by the decimator's delay
+        assert first.onset_s <= first.time_s, first
 
 
 # ----------------------------------------------------------------------------- no-howl programs
@@ -444,6 +453,15 @@ HARD_NO_HOWL = {
     "flute 880 Hz +20 dB/s": lambda fs: flute_swell(fs, 880.0, 20.0, 1.5),
     "flute 1175 Hz +15 dB/s": lambda fs: flute_swell(fs, 1174.7, 15.0, 3.0),
     "flute 1568 Hz +25 dB/s": lambda fs: flute_swell(fs, 1568.0, 25.0, 4.5),
+    # low notes, the low lane's concern (its long frames see less of a vibrato cycle): before the
+    # lane's stricter spread/drift limits these raised 5 false alarms there (measured 2026-12-02)
+    "held note 82 Hz +6 dB/s": lambda fs: held_note_crescendo(fs, 82.4, 6.0),
+    "held note 147 Hz +12 dB/s": lambda fs: held_note_crescendo(fs, 147.0, 12.0),
+    "sung vowel 110 Hz +15 dB/s, 0.4 % vibrato": lambda fs: sung_vowel_swell(fs, 110.0, 15.0, 0.004),
+    "sung vowel 131 Hz +10 dB/s, 0.6 % vibrato": lambda fs: sung_vowel_swell(fs, 131.0, 10.0, 0.006),
+    "sung vowel 220 Hz +8 dB/s, 0.5 % vibrato": lambda fs: sung_vowel_swell(fs, 220.0, 8.0, 0.005),
+    "flute 196 Hz +15 dB/s": lambda fs: flute_swell(fs, 196.0, 15.0, 1.0, seed=196),
+    "flute 262 Hz +20 dB/s": lambda fs: flute_swell(fs, 262.0, 20.0, 1.0, seed=262),
 }
 
 
