@@ -9,16 +9,21 @@
    with a proximity lift, worst crossings 100-165 Hz, 8 s programs),
    speech-like and music-like programs, the gain stepped 0.5–3 dB past the worst crossing at
    t = 2 s; latency = detection time − 2 s, lead = (time the howl is as loud as the program)
-   − detection time (positive: detected before it dominates), for the unstable crossing nearest
-   the first howl reported; lead_any = (first time any unstable crossing's howl is as loud as
-   the program) − time of the first howl reported (stricter). A case whose program alone passes
+   − detection time (positive: detected before it dominates), for the unstable mode nearest
+   the first howl reported; lead_any = (first time any unstable mode's howl is as loud as
+   the program) − time of the first howl reported (stricter). The truth for frequency and growth
+   is the closed loop's mode at that gain (test_detect.closed_loop_modes: the pole of
+   1/(1 − gH) found from each unstable crossing); the crossing itself is off by up to 0.5 % for a
+   low loop well past unity, and its error is printed too. A case whose program alone passes
    the same dominance test near that frequency (the fader raised only to 1 dB below the worst
    crossing: a stable loop) is flagged program_alone_dominates: its lead measures program, not
    the howl, and is counted apart.
 3. False alarms on every no-howl program of tests/test_detect.py (speech-like, music-like with
    and without vibrato, noise, a held note with vibrato and crescendo, the hard cases: held notes
    in crescendo, swelling sung vowels, flute-like swells) and on program through the 5 loops at
-   the usual 6 dB margin: the count of events on each.
+   the usual 6 dB margin: the count of events on each, and on a further set of low-pitched
+   programs (low_programs); each also through the main lane alone (low_lane_hz=None), and the
+   low latency set too, to show what the low lane buys and costs.
 Prints tables and writes JSON to tests/benchmarks/results/bench_detect.json.
 """
 
@@ -38,10 +43,13 @@ import numpy as np  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
 
-from test_detect import (HARD_NO_HOWL, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
+from test_detect import (HARD_NO_HOWL, closed_loop_modes, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
                          room_loop, speech_like, sung_vowel_swell, t_dominates)  # noqa: E402
 
-from howl.detect import detect  # noqa: E402
+from howl.detect import DetectorConfig, detect  # noqa: E402
+
+#: the main lane alone (no low lane): the comparison that shows what the low lane buys
+LANE_OFF = DetectorConfig(low_lane_hz=None)
 
 
 def rtf(quick: bool) -> list[dict]:
@@ -62,7 +70,13 @@ def rtf(quick: bool) -> list[dict]:
             detect(x, fs)
             ts.append(time.process_time() - t0)
         med = float(np.median(ts))
+        ts_off = []
+        for _ in range(1 if quick else 3):
+            t0 = time.process_time()
+            detect(x, fs, LANE_OFF)
+            ts_off.append(time.process_time() - t0)
         out.append({"program": name, "audio_s": dur, "cpu_s_median": med, "cpu_s_min": float(min(ts)),
+                    "cpu_s_min_lane_off": float(min(ts_off)),
                     "cpu_s_runs": ts, "rtf": med / dur, "target_cpu_s": 0.6, "meets_target": med < 0.6})
     return out
 
@@ -94,31 +108,42 @@ def latency(quick: bool, low: bool = False) -> list[dict]:
                 g = np.full(x.size, -6.0)
                 g[2 * fs:] = over
                 y = simulate_closed_loop(h, x, fs, gain_db=g)
-                unstable = cf[cm - over < 0]
+                # truth: the closed loop's modes (poles) at this gain, from the unstable crossings
+                unstable, growth = closed_loop_modes(h, over, cf[cm - over < 0], fs)
                 howls = [e for e in detect(y, fs).events if e.kind == "howl"]
                 row = {"seed": seed, "program": prog, "over_db": over, "n_unstable_crossings": int(unstable.size)}
+                rms = float(np.sqrt(np.mean(x ** 2)))
+                if low:  # the same case through the main lane alone
+                    off = [e for e in detect(y, fs, LANE_OFF).events if e.kind == "howl"]
+                    if off:
+                        f_off = unstable[int(np.argmin(np.abs(unstable / off[0].freq_hz - 1)))]
+                        row["lane_off_lead_s"] = t_dominates(y, fs, f_off, rms, 2.0) - off[0].time_s
+                    else:
+                        row["lane_off_lead_s"] = None
                 if howls:
                     e = howls[0]
-                    err = float(np.min(np.abs(unstable / e.freq_hz - 1)))
-                    rms = float(np.sqrt(np.mean(x ** 2)))
-                    f_near = unstable[int(np.argmin(np.abs(unstable / e.freq_hz - 1)))]
+                    i_near = int(np.argmin(np.abs(unstable / e.freq_hz - 1)))
+                    err = float(abs(unstable[i_near] / e.freq_hz - 1))
+                    err_crossing = float(np.min(np.abs(cf[cm - over < 0] / e.freq_hz - 1)))
+                    f_near = unstable[i_near]
                     t_dom = t_dominates(y, fs, f_near, rms, 2.0)
                     program_alone_dominates = bool(np.isfinite(t_dominates(y_stable, fs, f_near, rms, 2.0)))
                     t_any = min(t_dominates(y, fs, f, rms, 2.0) for f in unstable)
                     knee = 0.5 * 10 ** (-1 / 20)  # the simulator's limiter knee (-1 dBFS ceiling)
                     clip = np.nonzero(np.abs(y) > knee)[0]
                     t_lim = clip[0] / fs if clip.size else np.inf
-                    on_edge = cf[cm - over < NEAR_UNITY_DB]  # unstable, or stable within 0.5 dB of unity
+                    on_edge, _ = closed_loop_modes(h, over, cf[cm - over < NEAR_UNITY_DB], fs)  # unstable, or within 0.5 dB
                     wrong = [h for h in howls if h.time_s < t_lim and np.min(np.abs(on_edge / h.freq_hz - 1)) >= 1e-3]
                     near = [h for h in howls if h.time_s < t_lim and np.min(np.abs(unstable / h.freq_hz - 1)) >= 1e-3
                             and h not in wrong]
-                    row.update(detected=True, freq_hz=e.freq_hz, freq_err_pct=100 * err, latency_s=e.time_s - 2.0,
+                    row.update(detected=True, freq_hz=e.freq_hz, freq_err_pct=100 * err,
+                               freq_err_vs_crossing_pct=100 * err_crossing, mode_freq_hz=float(unstable[i_near]),
+                               mode_growth_db_per_s=float(growth[i_near]), latency_s=e.time_s - 2.0,
                                lead_s=t_dom - e.time_s, lead_any_s=t_any - e.time_s, window_s=e.window_s,
                                growth_db_per_s=e.growth_db_per_s, n_howls_off_crossing_before_limiter=len(wrong),
                                n_howls_near_unity_before_limiter=len(near),
                                program_alone_dominates=program_alone_dominates)
                 else:
-                    rms = float(np.sqrt(np.mean(x ** 2)))
                     t_first = min((t_dominates(y, fs, f, rms, 2.0) for f in unstable), default=np.inf)
                     row.update(detected=False, howl_dominates_s=float(t_first))
                 rows.append(row)
@@ -153,24 +178,69 @@ def false_alarms(quick: bool) -> list[dict]:
         cases[f"music through loop {seed} at 6 dB margin (5 s)"] = simulate_closed_loop(
             h, music_like(fs, 5, seed + 60), fs, gain_db=-6.0)
     # low-pitched programs (the low set's concern) and program through the low loops
-    for f0, g in ((82.4, 6), (110, 8), (147, 12), (196, 10), (247, 15)):
+    # (HARD_NO_HOWL holds held notes at 82/147 Hz, sung vowels at 110/131/220 Hz, flutes at 196/262 Hz)
+    for f0, g in ((110, 8), (196, 10), (247, 15)):
         cases[f"held note {f0:g} Hz +{g} dB/s (5 s)"] = held_note_crescendo(fs, f0, g)
-    for f0, g, vib in ((98, 10, 0.008), (110, 15, 0.004), (131, 10, 0.006), (165, 12, 0.01), (220, 8, 0.005)):
+    for f0, g, vib in ((98, 10, 0.008), (165, 12, 0.01)):
         cases[f"sung vowel {f0:g} Hz +{g} dB/s, {100 * vib:g} % vibrato (5 s)"] = sung_vowel_swell(fs, f0, g, vib)
-    for f0, g in ((196, 15), (262, 20)):
-        cases[f"flute {f0:g} Hz +{g} dB/s (5 s)"] = flute_swell(fs, f0, g, 1.0, seed=f0)
     for seed in (LOW_SEEDS[:2] if quick else LOW_SEEDS):
         h, _, _ = low_room_loop(seed)
         cases[f"speech through low loop {seed} at 6 dB margin (6 s)"] = simulate_closed_loop(
             h, speech_like(fs, 6, seed + 100), fs, gain_db=-6.0)
         cases[f"music through low loop {seed} at 6 dB margin (6 s)"] = simulate_closed_loop(
             h, music_like(fs, 6, seed + 110), fs, gain_db=-6.0)
+    return _count_events(cases, fs)
+
+
+def _count_events(cases: dict[str, np.ndarray], fs: float) -> list[dict]:
+    """Events on each no-howl program, with the low lane (the default) and without it."""
     out = []
     for name, x in cases.items():
         ev = detect(x, fs).events
         out.append({"program": name, "audio_s": x.size / fs, "false_alarms": len(ev),
+                    "false_alarms_lane_off": len(detect(x, fs, LANE_OFF).events),
                     "events": [{"kind": e.kind, "time_s": e.time_s, "freq_hz": e.freq_hz} for e in ev]})
     return out
+
+
+def low_programs(quick: bool) -> list[dict]:
+    """A further set of low-pitched no-howl programs, 5-10 s each at 16 kHz: sung vowels 87-277 Hz,
+    flute-like notes 147-294 Hz, held harmonic notes 65-277 Hz, speech-like and music-like
+    programs (seeds 500-505), program through the five low loops at 1.5 and 3 dB margin, and sung
+    vowels through low loops at 1.5 dB margin (a note pumped through a resonance near unity).
+    I tuned the low lane's limits on this set (docs/scan.md), so it is not held out."""
+    from howl.simulate import simulate_closed_loop
+
+    fs = 16000
+    cases: dict[str, np.ndarray] = {}
+    sung = (87.3, 98, 110, 123.5, 131, 147, 165, 185, 196, 220, 247, 277.2)
+    for i, f0 in enumerate(sung[::3] if quick else sung):
+        g, vib = (8, 10, 12, 15)[i % 4], (0.004, 0.006, 0.008, 0.01)[i % 4]
+        cases[f"sung vowel {f0:g} Hz +{g} dB/s, {100 * vib:g} % vibrato"] = sung_vowel_swell(fs, f0, g, vib)
+    flutes = (147, 165, 175, 196, 220, 247, 262, 294)
+    for i, f0 in enumerate(flutes[::3] if quick else flutes):
+        g = (12, 15, 20, 25)[i % 4]
+        cases[f"flute {f0:g} Hz +{g} dB/s"] = flute_swell(fs, f0, g, 0.7 * i, seed=1000 + f0)
+    held = (65.4, 73.4, 82.4, 98, 110, 131, 147, 165, 196, 220, 247, 277.2)
+    for i, f0 in enumerate(held[::3] if quick else held):
+        g = (6, 8, 10, 12)[i % 4]
+        cases[f"held note {f0:g} Hz +{g} dB/s"] = held_note_crescendo(fs, f0, g)
+    for seed in range(500, 502 if quick else 506):
+        cases[f"speech seed {seed} (10 s)"] = speech_like(fs, 10, seed)
+        cases[f"music seed {seed} (10 s)"] = music_like(fs, 10, seed)
+        cases[f"held notes seed {seed} (10 s)"] = music_like(fs, 10, seed, vibrato=False)
+    for seed in (LOW_SEEDS[:2] if quick else LOW_SEEDS):
+        h, _, _ = low_room_loop(seed)
+        for margin in (1.5, 3.0):
+            cases[f"speech through low loop {seed} at {margin:g} dB margin (8 s)"] = simulate_closed_loop(
+                h, speech_like(fs, 8, seed + 200), fs, gain_db=-margin)
+            cases[f"music through low loop {seed} at {margin:g} dB margin (8 s)"] = simulate_closed_loop(
+                h, music_like(fs, 8, seed + 210), fs, gain_db=-margin)
+    for seed, f0 in ((30, 131), (33, 165), (37, 98)):
+        h, _, _ = low_room_loop(seed)
+        cases[f"sung vowel {f0} Hz through low loop {seed} at 1.5 dB margin"] = simulate_closed_loop(
+            h, sung_vowel_swell(fs, f0, 10, 0.006), fs, gain_db=-1.5)
+    return _count_events(cases, fs)
 
 
 def summarise(lat: list[dict], title: str) -> None:
@@ -185,11 +255,25 @@ def summarise(lat: list[dict], title: str) -> None:
     if det:
         q = lambda a: np.percentile(a, [10, 50, 90])  # noqa: E731
         print(f"latency after the gain step  p10/median/p90: {q(lats).round(2)} s")
-        print(f"lead before it dominates     p10/median/p90: {q(leads).round(2)} s (min {leads.min():.2f})")
+        print(f"lead before it dominates     p10/median/p90: {q(leads[np.isfinite(leads)]).round(2)} s "
+              f"(min {leads.min():.2f}; {int(np.sum(~np.isfinite(leads)))} whose mode never dominates)")
         print(f"found within 0.1 %: {int(np.sum(errs < 0.1))} of {len(det)}")
-        print(f"frequency error              median/max: {np.median(errs):.4f} / {errs.max():.4f} %")
+        print(f"frequency error              median/max: {np.median(errs):.4f} / {errs.max():.4f} % "
+              f"(against the closed loop's mode; against the crossing: max "
+              f"{max(row['freq_err_vs_crossing_pct'] for row in det):.4f} %)")
+        gerr = np.array([row["growth_db_per_s"] - row["mode_growth_db_per_s"] for row in det])
+        print(f"growth - the mode's growth   p10/median/p90: {q(gerr).round(1)} dB/s")
         any_ = np.array([row["lead_any_s"] for row in det])
         print(f"lead_s <= 0 in {int(np.sum(leads <= 0))} of {len(det)}; lead_any_s <= 0 in {int(np.sum(any_ <= 0))}")
+        early = sum(row["detected"] and row["lead_s"] > 0 for row in lat)
+        late = sum((row["detected"] and row["lead_s"] <= 0) or (not row["detected"] and np.isfinite(row["howl_dominates_s"]))
+                   for row in lat)
+        print(f"found before it dominates: {early} of {len(lat)}; late or missed although it dominates: {late}")
+        if "lane_off_lead_s" in lat[0]:
+            off = [row["lane_off_lead_s"] for row in lat]
+            early_off = sum(v is not None and v > 0 for v in off)
+            print(f"  the main lane alone (low_lane_hz=None): found before it dominates in {early_off} of {len(lat)}, "
+                  f"missed in {sum(v is None for v in off)}")
         clean = [row for row in det if not row["program_alone_dominates"]]
         print(f"cases where the program alone (stable loop, 1 dB below unity) passes the dominance test: "
               f"{len(det) - len(clean)}; of the other {len(clean)}, lead_s <= 0 in "
@@ -197,12 +281,14 @@ def summarise(lat: list[dict], title: str) -> None:
         print(f"howls before the limiter off every crossing within {NEAR_UNITY_DB:g} dB of unity: "
               f"{sum(row['n_howls_off_crossing_before_limiter'] for row in det)}; on a stable crossing that "
               f"close: {sum(row['n_howls_near_unity_before_limiter'] for row in det)}")
-        print(f"\n{'case':<20}{'latency_s':>10}{'lead_s':>8}{'lead_any_s':>11}{'window_s':>9}{'dB/s':>7}  program alone")
+        print(f"\n{'case':<20}{'latency_s':>10}{'lead_s':>8}{'lead_any_s':>11}{'window_s':>9}{'dB/s':>7}"
+              f"{'mode':>7}{'err %':>8}  program alone")
         for row in lat:
             name = f"{row['seed']} {row['program']} +{row['over_db']:g} dB"
             if row["detected"]:
                 print(f"{name:<20}{row['latency_s']:10.2f}{row['lead_s']:8.2f}{row['lead_any_s']:11.2f}"
-                      f"{row['window_s']:9.2f}{row['growth_db_per_s']:7.0f}  "
+                      f"{row['window_s']:9.2f}{row['growth_db_per_s']:7.0f}{row['mode_growth_db_per_s']:7.0f}"
+                      f"{row['freq_err_pct']:8.3f}  "
                       f"{'dominates' if row['program_alone_dominates'] else '-'}")
             else:
                 t = row["howl_dominates_s"]
@@ -213,20 +299,26 @@ def main() -> None:
     quick = "--quick" in sys.argv
     r = rtf(quick)
     print("\nreal-time factor at 48 kHz (60 s of audio, CPU s: median and fastest of 5 runs)")
-    print(f"{'program':<24}{'median':>8}{'fastest':>9}{'rtf':>9}  target < 0.6 s (median)")
+    print(f"{'program':<24}{'median':>8}{'fastest':>9}{'rtf':>9}  target < 0.6 s (median)   fastest, lane off")
     for row in r:
         print(f"{row['program']:<24}{row['cpu_s_median']:8.3f}{row['cpu_s_min']:9.3f}{row['rtf']:9.4f}  "
-              f"{'ok' if row['meets_target'] else 'MISSED'}")
+              f"{'ok' if row['meets_target'] else 'MISSED':<26}{row['cpu_s_min_lane_off']:8.3f}")
     lat = latency(quick)
     summarise(lat, "closed-loop cases (loops 0-4: crossings 0.5-6 kHz)")
     lat_low = latency(quick, low=True)
     summarise(lat_low, f"low closed-loop cases (low_room_loop seeds {', '.join(map(str, LOW_SEEDS))}: crossings 80-170 Hz)")
     fa = false_alarms(quick)
-    print(f"\nfalse alarms on {len(fa)} no-howl programs ({sum(c['audio_s'] for c in fa):.0f} s): "
-          f"{sum(c['false_alarms'] for c in fa)}")
-    for c in fa:
-        print(f"  {c['false_alarms']}  {c['program']}")
-    out = {"rtf_48k": r, "latency_cases": lat, "latency_cases_low": lat_low, "false_alarms": fa}
+    fa_low = low_programs(quick)
+    for title, rows in (("no-howl programs of tests/test_detect.py and the loops at 6 dB margin", fa),
+                        ("further low-pitched no-howl programs (low_programs)", fa_low)):
+        print(f"\nfalse alarms on {len(rows)} {title} ({sum(c['audio_s'] for c in rows):.0f} s): "
+              f"{sum(c['false_alarms'] for c in rows)} (main lane alone: {sum(c['false_alarms_lane_off'] for c in rows)})")
+        print("  events  lane off  program")
+        for c in rows:
+            print(f"  {c['false_alarms']:6d}  {c['false_alarms_lane_off']:8d}  {c['program']}"
+                  + "".join(f"  [{e['kind']} {e['freq_hz']:.1f} Hz at {e['time_s']:.2f} s]" for e in c["events"]))
+    out = {"rtf_48k": r, "latency_cases": lat, "latency_cases_low": lat_low, "false_alarms": fa,
+           "false_alarms_low_programs": fa_low}
     path = HERE / "results" / "bench_detect.json"
     path.parent.mkdir(exist_ok=True)
     path.write_text(json.dumps(out, indent=2), encoding="utf-8")
