@@ -3,7 +3,7 @@
 
 * :meth:`_CandidateSearch._features`: the feature row of each candidate (see ``_Track``):
   log-parabola frequency and level, PAPR, PNPR (two-sided and on the quieter side), PHPR at
-  :data:`~howl._detect_features.HARMONIC_MULTIPLIERS` with whether each partner sits at the exact
+  :data:`~howl._detect_features.HARMONIC_MULTIPLIERS` with how far each partner sits from the exact
   multiple, and the frequency from the quieter side;
 * :meth:`_CandidateSearch._add_rising`: rising candidates far below the program, held for the
   decision window once found.
@@ -81,9 +81,10 @@ class _CandidateSearch:
         with np.errstate(divide="ignore", invalid="ignore"):
             d = np.where(den < 0, 0.5 * (trio[:, :, 0] - trio[:, :, 2]) / den, 0.0)
         kf_p = hk + jc - 2 + np.clip(d, -0.5, 0.5)
-        exact = (np.abs(kf_p - kf[:, None] * self._harm[None, :]) <= self._exact_tol_bins) & (jmax == jc)
-        # one array per row: the peak-to-partner ratios (dB), then 1.0 where that partner is exact
-        partners = np.concatenate([ratio, exact], axis=1)
+        dev = np.where(jmax == jc, np.abs(kf_p - kf[:, None] * self._harm[None, :]), np.inf)
+        # one array per row: the peak-to-partner ratios (dB), then each partner's distance (bins)
+        # from the exact multiple (inf: no peak within the search)
+        partners = np.concatenate([ratio, dev], axis=1)
         return list(zip(*(a.tolist() for a in (kf, level_db, papr, pnpr, phpr, nb_db, phf)), list(partners),
                         pnpr1.tolist(), kf1.tolist()))
 

@@ -50,10 +50,17 @@ def lane_config(cfg, lane_hz: float):
       in a room, loop crossings sit at the multiples of an axial mode (axial modes are harmonic,
       f_n = n·c/2L), so a howl at 101 Hz had a louder stable line at exactly 202 Hz. Partners that
       do grow along (a swelling note's partials) still explain it;
+    * ring-downs: the main lane's spread limit (``ring_max_fsd``: two loop modes a few Hz apart
+      beat in the long frame), and PHPR over exact partners only (``ring_exact_partners``): a
+      room's low loop modes ring together at near-harmonic ratios (101 and 152 Hz), which the
+      main lane's 12 Hz bins do not resolve, so there no low ring-down passed at all;
+    * a ring-down must decay slower than 0.75 × its neighbour bins (``max_decay_ratio``): in a
+      reverberant room (RT60 over 0.75 s) every narrowband component decays slower than
+      ``max_decay_db_per_s``; program through the low loops gave lane ring-downs at 0.9–2.9 × their
+      neighbours' rate (note decays pumped through a mode), while every loop mode rung by a click
+      (margins 1–4.4 dB) decayed at 0.26–0.58 × (measured 2026-12-02);
     * cheaper: tracks that are not rising are evaluated every 8 lane frames (0.16 s; a rising one
-      every frame, as in the main lane), and there are no ring-down tests (``min_decay_span_db``
-      infinite): the lane reports howls only. Same detections on the low set and the no-howl
-      programs, about a third less of the lane's CPU (measured 2026-12-02).
+      every frame, as in the main lane).
     """
     kw = dict(
         window_s=LANE_FRAME_FACTOR * cfg.window_s, hop_s=2.0 * cfg.hop_s, f_hi_hz=lane_hz,
@@ -61,7 +68,8 @@ def lane_config(cfg, lane_hz: float):
         rise_lookback_s=2.0 * cfg.rise_lookback_s, growth_fit_s=2.0 * cfg.growth_fit_s, low_lane_hz=None,
         n_candidates=10, min_papr_db=3.0, max_fsd=cfg.max_fsd / 3.0, rise_max_fsd=cfg.rise_max_fsd / 3.0,
         rise_max_drift=cfg.rise_max_drift / 3.0, persist_s=float("inf"),
-        min_phpr_other_db=float("-inf"), eval_every_frames=8, min_decay_span_db=float("inf"),
+        min_phpr_other_db=float("-inf"), eval_every_frames=8, ring_max_fsd=cfg.max_fsd, ring_exact_partners=True,
+        max_decay_ratio=0.75,
     )
     return replace(cfg, **kw)
 

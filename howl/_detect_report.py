@@ -15,19 +15,52 @@ DEFAULT_LOOP_DELAY_S = 0.020
 TARGET_MARGIN_DB = 3.0
 
 
-def suggest_event_cut(event, *, loop_delay_s: float | None = None, target_margin_db: float = TARGET_MARGIN_DB,
+class LoopDelayFromIR:
+    """τ at each frequency from a measured loop IR (:func:`howl.detect.loop_delay_s`, the
+    effective delay τ_eff = |N/H|²/Re(N/H)): in a reverberant room a low loop mode's τ_eff is
+    the loop's group delay there, 0.08-0.25 s in the simulated rooms, not the 10-30 ms of the
+    direct path, so one fixed delay gives margins several times too small there."""
+
+    def __init__(self, ir: np.ndarray, sample_rate_hz: float, label: str = "loop IR"):
+        self.ir = np.asarray(ir, float)
+        self.sample_rate_hz = float(sample_rate_hz)
+        self.label = label
+
+    def __call__(self, freq_hz: float) -> float | None:
+        from ._detect_features import loop_delay_s
+
+        if not 0.0 < freq_hz < self.sample_rate_hz / 2:
+            return None
+        tau = loop_delay_s(self.ir, self.sample_rate_hz, freq_hz)
+        return tau if np.isfinite(tau) and tau > 0 else None
+
+
+def event_loop_delay_s(event, loop_delay_s) -> float | None:
+    """The loop delay that applies to ``event``: a number, a :class:`LoopDelayFromIR` evaluated
+    at its frequency, or None (unknown)."""
+    if callable(loop_delay_s):
+        return loop_delay_s(event.freq_hz)
+    return loop_delay_s
+
+
+def suggest_event_cut(event, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGIN_DB,
                       temperature_c: float = 20.0, swing_c: float = 3.0):
     """The cut (a :class:`howl.notch.Notch`) that stops an event, by the ring-out rules.
 
     needed_db = target margin − current margin, where the current margin is
     −growth·τ for a howl (the loop is that far above unity) and decay·τ for a
-    ringing (headroom left). τ is the known loop delay or
+    ringing (headroom left). τ is the known loop delay (a number, or a
+    :class:`LoopDelayFromIR` evaluated at the event's frequency) or
     :data:`DEFAULT_LOOP_DELAY_S`. The width covers the temperature drift
     (``howl.notch.suggest_cut``). Returns (notch, needed_db, margin_used_db).
     """
     from .notch import suggest_cut
 
-    tau = loop_delay_s if loop_delay_s is not None else DEFAULT_LOOP_DELAY_S
+    tau = event_loop_delay_s(event, loop_delay_s)
+    if tau is None:
+        tau = DEFAULT_LOOP_DELAY_S
+    elif callable(loop_delay_s):
+        event = dataclasses.replace(event, margin_db=None)  # the event's own margin used a fixed τ
     if event.margin_db is not None:
         margin = event.margin_db
     elif event.kind == "howl":
@@ -75,7 +108,7 @@ def event_to_dict(event) -> dict:
     return dataclasses.asdict(event)
 
 
-def event_record(e, *, loop_delay_s: float | None = None, target_margin_db: float = TARGET_MARGIN_DB,
+def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGIN_DB,
                  temperature_c: float = 20.0, swing_c: float = 3.0) -> dict:
     """One event as the JSON of ``howl scan``/``howl listen`` shows it, with its suggested cut."""
     notch, needed, margin_used = suggest_event_cut(
@@ -90,18 +123,27 @@ def event_record(e, *, loop_delay_s: float | None = None, target_margin_db: floa
         "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
                      "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd, "phpr_comod_db": e.phpr_comod_db},
     }
-    if loop_delay_s is not None:
+    tau = event_loop_delay_s(e, loop_delay_s)
+    if callable(loop_delay_s):  # from a loop IR, at this frequency
+        d["loop_delay_ms"] = None if tau is None else 1000.0 * tau
+        if tau is not None:
+            d["margin_db"] = margin_used
+        else:
+            d["margin_assumed_db"] = margin_used
+    elif loop_delay_s is not None:
         d["margin_db"] = e.margin_db
     else:
         d["margin_assumed_db"] = margin_used
     return d
 
 
-def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: float | None = None,
+def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s=None,
            max_notches: int = 6, temperature_c: float = 20.0, swing_c: float = 3.0,
            target_margin_db: float = TARGET_MARGIN_DB) -> dict:
     """The JSON-ready report shared by ``howl scan`` and ``howl listen``.
 
+    ``loop_delay_s``: a number (s), a :class:`LoopDelayFromIR` (τ at each event's frequency),
+    or None (cut depths assume :data:`DEFAULT_LOOP_DELAY_S`).
     ``events``: each with its suggested cut (``notch``) and the cut depth it needs;
     ``notches``: the cuts merged across events (same frequency → one cut) within the
     budget ``max_notches``; ``advice``: when a broad EQ or placement would serve better.
@@ -121,7 +163,9 @@ def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s: fl
     return {
         "sample_rate_hz": float(sample_rate_hz),
         "duration_s": float(duration_s),
-        "loop_delay_ms": None if loop_delay_s is None else 1000.0 * loop_delay_s,
+        "loop_delay_ms": None if loop_delay_s is None or callable(loop_delay_s) else 1000.0 * loop_delay_s,
+        "loop_delay_from": (getattr(loop_delay_s, "label", "loop IR") if callable(loop_delay_s)
+                            else None if loop_delay_s is None else "given"),
         "assumed_loop_delay_ms": None if loop_delay_s is not None else 1000.0 * DEFAULT_LOOP_DELAY_S,
         "target_margin_db": target_margin_db,
         "events": ev_out,

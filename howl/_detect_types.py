@@ -98,9 +98,9 @@ class DetectorConfig:
     low_lane_hz: below this (300 Hz) the detector also runs on frames four times longer
         (0.34 s, 2.9 Hz bins), on a copy of the input decimated to about 2.4 kHz (the low lane,
         :mod:`howl._detect_lane`): low howls grow slowly among program partials a semitone away,
-        which the 85 ms frame does not separate. The lane reports howls only (ring-downs stay with
-        the main frames); a howl both report within 1 % (or a lane bin) and 3 s is reported once,
-        by whichever decided first. None turns the lane off.
+        which the 85 ms frame does not separate, and a room's low loop modes ring together there.
+        The lane reports howls and ring-downs; one that both lanes report within 1 % (or a lane
+        bin) and 3 s is reported once, by whichever decided first. None turns the lane off.
     growth_fit_s: the reported growth of a howl is a Theil-Sen line over up to 0.5 s.
     halves_fraction: the full window's halves must each grow at ≥ 0.25 × its rate.
     max_imsd_db_per_s: straightness of the growth: IMSD below 6 dB/s, or below
@@ -112,10 +112,14 @@ class DetectorConfig:
         reverberation of most rooms used for speech, so not reported: a loop with
         τ = 40 ms rings this slowly only at margins below 3.2 dB (margin = rate·τ),
         and a stable loop at the usual 6 dB margin is not flagged.
-    max_decay_ratio: optional (off by default): also require the ring-down to be
-        slower than this fraction of its neighbour bins' decay. Off because near a
-        loop crossing the neighbouring closed-loop poles ring almost as slowly
-        (seen in reverberant simulated loops), so the test rejects true ringing.
+    max_decay_ratio: optional (off by default; the low lane uses 0.75): also require the
+        ring-down to be slower than this fraction of its neighbour bins' decay (the room around
+        it). Off in the main frames because a lone decaying tone's own window leakage fills its
+        neighbour bins there (a synthetic tone decaying in silence had a ratio of 1), so the test
+        rejects true ringing.
+    ring_max_fsd: the ring-down's frequency-spread limit (None: ``max_fsd``).
+    ring_exact_partners: the ring-down's PHPR counts only partners at the exact multiple in most
+        frames (the low lane: there a loop's other modes ring at near-harmonic ratios).
     min_decay_span_db, min_decay_s: a ring-down must fall ≥ 10 dB over ≥ 0.15 s. It is
         tested while the track still fades (every 4 frames once the level is 10 dB
         under the track's peak) and reported as soon as it passes (``live``); a track
@@ -161,6 +165,8 @@ class DetectorConfig:
     max_decay_db_per_s: float = 80.0
     max_decay_ratio: float | None = None
     min_decay_span_db: float = 10.0
+    ring_max_fsd: float | None = None
+    ring_exact_partners: bool = False
     min_decay_s: float = 0.15
     track_tol_bins: float = 1.0
     max_gap_frames: int = 4

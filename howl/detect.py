@@ -109,6 +109,7 @@ from ._detect_features import (  # noqa: F401  (re-exported)
 from ._detect_report import (  # noqa: F401  (re-exported)
     DEFAULT_LOOP_DELAY_S,
     TARGET_MARGIN_DB,
+    LoopDelayFromIR,
     event_record,
     event_to_dict,
     report,
@@ -141,6 +142,7 @@ __all__ = [
     "event_to_dict",
     "report",
     "DEFAULT_LOOP_DELAY_S",
+    "LoopDelayFromIR",
     "TARGET_MARGIN_DB",
     "HARMONIC_MULTIPLIERS",
     "BASIC_MULTIPLIERS",
@@ -154,6 +156,11 @@ REFINE_FACTOR = 4
 LANE_SAME_S = 3.0
 #: track ids of the low lane's events are offset by this (the two lanes number their tracks apart)
 LANE_TRACK_ID_OFFSET = 1_000_000
+#: a ring-down's partner is at the exact multiple h when its median distance from it is within
+#: this many bins × max(1, h) (a plucked string's inharmonicity, B = 0.0004, puts its 2nd partial
+#: 0.08 % off: 0.06 bin at 880 Hz; a loop's modes 4/5 or 3/2 apart were 0.25-0.64 bin off)
+RING_EXACT_TOL_BINS = 0.1
+
 #: frames analysed per batch (one FFT call, one feature pass)
 CHUNK_FRAMES = 256
 
@@ -291,16 +298,22 @@ class Detector(_CandidateSearch):
         self.k_contrast_hi = -1.0 if c_hi is None else c_hi / self.bin_hz
         self._harm = np.array(HARMONIC_MULTIPLIERS)
         self._exact_tol_bins = 0.5 * np.maximum(1.0, self._harm)
+        # a decaying partial is a clean tone, its frequency precise: a tighter tolerance there tells
+        # a note's partials from loop modes ringing at near-harmonic ratios 0.2-0.6 bin off
+        self._ring_exact_tol_bins = RING_EXACT_TOL_BINS * np.maximum(1.0, self._harm)
         self._basic = np.array([any(abs(h - b) < 1e-12 for b in BASIC_MULTIPLIERS) for h in HARMONIC_MULTIPLIERS])
         self.n_samples = 0
         # the low lane (see DetectorConfig.low_lane_hz): the same detector on a decimated copy
         self._lane = self._dec = None
-        self._howls_at: dict[str, list[int]] = {"main": [], "lane": []}  # indices in self.events
+        # indices in self.events of each lane's reports, by kind (see _same_event)
+        self._reported_at: dict[tuple[str, str], list[int]] = {
+            (lane, kind): [] for lane in ("main", "lane") for kind in ("howl", "ringing")}
         self._call_start = 0
         lane_hz = self.cfg.low_lane_hz
         if lane_hz is not None and lane_factor(self.fs) >= 2:
             self._dec = Decimator(self.fs, lane_factor(self.fs))
-            self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz))
+            self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz),
+                                  loop_delay_s=self.loop_delay_s)
 
     # ------------------------------------------------------------------ public
 
@@ -376,37 +389,40 @@ class Detector(_CandidateSearch):
 
     # ------------------------------------------------------------------ internals
 
-    def _same_howl(self, freq_hz: float, time_s: float, lane: str) -> int | None:
-        """The index in ``self.events`` of a howl that ``lane`` ("main" or "lane") reported within
-        max(1 %, a lane bin) of ``freq_hz`` and ``LANE_SAME_S`` of ``time_s`` (the other lane's
-        report of it is the same howl), or None."""
+    def _same_event(self, freq_hz: float, time_s: float, lane: str, kind: str = "howl") -> int | None:
+        """The index in ``self.events`` of a ``kind`` event that ``lane`` ("main" or "lane")
+        reported within max(1 %, a lane bin) of ``freq_hz`` and ``LANE_SAME_S`` of ``time_s`` (the
+        other lane's report of it is the same howl or ring-down), or None."""
         if self._lane is None:
             return None
         tol = max(0.01 * freq_hz, self._lane.bin_hz)
-        for i in self._howls_at[lane]:
+        for i in self._reported_at[lane, kind]:
             e = self.events[i]
             if abs(e.freq_hz - freq_hz) <= tol and abs(time_s - e.time_s) <= LANE_SAME_S:
                 return i
         return None
 
     def _merge_lane(self, events: list[Event]) -> None:
-        """Take the low lane's new howls: not its ring-downs (the main frames report those), not
-        products of howls already reported. A howl both lanes report is reported once, at the
-        earlier time: the main lane's report is replaced when it is later and not yet returned."""
+        """Take the low lane's new howls and ring-downs (not products of howls already reported).
+        One both lanes report is reported once, at the earlier time: the main lane's report is
+        replaced when it is later and not yet returned."""
         for e in events:
-            if e.kind != "howl" or self._is_howl_product(e.freq_hz):
+            if e.kind == "howl" and self._is_howl_product(e.freq_hz):
                 continue
             e = replace(e, track_id=e.track_id + LANE_TRACK_ID_OFFSET, onset_s=max(0.0, e.onset_s - self._dec.delay_s))
-            i = self._same_howl(e.freq_hz, e.time_s, "main")
+            i = self._same_event(e.freq_hz, e.time_s, "main", e.kind)
             if i is not None:
                 if self.events[i].time_s <= e.time_s or i < self._call_start:
                     continue
                 self.events[i] = e
-                self._howls_at["main"].remove(i)
-                self._howls_at["lane"].append(i)
+                self._reported_at["main", e.kind].remove(i)
+                self._reported_at["lane", e.kind].append(i)
                 continue
-            self._howls_at["lane"].append(len(self.events))
-            self.events.append(e)
+            self._report(e, "lane")
+
+    def _report(self, e: Event, lane: str = "main") -> None:
+        self._reported_at[lane, e.kind].append(len(self.events))
+        self.events.append(e)
 
     def _analyse(self, start0: int, n_f: int) -> None:
 
@@ -501,7 +517,7 @@ class Detector(_CandidateSearch):
                 if ev is not None:
                     tr.reported = "ringing"
                     tr.state = "ringing"
-                    self.events.append(ev)
+                    self._report_ringing(ev)
         self._tracks = alive
 
     def _fsd_limit(self, rel_limit: float, kf: float) -> float:
@@ -594,7 +610,7 @@ class Detector(_CandidateSearch):
         dx = ts - ts.mean()
         r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
         grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
-        grows_along &= np.mean(PE[:, H:], axis=0) >= 0.5  # at the exact multiple in most frames
+        grows_along &= np.mean(PE[:, H:] <= self._exact_tol_bins, axis=0) >= 0.5  # exact in most frames
         explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
         if tier.other_partners:
             explains |= med < cfg.min_phpr_other_db
@@ -652,15 +668,14 @@ class Detector(_CandidateSearch):
             if (fr_end - tr.frames[0]) * self.hop + self.n_win >= self.n_long:  # tracked over the long frame
                 kf_med = self._refine_kf(kf_med, t * self.hop + self.n_win)
             time_s = (t * self.hop + self.n_win) / self.fs
-            if self._same_howl(kf_med * self.bin_hz, time_s, "lane") is not None:
+            if self._same_event(kf_med * self.bin_hz, time_s, "lane") is not None:
                 tr.reported = "howl"  # the low lane has reported it
                 tr.state = "howl"
                 return
-            self._howls_at["main"].append(len(self.events))
             tr.reported = "howl"
             tr.state = "howl"
             margin = None if self.loop_delay_s is None else -slope * self.loop_delay_s
-            self.events.append(Event(
+            self._report(Event(
                 time_s=time_s,
                 onset_s=(tr.frames[0] * self.hop + self.n_win / 2) / self.fs,
                 freq_hz=kf_med * self.bin_hz, kind="howl", level_db=float(lv[-1]),
@@ -746,20 +761,25 @@ class Detector(_CandidateSearch):
         ev = self._ringdown(tr)
         if ev is not None:
             tr.reported = "ringing"
-            self.events.append(ev)
+            self._report_ringing(ev)
+
+    def _report_ringing(self, ev: Event) -> None:
+        """A main-lane ring-down, unless the low lane has reported it."""
+        if self._same_event(ev.freq_hz, ev.time_s, "lane", "ringing") is None:
+            self._report(ev)
 
     def _ringdown(self, tr: _Track, live: bool = False) -> Event | None:
         """Was the fall of this track a ring-down? ``live``: the track is still fading (tested on the
         frames so far); else it has ended (the last frames near the floor it ended at are left out)."""
         cfg = self.cfg
-        if not np.isfinite(cfg.min_decay_span_db):  # no ring-down tests (the low lane)
-            return None
         n = len(tr.frames)
         min_frames = int(round(cfg.min_decay_s / self.dt))
         if n < min_frames + 2:
             return None
         # cheap tests first: a ring-down is pure over most of the track
-        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0 or _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
+        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
+            return None
+        if not cfg.ring_exact_partners and _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
             return None
         lv = np.asarray(tr.col('level'))
         fr = np.asarray(tr.frames)
@@ -783,13 +803,35 @@ class Detector(_CandidateSearch):
         kf = np.asarray(tr.col('kf'))[seg]
         fsd = float(np.std(kf) / np.mean(kf))
         pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
-        ph = float(np.median(np.asarray(tr.col('phf'))[seg]))
+        decay = -slope
+        # a partner at the exact multiple in most frames that decays along with the peak (falls at
+        # >= comod_fraction x its rate: a plucked or struck note's partials fall together, the
+        # higher ones faster) and starts within min_phpr_comod_db of it (the fitted ratio at the
+        # start of the fall: a faster partial's ratio grows through the fall, so its median
+        # over a long fall passes 20 dB) makes it a note, not a loop mode
+        PE = np.asarray(tr.col('partners'))[seg]
+        H = PE.shape[1] // 2
+        exact = np.median(PE[:, H:], axis=0) <= self._ring_exact_tol_bins
+        R = np.minimum(PE[:, :H], 200.0)
+        med = np.median(R, axis=0)
+        dx = ts - ts.mean()
+        r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
+        along = exact & (r_slope >= -(1.0 - cfg.comod_fraction) * decay)
+        r_start = R.mean(axis=0) - r_slope * (ts.mean() - ts[0])
+        if np.any(along & (np.minimum(med, r_start) < max(cfg.min_phpr_db, cfg.min_phpr_comod_db))):
+            return None
+        if cfg.ring_exact_partners:
+            # PHPR over the exact partners only (other loop modes ringing at near-harmonic ratios
+            # are not partials)
+            ph = float(med[exact].min()) if exact.any() else 200.0
+        else:
+            ph = float(np.median(np.asarray(tr.col('phf'))[seg]))
         q = cfg.imsd_points
         tq = np.linspace(ts[0], ts[-1], q)
         imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
-        decay = -slope
         ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
-              and fsd <= cfg.max_fsd and pn >= cfg.min_pnpr_db and ph >= cfg.min_phpr_db
+              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
+              and pn >= cfg.min_pnpr_db and ph >= cfg.min_phpr_db
               and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
         if not ok:
             return None

@@ -107,14 +107,14 @@ class JsonlLog:
 
 
 def listen(source, *, duration_s: float | None = None, log_path=None, on_update=None, update_interval_s: float = 0.25,
-           loop_delay_s: float | None = None, max_notches: int = 6, temperature_c: float = 20.0,
+           loop_delay_s=None, max_notches: int = 6, temperature_c: float = 20.0,
            swing_c: float = 3.0, stop=None) -> ListenResult:
     """Run the detector on ``source`` until ``duration_s`` of audio, the source ends, ``stop()`` is
     true, or Ctrl-C. Events are logged as they happen; ``on_update(Snapshot)`` is called about every
     ``update_interval_s`` of wall time. Returns the same report as ``howl scan`` plus the overflow count.
     """
     fs = float(source.sample_rate_hz)
-    det = Detector(fs, loop_delay_s=loop_delay_s)
+    det = Detector(fs, loop_delay_s=None if callable(loop_delay_s) else loop_delay_s)
     log = JsonlLog(log_path) if log_path else None
     limit = None if duration_s is None else int(round(duration_s * fs))
     n = 0

@@ -191,3 +191,30 @@ def test_listen_loop_shows_a_ringing_while_it_still_fades(tmp_path):
     assert len(rings) == 1 and rings[0]["live"]  # one event per ring-down
     # margin = decay * tau = 20 dB/s * 75 ms = 1.5 dB (first principles)
     assert _margin_text(rings[0]) == "1.5 dB from howling"
+
+
+def test_listen_loop_with_a_loop_ir_gives_each_ringing_its_margin(tmp_path):
+    # The low reverberant loop of test_scan_cli's --loop-ir case, fed in blocks: the logged and
+    # reported ringing carries the margin from the IR's loop delay at its frequency.
+    from howl.commands.listen import _margin_text
+    from howl.detect import LoopDelayFromIR
+    from howl.live import ArraySource, listen
+    from howl.simulate import simulate_closed_loop
+    from test_detect import low_room_loop
+
+    fs = 16000
+    h, cross_f, cross_m = low_room_loop(35)
+    x = np.zeros(8 * fs)
+    x[fs // 2] = 0.5
+    x += 1e-5 * np.random.default_rng(1).standard_normal(x.size)
+    y = simulate_closed_loop(h, x, fs, gain_db=-1.5)
+    log = tmp_path / "ev.jsonl"
+    res = listen(ArraySource(y, fs, block_frames=512), log_path=log,
+                 loop_delay_s=LoopDelayFromIR(h * 10 ** (-1.5 / 20), fs))
+    f_worst = cross_f[np.argmin(cross_m)]
+    rings = [e for e in res.report["events"] if e["kind"] == "ringing" and abs(e["freq_hz"] / f_worst - 1) < 1e-3]
+    assert rings, res.report["events"]
+    assert abs(rings[0]["margin_db"] - 1.5) < 1.0  # truth: scipy.signal.freqz crossing, then the fader
+    assert _margin_text(rings[0]).endswith("dB from howling") and not _margin_text(rings[0]).startswith("~")
+    logged = [json.loads(s) for s in log.read_text(encoding="utf-8").splitlines()]
+    assert any(abs(e["freq_hz"] / f_worst - 1) < 1e-3 and e["margin_db"] is not None for e in logged)

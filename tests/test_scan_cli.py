@@ -102,3 +102,37 @@ def test_scan_multichannel_needs_a_channel_and_bad_options_are_one_line(tmp_path
     assert res.exit_code == 2 and "--loop-delay-ms" in res.output
     res = runner.invoke(app, ["scan", str(tmp_path / "missing.wav")])
     assert res.exit_code == 2 and "not found" in res.output
+
+
+def test_scan_with_a_measured_loop_ir_gives_each_ringing_its_margin(tmp_path):
+    # A reverberant room's low loop (tests/test_detect.low_room_loop, pyroomacoustics) 1.5 dB under
+    # its worst crossing (100.7 Hz), rung by a click. The loop's delay at that mode is its group
+    # delay (about 0.24 s), so the margin from the IR is right where a fixed 20 ms is 10x too small.
+    from test_detect import low_room_loop
+
+    from howl.simulate import simulate_closed_loop
+
+    h, cross_f, cross_m = low_room_loop(35)
+    x = np.zeros(8 * FS)
+    x[FS // 2] = 0.5
+    x += 1e-5 * np.random.default_rng(1).standard_normal(x.size)
+    y = simulate_closed_loop(h, x, FS, gain_db=-1.5)
+    rec, ir = tmp_path / "click.wav", tmp_path / "loop.wav"
+    write_wav_atomic(rec, y, FS)
+    write_wav_atomic(ir, h * 10 ** (-1.5 / 20), FS)  # the loop at the fader's setting, as measured
+    res = runner.invoke(app, ["scan", str(rec), "--json", "--loop-ir", str(ir)])
+    assert res.exit_code == 0, res.output
+    rep = json.loads(res.stdout)
+    assert rep["loop_delay_from"] == str(ir) and rep["loop_delay_ms"] is None
+    ring = [e for e in rep["events"] if e["kind"] == "ringing"]
+    assert ring, rep["events"]
+    e = min(ring, key=lambda e: abs(e["freq_hz"] - cross_f[np.argmin(cross_m)]))
+    assert abs(e["freq_hz"] / cross_f[np.argmin(cross_m)] - 1) < 1e-3
+    assert abs(e["margin_db"] - 1.5) < 1.0  # truth: the scipy.signal.freqz crossing, then the fader
+    assert e["loop_delay_ms"] > 100.0
+    # without the IR the margin assumed from 20 ms is far smaller (and its cut deeper)
+    res = runner.invoke(app, ["scan", str(rec), "--json"])
+    e0 = [d for d in json.loads(res.stdout)["events"] if abs(d["freq_hz"] - e["freq_hz"]) < 1][0]
+    assert e0["margin_assumed_db"] < 0.5 and e0["needed_cut_db"] > e["needed_cut_db"]
+    res = runner.invoke(app, ["scan", str(rec), "--loop-ir", str(ir), "--loop-delay-ms", "20"])
+    assert res.exit_code == 2 and "--loop-ir" in res.output

@@ -54,3 +54,28 @@ def make_console(*, stderr: bool = False):
     if not con.is_terminal:
         con = Console(highlight=False, stderr=stderr, width=max(120, con.width))
     return con
+
+
+def loop_delay_option(loop_delay_ms, loop_ir):
+    """The loop delay from ``--loop-delay-ms`` (a number, s) or ``--loop-ir`` (a
+    :class:`howl.detect.LoopDelayFromIR`), or None; both given is refused."""
+    from .. import _validate as v
+    from ..errors import InputError
+
+    if loop_delay_ms is not None and loop_ir is not None:
+        raise InputError("give --loop-delay-ms or --loop-ir, not both (the IR gives the delay at each frequency)",
+                         key="--loop-ir")
+    if loop_delay_ms is not None:
+        return v.in_range(loop_delay_ms, "--loop-delay-ms", 0.0, 2000.0, unit="ms", lo_open=True) / 1000.0
+    if loop_ir is None:
+        return None
+    import warnings
+
+    from ..detect import LoopDelayFromIR
+    from ..errors import HowlWarning
+    from .margin import load_loop_ir
+
+    h, fs, warns = load_loop_ir(loop_ir, channel=None, max_length_s=20.0, trim_s=None)
+    for w in warns:
+        warnings.warn(w, HowlWarning)
+    return LoopDelayFromIR(h, fs, label=str(loop_ir))

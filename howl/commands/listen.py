@@ -64,6 +64,8 @@ def register(app: typer.Typer) -> None:
         log: Path = typer.Option(None, "--log", help="Append events as JSON lines to this file (flushed per event)."),
         json_out: bool = typer.Option(False, "--json", help="With --duration: print the same JSON as `howl scan` at the end."),
         loop_delay_ms: float = typer.Option(None, "--loop-delay-ms", help="Loop delay (ms) when known: margins from ring-downs."),
+        loop_ir: Path = typer.Option(None, "--loop-ir", metavar="IR.wav",
+                                     help="Measured loop IR: margins from the loop delay at each frequency."),
         max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the running list."),
         temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (drift width of cuts)."),
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
@@ -72,7 +74,7 @@ def register(app: typer.Typer) -> None:
         from .. import _validate as v
         from ..errors import InputError
         from ..live import CAUTIONS, listen
-        from ._common import emit_json
+        from ._common import emit_json, loop_delay_option
 
         if device is None:
             raise InputError("must name the input device (index or part of its name; `howl devices` lists them)",
@@ -83,9 +85,7 @@ def register(app: typer.Typer) -> None:
             v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
         if json_out and duration is None:
             raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
-        tau = None
-        if loop_delay_ms is not None:
-            tau = v.in_range(loop_delay_ms, "--loop-delay-ms", 0.0, 2000.0, unit="ms", lo_open=True) / 1000.0
+        tau = loop_delay_option(loop_delay_ms, loop_ir)
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)

@@ -16,9 +16,11 @@ CAUTION = (
 def _render_text(rep: dict, path: str) -> list[str]:
     lines = [f"{path}: {rep['duration_s']:.2f} s at {rep['sample_rate_hz']:g} Hz, "
              f"{rep['n_howl']} howl(s), {rep['n_ringing']} ringing"]
-    if rep["loop_delay_ms"] is None:
+    if rep["loop_delay_from"] is None:
         lines.append(f"  loop delay not given: cut depths assume {rep['assumed_loop_delay_ms']:g} ms "
-                     "(pass --loop-delay-ms for margins)")
+                     "(pass --loop-ir or --loop-delay-ms for margins)")
+    elif rep["loop_delay_ms"] is None:
+        lines.append(f"  margins use the loop delay at each frequency from {rep['loop_delay_from']}")
     if rep["events"]:
         lines.append("  time_s   kind     freq_hz    level_db  trend_db/s  margin_db  cut")
         for e in rep["events"]:
@@ -50,7 +52,10 @@ def register(app: typer.Typer) -> None:
         channel: int = typer.Option(None, "--channel", help="1-based channel of a multichannel WAV."),
         loop_delay_ms: float = typer.Option(
             None, "--loop-delay-ms",
-            help="Loop delay (ms) when known (from a measured loop IR): turns ring-down rates into margins."),
+            help="Loop delay (ms) when known: turns ring-down rates into margins."),
+        loop_ir: Path = typer.Option(
+            None, "--loop-ir", metavar="IR.wav",
+            help="Measured loop IR (as `howl measure` writes): margins from the loop delay at each frequency."),
         max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the summary."),
         temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (for the drift width of cuts)."),
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
@@ -59,11 +64,9 @@ def register(app: typer.Typer) -> None:
         from .. import _validate as v
         from ..detect import Detector, report
         from ..fileio import read_wav
-        from ._common import capture_warnings, emit_json
+        from ._common import capture_warnings, emit_json, loop_delay_option
 
-        tau = None
-        if loop_delay_ms is not None:
-            tau = v.in_range(loop_delay_ms, "--loop-delay-ms", 0.0, 2000.0, unit="ms", lo_open=True) / 1000.0
+        tau = loop_delay_option(loop_delay_ms, loop_ir)
         v.integer(max_notches, "--max-notches", 1, 64)
         v.in_range(swing_c, "--swing-c", 0.0, 30.0, unit="°C")
         v.in_range(temperature_c, "--temperature-c", -30.0, 50.0, unit="°C")
@@ -71,7 +74,7 @@ def register(app: typer.Typer) -> None:
             x, fs = read_wav(recording, channel=channel)
             if fs < 4000:
                 raise v.fail("sample rate", ">= 4000 Hz", fs, "Hz", file=str(recording))
-            det = Detector(fs, loop_delay_s=tau)
+            det = Detector(fs, loop_delay_s=None if callable(tau) else tau)
             det.process(x)
             det.finish()
             rep = report(det.events, fs, x.size / fs, loop_delay_s=tau, max_notches=max_notches,

@@ -18,9 +18,12 @@
    the same dominance test near that frequency (the fader raised only to 1 dB below the worst
    crossing: a stable loop) is flagged program_alone_dominates: its lead measures program, not
    the howl, and is counted apart.
-3. False alarms on every no-howl program of tests/test_detect.py (speech-like, music-like with
+3. Ring-downs after a click through each loop of both sets held 1-3 dB under its worst crossing:
+   which are found, and each margin (decay × the IR's loop delay at its frequency) against the
+   truth (the freqz crossing + the fader).
+4. False alarms on every no-howl program of tests/test_detect.py (speech-like, music-like with
    and without vibrato, noise, a held note with vibrato and crescendo, the hard cases: held notes
-   in crescendo, swelling sung vowels, flute-like swells) and on program through the 5 loops at
+   in crescendo, swelling sung vowels, flute-like swells, plucked notes) and on program through the 5 loops at
    the usual 6 dB margin: the count of events on each, and on a further set of low-pitched
    programs (low_programs); each also through the main lane alone (low_lane_hz=None), and the
    low latency set too, to show what the low lane buys and costs.
@@ -43,7 +46,7 @@ import numpy as np  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
 
-from test_detect import (HARD_NO_HOWL, closed_loop_modes, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
+from test_detect import (HARD_NO_HOWL, closed_loop_modes, plucked_note, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
                          room_loop, speech_like, sung_vowel_swell, t_dominates)  # noqa: E402
 
 from howl.detect import DetectorConfig, detect  # noqa: E402
@@ -183,6 +186,10 @@ def false_alarms(quick: bool) -> list[dict]:
         cases[f"held note {f0:g} Hz +{g} dB/s (5 s)"] = held_note_crescendo(fs, f0, g)
     for f0, g, vib in ((98, 10, 0.008), (165, 12, 0.01)):
         cases[f"sung vowel {f0:g} Hz +{g} dB/s, {100 * vib:g} % vibrato (5 s)"] = sung_vowel_swell(fs, f0, g, vib)
+    # plucked or struck notes (a decaying fundamental is the classic false ring-down)
+    for f0 in ((82.4, 440) if quick else (41.2, 55, 82.4, 110, 147, 196, 262, 330, 440, 660, 880, 1320, 1760)):
+        for decay in (8, 25, 40):
+            cases[f"plucked note {f0:g} Hz, {decay} dB/s (5 s)"] = plucked_note(fs, f0, decay, 4e-4 if decay == 25 else 0.0)
     for seed in (LOW_SEEDS[:2] if quick else LOW_SEEDS):
         h, _, _ = low_room_loop(seed)
         cases[f"speech through low loop {seed} at 6 dB margin (6 s)"] = simulate_closed_loop(
@@ -192,14 +199,24 @@ def false_alarms(quick: bool) -> list[dict]:
     return _count_events(cases, fs)
 
 
-def _count_events(cases: dict[str, np.ndarray], fs: float) -> list[dict]:
-    """Events on each no-howl program, with the low lane (the default) and without it."""
+def _count_events(cases: dict[str, np.ndarray], fs: float, loops: dict | None = None) -> list[dict]:
+    """Events on each no-howl program, with the low lane (the default) and without it. For a
+    program through a loop (``loops[name] = (crossing_freqs_hz, crossing_margins_db, fader_db)``)
+    each event also names the loop's nearest crossing and its margin at that fader: a ring-down
+    there is the loop ringing, not the program."""
     out = []
     for name, x in cases.items():
         ev = detect(x, fs).events
+        rows = []
+        for e in ev:
+            row = {"kind": e.kind, "time_s": e.time_s, "freq_hz": e.freq_hz}
+            if loops and name in loops:
+                cf, cm, fader = loops[name]
+                i = int(np.argmin(np.abs(cf - e.freq_hz)))
+                row.update(nearest_crossing_hz=float(cf[i]), crossing_margin_db=float(cm[i] - fader))
+            rows.append(row)
         out.append({"program": name, "audio_s": x.size / fs, "false_alarms": len(ev),
-                    "false_alarms_lane_off": len(detect(x, fs, LANE_OFF).events),
-                    "events": [{"kind": e.kind, "time_s": e.time_s, "freq_hz": e.freq_hz} for e in ev]})
+                    "false_alarms_lane_off": len(detect(x, fs, LANE_OFF).events), "events": rows})
     return out
 
 
@@ -229,18 +246,70 @@ def low_programs(quick: bool) -> list[dict]:
         cases[f"speech seed {seed} (10 s)"] = speech_like(fs, 10, seed)
         cases[f"music seed {seed} (10 s)"] = music_like(fs, 10, seed)
         cases[f"held notes seed {seed} (10 s)"] = music_like(fs, 10, seed, vibrato=False)
+    loops = {}
     for seed in (LOW_SEEDS[:2] if quick else LOW_SEEDS):
-        h, _, _ = low_room_loop(seed)
+        h, cf, cm = low_room_loop(seed)
         for margin in (1.5, 3.0):
-            cases[f"speech through low loop {seed} at {margin:g} dB margin (8 s)"] = simulate_closed_loop(
-                h, speech_like(fs, 8, seed + 200), fs, gain_db=-margin)
-            cases[f"music through low loop {seed} at {margin:g} dB margin (8 s)"] = simulate_closed_loop(
-                h, music_like(fs, 8, seed + 210), fs, gain_db=-margin)
+            for prog, x in (("speech", speech_like(fs, 8, seed + 200)), ("music", music_like(fs, 8, seed + 210))):
+                name = f"{prog} through low loop {seed} at {margin:g} dB margin (8 s)"
+                cases[name] = simulate_closed_loop(h, x, fs, gain_db=-margin)
+                loops[name] = (cf, cm, -margin)
     for seed, f0 in ((30, 131), (33, 165), (37, 98)):
-        h, _, _ = low_room_loop(seed)
-        cases[f"sung vowel {f0} Hz through low loop {seed} at 1.5 dB margin"] = simulate_closed_loop(
-            h, sung_vowel_swell(fs, f0, 10, 0.006), fs, gain_db=-1.5)
-    return _count_events(cases, fs)
+        h, cf, cm = low_room_loop(seed)
+        name = f"sung vowel {f0} Hz through low loop {seed} at 1.5 dB margin"
+        cases[name] = simulate_closed_loop(h, sung_vowel_swell(fs, f0, 10, 0.006), fs, gain_db=-1.5)
+        loops[name] = (cf, cm, -1.5)
+    return _count_events(cases, fs, loops)
+
+
+def ring_downs(quick: bool) -> list[dict]:
+    """A click (one sample at -6 dBFS) through each loop held 1-3 dB under its worst crossing:
+    each ring-down reported, its margin from decay x the IR's loop delay at its frequency
+    (howl.detect.loop_delay_s) against the truth (the scipy.signal.freqz crossing + the fader)."""
+    from howl.detect import loop_delay_s, margin_from_decay_db
+    from howl.simulate import simulate_closed_loop
+
+    fs = 16000
+    rows = []
+    sets = [("room_loop", room_loop, (0, 1) if quick else (0, 1, 2, 3, 4), (1.0, 3.0) if quick else (1.0, 2.0, 3.0), 3),
+            ("low_room_loop", low_room_loop, LOW_SEEDS[:2] if quick else LOW_SEEDS,
+             (1.0, 3.0) if quick else (1.0, 1.5, 3.0), 8)]
+    for set_name, loop_of, seeds, margins, dur in sets:
+        for seed in seeds:
+            h, cf, cm = loop_of(seed)
+            for margin in margins:
+                x = np.zeros(dur * fs)
+                x[fs // 2] = 0.5
+                x += 1e-5 * np.random.default_rng(1).standard_normal(x.size)
+                y = simulate_closed_loop(h, x, fs, gain_db=-margin)
+                ring = [e for e in detect(y, fs).events if e.kind == "ringing"]
+                found = []
+                for e in ring:
+                    i = int(np.argmin(np.abs(cf - e.freq_hz)))
+                    est = margin_from_decay_db(e.decay_db_per_s, loop_delay_s(h, fs, e.freq_hz))
+                    found.append({"freq_hz": e.freq_hz, "crossing_hz": float(cf[i]), "decay_db_per_s": e.decay_db_per_s,
+                                  "margin_est_db": est, "margin_true_db": float(cm[i] + margin),
+                                  "on_crossing": bool(abs(cf[i] / e.freq_hz - 1) < 1e-3)})
+                worst = float(cf[np.argmin(cm)])
+                rows.append({"set": set_name, "seed": seed, "margin_db": margin, "ring_downs": found,
+                             "worst_found": any(abs(r["freq_hz"] / worst - 1) < 1e-3 for r in found)})
+                print(rows[-1], flush=True)
+    return rows
+
+
+def summarise_ring(rows: list[dict]) -> None:
+    all_r = [r for row in rows for r in row["ring_downs"]]
+    err = np.array([r["margin_est_db"] - r["margin_true_db"] for r in all_r if r["on_crossing"]])
+    print(f"\nring-downs after a click, {len(rows)} cases: the worst crossing found in "
+          f"{sum(row['worst_found'] for row in rows)}; {len(all_r)} ring-downs, "
+          f"{sum(not r['on_crossing'] for r in all_r)} off every crossing (> 0.1 %)")
+    if err.size:
+        print(f"margin estimate - truth: median {np.median(err):+.2f} dB, max |error| {np.abs(err).max():.2f} dB, "
+              f"within 1 dB: {int(np.sum(np.abs(err) < 1))} of {err.size}")
+    print(f"{'case':<26}{'found (freq Hz: est / true margin dB)'}")
+    for row in rows:
+        txt = ", ".join(f"{r['freq_hz']:.1f}: {r['margin_est_db']:.2f} / {r['margin_true_db']:.2f}" for r in row["ring_downs"])
+        print(f"{row['set'] + ' ' + str(row['seed']) + ' -' + format(row['margin_db'], 'g') + ' dB':<26}{txt or 'none'}")
 
 
 def summarise(lat: list[dict], title: str) -> None:
@@ -307,6 +376,8 @@ def main() -> None:
     summarise(lat, "closed-loop cases (loops 0-4: crossings 0.5-6 kHz)")
     lat_low = latency(quick, low=True)
     summarise(lat_low, f"low closed-loop cases (low_room_loop seeds {', '.join(map(str, LOW_SEEDS))}: crossings 80-170 Hz)")
+    rd = ring_downs(quick)
+    summarise_ring(rd)
     fa = false_alarms(quick)
     fa_low = low_programs(quick)
     for title, rows in (("no-howl programs of tests/test_detect.py and the loops at 6 dB margin", fa),
@@ -316,8 +387,10 @@ def main() -> None:
         print("  events  lane off  program")
         for c in rows:
             print(f"  {c['false_alarms']:6d}  {c['false_alarms_lane_off']:8d}  {c['program']}"
-                  + "".join(f"  [{e['kind']} {e['freq_hz']:.1f} Hz at {e['time_s']:.2f} s]" for e in c["events"]))
-    out = {"rtf_48k": r, "latency_cases": lat, "latency_cases_low": lat_low, "false_alarms": fa,
+                  + "".join(f"  [{e['kind']} {e['freq_hz']:.1f} Hz at {e['time_s']:.2f} s"
+                            + (f"; loop crossing {e['nearest_crossing_hz']:.1f} Hz, {e['crossing_margin_db']:.1f} dB "
+                               "from unity" if "nearest_crossing_hz" in e else "") + "]" for e in c["events"]))
+    out = {"rtf_48k": r, "latency_cases": lat, "latency_cases_low": lat_low, "ring_downs": rd, "false_alarms": fa,
            "false_alarms_low_programs": fa_low}
     path = HERE / "results" / "bench_detect.json"
     path.parent.mkdir(exist_ok=True)
