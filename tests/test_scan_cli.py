@@ -136,3 +136,8 @@ def test_scan_with_a_measured_loop_ir_gives_each_ringing_its_margin(tmp_path):
     assert e0["margin_assumed_db"] < 0.5 and e0["needed_cut_db"] > e["needed_cut_db"]
     res = runner.invoke(app, ["scan", str(rec), "--loop-ir", str(ir), "--loop-delay-ms", "20"])
     assert res.exit_code == 2 and "--loop-ir" in res.output
+    stereo = tmp_path / "stereo_ir.wav"
+    write_wav_atomic(stereo, np.stack([h, h], axis=1), FS)
+    res = runner.invoke(app, ["scan", str(rec), "--loop-ir", str(stereo)])
+    assert res.exit_code == 2 and "stereo_ir.wav" in res.output and "mono" in res.output
+    assert len(res.output.strip().splitlines()) == 1

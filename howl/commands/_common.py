@@ -75,7 +75,17 @@ def loop_delay_option(loop_delay_ms, loop_ir):
     from ..errors import HowlWarning
     from .margin import load_loop_ir
 
-    h, fs, warns = load_loop_ir(loop_ir, channel=None, max_length_s=20.0, trim_s=None)
-    for w in warns:
-        warnings.warn(w, HowlWarning)
+    try:
+        import soundfile as sf
+
+        n_ch = sf.info(str(loop_ir)).channels
+    except Exception:  # load_loop_ir gives the clear message for missing or unreadable files
+        n_ch = 1
+    if n_ch != 1:
+        raise InputError(f"has {n_ch} channels; expected a mono loop IR (one speaker-to-mic loop)",
+                         file=str(loop_ir), key="--loop-ir")
+    with capture_warnings():
+        h, fs, warns = load_loop_ir(loop_ir, channel=None, max_length_s=20.0, trim_s=None)
+        for w in warns:
+            warnings.warn(w, HowlWarning)
     return LoopDelayFromIR(h, fs, label=str(loop_ir))
