@@ -10,6 +10,11 @@ import numpy as np
 #: Assumed loop delay when none is known: 20 ms ≈ 6.9 m of acoustic path, a
 #: typical speaker-to-mic distance on a small stage (common practice, no source).
 DEFAULT_LOOP_DELAY_S = 0.020
+#: An event this close (%) to a crossing of the measured loop IR sits on it. A howl grows at the
+#: closed loop's mode, which a loop well past unity has off its crossing: in the low simulated
+#: rooms a howl 3 dB past unity (146 dB/s) was reported 0.85 % off, while a sung note pumped
+#: through a mode 1.5 dB from unity was reported 1.2 % off it (tests/benchmarks/bench_detect.py).
+ON_CROSSING_PCT = 1.0
 #: Headroom a suggested cut aims for beyond "just stops it" (3 dB: the lower end of
 #: the usual 3–6 dB feedback stability margin, common practice, no source).
 TARGET_MARGIN_DB = 3.0
@@ -25,6 +30,21 @@ class LoopDelayFromIR:
         self.ir = np.asarray(ir, float)
         self.sample_rate_hz = float(sample_rate_hz)
         self.label = label
+        self._crossings = None
+
+    def nearest_crossing(self, freq_hz: float) -> tuple[float, float] | None:
+        """The IR's positive real-axis crossing nearest ``freq_hz`` (howl.loop.nyquist_margin) and
+        its margin (dB) at the IR's own settings, or None when it has none."""
+        if self._crossings is None:
+            from .loop import nyquist_margin
+
+            r = nyquist_margin(self.ir, self.sample_rate_hz)
+            self._crossings = (np.asarray(r.crossings_freq_hz, float), np.asarray(r.crossings_value, float))
+        f, val = self._crossings
+        if f.size == 0:
+            return None
+        i = int(np.argmin(np.abs(f - freq_hz)))
+        return float(f[i]), float(-20.0 * np.log10(val[i]))
 
     def __call__(self, freq_hz: float) -> float | None:
         from ._detect_features import loop_delay_s
@@ -126,6 +146,11 @@ def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGI
     tau = event_loop_delay_s(e, loop_delay_s)
     if callable(loop_delay_s):  # from a loop IR, at this frequency
         d["loop_delay_ms"] = None if tau is None else 1000.0 * tau
+        near = loop_delay_s.nearest_crossing(e.freq_hz) if hasattr(loop_delay_s, "nearest_crossing") else None
+        if near is not None:
+            off_pct = 100.0 * abs(e.freq_hz / near[0] - 1.0)
+            d["loop_ir_crossing"] = {"freq_hz": near[0], "margin_db": near[1], "offset_pct": off_pct,
+                                     "on_crossing": off_pct <= ON_CROSSING_PCT}
         if tau is not None:
             d["margin_db"] = margin_used
         else:

@@ -30,6 +30,10 @@ def _render_text(rep: dict, path: str) -> list[str]:
             ms = "      -  " if margin is None else f"{margin:9.2f}"
             lines.append(f"  {e['time_s']:6.2f}   {e['kind']:<8} {e['freq_hz']:9.1f}  {e['level_db']:8.1f}  "
                          f"{e['growth_db_per_s']:10.1f}  {ms}  {cut} Q {n['q']:.1f}")
+            c = e.get("loop_ir_crossing")
+            if c is not None and not c["on_crossing"]:
+                lines.append(f"           not on a crossing of the loop IR (nearest {c['freq_hz']:.1f} Hz, "
+                             f"{c['offset_pct']:.1f} % away): more likely program pumped through the loop")
     else:
         lines.append("  nothing rang or howled")
     if rep["notches"]:
