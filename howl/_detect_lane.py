@@ -50,6 +50,10 @@ def lane_config(cfg, lane_hz: float):
       in a room, loop crossings sit at the multiples of an axial mode (axial modes are harmonic,
       f_n = n·c/2L), so a howl at 101 Hz had a louder stable line at exactly 202 Hz. Partners that
       do grow along (a swelling note's partials) still explain it;
+    * contrast of growth on every window (``contrast_min_pnpr_one_side_db`` 15 dB, as the main
+      lane's 0.10 s window has it): a slow low howl rises for seconds beside a louder program
+      note 4-6 lane bins away; low set 16 -> 18 of 40 found before they dominate, no new false
+      alarm on the no-howl programs (measured 2026-12-02; 9-15 dB gave the same);
     * ring-downs: the main lane's spread limit (``ring_max_fsd``: two loop modes a few Hz apart
       beat in the long frame), and PHPR over exact partners only (``ring_exact_partners``): a
       room's low loop modes ring together at near-harmonic ratios (101 and 152 Hz), which the
@@ -69,7 +73,7 @@ def lane_config(cfg, lane_hz: float):
         n_candidates=10, min_papr_db=3.0, max_fsd=cfg.max_fsd / 3.0, rise_max_fsd=cfg.rise_max_fsd / 3.0,
         rise_max_drift=cfg.rise_max_drift / 3.0, persist_s=float("inf"),
         min_phpr_other_db=float("-inf"), eval_every_frames=8, ring_max_fsd=cfg.max_fsd, ring_exact_partners=True,
-        max_decay_ratio=0.75,
+        max_decay_ratio=0.75, contrast_min_pnpr_one_side_db=15.0,
     )
     return replace(cfg, **kw)
 

@@ -117,6 +117,10 @@ class DetectorConfig:
         it). Off in the main frames because a lone decaying tone's own window leakage fills its
         neighbour bins there (a synthetic tone decaying in silence had a ratio of 1), so the test
         rejects true ringing.
+    contrast_min_pnpr_one_side_db: None (the main lane): only the 0.10 s window judges a peak
+        beside a louder partial by contrast of growth (see ``rise_min_pnpr_one_side_db``); a
+        number (the low lane: 15 dB) lets the 0.15 s and full windows do it too, with that
+        one-sided PNPR in every frame and PNPR rising at ≥ ``comod_fraction`` × the growth.
     ring_max_fsd: the ring-down's frequency-spread limit (None: ``max_fsd``).
     ring_exact_partners: the ring-down's PHPR counts only partners at the exact multiple in most
         frames (the low lane: there a loop's other modes ring at near-harmonic ratios).
@@ -151,6 +155,7 @@ class DetectorConfig:
     rise_min_pnpr_db: float = 15.0
     rise_min_pnpr_one_side_db: float | None = 15.0
     rise_contrast_f_hi_hz: float | None = 1000.0
+    contrast_min_pnpr_one_side_db: float | None = None
     rise_max_shift_bins: float = 0.15
     rise_min_decel_ratio: float = 0.85
     rise_max_drift: float = 0.0003
@@ -189,6 +194,8 @@ class DetectorConfig:
         v.integer(self.imsd_points, "imsd_points", 3, 50)
         if self.rise_min_pnpr_one_side_db is not None:
             v.in_range(self.rise_min_pnpr_one_side_db, "rise_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
+        if self.contrast_min_pnpr_one_side_db is not None:
+            v.in_range(self.contrast_min_pnpr_one_side_db, "contrast_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
         if self.rise_contrast_f_hi_hz is not None:
             v.positive(self.rise_contrast_f_hi_hz, "rise_contrast_f_hi_hz", unit="Hz")
         if self.low_lane_hz is not None:

@@ -271,11 +271,12 @@ class Detector(_CandidateSearch):
             _Tier(self.fast_frames, c.fast_growth_db_per_s, min_pnpr_db=c.min_pnpr_db + 6.0, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.25, imsd_floor_db_per_s=0.0,
                   min_ipmp=c.min_ipmp, halves_fraction=0.5, min_rise_db=0.0, max_drift=c.max_fsd / 2,
-                  min_decel_ratio=c.fast_min_decel_ratio),
+                  min_decel_ratio=c.fast_min_decel_ratio, min_pnpr_one_side_db=c.contrast_min_pnpr_one_side_db),
             _Tier(self.win_frames, c.min_growth_db_per_s, min_pnpr_db=c.min_pnpr_db, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.6,
                   imsd_floor_db_per_s=c.max_imsd_db_per_s, min_ipmp=c.min_ipmp, halves_fraction=c.halves_fraction,
-                  min_rise_db=0.0, full=True, max_drift=c.max_fsd),
+                  min_rise_db=0.0, full=True, max_drift=c.max_fsd,
+                  min_pnpr_one_side_db=c.contrast_min_pnpr_one_side_db),
         )
         persist = self.cfg.persist_s / self.dt
         self.persist_frames = max(self.win_frames, int(round(persist))) if np.isfinite(persist) else 2 ** 62

@@ -392,6 +392,24 @@ def test_a_howl_beside_a_louder_partial_is_found_while_still_under_it_at_the_rig
     assert e.growth_db_per_s == pytest.approx(60.0, rel=0.15)
 
 
+def test_a_slow_low_howl_beside_a_louder_note_is_found_while_still_under_it():
+    # Truth by construction: a 158.3 Hz tone growing 12 dB/s from -75 dBFS (a low howl in a
+    # reverberant room) starts 1 s into a held harmonic note at 146.8 Hz (D3), 11.5 Hz = 4 lane
+    # bins below it and 20-45 dB louder while it rises. The low lane judges it by contrast of
+    # growth on its quieter side (contrast_min_pnpr_one_side_db); without that, and by the main
+    # lane alone, it was not found at all in 6 s (measured 2026-12-02).
+    fs = 16000
+    t = np.arange(int(6.0 * fs)) / fs
+    note = 0.03 * sum(0.7 ** (h - 1) * np.sin(2 * np.pi * h * 146.8 * t + h) for h in range(1, 6))
+    howl = np.where(t >= 1.0, tone(fs, 158.3, t.size / fs, -87.0, 12.0), 0.0)  # -75 dBFS at t = 1 s
+    howls = [e for e in D.detect(note + howl, fs).events if e.kind == "howl"]
+    assert howls, "not found"
+    e = howls[0]
+    assert abs(e.freq_hz - 158.3) / 158.3 < 1e-3, e
+    assert e.level_db < 20 * np.log10(0.03), e  # still under the note beside it
+    assert e.growth_db_per_s == pytest.approx(12.0, rel=0.15)
+
+
 def test_two_howls_growing_at_once_near_a_harmonic_ratio_are_both_found():
     # 1395.2 and 1875.6 Hz (0.744: 0.8 % off 3/4) both grow at 60 dB/s: they co-modulate, but they are
     # not partials of one sound, so neither explains the other away.
