@@ -805,6 +805,14 @@ class Detector(_CandidateSearch):
         fsd = float(np.std(kf) / np.mean(kf))
         pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
         decay = -slope
+        q = cfg.imsd_points
+        tq = np.linspace(ts[0], ts[-1], q)
+        imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
+        ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
+              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
+              and pn >= cfg.min_pnpr_db and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
+        if not ok:
+            return None
         # a partner at the exact multiple in most frames that decays along with the peak (falls at
         # >= comod_fraction x its rate: a plucked or struck note's partials fall together, the
         # higher ones faster) and starts within min_phpr_comod_db of it (the fitted ratio at the
@@ -827,14 +835,7 @@ class Detector(_CandidateSearch):
             ph = float(med[exact].min()) if exact.any() else 200.0
         else:
             ph = float(np.median(np.asarray(tr.col('phf'))[seg]))
-        q = cfg.imsd_points
-        tq = np.linspace(ts[0], ts[-1], q)
-        imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
-        ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
-              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
-              and pn >= cfg.min_pnpr_db and ph >= cfg.min_phpr_db
-              and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
-        if not ok:
+        if ph < cfg.min_phpr_db:
             return None
         nb_slope = _linfit(ts, np.asarray(tr.col('nb'))[seg])[0]
         if (cfg.max_decay_ratio is not None and -nb_slope > cfg.min_decay_db_per_s
