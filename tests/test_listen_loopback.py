@@ -218,3 +218,26 @@ def test_listen_loop_with_a_loop_ir_gives_each_ringing_its_margin(tmp_path):
     assert _margin_text(rings[0]).endswith("dB from howling") and not _margin_text(rings[0]).startswith("~")
     logged = [json.loads(s) for s in log.read_text(encoding="utf-8").splitlines()]
     assert any(abs(e["freq_hz"] / f_worst - 1) < 1e-3 and e["margin_db"] is not None for e in logged)
+
+
+def test_listen_view_marks_an_event_off_the_loop_irs_crossings():
+    # A sung note pumped through a low loop 1.5 dB from unity is reported as a howl 1.2 % off the
+    # loop's crossing (docs/scan.md); with the loop IR the live view marks it.
+    from rich.console import Console
+
+    from howl.commands.listen import _view
+    from howl.detect import LoopDelayFromIR
+    from howl.live import ArraySource, listen
+    from howl.simulate import simulate_closed_loop
+    from test_detect import low_room_loop, sung_vowel_swell
+
+    fs = 16000
+    h, _, _ = low_room_loop(30)
+    y = simulate_closed_loop(h, sung_vowel_swell(fs, 131.0, 10.0, 0.006), fs, gain_db=-1.5)
+    snaps = []
+    listen(ArraySource(y, fs, block_frames=512), on_update=snaps.append, update_interval_s=0.0,
+           loop_delay_s=LoopDelayFromIR(h * 10 ** (-1.5 / 20), fs))
+    con = Console(width=120, record=True)
+    con.print(_view(snaps[-1], "test", fs))
+    text = con.export_text()
+    assert "howl *" in text and "not on a crossing of the loop IR" in text

@@ -39,11 +39,17 @@ def _view(snap, device_label: str, fs: float):
     ev = Table(title="events (newest last)", expand=False)
     for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "margin", "suggested cut"):
         ev.add_column(col, justify="right")
+    off_any = False
     for r in snap.events[-6:]:
         n = r["notch"]
         cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
-        ev.add_row(f"{r['time_s']:.1f}", r["kind"], f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
+        c = r.get("loop_ir_crossing")
+        off = c is not None and not c["on_crossing"]
+        off_any |= off
+        ev.add_row(f"{r['time_s']:.1f}", r["kind"] + (" *" if off else ""), f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
                    f"{r['growth_db_per_s']:+.1f}", _margin_text(r), f"{cut} Q {n['q']:.1f}")
+    if off_any:
+        ev.caption = "* not on a crossing of the loop IR: more likely program pumped through the loop"
     notches = Table(title="running notch list", expand=False)
     for col in ("freq_hz", "cut", "Q", "width_oct"):
         notches.add_column(col, justify="right")
