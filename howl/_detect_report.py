@@ -30,16 +30,15 @@ class LoopDelayFromIR:
         self.ir = np.asarray(ir, float)
         self.sample_rate_hz = float(sample_rate_hz)
         self.label = label
-        self._crossings = None
+        from .loop import nyquist_margin
+
+        # the crossings now, not at the first event (listen must not stall its input then)
+        r = nyquist_margin(self.ir, self.sample_rate_hz)
+        self._crossings = (np.asarray(r.crossings_freq_hz, float), np.asarray(r.crossings_value, float))
 
     def nearest_crossing(self, freq_hz: float) -> tuple[float, float] | None:
         """The IR's positive real-axis crossing nearest ``freq_hz`` (howl.loop.nyquist_margin) and
         its margin (dB) at the IR's own settings, or None when it has none."""
-        if self._crossings is None:
-            from .loop import nyquist_margin
-
-            r = nyquist_margin(self.ir, self.sample_rate_hz)
-            self._crossings = (np.asarray(r.crossings_freq_hz, float), np.asarray(r.crossings_value, float))
         f, val = self._crossings
         if f.size == 0:
             return None

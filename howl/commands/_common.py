@@ -88,4 +88,4 @@ def loop_delay_option(loop_delay_ms, loop_ir):
         h, fs, warns = load_loop_ir(loop_ir, channel=None, max_length_s=20.0, trim_s=None)
         for w in warns:
             warnings.warn(w, HowlWarning)
-    return LoopDelayFromIR(h, fs, label=str(loop_ir))
+        return LoopDelayFromIR(h, fs, label=str(loop_ir))
