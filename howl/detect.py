@@ -165,6 +165,18 @@ RING_EXACT_TOL_BINS = 0.1
 CHUNK_FRAMES = 256
 
 
+def _partner_trends(partners: np.ndarray, ts: np.ndarray):
+    """From a track's partner rows (frames × [ratios dB, distances from the exact multiple, bins])
+    over times ``ts``: the ratios R (capped at 200 dB), the distances, each partner's median ratio
+    and the least-squares slope of its ratio (dB/s). A partner whose ratio stays put rises or
+    falls with the peak: a partial of the same sound."""
+    H = partners.shape[1] // 2
+    R = np.minimum(partners[:, :H], 200.0)
+    dx = ts - ts.mean()
+    r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
+    return R, partners[:, H:], np.median(R, axis=0), r_slope
+
+
 @dataclass(frozen=True)
 class _Tier:
     """One decision window and the tests a growing track must pass on it."""
@@ -604,14 +616,9 @@ class Detector(_CandidateSearch):
         # unless the peak is not yet min_phpr_other_db above it.
         cfg = self.cfg
         ts = np.asarray(frl) * dt
-        PE = np.asarray(tr.col('partners', i0))
-        H = PE.shape[1] // 2
-        R = np.minimum(PE[:, :H], 200.0)
-        med = np.median(R, axis=0)
-        dx = ts - ts.mean()
-        r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
+        R, dev, med, r_slope = _partner_trends(np.asarray(tr.col('partners', i0)), ts)
         grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
-        grows_along &= np.mean(PE[:, H:] <= self._exact_tol_bins, axis=0) >= 0.5  # exact in most frames
+        grows_along &= np.mean(dev <= self._exact_tol_bins, axis=0) >= 0.5  # exact in most frames
         explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
         if tier.other_partners:
             explains |= med < cfg.min_phpr_other_db
@@ -818,13 +825,8 @@ class Detector(_CandidateSearch):
         # higher ones faster) and starts within min_phpr_comod_db of it (the fitted ratio at the
         # start of the fall: a faster partial's ratio grows through the fall, so its median
         # over a long fall passes 20 dB) makes it a note, not a loop mode
-        PE = np.asarray(tr.col('partners'))[seg]
-        H = PE.shape[1] // 2
-        exact = np.median(PE[:, H:], axis=0) <= self._ring_exact_tol_bins
-        R = np.minimum(PE[:, :H], 200.0)
-        med = np.median(R, axis=0)
-        dx = ts - ts.mean()
-        r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
+        R, dev, med, r_slope = _partner_trends(np.asarray(tr.col('partners'))[seg], ts)
+        exact = np.median(dev, axis=0) <= self._ring_exact_tol_bins
         along = exact & (r_slope >= -(1.0 - cfg.comod_fraction) * decay)
         r_start = R.mean(axis=0) - r_slope * (ts.mean() - ts[0])
         if np.any(along & (np.minimum(med, r_start) < max(cfg.min_phpr_db, cfg.min_phpr_comod_db))):
