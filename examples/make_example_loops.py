@@ -22,8 +22,8 @@ import numpy as np
 from scipy import signal
 
 from howl.fileio import write_wav_atomic
-from howl.images import mic_loop_ir
-from howl.rig import load_rig
+from howl.model.images import mic_loop_ir
+from howl.model.rig import load_rig
 
 HERE = Path(__file__).resolve().parent
 SAMPLE_RATE_HZ = 48000

@@ -16,7 +16,7 @@ __all__ = [
     "__version__",
 ]
 
-from .errors import (  # noqa: E402
+from howl.errors import (  # noqa: E402
     AudioUnavailableError,
     HowlError,
     HowlWarning,

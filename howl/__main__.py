@@ -1,3 +1,3 @@
-from .cli import main
+from howl.cli import main
 
 main()

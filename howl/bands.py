@@ -25,7 +25,7 @@ import math
 
 import numpy as np
 
-from .errors import InputError
+from howl.errors import InputError
 
 #: Octave frequency ratio, base-10 system (IEC 61260-1:2014, §5.2).
 G: float = 10.0 ** (3.0 / 10.0)

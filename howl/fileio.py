@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError
+from howl.errors import InputError
 
 
 @contextlib.contextmanager

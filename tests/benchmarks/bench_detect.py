@@ -44,12 +44,12 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent))  # tests/: the synthetic programs live in test_detect.py
+sys.path.insert(0, str(HERE.parent / "listen"))  # the synthetic programs live in tests/listen/test_detect.py
 
 from test_detect import (HARD_NO_HOWL, closed_loop_modes, plucked_note, NEAR_UNITY_DB, flute_swell, held_note_crescendo, low_room_loop, music_like,
                          room_loop, speech_like, sung_vowel_swell, t_dominates)  # noqa: E402
 
-from howl.detect import DetectorConfig, detect  # noqa: E402
+from howl.listen.detect import DetectorConfig, detect  # noqa: E402
 
 #: the main lane alone (no low lane): the comparison that shows what the low lane buys
 LANE_OFF = DetectorConfig(low_lane_hz=None)
@@ -89,7 +89,7 @@ LOW_SEEDS = (30, 31, 33, 35, 37)
 
 
 def latency(quick: bool, low: bool = False) -> list[dict]:
-    from howl.simulate import simulate_closed_loop
+    from howl.loop.simulate import simulate_closed_loop
 
     fs = 16000
     rows = []
@@ -155,7 +155,7 @@ def latency(quick: bool, low: bool = False) -> list[dict]:
 
 
 def false_alarms(quick: bool) -> list[dict]:
-    from howl.simulate import simulate_closed_loop
+    from howl.loop.simulate import simulate_closed_loop
 
     fs = 16000
     rng = np.random.default_rng(21)
@@ -226,7 +226,7 @@ def low_programs(quick: bool) -> list[dict]:
     programs (seeds 500-505), program through the five low loops at 1.5 and 3 dB margin, and sung
     vowels through low loops at 1.5 dB margin (a note pumped through a resonance near unity).
     I tuned the low lane's limits on this set (docs/scan.md), so it is not held out."""
-    from howl.simulate import simulate_closed_loop
+    from howl.loop.simulate import simulate_closed_loop
 
     fs = 16000
     cases: dict[str, np.ndarray] = {}
@@ -266,8 +266,8 @@ def ring_downs(quick: bool) -> list[dict]:
     """A click (one sample at -6 dBFS) through each loop held 1-3 dB under its worst crossing:
     each ring-down reported, its margin from decay x the IR's loop delay at its frequency
     (howl.detect.loop_delay_s) against the truth (the scipy.signal.freqz crossing + the fader)."""
-    from howl.detect import loop_delay_s, margin_from_decay_db
-    from howl.simulate import simulate_closed_loop
+    from howl.listen.detect import loop_delay_s, margin_from_decay_db
+    from howl.loop.simulate import simulate_closed_loop
 
     fs = 16000
     rows = []

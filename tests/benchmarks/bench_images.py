@@ -40,7 +40,7 @@ MAP_TARGET_S = 2.0
 
 
 def _room():
-    from howl.rig import Room, Surface
+    from howl.model.rig import Room, Surface
 
     lx, ly, lz = DIMS
     areas = {"floor": lx * ly, "ceiling": lx * ly, "wall_x0": ly * lz, "wall_x1": ly * lz,
@@ -62,9 +62,9 @@ def _median(fn, repeats):
 def main() -> None:
     import pyroomacoustics as pra
 
-    from howl.images import image_source_ir
-    from howl.rig import OCTAVE_BANDS_HZ
-    from howl.room import room_acoustics
+    from howl.model.images import image_source_ir
+    from howl.model.rig import OCTAVE_BANDS_HZ
+    from howl.model.room import room_acoustics
 
     room = _room()
     rt = room_acoustics(room, np.array([500.0, 1000.0, 2000.0])).rt60_eyring_s
@@ -109,8 +109,8 @@ def main() -> None:
 
     # the map: a 40 × 40 statistical grid over the bundled rig's floor plan (x and y spaced
     # to fill the 24 × 10 m floor; margin_map takes one step for both, so time its compute path)
-    from howl.placement import statistical_margins
-    from howl.rig import bundled_rig_path, load_rig
+    from howl.model.placement import statistical_margins
+    from howl.model.rig import bundled_rig_path, load_rig
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

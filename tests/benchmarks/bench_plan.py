@@ -24,7 +24,7 @@ TARGET_MS = 20.0
 
 
 def _rig():
-    from howl.rig import Listener, Mix, Mic, Rig, Speaker, Talker, load_room
+    from howl.model.rig import Listener, Mix, Mic, Rig, Speaker, Talker, load_room
 
     room = load_room(REPO / "rooms" / "school_gym.toml")
     length, width, height = room.dimensions_m if room.dimensions_m else (30.0, 20.0, 8.0)
@@ -58,7 +58,7 @@ def _rig():
 
 
 def main() -> int:
-    from howl.plan import plan_rig, plan_to_json
+    from howl.model.plan import plan_rig, plan_to_json
 
     rig = _rig()
     with warnings.catch_warnings():

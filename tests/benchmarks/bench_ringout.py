@@ -33,9 +33,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from howl.loop import nyquist_margin  # noqa: E402
-from howl.notch import Notch, cascade_sos, q_from_bandwidth_oct  # noqa: E402
-from howl.ringout import ring_out, tonal_cost_db  # noqa: E402
+from howl.loop.nyquist import nyquist_margin  # noqa: E402
+from howl.loop.notch import Notch, cascade_sos, q_from_bandwidth_oct  # noqa: E402
+from howl.loop.ringout import ring_out, tonal_cost_db  # noqa: E402
 
 FS = 16000
 BAND = (100.0, 7000.0)

@@ -32,8 +32,8 @@ PROGRAM_S = 10.0
 def main() -> None:
     from bench_margin import synthetic_loop_ir
 
-    from howl.loop import nyquist_margin
-    from howl.simulate import simulate_closed_loop
+    from howl.loop.nyquist import nyquist_margin
+    from howl.loop.simulate import simulate_closed_loop
 
     rng = np.random.default_rng(1)
     x = 0.05 * rng.standard_normal(int(PROGRAM_S * FS))

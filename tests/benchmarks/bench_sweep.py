@@ -27,7 +27,7 @@ FS = 96000
 def main(n_runs: int = 7) -> dict:
     from scipy.signal import fftconvolve
 
-    from howl.sweep import analyse, exponential_sweep
+    from howl.measure.sweep import analyse, exponential_sweep
 
     t0 = time.perf_counter()
     sw = exponential_sweep(10.0, 20.0, 20000.0, FS)

@@ -1,0 +1,91 @@
+"""Helpers shared by the command modules (kept free of numpy/scipy imports)."""
+
+from __future__ import annotations
+
+import sys
+from typing import Any
+
+import typer
+
+
+def emit_json(obj: Any) -> None:
+    """Print exactly one JSON object on stdout."""
+    from howl.fileio import dumps_json
+
+    typer.echo(dumps_json(obj))
+
+
+def warn(message: str) -> None:
+    """One warning line on stderr."""
+    print(f"howl: warning: {message}", file=sys.stderr)
+
+
+def capture_warnings():
+    """Context manager: route HowlWarning (and other warnings) to stderr lines."""
+    import contextlib
+    import warnings
+
+    @contextlib.contextmanager
+    def _cm():
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                yield
+            finally:
+                seen = set()
+                for w in caught:
+                    msg = str(w.message)
+                    if msg not in seen:
+                        seen.add(msg)
+                        warn(msg)
+
+    return _cm()
+
+
+def make_console(*, stderr: bool = False):
+    """A rich Console for tables: the terminal's width, or 120 columns when piped to a file.
+
+    rich falls back to 80 columns off a terminal, which truncates the wide per-mic tables
+    in a saved log; a log is read later in an editor, so give it room.
+    """
+    from rich.console import Console
+
+    con = Console(highlight=False, stderr=stderr)
+    if not con.is_terminal:
+        con = Console(highlight=False, stderr=stderr, width=max(120, con.width))
+    return con
+
+
+def loop_delay_option(loop_delay_ms, loop_ir):
+    """The loop delay from ``--loop-delay-ms`` (a number, s) or ``--loop-ir`` (a
+    :class:`howl.detect.LoopDelayFromIR`), or None; both given is refused."""
+    from howl import validate as v
+    from howl.errors import InputError
+
+    if loop_delay_ms is not None and loop_ir is not None:
+        raise InputError("give --loop-delay-ms or --loop-ir, not both (the IR gives the delay at each frequency)",
+                         key="--loop-ir")
+    if loop_delay_ms is not None:
+        return v.in_range(loop_delay_ms, "--loop-delay-ms", 0.0, 2000.0, unit="ms", lo_open=True) / 1000.0
+    if loop_ir is None:
+        return None
+    import warnings
+
+    from howl.listen.detect import LoopDelayFromIR
+    from howl.errors import HowlWarning
+    from howl.cli.margin import load_loop_ir
+
+    try:
+        import soundfile as sf
+
+        n_ch = sf.info(str(loop_ir)).channels
+    except Exception:  # load_loop_ir gives the clear message for missing or unreadable files
+        n_ch = 1
+    if n_ch != 1:
+        raise InputError(f"has {n_ch} channels; expected a mono loop IR (one speaker-to-mic loop)",
+                         file=str(loop_ir), key="--loop-ir")
+    with capture_warnings():
+        h, fs, warns = load_loop_ir(loop_ir, channel=None, max_length_s=20.0, trim_s=None)
+        for w in warns:
+            warnings.warn(w, HowlWarning)
+        return LoopDelayFromIR(h, fs, label=str(loop_ir))

@@ -1,0 +1,134 @@
+"""`howl listen`: the ringing detector on a live input, with a terminal view and a JSON-lines log."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import typer
+
+ORDER = 75
+
+
+def _margin_text(rec: dict) -> str:
+    """How far from howling: "1.5 dB from howling" for a ringing, "0.6 dB past" for a howl;
+    "~" when the loop delay was assumed (no --loop-delay-ms)."""
+    m = rec.get("margin_db")
+    approx = ""
+    if m is None:
+        m = rec.get("margin_assumed_db")
+        approx = "~"
+    if m is None:
+        return "-"
+    return f"{approx}{m:.1f} dB from howling" if m > 0 else f"{approx}{-m:.1f} dB past"
+
+
+def _view(snap, device_label: str, fs: float):
+    from rich.console import Group
+    from rich.table import Table
+    from rich.text import Text
+
+    head = Text(f"howl listen  {device_label}  {fs:g} Hz  {snap.elapsed_s:7.1f} s  "
+                f"input {snap.level_dbfs:6.1f} dBFS  overflows {snap.overflows}   (Ctrl-C stops)")
+    cand = Table(title="ringing candidates", expand=False)
+    for col in ("freq_hz", "level_db", "trend_db/s", "age_s", "PNPR", "PHPR", "state"):
+        cand.add_column(col, justify="right")
+    for c in snap.candidates:
+        cand.add_row(f"{c.freq_hz:.1f}", f"{c.level_db:.1f}", f"{c.trend_db_per_s:+.1f}", f"{c.age_s:.1f}",
+                     f"{c.pnpr_db:.0f}", f"{c.phpr_db:.0f}", c.state)
+    ev = Table(title="events (newest last)", expand=False)
+    for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "margin", "suggested cut"):
+        ev.add_column(col, justify="right")
+    off_any = False
+    for r in snap.events[-6:]:
+        n = r["notch"]
+        cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
+        c = r.get("loop_ir_crossing")
+        off = c is not None and not c["on_crossing"]
+        off_any |= off
+        ev.add_row(f"{r['time_s']:.1f}", r["kind"] + (" *" if off else ""), f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
+                   f"{r['growth_db_per_s']:+.1f}", _margin_text(r), f"{cut} Q {n['q']:.1f}")
+    if off_any:
+        ev.caption = "* not on a crossing of the loop IR: more likely program pumped through the loop"
+    notches = Table(title="running notch list", expand=False)
+    for col in ("freq_hz", "cut", "Q", "width_oct"):
+        notches.add_column(col, justify="right")
+    for n in snap.notches:
+        notches.add_row(f"{n.freq_hz:.1f}", "full notch" if n.gain_db is None else f"{n.gain_db:.1f} dB",
+                        f"{n.q:.1f}", f"{n.bandwidth_oct:.3f}")
+    parts = [head, cand, ev, notches]
+    parts += [Text(f"advice: {a}") for a in snap.advice]
+    return Group(*parts)
+
+
+def register(app: typer.Typer) -> None:
+    @app.command("listen")
+    def listen_cmd(
+        device: str = typer.Option(None, "--device", help="Input device: index or part of its name (see `howl devices`)."),
+        in_channel: int = typer.Option(1, "--in-channel", help="1-based input channel."),
+        duration: float = typer.Option(None, "--duration", help="Stop after this many seconds of audio."),
+        log: Path = typer.Option(None, "--log", help="Append events as JSON lines to this file (flushed per event)."),
+        json_out: bool = typer.Option(False, "--json", help="With --duration: print the same JSON as `howl scan` at the end."),
+        loop_delay_ms: float = typer.Option(None, "--loop-delay-ms", help="Loop delay (ms) when known: margins from ring-downs."),
+        loop_ir: Path = typer.Option(None, "--loop-ir", metavar="IR.wav",
+                                     help="Measured loop IR: margins from the loop delay at each frequency."),
+        max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the running list."),
+        temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (drift width of cuts)."),
+        swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
+    ) -> None:
+        """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
+        from howl import validate as v
+        from howl.errors import InputError
+        from howl.listen.live import CAUTIONS, listen
+        from howl.cli._common import emit_json, loop_delay_option
+
+        if device is None:
+            raise InputError("must name the input device (index or part of its name; `howl devices` lists them)",
+                             key="--device")
+        v.integer(in_channel, "--in-channel", 1, 1024)
+        v.integer(max_notches, "--max-notches", 1, 64)
+        if duration is not None:
+            v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
+        if json_out and duration is None:
+            raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
+        tau = loop_delay_option(loop_delay_ms, loop_ir)
+        # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
+        for line in CAUTIONS:
+            typer.echo(line, err=json_out)
+
+        from howl.measure.audio import LiveInput
+        from howl.listen.detect import Detector
+
+        Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
+        src = LiveInput(device, in_channel)
+        label = src.device.label
+        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
+        kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
+                  temperature_c=temperature_c, swing_c=swing_c)
+        try:
+            if json_out or not sys.stdout.isatty():
+                res = listen(src, **kw)
+            else:
+                from rich.console import Console
+                from rich.live import Live
+
+                console = Console()
+                with Live(console=console, refresh_per_second=4, transient=False) as live:
+                    res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
+        finally:
+            src.close()
+        rep = {"device": label, "in_channel": in_channel, **res.report}
+        if json_out:
+            emit_json(rep)
+            return
+        end = "stopped (Ctrl-C)" if res.interrupted else "done"
+        typer.echo(f"{end}: {rep['duration_s']:.1f} s, {rep['n_howl']} howl(s), {rep['n_ringing']} ringing, "
+                   f"{res.overflows} input overflow(s)")
+        for n in rep["notches"]:
+            cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
+            typer.echo(f"  cut {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f}  from {n['n_events']} event(s)")
+        for a in rep["advice"]:
+            typer.echo(f"  advice: {a}")
+        if res.overflows:
+            typer.echo(f"  warning: {res.overflows} input overflow(s): audio was lost; results may miss events",
+                       err=True)

@@ -1,0 +1,152 @@
+"""`howl plan`: potential gain before feedback per mic and per band, from a rig file."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+ORDER = 30
+
+_CAUTION = (
+    "A plan is a prediction from a model, not a measurement: check it by measuring the loop and ring the system "
+    "out at a safe level, with hearing protection and care for tweeters; follow local codes and licensed practice."
+)
+
+
+def register(app: typer.Typer) -> None:
+    @app.command(
+        "plan",
+        help=(
+            "Predict gain before feedback for a rig: PAG, NAG and margin per mic, the limiting band, how far each "
+            "channel may rise, and the classic Davis figures beside them. With no RIG, runs on the bundled example."
+        ),
+    )
+    def plan_cmd(
+        rig_file: Optional[Path] = typer.Argument(None, metavar="[RIG.toml]", help="Rig file (default: bundled example)."),
+        bands: bool = typer.Option(False, "--bands", help="Also print the per-band detail."),
+        fraction: int = typer.Option(3, "--fraction", help="Bands per octave: 1, 3, 6, 12 or 24."),
+        fsm_db: Optional[float] = typer.Option(None, "--fsm-db", help="Feedback stability margin in dB (default: the rig's, else 6)."),
+        what_if: list[str] = typer.Option(
+            [], "--what-if", help="Try a change without editing the file, e.g. mics.lectern.pattern=supercardioid (repeatable)."
+        ),
+        method: str = typer.Option("statistical", "--method", help="statistical (band averages) or images (adds image-source loops)."),
+        f_lo_hz: float = typer.Option(100.0, "--f-lo-hz", help="Lowest band centre, Hz."),
+        f_hi_hz: float = typer.Option(10000.0, "--f-hi-hz", help="Highest band centre, Hz."),
+        json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of tables."),
+    ) -> None:
+        from howl.validate import choice, in_range
+        from howl.errors import InputError
+        from howl.model.rig import bundled_rig_path, load_rig, with_changes
+        from howl.cli._common import capture_warnings, emit_json
+
+        choice(method, "--method", ("statistical", "images"))
+        if fraction not in (1, 3, 6, 12, 24):
+            raise InputError(f"must be one of 1, 3, 6, 12, 24, got {fraction}", key="--fraction")
+        if fsm_db is not None:
+            in_range(fsm_db, "--fsm-db", 0.0, 30.0, unit="dB")
+        in_range(f_lo_hz, "--f-lo-hz", 20.0, 20000.0, unit="Hz")
+        in_range(f_hi_hz, "--f-hi-hz", 20.0, 20000.0, unit="Hz")
+        if f_hi_hz <= f_lo_hz:
+            raise InputError(f"must be above --f-lo-hz ({f_lo_hz:g} Hz), got {f_hi_hz:g} Hz", key="--f-hi-hz")
+
+        with capture_warnings():
+            path = bundled_rig_path() if rig_file is None else rig_file
+            rig = load_rig(path)
+            if what_if:
+                rig = with_changes(rig, list(what_if))
+            from howl.model.plan import plan_rig, plan_to_json
+
+            result = plan_rig(rig, fraction=fraction, f_lo_hz=f_lo_hz, f_hi_hz=f_hi_hz, fsm_db=fsm_db)
+            obj = plan_to_json(result)
+            obj["what_if"] = list(what_if)
+            images = None
+            if method == "images":
+                try:
+                    from howl.model.images import plan_with_images
+                except ImportError:
+                    raise InputError(
+                        "the images method is unavailable (howl.images.plan_with_images is missing); "
+                        "use --method statistical", key="--method",
+                    ) from None
+                import inspect
+
+                extra = {"fraction": fraction, "f_lo_hz": f_lo_hz, "f_hi_hz": f_hi_hz}
+                accepted = inspect.signature(plan_with_images).parameters
+                images = plan_with_images(rig, sample_rate_hz=16000,
+                                          **{k: v for k, v in extra.items() if k in accepted})
+                obj["images"] = images
+                obj["method"] = "statistical+images"
+
+        if json_out:
+            emit_json(obj)
+            return
+        _print_tables(obj, bands, images)
+
+
+def _fmt(v, spec="+.1f", none="—") -> str:
+    return none if v is None else format(v, spec)
+
+
+def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
+    from rich.markup import escape
+    from rich.table import Table
+
+    from howl.cli._common import make_console
+
+    con = make_console()
+    con.print(f"[bold]{escape(str(obj['rig']))}[/bold]  ({escape(str(obj['rig_file'] or 'rig'))})")
+    con.print(
+        f"FSM {obj['fsm_db']:g} dB · {obj['nom']} open mic(s) in the loop · 1/{obj['fraction']} octave bands · "
+        f"headroom of the rig as set: {_fmt(obj['stated_margin_db'])} dB (worst-peak loop gain to unity)"
+    )
+    if obj["what_if"]:
+        con.print("what if: " + escape(", ".join(obj["what_if"])))
+    t = Table(title="Gain before feedback per mic (dB)", show_lines=False, pad_edge=False)
+    for col, just in (("mic", "left"), ("PAG", "right"), ("10–90 %", "right"), ("NAG", "right"),
+                      ("margin", "right"), ("limit Hz", "right"), ("max ch.", "right"), ("verdict", "left"),
+                      ("Davis PAG/NAG", "right")):
+        t.add_column(col, justify=just, no_wrap=True)
+    style = {"stable": "green", "marginal": "yellow", "will howl": "bold red"}
+    for m in obj["mics"]:
+        lo, hi = m["pag_spread_db"]
+        t.add_row(
+            escape(m["name"]), _fmt(m["pag_db"]), f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
+            f"{m['limiting_band_hz']:.0f}", _fmt(m["max_channel_gain_db"]),
+            f"[{style.get(m['verdict'], '')}]{m['verdict']}[/]",
+            f"{_fmt(m['davis_pag_db'])}/{_fmt(m['davis_nag_db'])}",
+        )
+    con.print(t)
+    if obj["muted_mics"]:
+        con.print("muted (not in the loop): " + escape(", ".join(obj["muted_mics"])))
+    if obj["unrouted_mics"]:
+        con.print("open but in no mix: " + escape(", ".join(obj["unrouted_mics"])))
+    con.print(
+        "PAG: gain the talker gets at the farthest listener when all open mics are raised together until the "
+        "worst-peak loop gain is −FSM. NAG: gain needed for the target level (EAD). margin = PAG − NAG. "
+        "max ch. gain: how far that mic's own gain may rise from the rig's settings, all else fixed. "
+        "Davis: distances only, omni, free field."
+    )
+    if bands:
+        bt = Table(title="Per band: worst-peak loop gain at the stated settings (dB)")
+        for col in ("band", "RT60 s", "ρ avg", "peak", "ρ peak"):
+            bt.add_column(col, justify="right")
+        for m in obj["mics"]:
+            bt.add_column(escape(m["name"]), justify="right")
+        room = obj["room"]
+        for i, label in enumerate(obj["band_labels"]):
+            row = [label, f"{room['rt60_s'][i]:.2f}", _fmt(obj["spectral_radius_db"][i]), _fmt(obj["peak_factor_db"][i]),
+                   _fmt(obj["worst_peak_spectral_radius_db"][i])]
+            row += [_fmt(m["worst_peak_loop_gain_db"][i]) for m in obj["mics"]]
+            bt.add_row(*row)
+        con.print(bt)
+        con.print(
+            f"ρ: spectral radius of the loop power matrix (the whole rig); per-mic columns: loop gain at that "
+            f"channel with the other open mics in the loop. Schroeder frequency ≈ "
+            f"{room['schroeder_frequency_hz']:.0f} Hz: below it the room is modal and peaks are only indicative."
+        )
+    if images is not None:
+        for line in images.get("lines", []):
+            con.print(escape(str(line)))
+    con.print(f"[dim]{_CAUTION}[/dim]")

@@ -1,0 +1,463 @@
+"""The ring-out's search: covering plans, simple ring-outs, the score and the pattern search.
+
+Private to :mod:`howl.ringout` (see its docstring for the method); the tonal costs
+(:func:`tonal_cost_db`, :func:`tonal_grid`) are re-exported there.
+
+References
+----------
+.. [1] R. Bristow-Johnson, "Audio EQ Cookbook", W3C Working Group Note, 2021,
+   https://www.w3.org/TR/audio-eq-cookbook/.
+.. [2] D. A. Bies, C. H. Hansen and C. Howard, *Engineering Noise Control*,
+   5th ed., Table 4.3: male speech, normal effort, octave-band levels at 1 m
+   (250–4000 Hz: 72.5, 74.0, 68.0, 62.0, 57.0 dB), used to weight the
+   speech tonal cost.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from howl.loop._ringout_grid import (
+    POLISH_VIEW_DB,
+    _cut_atten_db,
+    _GridLoop,
+    _min_gain_db,
+    _View,
+    _worst_margin,
+)
+from howl.loop.notch import (
+    MAX_NOTCH_BANDWIDTH_OCT,
+    Notch,
+    cascade_response,
+    merge_notches,
+    q_from_bandwidth_oct,
+)
+
+#: Deepest peaking cut the planner uses (dB). Deeper cuts cost tone for little
+#: extra margin in a reverberant loop (common practice, no source).
+PLAN_MAX_DEPTH_DB = 18.0
+
+#: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
+#: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
+MAX_TONAL_SHARE = 0.5
+
+#: Bandwidths (octaves) the planner tries for each cut, up to the 1/3-octave cap.
+PLAN_BANDWIDTHS_OCT = (1 / 24, 1 / 16, 1 / 12, 1 / 9, 1 / 7, 1 / 6, 1 / 5, 1 / 4, 1 / 3)
+
+#: Rounds of "insert the cascade, find the crossings again, re-plan".
+PLAN_ROUNDS = 5
+
+#: Male speech octave-band levels at 1 m, normal effort [2]_ (dB), for the
+#: speech-weighted tonal cost.
+SPEECH_OCTAVES_HZ = (250.0, 500.0, 1000.0, 2000.0, 4000.0)
+SPEECH_LEVELS_DB = (72.5, 74.0, 68.0, 62.0, 57.0)
+
+
+class _Planner:
+    """Greedy covering of crossings by at most R cuts, bisection on the level T."""
+
+    def __init__(self, fs: float, drift_oct: float, max_depth_db: float = PLAN_MAX_DEPTH_DB):
+        self.fs = fs
+        self.drift = drift_oct
+        self.gmax = max_depth_db
+        self.bw_arr = np.array(PLAN_BANDWIDTHS_OCT)
+        self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in PLAN_BANDWIDTHS_OCT])
+
+    def _one_cut(self, f: np.ndarray, need: np.ndarray):
+        """The shallowest cut covering all of (f, need), drift included; None if none can."""
+        lf0, lf1 = math.log2(f[0]), math.log2(f[-1])
+        span = lf1 - lf0
+        ok = self.bw_arr >= 0.5 * span + 0.5 * self.drift
+        if not np.any(ok):
+            return None
+        bw, q = self.bw_arr[ok], self.q_arr[ok]
+        u = np.array([0.0, -0.25, 0.25])
+        fc = (2.0 ** (0.5 * (lf0 + lf1) + u * span / 2.0))[None, :].repeat(bw.size, 0).ravel()
+        qq = np.repeat(q, u.size)
+        bb = np.repeat(bw, u.size)
+        good = fc < 0.49 * self.fs
+        if not np.any(good):
+            return None
+        fc, qq, bb = fc[good], qq[good], bb[good]
+        half = 2.0 ** (self.drift / 2.0)
+        fx = np.concatenate([f / half, f, f * half])
+        nx = np.concatenate([need, need, need])
+        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs).min(axis=1)
+        g = np.where(g >= -self.gmax, g, -np.inf)
+        k = int(np.argmax(g))  # shallowest; ties go to the narrowest (listed first)
+        if not np.isfinite(g[k]):
+            return None
+        return float(g[k]), float(fc[k]), float(bb[k]), float(qq[k])
+
+    def cover(self, f: np.ndarray, need: np.ndarray, budget: int):
+        """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget."""
+        need = need.copy()
+        cuts = []
+        cap = MAX_NOTCH_BANDWIDTH_OCT * 1.5
+        while True:
+            open_ = np.flatnonzero(need > 1e-6)
+            if open_.size == 0:
+                return cuts
+            if len(cuts) >= budget:
+                return None
+            a = open_[0]
+            cand = open_[f[open_] <= f[a] * 2.0**cap]
+            lo, hi, sol = 0, cand.size - 1, None
+            while lo <= hi:  # the widest run starting at a that one cut covers
+                mid = (lo + hi) // 2
+                r = self._one_cut(f[cand[: mid + 1]], need[cand[: mid + 1]])
+                if r is not None:
+                    sol, lo = r, mid + 1
+                else:
+                    hi = mid - 1
+            if sol is None:
+                return None
+            g, fc, bw, q = sol
+            cuts.append((fc, g, q))
+            need = need - _cut_atten_db(f, fc, g, q, self.fs)
+
+    def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.05):
+        """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
+        o = np.argsort(f)
+        f, vdb = f[o], 20.0 * np.log10(value[o])
+        top = float(vdb.max())
+        lo, hi = top - self.gmax, top
+        best = (top, [])
+        while hi - lo > tol_db:
+            t = 0.5 * (lo + hi)
+            off = vdb > t
+            cuts = self.cover(f[off], vdb[off] - t, budget)
+            if cuts is None:
+                lo = t
+            else:
+                hi, best = t, (t, cuts)
+        return best
+
+
+def _as_notches(cuts) -> list[Notch]:
+    return [Notch(float(fc), float(min(g, -0.01)), float(q)) for fc, g, q in cuts]
+
+
+def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float):
+    """Plan, insert, find the moved crossings, re-plan; keep the best cascade: (cuts, margin, −level)."""
+    pts_f, pts_v = [], []
+    for lp in loops:
+        fc, rc = lp.crossings(lp.H)
+        pts_f.append(fc)
+        pts_v.append(rc)
+    best = ([], _worst_margin(loops, [], fs)[0], float("nan"))
+    for _ in range(PLAN_ROUNDS):
+        pf, pv = np.concatenate(pts_f), np.concatenate(pts_v)
+        if pf.size == 0:
+            break
+        t_db, cuts = planner.plan(pf, pv, budget)
+        notches = _as_notches(cuts)
+        m, _, _ = _worst_margin(loops, notches, fs)
+        if m > best[1]:
+            best = (notches, m, -t_db)
+        new = False
+        for lp in loops:  # crossings of the loop with this cascade in it, above the level
+            fc, rc = lp.crossings(lp.H * lp.cascade(notches))
+            bad = 20.0 * np.log10(rc) > t_db + 0.05
+            if np.any(bad):
+                new = True
+                pts_f.append(fc[bad])
+                pts_v.append(rc[bad] / np.abs(cascade_response(notches, fc[bad], fs)))
+        if not new:
+            break
+    return best
+
+
+def tonal_cost_db(notches, band_hz, sample_rate_hz, *, weighting: str = "pink") -> float:
+    """Program power the cascade removes, in dB (≥ 0).
+
+    ``weighting="pink"``: pink noise (equal power per octave) over the band
+    (from 20 Hz if the band starts lower). ``"speech"``: a male speech spectrum
+    [2]_, octave bands 250 Hz–4 kHz, pink within each band.
+    """
+    notches = list(notches)
+    if not notches:
+        return 0.0
+    fs = float(sample_rate_hz)
+    f, w = tonal_grid(band_hz, fs, weighting, 8000)
+    return float(-10.0 * math.log10(np.sum(w * np.abs(cascade_response(notches, f, fs)) ** 2)))
+
+
+def tonal_grid(band_hz, fs: float, weighting: str = "pink", n: int = 8000) -> tuple[np.ndarray, np.ndarray]:
+    """Frequencies and weights (summing to 1) of a tonal-cost weighting, about ``n`` points.
+
+    Pink: log-spaced over the band from 20 Hz to below 0.499·fs (equal weight per octave).
+    Speech: each octave band 250 Hz–4 kHz [2]_ log-spaced with its share of the speech power.
+    """
+    if weighting == "speech":
+        fs_, ws_ = [], []
+        k = max(8, n // len(SPEECH_OCTAVES_HZ))
+        tot = sum(10.0 ** (lev / 10.0) for lev in SPEECH_LEVELS_DB)
+        for fc, lev in zip(SPEECH_OCTAVES_HZ, SPEECH_LEVELS_DB):
+            lo = fc / math.sqrt(2)
+            f = np.geomspace(lo, max(lo * 1.001, min(fc * math.sqrt(2), 0.499 * fs)), k)
+            fs_.append(f)
+            ws_.append(np.full(k, 10.0 ** (lev / 10.0) / tot / k))
+        return np.concatenate(fs_), np.concatenate(ws_)
+    if weighting != "pink":
+        raise ValueError(f"unknown tonal weighting {weighting!r}")
+    lo = max(20.0, float(band_hz[0]))
+    hi = min(float(band_hz[1]), 0.499 * fs)
+    return np.geomspace(lo, max(hi, lo * 1.001), n), np.full(n, 1.0 / n)
+
+
+#: The simple ring-outs also tried at every budget (depth dB, bandwidth oct): a fixed cut at each
+#: limiting crossing in turn, on the loop with the earlier cuts in it. Where a few regions dominate
+#: the loop, deep 1/3-octave cuts at the limit found this way often beat the plan. One is kept only
+#: if its pink-noise tonal cost is at most half the gain it buys (otherwise it mostly turns the
+#: whole loop down, which the fader does too).
+GREEDY_CUTS = ((-10.0, 1 / 6), (-6.0, 1 / 6), (-10.0, 1 / 10), (-12.0, 1 / 3), (-15.0, 1 / 3), (-18.0, 1 / 3), (-15.0, 1 / 4))
+
+
+def _greedy_prefixes(loops, budget: int, fs: float) -> dict[int, list[tuple[list[Notch], float]]]:
+    """For each budget b, the cuts and margin of each simple ring-out after b cuts."""
+    out: dict[int, list] = {b: [] for b in range(1, budget + 1)}
+    for depth, bw in GREEDY_CUTS:
+        q = q_from_bandwidth_oct(bw)
+        now = [lp.H for lp in loops]
+        cuts: list[Notch] = []
+        for b in range(1, budget + 1):
+            worst = min((lp.margin(a) for lp, a in zip(loops, now)), key=lambda t: t[0])
+            if not math.isfinite(worst[1]) or worst[1] >= 0.49 * fs:
+                break
+            n = Notch(worst[1], depth, q)
+            cuts = cuts + [n]
+            now = [a * lp.cut(n) for lp, a in zip(loops, now)]
+            m = min(lp.margin(a)[0] for lp, a in zip(loops, now))
+            out[b].append((cuts, m))
+    return out
+
+
+#: Steps of the pattern search around each cut: centre (fractions of its bandwidth), depth (dB)
+#: and width (log2 of the factor). They are halved when a pass finds nothing better.
+SEARCH_CENTRE_STEPS = (-0.25, -0.1, 0.1, 0.25)
+SEARCH_DEPTH_STEPS_DB = (-3.0, -1.0, 1.0, 3.0)
+SEARCH_WIDTH_STEPS = (-0.5, -0.2, 0.2, 0.5)
+#: Depths (dB) and widths (octaves) a cut is tried at when moved to the limiting crossing.
+RELOCATE_DEPTHS_DB = (-3.0, -6.0, -10.0)
+RELOCATE_WIDTHS_OCT = (1 / 24, 1 / 10, 1 / 6)
+
+
+#: Tie-break of the search (dB of margin per dB of tonal cost): of two cascades with the same
+#: margin, the one that removes less program wins, so depths stay as shallow as they can.
+TONAL_TIE_BREAK = 0.05
+
+
+class _Score:
+    """What the search maximises: the worst grid margin, less the tonal cost beyond its share.
+
+    The tonal cost is :func:`tonal_cost_db`'s figure (pink or speech weighting) on a coarser
+    grid (each cut's power response cached), so the search sees what will be reported.
+    """
+
+    def __init__(self, loops, fs: float, band, m0_db: float, share: float = MAX_TONAL_SHARE,
+                 weighting: str = "pink"):
+        self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
+        self.f, self.w = tonal_grid(band, fs, weighting, 1200)
+        self._power: dict[Notch, np.ndarray] = {}
+
+    def power(self, cuts) -> np.ndarray:
+        """|C(f)|² of the cascade on the tonal grid."""
+        p = np.ones(self.f.size)
+        for n in cuts:
+            c = self._power.get(n)
+            if c is None:
+                if len(self._power) > 4096:
+                    self._power.clear()
+                if n.gain_db is None:
+                    c = np.abs(cascade_response([n], self.f, self.fs)) ** 2
+                else:  # the exact digital magnitude, in closed form
+                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs) / 10.0)
+                self._power[n] = c
+            p = p * c
+        return p
+
+    def tonal_db(self, cuts, rest_power: np.ndarray | None = None) -> float:
+        """Tonal cost of ``cuts`` (times the cascade whose power is ``rest_power``, if given)."""
+        p = self.power(cuts)
+        if rest_power is not None:
+            p = p * rest_power
+        return float(-10.0 * math.log10(np.dot(self.w, p)))
+
+    def __call__(self, cuts, margin_db: float, rest_power: np.ndarray | None = None) -> float:
+        t = self.tonal_db(cuts, rest_power)
+        over = 0.0 if self.share == math.inf else max(0.0, t - self.share * (margin_db - self.m0))
+        return margin_db - TONAL_TIE_BREAK * t - 10.0 * over
+
+
+#: How many of the best-scored cascades at the chosen budget the search starts from.
+POLISH_STARTS = 2
+
+def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: float,
+            relocate: bool = True) -> tuple[list[Notch], float]:
+    """Pattern search around each cut (centre, depth, width), keeping every step that scores better.
+
+    A fourth move takes a cut away from where it is and puts it, at a few depths and widths, on
+    the crossing that limits the loop now (a cut that has become nearly useless finds new work).
+
+    Each candidate is judged on the whole planning grid with the other cuts in the loop, so the
+    phase the cuts add (which moves the crossings) is accounted for exactly. Widths stay between
+    ``min_bw_oct`` and the 1/3-octave cap, depths within :data:`PLAN_MAX_DEPTH_DB`.
+    """
+    cuts = list(cuts)
+
+    def margin(views, cand):
+        worst = math.inf
+        for lp, view in zip(loops, views):
+            m = view.margin(cand)
+            if m >= view.ceiling_db:  # the candidate lifted the loop past the view: judge it whole
+                m = lp.margin(view.L * lp.cut(cand))[0]
+            worst = min(worst, m)
+        return worst
+
+    m_best = _worst_margin(loops, cuts, score.fs)[0]
+    best = score(cuts, m_best)
+    scale = 1.0
+    for _ in range(passes):
+        improved = False
+        # each loop without cut i is H·(cuts before i, as the pass left them)·(cuts after i): the
+        # products after i are taken once per pass, those before i grow as the pass goes
+        after = []
+        for lp in loops:
+            acc = [np.ones(lp.H.size, lp.H.dtype)]
+            for n in reversed(cuts[1:]):
+                acc.append(acc[-1] * lp.cut(n))
+            after.append(acc[::-1])  # after[k][i] = product of the cuts after i
+        before = [lp.H for lp in loops]
+        for i in range(len(cuts)):
+            c = cuts[i]
+            rest = cuts[:i] + cuts[i + 1 :]
+            others = [_View(lp, b * a[i], m_best + POLISH_VIEW_DB) for lp, b, a in zip(loops, before, after)]
+            rest_power = score.power(rest)
+            f_lim = math.nan
+            if relocate and scale == 1.0:  # where the loop is limited now, with every cut in
+                m_now = []
+                for lp, view in zip(loops, others):
+                    mv = view.margin_at(c)
+                    m_now.append(mv if mv[0] < view.ceiling_db else lp.margin(view.L * lp.cut(c)))
+                f_lim = min(m_now)[1]
+            for kind in range(4):
+                bw, g = c.bandwidth_oct, (-PLAN_MAX_DEPTH_DB if c.gain_db is None else c.gain_db)
+                if kind == 3:  # move the cut to where the loop is limited now
+                    if not math.isfinite(f_lim):
+                        continue
+                    cands = [Notch(f_lim, d, q_from_bandwidth_oct(b)) for d in RELOCATE_DEPTHS_DB
+                             for b in RELOCATE_WIDTHS_OCT]
+                elif kind == 0:
+                    cands = [Notch(c.freq_hz * 2.0 ** (u * scale * bw), g, c.q) for u in SEARCH_CENTRE_STEPS]
+                elif kind == 1:
+                    cands = [Notch(c.freq_hz, float(min(-0.1, max(-PLAN_MAX_DEPTH_DB, g + d * scale))), c.q)
+                             for d in SEARCH_DEPTH_STEPS_DB]
+                else:
+                    cands = [Notch(c.freq_hz, g, q_from_bandwidth_oct(
+                        float(min(MAX_NOTCH_BANDWIDTH_OCT, max(min_bw_oct, bw * 2.0 ** (w * scale))))))
+                        for w in SEARCH_WIDTH_STEPS]
+                for cand in cands:
+                    if cand == c or cand.freq_hz >= 0.49 * score.fs:
+                        continue
+                    m = margin(others, cand)
+                    j = score([cand], m, rest_power)
+                    if j > best + 0.005:
+                        best, m_best, c, improved = j, m, cand, True
+            cuts[i] = c
+            before = [b * lp.cut(c) for lp, b in zip(loops, before)]
+        if not improved:
+            scale *= 0.5
+            if scale < 0.2:
+                break
+    return cuts, m_best
+
+
+def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
+    """Drop cuts of ~0 dB; merge overlapping cuts when that costs no margin."""
+    cuts = [n for n in cuts if n.gain_db is None or n.gain_db < -0.05]
+    merged = merge_notches(cuts, fs)
+    if len(merged) < len(cuts) and _worst_margin(loops, merged, fs)[0] >= _worst_margin(loops, cuts, fs)[0] - 0.05:
+        return merged
+    return cuts
+
+
+def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting):
+    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops)."""
+    m0_grid = _worst_margin(loops, [], fs)[0]
+    planned: list[Notch] = []
+    planned_margin = float("nan")
+    reason = None
+    if budget == 0:
+        reason = "no cuts allowed (max_notches = 0)"
+    elif not math.isfinite(m0_grid):
+        reason = "the loop never crosses the positive real axis in the band: nothing to cut"
+    elif target is not None and m0_grid >= target:
+        reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
+    else:
+        planner = _Planner(fs, drift)
+        score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
+        plans = {0: ([], m0_grid)}
+        starts: dict[int, list] = {0: [[]]}
+        # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
+        # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
+        # At each budget the covering plan and the simple ring-outs compete on the score: the
+        # margin, less any tonal cost beyond its share of the gain.
+        greedy = _greedy_prefixes(loops, budget, fs)
+        for b in range(1, budget + 1):
+            cuts, _, _ = _plan_cuts(loops, b, planner, fs)
+            options = [_tidy(loops, cuts, fs)] + [_tidy(loops, g_cuts, fs) for g_cuts, _ in greedy[b]]
+            scored = []
+            for c in options:
+                m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
+                scored.append((score(c, m_c), m_c, c))
+            scored.sort(key=lambda t: -t[0])
+            j_b, m_b, cuts = scored[0]
+            prev = plans[max(plans)]
+            if j_b < score(prev[0], prev[1]):  # more budget never has to do worse
+                cuts, m_b = prev
+                scored.insert(0, (score(prev[0], prev[1]), prev[1], prev[0]))
+            plans[b] = (cuts, m_b)
+            starts[b] = [c for _, _, c in scored[:POLISH_STARTS]]
+            if target is not None and m_b >= target:
+                break
+        gains = {b: plans[b][1] - m0_grid for b in plans}
+        chosen = 0  # grow the plan while each step up pays min_gain per extra cut over the last one kept
+        for b in sorted(plans)[1:]:
+            if gains[b] - gains[chosen] >= min_gain * (b - chosen) - 1e-9:
+                chosen = b
+        planned, planned_margin = plans[chosen]
+        if polish and planned:
+            # one pass of the search from each of the best few starts at that budget, then the
+            # search carried on from the best of them
+            best = None
+            for start in starts[chosen]:
+                if start:
+                    c, m_c = _polish(loops, start, score, 1, min(PLAN_BANDWIDTHS_OCT))
+                    if best is None or score(c, m_c) > score(best[0], best[1]):
+                        best = (c, m_c)
+            if best is not None:
+                c, _ = _polish(loops, best[0], score, polish, min(PLAN_BANDWIDTHS_OCT))
+                c = _tidy(loops, c, fs)
+                m_c = _worst_margin(loops, c, fs)[0]
+                if score(c, m_c) >= score(planned, planned_margin):
+                    planned, planned_margin = c, m_c
+        n_used = len(planned)
+        if target is not None and planned_margin >= target:
+            reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
+        elif chosen < max(plans):
+            top = max(plans)
+            reason = (
+                f"more cuts would buy less than {min_gain:g} dB per notch ({chosen} cut(s) buy "
+                f"{gains[chosen]:.2f} dB; the best plan with {top} buys {gains[top]:.2f} dB)"
+            )
+        elif n_used < budget and chosen == budget:
+            reason = f"budget of {budget} cut(s) spent ({n_used} after merging cuts that overlap)"
+        elif chosen == budget:
+            reason = f"budget spent ({budget} cut(s))"
+        else:
+            reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
+
+    return planned, planned_margin, reason, m0_grid

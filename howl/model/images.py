@@ -1,0 +1,804 @@
+"""Image-source impulse responses for shoebox rooms, and loop IRs of a rig from geometry.
+
+The engine follows the image method of Allen & Berkley [1]: the field of a
+point source in a rectangular room with rigid-ish walls is the free field of
+the source plus its mirror images in the six walls, each image weakened by the
+reflection factors of the walls its path meets. Everything is vectorised over
+images (numpy; no Python loop per image):
+
+* **Images.** For integer indices (kx, ky, kz) with |kx|+|ky|+|kz| ≤ max_order
+  the image coordinate along an axis of length L is ``k·L + s`` for even k and
+  ``(k+1)·L − s`` for odd k; an image of index k has met the far wall
+  ⌈k/2⌉ times and the near wall ⌊k/2⌋ times (k ≥ 0; mirrored for k < 0) [1].
+* **Walls.** Each surface reflects with pressure amplitude ``sqrt(1 − α)`` in
+  each octave band (α: the material's energy absorption coefficient). An
+  image's band gain is the product over surfaces of ``sqrt(1−α_s)**n_s``,
+  computed for all images at once as ``exp(hits @ log_reflection)``.
+* **Air.** ``exp(−m·d/2)`` in amplitude per band, m the power attenuation
+  coefficient of ISO 9613-1 [2] from :func:`howl.room.air_power_attenuation_m_inv`.
+* **Directivity.** The loudspeaker's gain toward each image's *departure*
+  direction (the direction of the ray as it left the real source: the image →
+  mic vector with each mirrored axis flipped back) and the mic's gain toward
+  each *arrival* direction (mic → image), per band.
+* **Placement.** Each image is a windowed-sinc (Kaiser) band-limited
+  fractional delay, normalised to unit DC gain, so arrival times are not
+  rounded to samples (no comb artefacts from rounding).
+* **Band synthesis.** Per-band impulse trains are combined in the frequency
+  domain with zero-phase weights that form a partition of unity on a
+  log-frequency axis (raised-cosine crossovers between adjacent octave
+  centres, held flat below the lowest and above the highest centre). An image
+  whose band gains are all equal therefore comes out as exactly its
+  fractional delay; otherwise its spectrum is the smooth interpolation of its
+  band gains with no added phase. (Where band gains differ, each arrival gets
+  a short symmetric spread in time, ≈ one period of the crossover frequency,
+  at about 1e-4 of its level; the IR is set to zero before the first
+  arrival's fractional-delay filter, so the loop stays causal.)
+* **Late tail.** Beyond the order used, the image set is incomplete. From the
+  transition time (the earliest arrival of the first missing order) the
+  images are faded out and Gaussian noise is faded in (equal-power
+  crossfade). Its mean-square envelope per band is the classical diffuse
+  decay ``e(t) ∝ exp(−13.82·t/T)`` with T the room's RT60 in that band, and
+  its total level is the Hopkins–Stryker reverberant energy 4/R (R the room
+  constant) [3], weighted by the loudspeaker's power (1/Q relative to on
+  axis) and the mic's random-energy efficiency, both integrated numerically
+  over the sphere from the gain functions given. So the tail's decay and
+  energy are the room model's (:func:`howl.room.room_acoustics`).
+
+Normalisation: an omni source and mic at distance d give a direct path of
+amplitude ``1/(4π·d)`` (the free-field Green's function, as in [1]); the IR is
+sampled so that its DTFT is the transfer function (no 1/fs factor).
+
+References
+----------
+.. [1] J. B. Allen and D. A. Berkley, "Image method for efficiently simulating
+       small-room acoustics", J. Acoust. Soc. Am. 65(4):943–950, 1979.
+.. [2] ISO 9613-1:1993, Acoustics — Attenuation of sound during propagation
+       outdoors — Part 1: Calculation of the absorption of sound by the atmosphere.
+.. [3] H. F. Hopkins and N. R. Stryker, "A proposed loudness-efficiency rating
+       for loudspeakers and the determination of system power requirements for
+       enclosures", Proc. IRE 36(3):315–335, 1948 (reverberant term 4/R).
+.. [4] H. Kuttruff, *Room Acoustics*, 5th ed., Spon 2009, ch. 4–5 (diffuse
+       decay, image density; from memory).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from howl import validate as V
+from howl.errors import InputError
+from howl.model.rig import OCTAVE_BANDS_HZ, SHOEBOX_SURFACES, Mic, Rig, Room, Speaker
+from howl.units import speed_of_sound_m_s
+
+GainFunction = Callable[[np.ndarray, np.ndarray], np.ndarray]
+
+#: Largest image set one IR may use (memory: about 1 kB per image during synthesis).
+MAX_IMAGES = 3_000_000
+
+#: Energy decay rate for a reverberation time T: 60 dB in T seconds → k = 6·ln(10)/T.
+_DECAY_LN = 6.0 * math.log(10.0)
+
+
+@dataclass(frozen=True)
+class ImageSet:
+    """Image sources of one source in a shoebox room (all arrays over images).
+
+    ``positions_m`` (N, 3); ``order`` (N,) total number of reflections;
+    ``hits`` (N, 6) reflections per surface in :data:`howl.rig.SHOEBOX_SURFACES`
+    order; ``mirror_sign`` (N, 3) ±1: −1 where the image is mirrored an odd
+    number of times along that axis.
+    """
+
+    positions_m: np.ndarray
+    order: np.ndarray
+    hits: np.ndarray
+    mirror_sign: np.ndarray
+
+
+@dataclass(frozen=True)
+class ImageSourceInfo:
+    """What an IR was made of (for reports and tests)."""
+
+    n_images: int
+    max_order: int
+    transition_time_s: float | None  # images faded out / tail faded in here (None: no tail)
+    crossfade_s: float
+    bands_hz: np.ndarray
+    rt60_s: np.ndarray | None  # per band, the tail's decay
+    tail_energy: np.ndarray | None  # per band, expected Σh² of the tail (after the crossfade)
+    reverberant_energy: np.ndarray | None  # per band, the model's total 4/R reverberant energy (see module doc)
+    speed_of_sound_m_s: float
+
+
+# ---------------------------------------------------------------------------
+# images
+# ---------------------------------------------------------------------------
+
+
+def _index_triples(max_order: int, *, exact: bool = False) -> np.ndarray:
+    """All integer (kx, ky, kz) with |kx|+|ky|+|kz| ≤ max_order (or == max_order if ``exact``)."""
+    n = int(max_order)
+    k = np.arange(-n, n + 1)
+    kx, ky = np.meshgrid(k, k, indexing="ij")
+    kx = kx.ravel()
+    ky = ky.ravel()
+    rest = n - np.abs(kx) - np.abs(ky)
+    keep = rest >= 0
+    kx, ky, rest = kx[keep], ky[keep], rest[keep]
+    if exact:
+        # kz = ±rest (one value when rest == 0)
+        counts = np.where(rest == 0, 1, 2)
+        kx_r = np.repeat(kx, counts)
+        ky_r = np.repeat(ky, counts)
+        rest_r = np.repeat(rest, counts)
+        first = np.ones(kx_r.size, dtype=bool)
+        starts = np.cumsum(counts) - counts
+        second = np.zeros(kx_r.size, dtype=bool)
+        second[starts[counts == 2] + 1] = True
+        first[second] = False
+        kz = np.where(second, -rest_r, rest_r)
+        return np.stack([kx_r, ky_r, kz], axis=1)
+    counts = 2 * rest + 1
+    kx_r = np.repeat(kx, counts)
+    ky_r = np.repeat(ky, counts)
+    starts = np.cumsum(counts) - counts
+    within = np.arange(kx_r.size) - np.repeat(starts, counts)
+    kz = within - np.repeat(rest, counts)
+    return np.stack([kx_r, ky_r, kz], axis=1)
+
+
+def _images_from_indices(dims: np.ndarray, src: np.ndarray, k: np.ndarray) -> ImageSet:
+    odd = (k % 2) != 0
+    pos = np.where(odd, (k + 1) * dims - src, k * dims + src)
+    ka = np.abs(k)
+    hi = np.where(k >= 0, (ka + 1) // 2, ka // 2)  # hits on the wall at coordinate L
+    lo = np.where(k >= 0, ka // 2, (ka + 1) // 2)  # hits on the wall at coordinate 0
+    # SHOEBOX_SURFACES order: floor (z=0), ceiling (z=H), wall_x0, wall_x1, wall_y0, wall_y1
+    hits = np.stack([lo[:, 2], hi[:, 2], lo[:, 0], hi[:, 0], lo[:, 1], hi[:, 1]], axis=1)
+    return ImageSet(
+        positions_m=pos.astype(float),
+        order=ka.sum(axis=1),
+        hits=hits,
+        mirror_sign=np.where(odd, -1.0, 1.0),
+    )
+
+
+def shoebox_images(dimensions_m, source_position_m, max_order: int) -> ImageSet:
+    """Image sources up to ``max_order`` reflections (Allen & Berkley 1979, §II)."""
+    dims = np.asarray(dimensions_m, dtype=float)
+    src = np.asarray(source_position_m, dtype=float)
+    return _images_from_indices(dims, src, _index_triples(max_order))
+
+
+def _first_missing_arrival_s(dims, src, mic, max_order: int, c: float) -> float:
+    """Earliest arrival among the images of order max_order+1 (where the image set stops being complete)."""
+    k = _index_triples(max_order + 1, exact=True)
+    imgs = _images_from_indices(np.asarray(dims, float), np.asarray(src, float), k)
+    d = np.linalg.norm(imgs.positions_m - np.asarray(mic, float), axis=1)
+    return float(d.min() / c)
+
+
+# ---------------------------------------------------------------------------
+# room data per band
+# ---------------------------------------------------------------------------
+
+
+def _surface_absorption(room: Room) -> np.ndarray:
+    """(6, B) energy absorption per shoebox surface and octave band."""
+    by_name = {s.name: s for s in room.surfaces}
+    rows = []
+    for name in SHOEBOX_SURFACES:
+        s = by_name.get(name)
+        if s is None:
+            raise InputError(
+                f"shoebox room needs a surface named {name!r} for image sources, found "
+                f"{', '.join(by_name) or 'none'}",
+                file=room.source_file,
+                key="surfaces",
+            )
+        a = np.asarray(s.absorption, dtype=float)
+        if a.shape != (len(OCTAVE_BANDS_HZ),):
+            raise InputError(
+                f"must hold {len(OCTAVE_BANDS_HZ)} octave-band values, got {a.size}",
+                file=room.source_file,
+                key=f"surfaces.{name}.absorption",
+            )
+        rows.append(a)
+    alpha = np.stack(rows)
+    if np.any(alpha < 0) or np.any(alpha >= 1):
+        raise InputError("absorption must be in [0, 1)", file=room.source_file, key="surfaces")
+    return alpha
+
+
+def _check_inside(room: Room, p, name: str) -> np.ndarray:
+    p = np.asarray(p, dtype=float)
+    if p.shape != (3,) or not np.all(np.isfinite(p)):
+        raise InputError(f"must be 3 finite coordinates in m, got {p.tolist()}", key=name)
+    dims = np.asarray(room.dimensions_m, dtype=float)
+    if np.any(p <= 0) or np.any(p >= dims):
+        raise InputError(
+            f"must lie inside the room (0, 0, 0)–({dims[0]:g}, {dims[1]:g}, {dims[2]:g}) m, got "
+            f"({p[0]:g}, {p[1]:g}, {p[2]:g}) m",
+            file=room.source_file,
+            key=name,
+        )
+    return p
+
+
+def _require_shoebox(room: Room) -> None:
+    if not room.is_shoebox:
+        raise InputError(
+            "image sources need a shoebox room (dimensions_m with six surfaces); "
+            f"room {room.name!r} has a free shape: use the statistical method",
+            file=room.source_file,
+            key="dimensions_m",
+        )
+
+
+def _air_m_inv(room: Room, freq_hz: np.ndarray) -> np.ndarray:
+    from howl.model.room import air_power_attenuation_m_inv
+
+    return np.asarray(
+        air_power_attenuation_m_inv(freq_hz, room.temperature_c, room.humidity_pct), dtype=float
+    )
+
+
+def _sphere_directions(n: int = 1024) -> np.ndarray:
+    """Nearly uniform unit vectors (Fibonacci lattice), for averages over the sphere."""
+    i = np.arange(n) + 0.5
+    z = 1.0 - 2.0 * i / n
+    phi = math.pi * (1.0 + math.sqrt(5.0)) * i
+    r = np.sqrt(1.0 - z * z)
+    return np.stack([r * np.cos(phi), r * np.sin(phi), z], axis=1)
+
+
+def diffuse_power_factor(gain: GainFunction | None, freq_hz: np.ndarray) -> np.ndarray:
+    """Mean of |gain|² over all directions per band (1/Q for a speaker on axis 1; REE for a mic)."""
+    freq_hz = np.asarray(freq_hz, dtype=float)
+    if gain is None:
+        return np.ones(freq_hz.shape)
+    g = np.asarray(gain(_sphere_directions(), freq_hz), dtype=float)
+    return np.mean(g * g, axis=0)
+
+
+# ---------------------------------------------------------------------------
+# synthesis helpers
+# ---------------------------------------------------------------------------
+
+
+def band_weights(freq_hz: np.ndarray, centres_hz) -> np.ndarray:
+    """(B, F) zero-phase band weights summing to one at every frequency.
+
+    Raised-cosine crossovers on log2 frequency between adjacent centres; the
+    first band holds down to DC and the last up to Nyquist.
+    """
+    f = np.asarray(freq_hz, dtype=float)
+    c = np.log2(np.asarray(centres_hz, dtype=float))
+    lf = np.log2(np.maximum(f, 1e-12))
+    w = np.zeros((c.size, f.size))
+    if c.size == 1:
+        w[0] = 1.0
+        return w
+    pos = np.interp(lf, c, np.arange(c.size))  # fractional band index, clamped at the ends
+    lower = np.clip(np.floor(pos).astype(int), 0, c.size - 2)
+    t = pos - lower
+    up = np.sin(0.5 * math.pi * t) ** 2
+    cols = np.arange(f.size)
+    w[lower, cols] = 1.0 - up
+    w[lower + 1, cols] += up
+    return w
+
+
+def _fractional_delay_kernel(delay_samples: np.ndarray, half_width: int):
+    """Blackman-windowed sinc taps for each delay: (start index (N,), taps (N, 2·half_width)).
+
+    Unit DC gain per delay (the taps are normalised to sum to one), cut-off at
+    Nyquist (windowed-sinc fractional delay: T. I. Laakso et al., "Splitting the
+    unit delay", IEEE Signal Processing Magazine 13(1):30–60, 1996, §III).
+
+    The trigonometric terms are split by the angle-sum identities into one
+    sine/cosine per image and a fixed table per tap, so the cost per tap is a
+    few multiply-adds.
+    """
+    base = np.floor(delay_samples).astype(np.int64)
+    frac = np.maximum(delay_samples - base, 1e-9)  # (N,), in (0, 1); never exactly 0 (sinc's 0/0)
+    offs = np.arange(-half_width + 1, half_width + 1, dtype=float)  # tap positions o
+    x = offs[None, :] - frac[:, None]  # tap position minus the exact delay
+    # sinc(o − f) = −(−1)^o · sin(πf) / (π (o − f))
+    sign = np.where(offs.astype(np.int64) % 2 == 0, -1.0, 1.0)
+    taps = (np.sin(math.pi * frac)[:, None] * sign[None, :]) / (math.pi * x)
+    # Blackman window on (o − f)/half_width: cos(a − b) = cos a cos b + sin a sin b
+    a = (math.pi / half_width) * offs
+    bf = (math.pi / half_width) * frac
+    cw = np.cos(a)[None, :] * np.cos(bf)[:, None] + np.sin(a)[None, :] * np.sin(bf)[:, None]
+    taps *= 0.34 + cw * (0.5 + 0.16 * cw)  # 0.42 + 0.5·cos θ + 0.08·cos 2θ, with cos 2θ = 2cos²θ − 1
+    taps /= taps.sum(axis=1, keepdims=True)
+    return base - half_width + 1, taps
+
+
+def _scatter(start: np.ndarray, taps: np.ndarray, amp: np.ndarray, n_fft: int) -> np.ndarray:
+    """Σ over images of taps ⊗ band amplitudes, placed at their sample indices: (B, n_fft).
+
+    One sparse (n_fft × N) placement matrix times the dense (N × B) band
+    amplitudes; indices wrap circularly (the FFT frame is padded for that).
+    """
+    from scipy import sparse
+
+    n_img, width = taps.shape
+    if n_img == 0:
+        return np.zeros((amp.shape[1], n_fft))
+    idx = (start[:, None] + np.arange(width)[None, :]) % n_fft
+    mat = sparse.csc_matrix(
+        (taps.ravel(), idx.ravel(), np.arange(0, n_img * width + 1, width)), shape=(n_fft, n_img)
+    )
+    return np.ascontiguousarray((mat @ amp).T)
+
+
+# ---------------------------------------------------------------------------
+# the image-source IR
+# ---------------------------------------------------------------------------
+
+
+def _tail_model(room: Room, bands_hz: np.ndarray):
+    """RT60 (Eyring with air) and room constant per band from the room model."""
+    from howl.model.room import room_acoustics
+
+    ra = room_acoustics(room, np.asarray(bands_hz, dtype=float))
+    rt60 = np.asarray(ra.rt60_eyring_s, dtype=float)
+    r_m2 = np.asarray(ra.room_constant_m2, dtype=float)
+    return rt60, r_m2
+
+
+def image_source_ir(
+    room: Room,
+    source_position_m,
+    mic_position_m,
+    sample_rate_hz: float,
+    *,
+    max_order: int | None = None,
+    source_gain: GainFunction | None = None,
+    mic_gain: GainFunction | None = None,
+    tail: bool = True,
+    seed: int = 0,
+    duration_s: float | None = None,
+    speed_of_sound_m_s: float | None = None,
+    air_absorption: bool = True,
+    half_width: int = 16,
+    crossfade_s: float | None = None,
+    delay_s: float = 0.0,
+    return_info: bool = False,
+):
+    """Impulse response from a point source to a point receiver in a shoebox room.
+
+    Parameters
+    ----------
+    room : howl.rig.Room
+        A shoebox room (``dimensions_m`` and six surfaces with octave-band absorption).
+    source_position_m, mic_position_m : 3 numbers, inside the room.
+    sample_rate_hz : float
+    max_order : int, optional
+        Highest number of reflections of an image. Default: 6 with a tail, 20 without.
+    source_gain : callable(directions (N, 3), freq_hz (B,)) -> (N, B), optional
+        Amplitude toward unit vectors pointing from the source outward (1 on axis). None: omni.
+    mic_gain : callable(directions (N, 3), freq_hz (B,)) -> (N, B), optional
+        Amplitude toward unit vectors pointing from the mic toward the sound's origin. None: omni.
+    tail : bool
+        Add the statistical late tail after the transition time (needs the room model).
+    seed : int
+        Seed of the tail's noise.
+    duration_s : float, optional
+        IR length. Default: up to the −60 dB point of the slowest band's decay
+        (with tail) or the last image's arrival (without).
+    speed_of_sound_m_s : float, optional
+        Default: from the room's temperature (:func:`howl.units.speed_of_sound_m_s`).
+    air_absorption : bool
+        Apply ISO 9613-1 air absorption to each image path.
+    half_width : int
+        Fractional-delay filter half length in samples (taps = 2·half_width).
+    crossfade_s : float, optional
+        Length of the image→tail crossfade ending at the transition time.
+        Default: a quarter of the transition time, at most 20 ms.
+    delay_s : float
+        Electronic delay before the source (a delay line): shifts the whole IR.
+    return_info : bool
+        Also return an :class:`ImageSourceInfo`.
+
+    Returns
+    -------
+    ir : ndarray (n,), float64; sample 0 is the emission time.
+    """
+    _require_shoebox(room)
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    src = _check_inside(room, source_position_m, "source_position_m")
+    mic = _check_inside(room, mic_position_m, "mic_position_m")
+    if max_order is None:
+        max_order = 6 if tail else 20
+    max_order = V.integer(max_order, "max_order", 0, 150)
+    n_img = (2 * max_order + 1) * (2 * max_order**2 + 2 * max_order + 3) // 3  # |kx|+|ky|+|kz| ≤ N
+    if n_img > MAX_IMAGES:
+        raise InputError(
+            f"gives {n_img} image sources; expected at most {MAX_IMAGES} (lower the order: the statistical "
+            "tail takes over the late part)", key="max_order",
+        )
+    half_width = V.integer(half_width, "half_width", 2, 512)
+    c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
+        speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"
+    )
+    dims = np.asarray(room.dimensions_m, dtype=float)
+    bands = np.asarray(OCTAVE_BANDS_HZ, dtype=float)
+    alpha = _surface_absorption(room)  # (6, B)
+
+    imgs = shoebox_images(dims, src, max_order)
+    vec = imgs.positions_m - mic  # mic → image
+    dist = np.linalg.norm(vec, axis=1)
+    dist = np.maximum(dist, 1e-6)
+    arrive_dir = vec / dist[:, None]
+    depart_dir = (-arrive_dir) * imgs.mirror_sign  # as the ray left the real source
+
+    # band amplitudes (N, B)
+    log_refl = 0.5 * np.log1p(-alpha)  # (6, B)
+    log_amp = imgs.hits.astype(float) @ log_refl
+    if air_absorption:
+        m = _air_m_inv(room, bands)
+        log_amp -= 0.5 * dist[:, None] * m[None, :]
+    amp = np.exp(log_amp) / (4.0 * math.pi * dist[:, None])
+    if source_gain is not None:
+        amp *= np.asarray(source_gain(depart_dir, bands), dtype=float)
+    if mic_gain is not None:
+        amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
+
+    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
+    t_arr = dist / c + delay_s
+    rt60 = r_m2 = None
+    t_x = None
+    tail_energy = rev_energy = None
+    if tail:
+        rt60, r_m2 = _tail_model(room, bands)
+        t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
+        if crossfade_s is None:
+            crossfade_s = min(0.25 * t_x, 0.02)
+        crossfade_s = max(float(crossfade_s), 2.0 / fs)
+        t_fade0 = t_x - crossfade_s
+        u = np.clip((t_arr - t_fade0) / crossfade_s, 0.0, 1.0)
+        w_img = np.cos(0.5 * math.pi * u)
+        keep = w_img > 0
+        amp = amp[keep] * w_img[keep, None]
+        t_arr = t_arr[keep]
+    else:
+        crossfade_s = 0.0 if crossfade_s is None else float(crossfade_s)
+
+    delay = t_arr * fs
+    if duration_s is None:
+        if tail:
+            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
+        else:
+            n = int(math.ceil(delay.max())) + half_width + 1
+    else:
+        n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
+    n = max(n, 1)
+
+    # zero-phase band synthesis in one FFT frame with room for the kernels' spread
+    pad = int(math.ceil(0.1 * fs)) + 2 * half_width
+    n_fft = _good_fft_size(n + pad)
+    freq = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    weights = band_weights(freq, bands)  # (B, F)
+
+    inside = delay < n + half_width
+    start, taps = _fractional_delay_kernel(delay[inside], half_width)
+    amp_in = amp[inside]
+    flat = bool(amp_in.size == 0 or np.all(amp_in == amp_in[:, :1]))
+    if flat and not tail:  # equal band gains: the band weights sum to one, skip the band synthesis
+        ir = _scatter(start, taps, amp_in[:, :1], n_fft)[0, :n].copy()
+        return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+    chan = _scatter(start, taps, amp_in, n_fft)  # (B, n_fft)
+
+    if tail:
+        k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
+        dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
+        rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
+        t = np.arange(n_fft) / fs
+        fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
+        fade_in[n:] = 0.0
+        # mean-square per sample so that Σ over all n (from emission) equals rev_energy
+        t_e = np.maximum(t - delay_s, 0.0)  # time since emission
+        var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
+        env = np.sqrt(var) * fade_in[None, :]
+        tail_energy = np.sum(env**2, axis=1)
+        rng = np.random.default_rng(seed)
+        noise = rng.standard_normal(n_fft)
+        chan += env * noise[None, :]
+
+    from scipy import fft as sfft
+
+    spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
+    ir = sfft.irfft(spec, n_fft)[:n]
+    # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
+    # crossovers leak ~1e-4 of the peak ahead of an arrival whose band gains differ)
+    if delay.size:
+        ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
+    return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+
+
+def _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c):
+    if not return_info:
+        return ir
+    info = ImageSourceInfo(
+        n_images=int(imgs.order.size),
+        max_order=int(max_order),
+        transition_time_s=t_x,
+        crossfade_s=float(crossfade_s),
+        bands_hz=bands,
+        rt60_s=rt60,
+        tail_energy=tail_energy,
+        reverberant_energy=rev_energy,
+        speed_of_sound_m_s=float(c),
+    )
+    return ir, info
+
+
+def _good_fft_size(n: int) -> int:
+    from scipy.fft import next_fast_len
+
+    return int(next_fast_len(int(n), real=True))
+
+
+def speed_of_sound_m_s_default(room: Room) -> float:
+    """The speed of sound at the room's temperature."""
+    return float(speed_of_sound_m_s(room.temperature_c))
+
+
+# ---------------------------------------------------------------------------
+# loops of a rig
+# ---------------------------------------------------------------------------
+
+#: Amplitude factor from the Green's-function scale 1/(4π·r) to "pressure at r per pressure at 1 m" (1/r).
+_GREEN_TO_1M = 4.0 * math.pi
+
+
+def _speaker_gain_fn(speaker: Speaker) -> GainFunction:
+    from howl.model.directivity import speaker_gain
+
+    return lambda d, f: speaker_gain(speaker, d, f)
+
+
+def _mic_gain_fn(mic: Mic) -> GainFunction:
+    from howl.model.directivity import mic_gain
+
+    return lambda d, f: mic_gain(mic, d, f)
+
+
+def _electrical_gain(speaker: Speaker, mic: Mic) -> float:
+    """Volts at the mic output per volt at the speaker input, per unit Green's-function amplitude.
+
+    Speaker: on-axis SPL at 1 m for 1 V → p₁ = 20 µPa·10^(S/20) Pa/V; the image IR
+    is on the 1/(4πr) scale, so ×4π gives p₁/r. Mic: 10^(s/20) V/Pa (see :mod:`howl.rig`).
+    """
+    from howl.units import P_REF_PA
+
+    p1 = P_REF_PA * 10.0 ** (speaker.sensitivity_db_spl_1v_1m / 20.0)
+    m = 10.0 ** (mic.sensitivity_dbv_pa / 20.0)
+    return _GREEN_TO_1M * p1 * m
+
+
+def rig_loop_irs(
+    rig: Rig,
+    sample_rate_hz: float,
+    *,
+    max_order: int | None = None,
+    tail: bool = True,
+    seed: int = 0,
+    duration_s: float | None = None,
+    half_width: int = 16,
+):
+    """Loop IRs of every (speaker, mic) pair of ``rig`` from image sources, with the electrical gains.
+
+    ``irs[s, m]`` runs from loudspeaker s's input (volts) to mic m's output
+    (volts): speaker sensitivity × acoustic path (images with both
+    directivities, the speaker's delay line) × mic sensitivity. ``mix_lin[s, m]``
+    is the voltage gain from mic m's output to speaker s's input
+    (:func:`howl.plan.mix_matrix`; muted mics 0). The loop of the whole rig is
+    then L(f)[i, j] = Σ_s H[s, i](f)·mix[s, j] (:func:`howl.loop.mimo_margin`).
+
+    Each pair's tail gets its own noise (seeded from ``(seed, s, m)``).
+
+    Returns
+    -------
+    irs : ndarray (n_spk, n_mic, n)
+    mix_lin : ndarray (n_spk, n_mic)
+    """
+    from howl.model.plan import mix_matrix
+
+    _require_shoebox(rig.room)
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    mix = mix_matrix(rig)
+    parts = []
+    for si, spk in enumerate(rig.speakers):
+        row = []
+        for mi, mic in enumerate(rig.mics):
+            try:
+                h = image_source_ir(
+                    rig.room, spk.position_m, mic.position_m, fs, max_order=max_order,
+                    source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic), tail=tail,
+                    seed=np.random.SeedSequence([int(seed), si, mi]).generate_state(1)[0],
+                    duration_s=duration_s, half_width=half_width, delay_s=spk.delay_s,
+                )
+            except InputError as exc:
+                key = exc.key or ""
+                who = f"speakers.{spk.name}.position_m" if key.startswith("source") else (
+                    f"mics.{mic.name}.position_m" if key.startswith("mic") else key)
+                raise InputError(exc.message, file=rig.source_file or exc.file, key=who) from None
+            row.append(h * _electrical_gain(spk, mic))
+        parts.append(row)
+    n = max(h.size for row in parts for h in row)
+    irs = np.zeros((len(rig.speakers), len(rig.mics), n))
+    for si, row in enumerate(parts):
+        for mi, h in enumerate(row):
+            irs[si, mi, : h.size] = h
+    return irs, mix
+
+
+def mic_loop_ir(rig: Rig, mic_name: str, sample_rate_hz: float, *, max_order: int | None = None, seed: int = 0,
+                tail: bool = True) -> np.ndarray:
+    """The loop IR of one mic alone (the other mics closed): Σ_s H[s, m]·mix[s, m] from image sources."""
+    from howl.model.plan import mix_matrix
+
+    names = [m.name for m in rig.mics]
+    if mic_name not in names:
+        raise InputError(f"must name a mic of the rig ({', '.join(names)}), got {mic_name!r}", key="mic")
+    k = names.index(mic_name)
+    mic = rig.mics[k]
+    mix = mix_matrix(rig)
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    parts = []
+    for si, spk in enumerate(rig.speakers):
+        if mix[si, k] == 0:
+            continue
+        h = image_source_ir(rig.room, spk.position_m, mic.position_m, fs, max_order=max_order,
+                            source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic), tail=tail,
+                            seed=np.random.SeedSequence([int(seed), si, k]).generate_state(1)[0],
+                            delay_s=spk.delay_s)
+        parts.append(h * (_electrical_gain(spk, mic) * mix[si, k]))
+    if not parts:
+        raise InputError(f"mic {mic_name!r} reaches no loudspeaker through the mixes", key="mixes")
+    out = np.zeros(max(p.size for p in parts))
+    for p in parts:
+        out[: p.size] += p
+    return out
+
+
+IMAGES_CAUTION = (
+    "Predicted exact howl frequencies depend on details the model lacks: it is an idealised shoebox with flat, "
+    "smooth walls, point sources and a statistically modelled late tail, while furniture, people, temperature "
+    "and the exact positions move the crossings. Treat the frequencies as examples of where the loop comes "
+    "closest to unity, and the statistical spread beside them as the range to expect."
+)
+
+
+def _fmt_hz(v) -> str:
+    return "—" if v is None or not np.isfinite(v) else f"{v:.0f} Hz"
+
+
+def _fmt_db(v) -> str:
+    return "—" if v is None or not np.isfinite(v) else f"{v:+.1f}"
+
+
+def plan_with_images(
+    rig: Rig,
+    *,
+    sample_rate_hz: float = 16000,
+    max_order: int | None = None,
+    seed: int = 0,
+    fraction: int = 3,
+    f_lo_hz: float = 100.0,
+    f_hi_hz: float = 10000.0,
+) -> dict:
+    """Phase-aware margins of a rig from image-source loop IRs, beside the statistical spread.
+
+    For each open, routed mic alone (the others closed): the Nyquist gain
+    margin of its loop Σ_s H[s, m]·mix[s, m], the howl frequency, the
+    phase-blind margin, the top risks, the loop gain per band; and the
+    statistical estimate of the same single-mic loop (band power, Schroeder
+    peak factor with its 10–90 % spread, from :mod:`howl.transfer` and
+    :func:`howl.plan.peak_factor_db`). For all open mics together: the
+    generalized Nyquist margin (:func:`howl.loop.mimo_margin`).
+
+    Returns a JSON-ready dict; ``lines`` holds the terminal text.
+    """
+    from howl.bands import band_centres_hz, band_edges_hz
+    from howl.loop.nyquist import band_loop_gain_db, loop_response, mimo_margin, nyquist_margin
+    from howl.model.plan import peak_factor_db
+    from howl.model.room import room_acoustics
+    from howl.model.transfer import statistical_transfer
+
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    irs, mix = rig_loop_irs(rig, fs, max_order=max_order, seed=seed)
+    active = [k for k, m in enumerate(rig.mics) if m.open and np.any(mix[:, k] > 0)]
+    if not active:
+        raise InputError("no open mic reaches any loudspeaker through the mixes; nothing to analyse", key="mixes")
+    hi = min(float(f_hi_hz), 0.45 * fs)
+    band = (float(f_lo_hz), hi)
+    centres = np.asarray(band_centres_hz(fraction, f_lo_hz, hi), float)
+    lo_e, hi_e = band_edges_hz(centres, fraction)
+    bw = np.asarray(hi_e) - np.asarray(lo_e)
+    ac = room_acoustics(rig.room, centres)
+    tr = statistical_transfer(rig, centres, ac)
+    fsm = float(rig.fsm_db)
+
+    mics_out = []
+    lines = [
+        f"Image-source loops ({fs:g} Hz, shoebox {rig.room.dimensions_m[0]:g} × {rig.room.dimensions_m[1]:g} × "
+        f"{rig.room.dimensions_m[2]:g} m), each mic alone at the rig's settings:",
+        f"{'mic':<14}{'margin':>9}{'howl at':>12}{'|L| max':>9}{'statistical (10–90 %)':>26}",
+    ]
+    for k in active:
+        mic = rig.mics[k]
+        loop = np.einsum("sn,s->n", irs[:, k, :], mix[:, k])
+        res = nyquist_margin(loop, fs, band_hz=band, n_risks=5)
+        f, H = loop_response(loop, fs)
+        lg = band_loop_gain_db(f, H, centres, fraction)
+        # statistical single-mic loop: Σ_s |T|²·mix² per band, plus Schroeder's peak factor
+        p_dir = np.einsum("sf,s->f", tr.direct_power[:, k, :], mix[:, k] ** 2)
+        p_rev = np.einsum("sf,s->f", tr.reverberant_power[:, k, :], mix[:, k] ** 2)
+        kf = p_dir / np.maximum(p_rev, 1e-300)
+        pf, pf_lo, pf_hi = peak_factor_db(bw, tr.rt60_s, kf)
+        avg_db = 10.0 * np.log10(np.maximum(p_dir + p_rev, 1e-300))
+        stat = float(-np.max(avg_db + pf))
+        stat_lo, stat_hi = float(-np.max(avg_db + pf_hi)), float(-np.max(avg_db + pf_lo))
+        gm = float(res.gain_margin_db)
+        mics_out.append({
+            "name": mic.name,
+            "gain_margin_db": _json_num(gm),
+            "magnitude_margin_db": _json_num(res.magnitude_margin_db),
+            "howl_freq_hz": _json_num(res.howl_freq_hz, 1),
+            "howl_freqs_hz": [_json_num(x, 1) for x in res.howl_freqs_hz],
+            "max_channel_gain_db": _json_num(gm - fsm),
+            "risks": [{"freq_hz": _json_num(r.freq_hz, 1), "margin_db": _json_num(r.margin_db), "kind": r.kind}
+                      for r in res.risks],
+            "loop_gain_db": [_json_num(x) for x in lg],
+            "statistical_loop_gain_db": [_json_num(x) for x in avg_db],
+            "statistical_margin_db": _json_num(stat),
+            "statistical_spread_db": [_json_num(stat_lo), _json_num(stat_hi)],
+        })
+        lines.append(
+            f"{mic.name:<14}{_fmt_db(gm):>9}{_fmt_hz(res.howl_freq_hz):>12}{_fmt_db(res.magnitude_margin_db):>9}"
+            f"{_fmt_db(stat):>12} ({_fmt_db(stat_lo)} … {_fmt_db(stat_hi)})"
+        )
+    mm = mimo_margin(irs[:, active, :], mix[:, active], fs, band_hz=band)
+    worst = rig.mics[active[int(mm.worst_mic_index)]].name
+    system = {
+        "gain_margin_db": _json_num(mm.gain_margin_db),
+        "magnitude_margin_db": _json_num(mm.magnitude_margin_db),
+        "howl_freq_hz": _json_num(mm.howl_freq_hz, 1),
+        "worst_mic": worst,
+        "mics": [rig.mics[k].name for k in active],
+    }
+    lines.append(
+        f"all open mics together: margin {_fmt_db(mm.gain_margin_db)} dB, first howl near "
+        f"{_fmt_hz(mm.howl_freq_hz)}, most at fault: {worst}"
+    )
+    lines.append("margin: phase-aware (Nyquist) gain margin of the estimated loop; |L| max: phase-blind margin.")
+    lines.append("Caution: " + IMAGES_CAUTION)
+    return {
+        "method": "images",
+        "sample_rate_hz": fs,
+        "max_order": 6 if max_order is None else int(max_order),
+        "seed": int(seed),
+        "band_hz": [band[0], band[1]],
+        "bands_hz": [float(x) for x in centres],
+        "fraction": int(fraction),
+        "mics": mics_out,
+        "system": system,
+        "caution": IMAGES_CAUTION,
+        "lines": lines,
+    }
+
+
+def _json_num(x, nd: int = 2):
+    if x is None:
+        return None
+    v = float(x)
+    return round(v, nd) if math.isfinite(v) else None
