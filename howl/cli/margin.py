@@ -140,6 +140,9 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
         if exc.key and exc.key.startswith("band_hz"):
             raise InputError(exc.message, key="--band-hz") from None
         raise
+    outside = None
+    if band is not None:
+        outside = _outside_band_warning(h, fs, r, band_hz)
     f, H = loop_response(h, fs, n_fft=r.n_fft)
     H = H * from_db(r.gain_db)
     centres, bands_db = third_octave_loop_gain(f, H, r.band_hz)
@@ -171,9 +174,37 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
         ],
         "n_fft": r.n_fft,
         "dc_gain": r.dc_gain,
+        "outside_band_crossing": outside,
         "warnings": warns,
     }
     return report, (r, f, H)
+
+
+def _outside_band_warning(h, fs, r, band_hz) -> dict | None:
+    """Warn (HowlWarning) when the loop's worst crossing lies outside --band-hz and is worse than the band's.
+
+    Returns ``{"freq_hz", "gain_margin_db"}`` of that crossing for the JSON, or None.
+    """
+    import warnings
+
+    import numpy as np
+
+    from howl.errors import HowlWarning
+    from howl.loop import worst_crossing_outside_band
+
+    out = worst_crossing_outside_band(h, fs, r.band_hz, r.gain_margin_db, gain_db=r.gain_db)
+    if out is None:
+        return None
+    lo, hi = (float(x) for x in band_hz)
+    where = "DC (0 Hz)" if out.freq_hz == 0.0 else f"{out.freq_hz:.1f} Hz"
+    inside = ("it has no crossing" if not np.isfinite(r.gain_margin_db)
+              else f"its worst is {r.gain_margin_db:.2f} dB at {r.howl_freq_hz:.1f} Hz")
+    warnings.warn(
+        f"--band-hz {lo:g} {hi:g} leaves out a worse crossing: the loop crosses at {where} with a gain margin "
+        f"of {out.gain_margin_db:.2f} dB, outside the band ({inside}); it howls there first",
+        HowlWarning,
+    )
+    return {"freq_hz": out.freq_hz, "gain_margin_db": out.gain_margin_db}
 
 
 def _plot(path: Path, plot_data, title: str) -> None:

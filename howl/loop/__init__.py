@@ -15,6 +15,8 @@ _NAMES = {
     "third_octave_loop_gain": "nyquist",
     "check_ir": "nyquist",
     "ir_warnings": "nyquist",
+    "worst_crossing_outside_band": "_outside",
+    "OutsideCrossing": "_outside",
     "simulate_closed_loop": "simulate",
     "simulate_mimo": "simulate",
     "gain_schedule_db": "simulate",

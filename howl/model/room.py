@@ -142,7 +142,12 @@ def critical_distance_from_rt60_m(q, volume_m3, rt60_s, speed_of_sound_m_s=None)
     """Critical distance from the reverberation time: sqrt(Q·A/(16π)), A = 24·ln10·V/(c·T).
 
     ≈ 0.057·sqrt(Q·V/T) at c ≈ 343 m/s (Kuttruff [5]_, the "reverberation distance").
-    Uses the Sabine absorption area, so it is smaller than the room-constant form by sqrt(1−ᾱ).
+    A is the absorption area that Sabine's formula needs to give the T it is passed, whatever
+    formula produced that T. ``howl room`` passes Eyring's RT60 with air, so there A is the
+    equivalent area of the Eyring decay, A = −S·ln(1−ᾱ) + 4mV, not Sabine's S·ᾱ + 4mV. Against the
+    room-constant form sqrt(Q·R/(16π)), R = S·ᾱ′/(1−ᾱ′), the ratio is sqrt(A/R); without air
+    A/R = −(1−ᾱ)·ln(1−ᾱ)/ᾱ (≈ 1 − ᾱ/2 for small ᾱ), so this form is the smaller one and the two
+    agree in live rooms (small ᾱ) and part in absorbent ones (derived from the two definitions).
     """
     a = _LN10_24 * np.asarray(volume_m3, dtype=float) / (_c(speed_of_sound_m_s) * np.asarray(rt60_s, dtype=float))
     out = np.sqrt(np.asarray(q, dtype=float) * a / (16.0 * math.pi))

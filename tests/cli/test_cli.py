@@ -55,3 +55,18 @@ def test_version_is_printed():
     result = runner.invoke(app, ["--version"])
     assert result.exit_code == 0
     assert "howl" in result.output
+
+
+def test_the_distribution_has_a_name_of_its_own_and_installs_the_howl_command(repo):
+    # "howl" on PyPI is an unrelated project (version 0.1.2, 2021, a wake-word toolkit; seen with
+    # `pip download --no-deps howl` on 2026-12-04), so a user who installs by that name gets something
+    # else. Ours is "howl-gain" (`pip download --no-deps howl-gain` found no such distribution that day);
+    # the command stays `howl`.
+    import tomllib
+    from importlib.metadata import distribution
+
+    meta = tomllib.loads((repo / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+    assert meta["name"] == "howl-gain"
+    assert meta["scripts"] == {"howl": "howl.cli:main"}
+    scripts = {e.name: e.value for e in distribution("howl-gain").entry_points if e.group == "console_scripts"}
+    assert scripts == {"howl": "howl.cli:main"}

@@ -1,8 +1,8 @@
 """`howl listen` for real: a recording with a howl is played into the JACK loopback while
 `python -m howl listen --device 'loopback, JACK' --duration S --json` listens in another process.
 
-Needs jackd running with its loopback ports (server name from JACK_DEFAULT_SERVER, `howlci` in
-CI, see .ci/run). Skips without it, fails under CI (HOWL_REQUIRE_AUDIO_LOOPBACK).
+Needs jackd running with its loopback ports (server name from JACK_DEFAULT_SERVER, default
+`howlci`; .ci/run starts its own, `howlci<PID>`, and exports its name). Skips without it, fails under CI (HOWL_REQUIRE_AUDIO_LOOPBACK).
 The howl is a numpy tone of known frequency (exact by construction); the JACK loopback is
 bit-exact (verified in the project's loopback notes), so the 0.1 % target applies unchanged.
 """

@@ -220,3 +220,64 @@ def test_simulate_a_folder_loop_writes_one_channel_per_mic(tmp_path):
     assert np.allclose(y.T, ref, atol=1e-6)
     res = runner.invoke(app, ["simulate", str(folder), str(prog), "-o", str(out), "--rig", str(bundled_rig_path())])
     assert res.exit_code == 2 and "--program-mic" in res.stderr
+
+
+def _two_delay_crossing_hz(a, b, d1, d2, fs, lo, hi):
+    """Derived independently of howl: L(f) = a·e^{−jωd1} + b·e^{−jωd2}, ω = 2πf/fs; the crossings are
+    the roots of Im L = −a·sin(ωd1) − b·sin(ωd2) with Re L > 0, found by scipy.optimize.brentq on a
+    1 Hz scan; returns the one with the largest Re L in [lo, hi] as (freq_hz, Re L)."""
+    from scipy.optimize import brentq
+
+    def im(f):
+        w = 2 * np.pi * f / fs
+        return -a * np.sin(w * d1) - b * np.sin(w * d2)
+
+    def re(f):
+        w = 2 * np.pi * f / fs
+        return a * np.cos(w * d1) + b * np.cos(w * d2)
+
+    grid = np.arange(lo, hi + 1.0, 1.0)
+    roots = [brentq(im, x0, x1, xtol=1e-12) for x0, x1 in zip(grid[:-1], grid[1:]) if im(x0) * im(x1) < 0]
+    best = max((r for r in roots if re(r) > 0), key=re)
+    return best, re(best)
+
+
+def test_a_band_that_leaves_out_a_worse_crossing_warns_with_its_frequency_and_margin(tmp_path):
+    # A two-delay loop 0.5·z^−40 + 0.4·z^−41 at 8 kHz: at DC both paths add, L(0) = 0.9, so the gain margin
+    # there is −20·log10(0.9) = 0.9151 dB (derived); inside 100–3000 Hz the two never line up again (they
+    # would at fs·k with gcd(40, 41) = 1), so the band's worst crossing is lower, Re L = 0.8973 at 197.80 Hz
+    # (derived by root-finding, _two_delay_crossing_hz): 0.9411 dB. --band-hz 100 3000 must say so.
+    # Tolerances 1e-6: the WAV holds the taps as float32 (0.4 → 0.40000000596, 5e-7 dB).
+    fs = 8000
+    h = np.zeros(64)
+    h[40], h[41] = 0.5, 0.4
+    p = _wav(tmp_path / "two_delay.wav", h, fs)
+    f_in, re_in = _two_delay_crossing_hz(0.5, 0.4, 40, 41, fs, 100.0, 3000.0)
+    res = runner.invoke(app, ["margin", str(p), "--json", "--band-hz", "100", "3000"])
+    rep = _json(res)
+    assert rep["gain_margin_db"] == pytest.approx(-20 * np.log10(re_in), abs=1e-6)
+    assert rep["howl_freq_hz"] == pytest.approx(f_in, abs=1e-6)
+    out = rep["outside_band_crossing"]
+    assert out["freq_hz"] == 0.0
+    assert out["gain_margin_db"] == pytest.approx(-20 * np.log10(0.9), abs=1e-6)
+    assert out["gain_margin_db"] < rep["gain_margin_db"]
+    warning = [line for line in res.stderr.splitlines() if "--band-hz 100 3000" in line]
+    assert len(warning) == 1, res.stderr
+    assert "DC (0 Hz)" in warning[0] and "0.92 dB" in warning[0] and f"{rep['gain_margin_db']:.2f} dB" in warning[0]
+    # the text output carries the same warning; a band that holds DC, or no band, has nothing to warn about
+    res = runner.invoke(app, ["margin", str(p), "--band-hz", "100", "3000"])
+    assert res.exit_code == 0 and "leaves out a worse crossing" in res.stderr
+    for args in (["--band-hz", "0", "3000"], []):
+        res = runner.invoke(app, ["margin", str(p), "--json", *args])
+        assert _json(res)["outside_band_crossing"] is None
+        assert "leaves out" not in res.stderr
+
+
+def test_a_crossing_outside_the_band_that_is_not_worse_raises_no_warning(tmp_path):
+    # The inverting loop −0.5 z^−48 at 48 kHz: every crossing (500·(2n+1) Hz) has the same 6.0206 dB margin
+    # (derived); a band holding some of them leaves out only equal ones, and DC (L = −0.5) is no crossing.
+    p = _wav(tmp_path / "loop.wav", _delay_ir())
+    res = runner.invoke(app, ["margin", str(p), "--json", "--band-hz", "1000", "2000"])
+    rep = _json(res)
+    assert rep["gain_margin_db"] == pytest.approx(6.0206, abs=1e-4)
+    assert rep["outside_band_crossing"] is None and "leaves out" not in res.stderr

@@ -121,10 +121,11 @@ def test_bad_inputs_are_refused():
         simulate_closed_loop(np.zeros(10), np.zeros(10), 1000)
 
 
-from hypothesis import given, settings, strategies as st  # noqa: E402
+from hypothesis import given, seed, settings, strategies as st  # noqa: E402
 
 
-@settings(max_examples=25, deadline=None)
+@seed(19005)  # explicit seed (DEVELOPERS.md): every run draws the same 25 examples
+@settings(max_examples=25, deadline=None, database=None)
 @given(
     delay=st.integers(1, 70),
     extra=st.integers(0, 900),

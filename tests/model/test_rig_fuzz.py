@@ -1,7 +1,8 @@
 """Random and mutated rig and room files: every one either loads or raises InputError.
 
 Property test (hypothesis): the loader never lets another exception through (no KeyError,
-TypeError, ZeroDivisionError, RecursionError...), whatever the file holds.
+TypeError, ZeroDivisionError, RecursionError...), whatever the file holds. Seeds are explicit
+(``@seed`` on each test, no example database), so every run draws the same files.
 """
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ import copy
 import warnings
 
 import hypothesis.strategies as st
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, given, seed, settings
 
 from howl.errors import InputError
 from howl.model.rig import load_rig, load_room
@@ -20,7 +21,7 @@ from test_rig import RIG, ROOM, dumps_toml
 # filter_too_much: the nested-value strategy drops None leaves; on some seeds Hypothesis counts
 # that as too much filtering and fails the health check (seen with --hypothesis-seed=20)
 _QUIET = [HealthCheck.function_scoped_fixture, HealthCheck.too_slow, HealthCheck.filter_too_much]
-SETTINGS = settings(max_examples=200, deadline=None, suppress_health_check=_QUIET)
+SETTINGS = settings(max_examples=200, deadline=None, suppress_health_check=_QUIET, database=None)
 
 scalars = st.one_of(
     st.none(),
@@ -89,6 +90,7 @@ def _check(load, path):
             assert str(exc) and "\n" not in str(exc)
 
 
+@seed(19001)
 @SETTINGS
 @given(data=st.data())
 def test_mutated_rig_files_load_or_raise_input_error(tmp_path_factory, data):
@@ -101,6 +103,7 @@ def test_mutated_rig_files_load_or_raise_input_error(tmp_path_factory, data):
     _check(load_rig, p)
 
 
+@seed(19002)
 @SETTINGS
 @given(data=st.data())
 def test_garbled_rig_text_loads_or_raises_input_error(tmp_path_factory, data):
@@ -121,7 +124,8 @@ def test_garbled_rig_text_loads_or_raises_input_error(tmp_path_factory, data):
     _check(load_rig, p)
 
 
-@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET)
+@seed(19003)
+@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET, database=None)
 @given(doc=st.dictionaries(st.sampled_from(["name", "shoebox", "surfaces", "free_shape", "materials",
                                             "temperature_c", "humidity_pct", "x"]), values, max_size=6))
 def test_random_room_files_load_or_raise_input_error(tmp_path_factory, doc):
@@ -146,7 +150,8 @@ _VALUE_TEXT = st.one_of(
 )
 
 
-@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET)
+@seed(19004)
+@settings(max_examples=100, deadline=None, suppress_health_check=_QUIET, database=None)
 @given(edits=st.lists(st.tuples(_PATHS, _VALUE_TEXT), min_size=1, max_size=3))
 def test_random_what_if_edits_give_a_rig_or_an_input_error(tmp_path_factory, edits):
     folder = _folder(tmp_path_factory, "fuzz_whatif")

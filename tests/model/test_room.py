@@ -34,7 +34,11 @@ REPO = Path(__file__).resolve().parents[2]
 # Values computed by hand from the textbook formulas: Sabine and Eyring as in IEC 60050-801
 # (IEV 801-31-09) with 24·ln10 = 55.262; R = Sᾱ/(1−ᾱ) and Dc = sqrt(QR/16π) after
 # Hopkins & Stryker (Eargle, Electroacoustical Reference Data, ch. 17);
-# f_S = 2000·sqrt(T/V) (Schroeder 1996). Hand-computed [D].
+# f_S = 2000·sqrt(T/V) (Schroeder 1996). Derived by hand from those formulas:
+#   Sabine  T = 55.262·2400/(343·1160·0.25) = 132 629/99 470 = 1.3334 s
+#   Eyring  T = 55.262·2400/(343·1160·(−ln 0.75)) = 132 629/114 461 = 1.1587 s   (−ln 0.75 = 0.287682)
+#   R = 1160·0.25/0.75 = 386.667 m²;  Dc = sqrt(2·386.667/(16π)) = sqrt(15.385) = 3.9224 m
+#   f_S = 2000·sqrt(1.3334/2400) = 47.14 Hz;  4V/S = 9600/1160 = 8.2759 m
 V, S, ALPHA, C = 2400.0, 1160.0, 0.25, 343.0
 
 
@@ -59,6 +63,17 @@ def test_worked_example_critical_distance_from_rt60_is_the_hall_radius():
     assert d == pytest.approx(0.057 * math.sqrt(2 * V / t), rel=0.01)
     # the two forms differ by sqrt(1 − ᾱ) (same example)
     assert d / critical_distance_m(2.0, room_constant_m2(S, ALPHA)) == pytest.approx(math.sqrt(1 - ALPHA))
+
+
+def test_critical_distance_from_an_eyring_rt60_uses_the_eyring_area():
+    # What `howl room` does: it passes Eyring's RT60. Derived: A = 55.262·V/(c·T_E) and
+    # T_E = 55.262·V/(c·(−S·ln(1−ᾱ))), so A = −S·ln(1−ᾱ) = 1160·0.287682 = 333.711 m² and
+    # Dc = sqrt(2·333.711/(16π)) = 3.6439 m; against the room-constant form the ratio is
+    # sqrt(−(1−ᾱ)·ln(1−ᾱ)/ᾱ) = sqrt(0.75·0.287682/0.25) = 0.92900 (not sqrt(1−ᾱ) = 0.866).
+    t = eyring_rt60_s(V, S, ALPHA, speed_of_sound_m_s=C)
+    d = critical_distance_from_rt60_m(2.0, V, t, speed_of_sound_m_s=C)
+    assert d == pytest.approx(3.6439, abs=1e-4)
+    assert d / critical_distance_m(2.0, room_constant_m2(S, ALPHA)) == pytest.approx(0.92900, abs=1e-5)
 
 
 def test_worked_example_schroeder_frequency():
