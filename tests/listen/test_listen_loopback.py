@@ -3,8 +3,10 @@
 
 Needs jackd running with its loopback ports (server name from JACK_DEFAULT_SERVER, default
 `howlci`; .ci/run starts its own, `howlci<PID>`, and exports its name). Skips without it, fails under CI (HOWL_REQUIRE_AUDIO_LOOPBACK).
-The howl is a numpy tone of known frequency (exact by construction); the JACK loopback is
-bit-exact (verified in the project's loopback notes), so the 0.1 % target applies unchanged.
+The howl is a numpy tone of known frequency (exact by construction); the JACK loopback returns
+the float32 samples unchanged (tests/measure/test_measure_loopback.py::
+test_portaudio_backend_round_trip_is_bit_exact_and_leaves_defaults_alone checks it on the same
+server), so the 0.1 % target applies unchanged.
 """
 
 from __future__ import annotations

@@ -128,8 +128,9 @@ def test_target_margin_stops_the_ring_out_early(room):
 
 
 def test_useless_cuts_are_not_spent():
-    # a pure inverting 50 ms delay loop: crossings every 20 Hz, all of the same height (MSG = -20 log 0.5
-    # = 6.021 dB, methods check value [D] for -0.5 z^-D); six 1/3-octave cuts cannot cover 5 octaves,
+    # a pure inverting 50 ms delay loop: crossings every 20 Hz, all of the same height (derived: L = −0.5·e^{−jωD}
+    # is real and positive where ωD = π(2n+1), i.e. f = (2n+1)·fs/(2D) = 10, 30, 50, ... Hz for D = 400 at 8 kHz,
+    # each with L = 0.5, so MSG = −20·log10 0.5 = 6.021 dB); six 1/3-octave cuts cannot cover 5 octaves,
     # so no cut buys anything and none is spent.
     fs = 8000
     ir = np.zeros(800)
@@ -142,7 +143,8 @@ def test_useless_cuts_are_not_spent():
 
 
 def test_sparse_equal_crossings_are_all_cut():
-    # -0.5 z^-8 at 8 kHz: crossings only at 500, 1500, 2500, 3500 Hz (500·(2n+1), methods [D]);
+    # -0.5 z^-8 at 8 kHz: crossings only at 500, 1500, 2500, 3500 Hz (derived: −e^{−jω8} = 1 where 8ω = π(2n+1),
+    # f = (2n+1)·8000/16 = 500·(2n+1) Hz);
     # four cuts can take every one of them down, so the margin rises well above 6.02 dB.
     fs = 8000
     ir = np.zeros(400)

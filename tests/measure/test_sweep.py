@@ -48,7 +48,9 @@ def test_sweep_matches_pyfar_exponential_sweep_sample_by_sample():
 
 
 def test_sweep_rate_constant_and_inverse_envelope_match_farina_check_values(sweep_2s):
-    # Farina 2000: L = T/ln(f2/f1); check values [D] fs 48 kHz, T 2 s, 50 Hz–20 kHz
+    # Farina 2000 (AES preprint 5093): L = T/ln(f2/f1). Derived for fs 48 kHz, T 2 s, 50 Hz–20 kHz:
+    # L = 2/ln 400 = 2/5.991465 = 0.333808 s; octaves per second log2(400)/2 = 8.643856/2 = 4.3219;
+    # the k-th harmonic arrives L·ln k early: 0.333808·ln 2 = 0.231378 s, ·ln 3 = 0.366726 s
     assert sweep_2s.rate_s == pytest.approx(0.333808, abs=1e-6)
     assert sweep_2s.octaves_per_s == pytest.approx(4.3219, abs=1e-4)
     # the inverse filter's envelope falls by 20·log10(f2/f1) = 52.04 dB from start to end
@@ -79,7 +81,9 @@ def test_harmonic_peaks_land_where_farina_and_pyfar_put_them(sweep_2s):
     pf = _pyfar()
     x = sweep_2s.signal
     y = _poly(x)
-    # check values [D] (methods notes, Farina 2000): full linear convolution with the inverse filter
+    # Derived (Farina 2000): in the full linear convolution of an N-sample sweep with its inverse filter the
+    # linear IR sits at N − 1 = 95 999 (N = 2 s · 48 kHz), and the 2nd harmonic L·ln 2·fs = 11 106.2 samples
+    # earlier, at 95 999 − 11 106.2 = 84 892.8 → sample 84 893
     from scipy.signal import fftconvolve
 
     full = fftconvolve(y, sweep_2s.inverse)

@@ -170,7 +170,8 @@ def test_axisymmetric_power_cardioid_has_q_2n_plus_1_and_180_degrees_is_a_cardio
     # (Eargle Table 6-1), so a 180° × 180° coverage without a floor has Q = 3.
     assert float(d.coverage_exponent(180.0)) == pytest.approx(1.0, abs=1e-12)
     n = d.coverage_exponent(90.0)
-    assert float(n) == pytest.approx(4.377, abs=0.001)  # methods check value [D] for BW 90°
+    # derived: −6 dB (p = ½) at ±45°: n = ln ½ / ln((1 + cos 45°)/2) = −0.693147/−0.158352 = 4.3774
+    assert float(n) == pytest.approx(4.377, abs=0.001)
     e2 = 10 ** (d.SPEAKER_REAR_FLOOR_DB / 10)
     nf = float(d.coverage_exponent(90.0, with_floor=True))
     q0 = 2 * nf + 1
