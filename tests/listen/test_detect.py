@@ -612,7 +612,7 @@ def test_stable_loop_with_program_raises_no_alarm(seed):
 
 
 @pytest.mark.parametrize("seed, margin_db", [(0, 1.0), (1, 2.0), (2, 3.0)])
-def test_ring_down_after_a_click_estimates_the_margin_within_1_db(seed, margin_db):
+def test_ring_down_after_a_click_estimates_the_margin_within_15_percent(seed, margin_db):
     from howl.loop.simulate import simulate_closed_loop
 
     fs = 16000
@@ -631,13 +631,18 @@ def test_ring_down_after_a_click_estimates_the_margin_within_1_db(seed, margin_d
         est = D.margin_from_decay_db(e.decay_db_per_s, tau)
         print(f"seed {seed}: ringing {e.freq_hz:.1f} Hz, decay {e.decay_db_per_s:.1f} dB/s, "
               f"margin est {est:.2f} dB, true {true_margin:.2f} dB")
-        assert abs(est - true_margin) < 1.0
+        # Tolerance 0.05 dB + 15 % of the true margin: the estimate is first order in the margin,
+        # m = decay·τ_eff with τ_eff = (τ_g² + a²)/τ_g from the IR (the closed-loop pole's shift to first order,
+        # howl.listen loop_delay_s); the second-order shift, which grows with m, and a decay fitted on a ring-down
+        # that neighbouring modes share make it read low; on the loops of test_detect it read 0-0.29 dB
+        # low at 1-3 dB (up to 12 %) while this tolerance was set. (was ±1 dB)
+        assert abs(est - true_margin) <= 0.05 + 0.15 * true_margin
     # the worst crossing (0 dB + margin) is among them
     assert any(abs(e.freq_hz / cross_f[np.argmin(cross_m)] - 1) < 1e-3 for e in ring)
 
 
 @pytest.mark.parametrize("seed, margin_db", [(35, 1.5), (31, 1.0), (30, 1.5), (37, 1.0)])
-def test_low_ring_down_in_a_reverberant_room_estimates_the_margin_within_1_db(seed, margin_db):
+def test_low_ring_down_in_a_reverberant_room_estimates_the_margin_within_15_percent(seed, margin_db):
     # Low loop modes (100-210 Hz) of the reverberant low_room_loop rooms ring together at
     # near-harmonic ratios; the low lane resolves them. Their loop delay is the loop's group
     # delay there (80-250 ms), not the direct path: loop_delay_s from the IR at the event.
@@ -658,7 +663,7 @@ def test_low_ring_down_in_a_reverberant_room_estimates_the_margin_within_1_db(se
         est = D.margin_from_decay_db(e.decay_db_per_s, D.loop_delay_s(h, fs, e.freq_hz))
         print(f"low loop {seed}: ringing {e.freq_hz:.2f} Hz, decay {e.decay_db_per_s:.1f} dB/s, "
               f"margin est {est:.2f} dB, true {true_margin:.2f} dB")
-        assert abs(est - true_margin) < 1.0
+        assert abs(est - true_margin) <= 0.05 + 0.15 * true_margin  # as in the test above (was ±1 dB)
     # the worst crossing is among them
     assert any(abs(e.freq_hz / cross_f[np.argmin(cross_m)] - 1) < 1e-3 for e in ring)
 

@@ -216,7 +216,13 @@ def test_listen_loop_with_a_loop_ir_gives_each_ringing_its_margin(tmp_path):
     f_worst = cross_f[np.argmin(cross_m)]
     rings = [e for e in res.report["events"] if e["kind"] == "ringing" and abs(e["freq_hz"] / f_worst - 1) < 1e-3]
     assert rings, res.report["events"]
-    assert abs(rings[0]["margin_db"] - 1.5) < 1.0  # truth: scipy.signal.freqz crossing, then the fader
+    # truth: the scipy.signal.freqz crossing (0 dB, test_detect.low_room_loop), then the fader 1.5 dB.
+    # Tolerance 0.05 dB + 15 % of the true margin: the estimate is first order in the margin,
+    # m = decay·τ_eff with τ_eff = (τ_g² + a²)/τ_g from the IR (the closed-loop pole's shift to first order,
+    # howl.listen loop_delay_s); the second-order shift, which grows with m, and a decay fitted on a ring-down
+    # that neighbouring modes share make it read low; on the loops of test_detect it read 0-0.29 dB
+    # low at 1-3 dB (up to 12 %) while this tolerance was set. The old ±1 dB let 0.5-2.5 dB pass for 1.5.
+    assert abs(rings[0]["margin_db"] - 1.5) <= 0.05 + 0.15 * 1.5, rings[0]["margin_db"]
     assert _margin_text(rings[0]).endswith("dB from howling") and not _margin_text(rings[0]).startswith("~")
     logged = [json.loads(s) for s in log.read_text(encoding="utf-8").splitlines()]
     assert any(abs(e["freq_hz"] / f_worst - 1) < 1e-3 and e["margin_db"] is not None for e in logged)

@@ -128,7 +128,13 @@ def test_scan_with_a_measured_loop_ir_gives_each_ringing_its_margin(tmp_path):
     assert ring, rep["events"]
     e = min(ring, key=lambda e: abs(e["freq_hz"] - cross_f[np.argmin(cross_m)]))
     assert abs(e["freq_hz"] / cross_f[np.argmin(cross_m)] - 1) < 1e-3
-    assert abs(e["margin_db"] - 1.5) < 1.0  # truth: the scipy.signal.freqz crossing, then the fader
+    # truth: the scipy.signal.freqz crossing (0 dB at 100.7 Hz, test_detect.low_room_loop), then the fader 1.5 dB.
+    # Tolerance 0.05 dB + 15 % of the true margin: the estimate is first order in the margin,
+    # m = decay·τ_eff with τ_eff = (τ_g² + a²)/τ_g from the IR (the closed-loop pole's shift to first order,
+    # howl.listen loop_delay_s); the second-order shift, which grows with m, and a decay fitted on a ring-down
+    # that neighbouring modes share make it read low; on the loops of test_detect it read 0-0.29 dB
+    # low at 1-3 dB (up to 12 %) while this tolerance was set. The old ±1 dB let 0.5-2.5 dB pass for 1.5.
+    assert abs(e["margin_db"] - 1.5) <= 0.05 + 0.15 * 1.5, e["margin_db"]
     assert e["loop_delay_ms"] > 100.0
     # without the IR the margin assumed from 20 ms is far smaller (and its cut deeper)
     res = runner.invoke(app, ["scan", str(rec), "--json"])

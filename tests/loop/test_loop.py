@@ -276,9 +276,12 @@ def test_predicted_margin_separates_decay_from_growth_in_the_simulated_loop(room
     assert change[-0.3] < -3.0  # decays
     assert change[0.3] > 3.0  # grows
     assert f_sim == pytest.approx(r.howl_freq_hz, rel=1e-3)
-    # the growth over 3 s matches the predicted rate at 0.3 dB past the edge (first-order theory)
+    # the growth over 3 s matches the predicted rate at 0.3 dB past the edge (first-order theory: the pole moves
+    # by 0.3·τ_g/(τ_g² + a²) dB/s, howl.loop.nyquist.ring_decay_rate_db_per_s). Tolerance 3 %: the first-order
+    # shift neglects the second-order one, and the 3 s energy window also holds the neighbouring modes; over
+    # these 8 loops the simulated growth was 0.2-1.6 % off the prediction when this was set (it was 25 %).
     rate_at_03 = r.ring_decay_db_per_s * 0.3 / r.gain_margin_db
-    assert change[0.3] / 3.0 == pytest.approx(abs(rate_at_03), rel=0.25)
+    assert change[0.3] / 3.0 == pytest.approx(abs(rate_at_03), rel=0.03)
 
 
 def test_phase_aware_margin_is_never_below_the_phase_blind_one_and_risks_list_the_howl_worst_first():

@@ -108,9 +108,17 @@ def test_images_map_agrees_with_the_statistical_map_in_the_reverberant_field():
     img = margin_map(rig, "lectern", method="images", sample_rate_hz=4000.0, max_order=2, **kw)
     assert img.margin_db.shape == stat.margin_db.shape == (2, 2)
     assert np.all(np.isfinite(img.margin_db))
-    # the image loop's band peaks are one realisation of the statistics the planner's spread describes
+    # the image loop's band peaks are one realisation of the statistics the planner's spread describes: its
+    # 10-90 % range [lo, hi] (width w) holds one point in 80 % of rooms. Tolerance derived from that same
+    # distribution, the largest of N exponential |H|² samples, P(max ≤ x) = (1 − e^(−x))^N: its 1 % and 99 %
+    # quantiles lie within 0.6·w (in dB) of the 10 % and 90 % ones for N = 10 .. 10⁴ (e.g. N = 10: 1.99,
+    # 6.59 dB at 10/90 %, −0.01, 8.39 dB at 1/99 %; N = 10⁴: 9.23, 10.59 → 8.86, 11.40 dB), so each point
+    # lies in [lo − 0.6·w, hi + 0.6·w] with about 98 % probability (about ±1.1 dB beyond the spread here,
+    # where the old ±3 dB allowed 6-8 dB in all).
     lo, hi = stat.margin_spread_db[..., 0], stat.margin_spread_db[..., 1]
-    assert np.all(img.margin_db > lo - 3.0) and np.all(img.margin_db < hi + 3.0)
+    w = hi - lo
+    assert np.all(w > 0)
+    assert np.all(img.margin_db >= lo - 0.6 * w) and np.all(img.margin_db <= hi + 0.6 * w), (img.margin_db, lo, hi)
     # and the best spot gets a phase-aware margin and a howl frequency, with the caution beside it
     assert img.best["gain_margin_db"] >= img.best["magnitude_margin_db"] - 1e-6
     assert 100.0 <= img.best["howl_freq_hz"] <= 1800.0
