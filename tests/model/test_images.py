@@ -272,11 +272,16 @@ def test_tail_decays_at_the_room_models_rt60_in_every_band():
 
 
 def test_reverberant_energy_matches_hopkins_stryker_4_over_r():
-    """Far from the source, Σ h² without the direct path ≈ (1/4π)·4/R = 1/(πR) per band.
+    """Far from the source, Σ h² without the direct path ≈ (1/4π)·4/R = 1/(πR) per band, less Barron's distance term.
 
     Hopkins & Stryker (1948): reverberant mean-square pressure ∝ 4/R beside the
     direct Q/(4πr²); on howl's Green's-function scale 1/(4πr) the direct energy is
-    1/(16π²r²), so the reverberant energy is 1/(πR).
+    1/(16π²r²), so the classical reverberant energy is 1/(πR). Barron & Lee's revised
+    theory (JASA 84(2), 1988; from memory) refines it: the reflected sound reaching a
+    listener at r left the source at least r/c earlier, by when a diffuse field of
+    decay time T has lost 13.82·r/(c·T) nepers, so the reflected energy is
+    (4/A)/(4π)·e^(−13.82·r/(c·T)) with A = 24·ln10·V/(c·T) (derived here from the
+    Sabine form of their classical term; their 0.04 r/T is 13.82/c at c ≈ 345 m/s).
     """
     from howl.model.room import room_acoustics
 
@@ -284,22 +289,31 @@ def test_reverberant_energy_matches_hopkins_stryker_4_over_r():
     alpha = (0.1, 0.12, 0.15, 0.18, 0.2, 0.25, 0.3)
     room = shoebox(dims, alpha)
     src, mic = (3.0, 4.0, 1.6), (9.5, 6.5, 1.5)
-    h, info = image_source_ir(room, src, mic, FS, max_order=4, seed=3, return_info=True, air_absorption=False)
     d = math.dist(src, mic)
     f = np.fft.rfftfreq(1 << 16, 1 / FS)
-    H = np.fft.rfft(h, 1 << 16)
     direct = 1 / (4 * math.pi * d)
     ra = room_acoustics(room, np.asarray(OCTAVE_BANDS_HZ))
-    err_db = []
-    for i, centre in enumerate(OCTAVE_BANDS_HZ[1:-1], start=1):
-        sel = (f > centre / 2**0.5) & (f < centre * 2**0.5)
-        rev = np.mean(np.abs(H[sel]) ** 2) - direct**2  # direct and reverberant add in power on average
-        err_db.append(10 * np.log10(rev * math.pi * ra.room_constant_m2[i]))
-    # One octave of one response scatters by about ±1 dB (Schroeder's statistics), and the
-    # complete image sum of a shoebox with α = 0.1–0.3 lies 0.2–1.0 dB under 4/R (summed here
-    # to order 120 while writing this test): each band within 2.5 dB, the mean within 1.5 dB.
-    assert np.all(np.abs(err_db) < 2.5), err_db
-    assert abs(np.mean(err_db)) < 1.5, err_db
+    c = ra.speed_of_sound_m_s
+    # eight tails (seeds 3-10), their band energies averaged: the tail's seed-to-seed scatter of one octave
+    # (0.06 dB at 4 kHz to 0.7 dB at 250 Hz, one standard deviation over these seeds) falls by √8
+    rev = np.zeros(5)
+    for seed in range(3, 11):
+        H = np.fft.rfft(image_source_ir(room, src, mic, FS, max_order=4, seed=seed, air_absorption=False), 1 << 16)
+        for k, centre in enumerate(OCTAVE_BANDS_HZ[1:-1]):
+            sel = (f > centre / 2**0.5) & (f < centre * 2**0.5)
+            rev[k] += (np.mean(np.abs(H[sel]) ** 2) - direct**2) / 8  # direct and reverberant add in power
+    t = ra.rt60_eyring_s[1:-1]
+    barron = (4 * c * t / (24 * math.log(10) * room.volume_m3)) / (4 * math.pi) * np.exp(-13.82 * d / (c * t))
+    classical = 1 / (math.pi * ra.room_constant_m2[1:-1])
+    err_db = 10 * np.log10(rev / barron)
+    # Barron's fit to measured halls scatters by about ±1 dB (from memory), and the image model's early
+    # reflections are a shoebox's, not a diffuse field's: each band within 1 dB of it (here −0.8 to +0.1 dB),
+    # the five bands' mean within 0.5 dB (here −0.4 dB). The old check, ±2.5 dB against 4/R, allowed a
+    # factor of 1.8 in energy.
+    assert np.all(np.abs(err_db) <= 1.0), err_db
+    assert abs(np.mean(err_db)) <= 0.5, err_db
+    # and below the classical 4/R level in every band, as the distance term says (0.8-1.9 dB here)
+    assert np.all(rev < classical), 10 * np.log10(rev / classical)
 
 
 def test_tail_is_reproducible_with_its_seed():
@@ -423,7 +437,15 @@ def test_statistical_planner_and_image_loop_agree_within_2_db_in_the_diffuse_fie
     irs, mix = rig_loop_irs(rig, FS, max_order=5, seed=11)
     f, H = loop_response(irs[0, 0] * mix[0, 0], FS)
     img_db = band_loop_gain_db(f, H, plan.bands_hz, 1)
+    # A consistency check between two of howl's models (each checked against outside references elsewhere:
+    # the statistical transfer against the Handbook's equations, the image IRs against pyroomacoustics).
+    # Over the four octaves they agree within 0.5 dB on average (here +0.06 dB). A single band may differ by
+    # up to 2 dB: the octave average of one response scatters by only ~0.2 dB here (B·T ≈ 600 samples), but
+    # the coherent early reflections are outside the statistical model (the floor bounce is 0.61 m longer
+    # than the direct path, a comb of 563 Hz period that an octave does not average out): at 1 kHz the image
+    # loop lies 1.6-1.8 dB above the statistical one for seeds 11-14 (seen while writing this comment).
     np.testing.assert_allclose(img_db, stat_db, atol=2.0)
+    assert abs(np.mean(img_db - stat_db)) <= 0.5, img_db - stat_db
 
 
 def test_plan_with_images_gives_phase_aware_margins_beside_the_statistical_spread():
@@ -438,6 +460,25 @@ def test_plan_with_images_gives_phase_aware_margins_beside_the_statistical_sprea
     # phase-aware margin is never below the phase-blind one (|Re L| ≤ |L|)
     assert m["gain_margin_db"] >= m["magnitude_margin_db"] - 1e-6
     assert out["band_hz"][0] <= m["howl_freq_hz"] <= out["band_hz"][1]
+    # The figures against scipy: the same loop (rig_loop_irs at the defaults plan_with_images uses: seed 0,
+    # its default order) through scipy.signal.freqz on a 2^20-point grid; the phase-aware margin is
+    # −20·log10 of the largest Re L where Im L changes sign with Re L > 0 (linear interpolation between grid
+    # points), the phase-blind one −20·log10 max|L|, both in the band. The grid step (0.004 Hz) puts the
+    # interpolation error far below the JSON's 0.01 dB rounding: tolerance 0.011 dB, 0.1 Hz.
+    from howl.model.images import rig_loop_irs
+
+    irs, mix = rig_loop_irs(rig, 8000, seed=0)
+    f_lo, f_hi = out["band_hz"]
+    w, H = signal.freqz(irs[0, 0] * mix[0, 0], worN=1 << 20, fs=8000)
+    sel = (w >= f_lo) & (w <= f_hi)
+    w, H = w[sel], H[sel]
+    i = np.flatnonzero((np.sign(H.imag[:-1]) != np.sign(H.imag[1:])) & ((H.real[:-1] > 0) | (H.real[1:] > 0)))
+    t = H.imag[i] / (H.imag[i] - H.imag[i + 1])
+    re_x = H.real[i] + t * (H.real[i + 1] - H.real[i])
+    j = int(np.argmax(re_x))
+    assert m["gain_margin_db"] == pytest.approx(-20 * np.log10(re_x[j]), abs=0.011)
+    assert m["howl_freq_hz"] == pytest.approx(w[i[j]] + t[j] * (w[i[j] + 1] - w[i[j]]), abs=0.1)
+    assert m["magnitude_margin_db"] == pytest.approx(-20 * np.log10(np.max(np.abs(H))), abs=0.011)
     lo, hi = m["statistical_spread_db"]
     assert lo <= m["statistical_margin_db"] <= hi
     assert m["max_channel_gain_db"] == pytest.approx(m["gain_margin_db"] - rig.fsm_db, abs=0.011)
