@@ -70,3 +70,21 @@ def test_the_distribution_has_a_name_of_its_own_and_installs_the_howl_command(re
     assert meta["scripts"] == {"howl": "howl.cli:main"}
     scripts = {e.name: e.value for e in distribution("howl-gain").entry_points if e.group == "console_scripts"}
     assert scripts == {"howl": "howl.cli:main"}
+
+
+def test_the_readme_tour_what_if_line_names_its_rig_and_runs(repo):
+    # The tour's --what-if line must say which rig it edits (the chapel has a 'lectern' mic, the black-box
+    # rig does not) and must run as printed.
+    import shlex
+
+    lines = [ln for ln in (repo / "README.md").read_text(encoding="utf-8").splitlines()
+             if ln.startswith("howl plan") and "--what-if" in ln]
+    assert len(lines) == 1, lines
+    args = shlex.split(lines[0].split("#")[0])[1:]
+    assert "examples/chapel_lectern.toml" in args
+    args = [str(repo / a) if a.endswith(".toml") else a for a in args]
+    res = runner.invoke(app, [*args, "--json"])
+    assert res.exit_code == 0, res.output
+    obj = json.loads(res.stdout)
+    assert any(m["name"] == "lectern" for m in obj["mics"])
+    assert obj["what_if"] == ["mics.lectern.pattern=supercardioid"]
