@@ -142,7 +142,10 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
         raise
     outside = None
     if band is not None:
-        outside = _outside_band_warning(h, fs, r, band_hz)
+        from howl.loop import worst_crossing_outside_band
+
+        out = worst_crossing_outside_band(h, fs, r.band_hz, r.gain_margin_db, gain_db=r.gain_db)
+        outside = _outside_band_warning(out, band_hz, r.gain_margin_db, r.howl_freq_hz)
     f, H = loop_response(h, fs, n_fft=r.n_fft)
     H = H * from_db(r.gain_db)
     centres, bands_db = third_octave_loop_gain(f, H, r.band_hz)
@@ -180,25 +183,22 @@ def siso_report(path: Path, *, gain_db=0.0, band_hz=None, channel=None, n_risks=
     return report, (r, f, H)
 
 
-def _outside_band_warning(h, fs, r, band_hz) -> dict | None:
-    """Warn (HowlWarning) when the loop's worst crossing lies outside --band-hz and is worse than the band's.
+def _outside_band_warning(out, band_hz, in_margin_db: float, in_freq_hz: float) -> dict | None:
+    """Warn (HowlWarning) when ``out``, the loop's worst crossing outside --band-hz (worse than the band's), is set.
 
     Returns ``{"freq_hz", "gain_margin_db"}`` of that crossing for the JSON, or None.
     """
+    import math
     import warnings
 
-    import numpy as np
-
     from howl.errors import HowlWarning
-    from howl.loop import worst_crossing_outside_band
 
-    out = worst_crossing_outside_band(h, fs, r.band_hz, r.gain_margin_db, gain_db=r.gain_db)
     if out is None:
         return None
     lo, hi = (float(x) for x in band_hz)
     where = "DC (0 Hz)" if out.freq_hz == 0.0 else f"{out.freq_hz:.1f} Hz"
-    inside = ("it has no crossing" if not np.isfinite(r.gain_margin_db)
-              else f"its worst is {r.gain_margin_db:.2f} dB at {r.howl_freq_hz:.1f} Hz")
+    inside = ("it has no crossing" if not math.isfinite(in_margin_db)
+              else f"its worst is {in_margin_db:.2f} dB at {in_freq_hz:.1f} Hz")
     warnings.warn(
         f"--band-hz {lo:g} {hi:g} leaves out a worse crossing: the loop crosses at {where} with a gain margin "
         f"of {out.gain_margin_db:.2f} dB, outside the band ({inside}); it howls there first",
@@ -322,8 +322,15 @@ def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None
         if exc.key and exc.key.startswith("band_hz"):
             raise InputError(exc.message, key="--band-hz") from None
         raise
+    outside = None
+    if band is not None:
+        from howl.loop import worst_mimo_crossing_outside_band
+
+        out = worst_mimo_crossing_outside_band(irs, mix * from_db(gain_db), fs0, r.band_hz, r.gain_margin_db)
+        outside = _outside_band_warning(out, band_hz, r.gain_margin_db, r.howl_freq_hz)
     finite = bool(np.isfinite(r.gain_margin_db))
     return {
+        "outside_band_crossing": outside,
         "files": [str(q) for _, _, q in pairs],
         "speakers": speakers,
         "mics": mics,

@@ -16,6 +16,7 @@ _NAMES = {
     "check_ir": "nyquist",
     "ir_warnings": "nyquist",
     "worst_crossing_outside_band": "_outside",
+    "worst_mimo_crossing_outside_band": "_outside",
     "OutsideCrossing": "_outside",
     "simulate_closed_loop": "simulate",
     "simulate_mimo": "simulate",

@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from howl.loop.nyquist import nyquist_margin
+from howl.loop.nyquist import mimo_margin, nyquist_margin
 
 #: Two margins closer than this (dB) count as equal (rounding of the exact DTFT refinement).
 EQUAL_DB = 1e-6
@@ -39,10 +39,20 @@ def worst_crossing_outside_band(
     band, no crossing outside can be worse than the band's.
     """
     full = nyquist_margin(ir, sample_rate_hz, gain_db=gain_db, filters_sos=filters_sos, n_risks=0)
-    if not math.isfinite(full.gain_margin_db):
+    return _outside(full.gain_margin_db, full.howl_freq_hz, band_hz, in_band_margin_db)
+
+
+def worst_mimo_crossing_outside_band(irs, mix_lin, sample_rate_hz, band_hz, in_band_margin_db: float):
+    """The same for a loop of several speakers and mics (generalized Nyquist, :func:`mimo_margin`)."""
+    full = mimo_margin(irs, mix_lin, sample_rate_hz)
+    return _outside(full.gain_margin_db, full.howl_freq_hz, band_hz, in_band_margin_db)
+
+
+def _outside(full_margin_db, full_freq_hz, band_hz, in_band_margin_db) -> OutsideCrossing | None:
+    if not math.isfinite(full_margin_db):
         return None
     lo, hi = float(band_hz[0]), float(band_hz[1])
-    f = float(full.howl_freq_hz)
-    if (f < lo or f > hi) and full.gain_margin_db < in_band_margin_db - EQUAL_DB:
-        return OutsideCrossing(f, float(full.gain_margin_db))
+    f = float(full_freq_hz)
+    if (f < lo or f > hi) and full_margin_db < in_band_margin_db - EQUAL_DB:
+        return OutsideCrossing(f, float(full_margin_db))
     return None

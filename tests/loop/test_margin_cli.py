@@ -281,3 +281,20 @@ def test_a_crossing_outside_the_band_that_is_not_worse_raises_no_warning(tmp_pat
     rep = _json(res)
     assert rep["gain_margin_db"] == pytest.approx(6.0206, abs=1e-4)
     assert rep["outside_band_crossing"] is None and "leaves out" not in res.stderr
+
+
+def test_a_folder_loop_with_a_band_that_leaves_out_a_worse_crossing_warns_too(tmp_path):
+    # The same two-delay loop as one speaker → mic pair in a folder (generalized Nyquist on a 1×1 loop, every
+    # send 0 dB without --rig): DC at −20·log10(0.9) = 0.9151 dB (derived) lies outside 100-3000 Hz.
+    h = np.zeros(64)
+    h[40], h[41] = 0.5, 0.4
+    folder = tmp_path / "irs"
+    folder.mkdir()
+    _wav(folder / "main__vox.wav", h, 8000)
+    res = runner.invoke(app, ["margin", str(folder), "--json", "--band-hz", "100", "3000"])
+    rep = _json(res)
+    out = rep["outside_band_crossing"]
+    assert out["freq_hz"] == 0.0 and out["gain_margin_db"] == pytest.approx(-20 * np.log10(0.9), abs=1e-6)
+    assert rep["gain_margin_db"] > out["gain_margin_db"]
+    assert "leaves out a worse crossing" in res.stderr and "DC (0 Hz)" in res.stderr
+    assert _json(runner.invoke(app, ["margin", str(folder), "--json"]))["outside_band_crossing"] is None
