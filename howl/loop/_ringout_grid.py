@@ -261,3 +261,68 @@ class _View:
         """(margin dB, its frequency) with ``notch`` added."""
         c = _cut_on_grid(notch, self.cos_w, self.inv_sin_w, self.fs)
         return _grid_margin_db(self.Lv * c, self.f, self.adj)
+
+
+# --------------------------------------------------------------------------- many candidates at once
+
+
+def _cuts_on_grid(notches, cos_w: np.ndarray, inv_sin_w: np.ndarray, fs: float) -> np.ndarray:
+    """:func:`_cut_on_grid` for many peaking cuts at once: shape (len(notches), n).
+
+    Row k is bit for bit what :func:`_cut_on_grid` gives for ``notches[k]`` (the scalars are
+    rounded to the grid's precision in the same places), so a search that judges its moves in
+    one array chooses exactly what it chose one move at a time.
+    """
+    from howl.loop.notch import _w0_alpha
+
+    k = len(notches)
+    dt = np.float32 if cos_w.dtype == np.float32 else float
+    cw0, pq, qq, qmp = (np.empty((k, 1), dt) for _ in range(4))
+    for i, n in enumerate(notches):
+        w0, alpha = _w0_alpha(n.freq_hz, n.q, fs)
+        if n.gain_db is None:
+            p, q = 0.0, alpha
+        else:
+            a = 10.0 ** (n.gain_db / 40.0)
+            p, q = alpha * a, alpha / a
+        cw0[i, 0], pq[i, 0], qq[i, 0], qmp[i, 0] = math.cos(w0), p * q, q * q, q - p
+    x = (cw0 - cos_w[None, :]) * inv_sin_w[None, :]
+    x2 = x * x
+    d = 1.0 / (qq + x2)
+    out = np.empty(x.shape, np.complex64 if dt is np.float32 else complex)
+    out.real = (pq + x2) * d
+    out.imag = x * (qmp * d)
+    return out
+
+
+def _grid_margins_rows(L: np.ndarray, f: np.ndarray, adj: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_grid_margin_db` of every row of ``L`` (K, n): (margins dB, frequencies Hz)."""
+    im, re = L.imag, L.real
+    neg = im < 0.0
+    flip = neg[:, :-1] != neg[:, 1:]
+    if adj is not None:
+        flip &= adj[None, :]
+    a, b = im[:, :-1], im[:, 1:]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = a / (a - b)
+        rc = re[:, :-1] + t * (re[:, 1:] - re[:, :-1])
+    rc = np.where(flip, rc, -np.inf)
+    k = np.argmax(rc, axis=1)
+    top = rc[np.arange(rc.shape[0]), k]
+    out_m = np.full(rc.shape[0], np.inf)
+    out_f = np.full(rc.shape[0], np.nan)
+    ok = top > 0.0
+    if np.any(ok):
+        rows = np.flatnonzero(ok)
+        j = k[rows]
+        out_m[rows] = [-20.0 * math.log10(float(x)) for x in top[rows]]
+        out_f[rows] = [float(f[jj]) + float(t[r, jj]) * (f[jj + 1] - f[jj]) for r, jj in zip(rows, j)]
+    return out_m, out_f
+
+
+def _view_margins(view: "_View", notches) -> tuple[np.ndarray, np.ndarray]:
+    """(margins, frequencies) on a view with each of ``notches`` added, in one array."""
+    if not notches:
+        return np.zeros(0), np.zeros(0)
+    c = _cuts_on_grid(notches, view.cos_w, view.inv_sin_w, view.fs)
+    return _grid_margins_rows(view.Lv[None, :] * c, view.f, view.adj)
