@@ -254,3 +254,63 @@ def desk_from_options(*, eq=None, max_bands=None, max_depth_db=None, max_q=None,
         graphic_q if graphic_q is not None else d.graphic_q,
     )
     return _check(new, OPTION_NAMES, None)
+
+
+# --------------------------------------------------------------------------- suggestions for one ringing frequency
+
+
+def suggest_on_desk(desk: Desk, freq_hz: float, needed_db: float, *, drift_oct: float = 0.0,
+                    min_bandwidth_oct: float = 0.0, sample_rate_hz: float | None = None) -> tuple[Notch, bool]:
+    """The shallowest cut the desk can make that takes ``needed_db`` off ``freq_hz`` wherever it
+    drifts (f·2^(±drift/2)): (cut, True), or the deepest it has there and False when none reaches.
+
+    Parametric: centred on the frequency, at least ``min_bandwidth_oct`` wide and no narrower than
+    the desk allows. Graphic: the nearest slider. Depths are tried on the desk's steps (0.1 dB when
+    it has none), judged on the analog prototype of the cookbook peaking filter [2]_.
+    """
+    import numpy as np
+
+    from howl.loop.notch import MAX_NOTCH_BANDWIDTH_OCT, analog_response
+
+    f0 = v.positive(freq_hz, "freq_hz", unit="Hz")
+    need = max(float(needed_db), 0.0)
+    if desk.graphic:
+        fs = math.inf if sample_rate_hz is None else float(sample_rate_hz)
+        centres = desk.centres_hz(fs) or ISO_266_THIRD_OCTAVE_HZ[:1]
+        fc = min(centres, key=lambda c: abs(math.log2(f0 / c)))
+        q = float(desk.graphic_q)
+    else:
+        fc = f0
+        bw = max(min_bandwidth_oct, desk.min_bandwidth_oct or 0.0)
+        bw = min(max(bw, 1.0 / 24.0), max(MAX_NOTCH_BANDWIDTH_OCT, desk.min_bandwidth_oct or 0.0))
+        q = min(q_from_bandwidth_oct(bw), desk.max_q or math.inf)
+    depth = desk.depth_db(30.0)
+    step = desk.gain_step_db or 0.1
+    gains = -step * np.arange(1, int(math.floor(depth / step + 1e-9)) + 1)
+    if gains.size == 0:
+        gains = np.array([-depth])
+    half = 2.0 ** (drift_oct / 2.0)
+    ratios = np.array([f0 / half, f0, f0 * half]) / fc
+    got = np.array([np.min(-20.0 * np.log10(np.abs(analog_response(Notch(fc, float(g), q), ratios)))) for g in gains])
+    ok = np.flatnonzero(got >= need - 1e-9)
+    if ok.size:
+        return Notch(fc, float(gains[ok[0]]), q), True
+    return Notch(fc, float(gains[-1]), q), False
+
+
+def merge_on_desk(desk: Desk, notches, sample_rate_hz: float) -> list[Notch]:
+    """Cuts merged as the desk would: a graphic's cuts on one slider become its deepest setting;
+    a parametric desk's overlapping cuts merge (:func:`howl.loop.notch.merge_notches`) and are
+    then set as the desk sets them (:meth:`Desk.fit`). Sorted by frequency."""
+    from howl.loop.notch import MAX_NOTCH_BANDWIDTH_OCT, merge_notches
+
+    fitted = [desk.fit(n, sample_rate_hz) for n in notches]
+    if desk.graphic:
+        best: dict = {}
+        for n in fitted:
+            if n.freq_hz not in best or n.gain_db < best[n.freq_hz].gain_db:
+                best[n.freq_hz] = n
+        return sorted(best.values(), key=lambda n: n.freq_hz)
+    cap = max(MAX_NOTCH_BANDWIDTH_OCT, desk.min_bandwidth_oct or 0.0)
+    return sorted((desk.fit(n, sample_rate_hz) for n in merge_notches(fitted, sample_rate_hz, cap)),
+                  key=lambda n: n.freq_hz)
