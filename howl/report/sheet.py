@@ -128,6 +128,7 @@ class Cut:
     gain_db: float | None
     q: float
     bandwidth_oct: float
+    band: str = ""  # a graphic EQ's slider (its ISO 266 centre, e.g. "1.25k"); "" for a parametric band
 
 
 @dataclass(frozen=True)
@@ -145,6 +146,7 @@ class CutSet:
     tonal_cost_db: float | None = None  # broadband (pink) power the cuts remove
     tonal_cost_speech_db: float | None = None  # the same, speech-weighted
     mark_after_db: float | None = None  # measured "don't go past" with the cuts in
+    desk: str = ""  # the desk's EQ the cuts were made for (howl.loop.desk.Desk.describe); "" = ideal EQ
 
 
 @dataclass(frozen=True)
@@ -533,10 +535,8 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
     With ``fsm_db``, also the measured "don't go past" mark with the cuts in
     (:func:`measured_mark_db` of the margins after the ring-out).
     """
-    cuts = []
-    for n in result.notches:
-        bw = getattr(n, "bandwidth_oct", None)
-        cuts.append(Cut(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(bw)))
+    desk = getattr(result, "desk", None)
+    cuts = list(desk_cuts(result.notches, desk))
     advice = getattr(result, "advice", ()) or ()
     if isinstance(advice, str):
         advice = (advice,)
@@ -552,6 +552,19 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
         tonal_cost_db=_f(getattr(result, "tonal_cost_db", None)),
         tonal_cost_speech_db=_f(getattr(result, "tonal_cost_speech_db", None)),
         mark_after_db=_mark_or_none(result.gain_margin_db_after, getattr(result, "magnitude_margin_db_after", None), fsm_db),
+        desk="" if desk is None else desk.describe(),
+    )
+
+
+def desk_cuts(notches, desk=None) -> tuple[Cut, ...]:
+    """The cuts in desk terms, sorted by frequency: a graphic's sliders carry their band label."""
+    from howl.loop.cutfile import slider_label
+
+    graphic = desk is not None and desk.graphic
+    return tuple(
+        Cut(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(n.bandwidth_oct),
+            slider_label(n.freq_hz) if graphic else "")
+        for n in sorted(notches, key=lambda n: n.freq_hz)
     )
 
 
@@ -602,7 +615,8 @@ def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
 
 
 def cut_sets_from_listen(
-    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None
+    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None,
+    desk=None,
 ) -> list[CutSet]:
     """Cut sets for cuts found by listening; with measured loops, the ASG they buy on each.
 
@@ -610,9 +624,19 @@ def cut_sets_from_listen(
     (``howl.notch.cascade_sos``) in the loop, minus the margin without:
     the definition of added stable gain in van Waterschoot & Moonen [4]_.
     """
-    cuts = tuple(Cut(float(n.freq_hz), n.gain_db, float(n.q), float(n.bandwidth_oct)) for n in notches)
+    if desk is not None:  # as that desk makes them (merged per slider or band, within its limits)
+        from howl.loop.desk import merge_on_desk
+
+        fs = session.pairs[0].sample_rate_hz if session is not None and session.pairs else 48000.0
+        notches = merge_on_desk(desk, list(notches), fs)
+        if desk.max_bands is not None:
+            notches = sorted(notches, key=lambda n: n.gain_db if n.gain_db is not None else -1e9)[: desk.max_bands]
+    desk_s = "" if desk is None else desk.describe()
+    cuts = desk_cuts(notches, desk) if desk is not None else tuple(
+        Cut(float(n.freq_hz), n.gain_db, float(n.q), float(n.bandwidth_oct)) for n in notches)
     if session is None or not margins:
-        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None)]
+        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None,
+                       margin_after_db=None, desk=desk_s)]
     from howl.loop.nyquist import nyquist_margin
     from howl.loop.notch import cascade_sos
 
@@ -636,6 +660,7 @@ def cut_sets_from_listen(
             margin_after_db=a,
             advice=tuple(lines),
             mark_after_db=None if any(m is None for m in marks) or not marks else min(marks),
+            desk=desk_s,
         )
     ]
 
@@ -766,8 +791,12 @@ def build_sheet_data(
     listen_cuts: tuple[list, str] | None = None,
     margin_maps: Sequence[MarginMap] = (),
     date: str | None = None,
+    desk=None,
 ) -> SheetData:
     """Assemble the sheet from the planner's JSON and measured analyses.
+
+    ``desk`` (a :class:`howl.loop.desk.Desk`): the cuts found by listening are listed as that
+    desk makes them (the ring-outs carry their own desk).
 
     Parameters
     ----------
@@ -810,7 +839,7 @@ def build_sheet_data(
         for pair, ro in zip(session.pairs, ringouts):
             cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro, fsm))
     if listen_cuts is not None:
-        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins, fsm)
+        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins, fsm, desk=desk)
     if plan_json is not None and session is not None:
         basis = "planned+measured"
         words = f"PLANNED from the room model + MEASURED {session.date}"
