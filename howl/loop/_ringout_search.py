@@ -571,8 +571,9 @@ def _graphic_search(loops, score: _Score, desk, budget: int, fs: float, band, ta
     Greedy on the score: at each round every slider is tried pulled 1, 2, 4, 8 or 16 steps further
     (within the range, and at most ``budget`` sliders moved), each judged exactly on the planning
     grid with the others as they are; the best move is kept while it scores better. A last pass
-    lets each pulled slider up a step where that scores better. The naive ring-out of the same
-    desk (the slider nearest the limiting crossing pulled to the bottom, in turn) competes too.
+    lets each pulled slider up a step where that scores better. The search also starts from each
+    prefix of the naive ring-out of the same desk (the slider nearest the limiting crossing pulled
+    to the bottom, in turn); the best-scored result is kept.
     """
     centres = desk.centres_hz(fs, band)
     step, depth, q = float(desk.gain_step_db), float(desk.depth_db(12.0)), float(desk.graphic_q)
@@ -631,8 +632,11 @@ def _graphic_search(loops, score: _Score, desk, budget: int, fs: float, band, ta
                     g, cuts, m, best = trial, c_t, m_t, j
         return g, m, best
 
-    # the naive ring-out of this desk: the slider nearest the limit pulled to the bottom, in turn
+    # the naive ring-out of this desk (the slider nearest the limit pulled to the bottom, in turn):
+    # the search also starts from each of its prefixes, since one slider pulled alone often buys
+    # nothing where several crossings stand level
     naive: dict = {}
+    prefixes = []
     for _ in range(min(budget, len(centres))):
         m_n, f_n, _ = _worst_margin(loops, cuts_of(naive), fs)
         if not math.isfinite(f_n):
@@ -641,9 +645,8 @@ def _graphic_search(loops, score: _Score, desk, budget: int, fs: float, band, ta
         if naive.get(fc, 0.0) <= -depth + 1e-9:
             break
         naive[fc] = desk.round_gain(-depth)
-    results = [run({})]
-    if naive:
-        results.append(run(dict(naive)))
+        prefixes.append(dict(naive))
+    results = [run({})] + [run(p) for p in prefixes]
     g, m, _ = max(results, key=lambda r: r[2])
     if not cuts_of(g):
         return [], m0
