@@ -362,3 +362,25 @@ def test_simulate_with_the_cuts_decays_where_it_howled_without(tmp_path):
         tails[tag] = 20 * math.log10(late / early)
     assert tails["without"] > 0.0  # it grows
     assert tails["with"] < -20.0  # it rings down
+
+
+def test_rig_file_desk_table(tmp_path):
+    """A [desk] table in a rig file is read into rig.desk; a bad key names the file and the key."""
+    from pathlib import Path
+
+    from howl.model.rig import load_rig
+
+    src = Path(__file__).resolve().parents[2] / "examples" / "chapel_lectern.toml"
+    text = src.read_text().replace('room_file = "../rooms/', f'room_file = "{src.parent.parent}/rooms/')
+    good = tmp_path / "rig.toml"
+    good.write_text(text + '\n[desk]\neq = "parametric"\nbands = 4\nmax_depth_db = 12\nmax_q = 8\ngain_step_db = 0.5\n')
+    rig = load_rig(good)
+    assert rig.desk == Desk("parametric", 4, 12.0, 8.0, 0.5)
+    bad = tmp_path / "bad.toml"
+    bad.write_text(text + "\n[desk]\nbands = 0\n")
+    with pytest.raises(InputError) as e:
+        load_rig(bad)
+    assert "bad.toml" in str(e.value) and "desk.bands" in str(e.value)
+    r = CliRunner().invoke(app, ["ringout", "--desk-from", str(good), str(_write_ir(tmp_path, room_ir(1))), "--json"])
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["desk"]["max_bands"] == 4
