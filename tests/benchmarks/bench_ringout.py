@@ -197,7 +197,8 @@ def desk_rows(ir) -> dict:
             f"n_cuts_{tag}_default_rules": len(dflt.notches),
             f"cpu_{tag}_s": cpu,
         })
-        out[f"{tag}_not_worse_than_naive"] = bool(out[f"asg_{tag}_db"] >= out[f"asg_{tag}_naive_db"] - 0.01)
+        # "not worse": within 0.05 dB (the score's tie-break gives up to that for less program removed)
+        out[f"{tag}_not_worse_than_naive"] = bool(out[f"asg_{tag}_db"] >= out[f"asg_{tag}_naive_db"] - 0.05)
     return out
 
 
@@ -262,7 +263,19 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rooms", type=int, default=20)
     ap.add_argument("--skip-timing", action="store_true")
+    ap.add_argument("--timing-only", action="store_true",
+                    help="only the timing; merged into an existing results file")
     args = ap.parse_args()
+    res_file = Path(__file__).resolve().parent / "results" / "ringout.json"
+    if args.timing_only:
+        out = json.loads(res_file.read_text()) if res_file.exists() else {}
+        out["timing"] = timing()
+        out["machine"] = {"cpu_model": _cpu_model(), "cores": os.cpu_count(), "python": platform.python_version(),
+                          "numpy": np.__version__}
+        print(json.dumps(out["timing"], indent=2))
+        res_file.parent.mkdir(exist_ok=True)
+        res_file.write_text(json.dumps(out, indent=2), encoding="utf-8")
+        return
     out = {}
     if not args.skip_timing:
         out["timing"] = timing()
