@@ -47,6 +47,7 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from howl.errors import InputError
+from howl.report.cutlist import desk_cuts, desk_line, listened_on_desk
 
 # ----------------------------------------------------------------------------
 # Paper
@@ -128,7 +129,7 @@ class Cut:
     gain_db: float | None
     q: float
     bandwidth_oct: float
-    band: str = ""  # a graphic EQ's slider (its ISO 266 centre, e.g. "1.25k"); "" for a parametric band
+    band: str = ""  # a graphic EQ's slider label (ISO 266 centre, "1.25k"); "" for a parametric band
 
 
 @dataclass(frozen=True)
@@ -146,7 +147,7 @@ class CutSet:
     tonal_cost_db: float | None = None  # broadband (pink) power the cuts remove
     tonal_cost_speech_db: float | None = None  # the same, speech-weighted
     mark_after_db: float | None = None  # measured "don't go past" with the cuts in
-    desk: str = ""  # the desk's EQ the cuts were made for (howl.loop.desk.Desk.describe); "" = ideal EQ
+    desk: str = ""  # the desk's EQ the cuts were made for (howl.report.cutlist); "" = ideal EQ
 
 
 @dataclass(frozen=True)
@@ -535,8 +536,7 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
     With ``fsm_db``, also the measured "don't go past" mark with the cuts in
     (:func:`measured_mark_db` of the margins after the ring-out).
     """
-    desk = getattr(result, "desk", None)
-    cuts = list(desk_cuts(result.notches, desk))
+    cuts = desk_cuts(Cut, result.notches, getattr(result, "desk", None))
     advice = getattr(result, "advice", ()) or ()
     if isinstance(advice, str):
         advice = (advice,)
@@ -552,19 +552,7 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
         tonal_cost_db=_f(getattr(result, "tonal_cost_db", None)),
         tonal_cost_speech_db=_f(getattr(result, "tonal_cost_speech_db", None)),
         mark_after_db=_mark_or_none(result.gain_margin_db_after, getattr(result, "magnitude_margin_db_after", None), fsm_db),
-        desk="" if desk is None else desk.describe(),
-    )
-
-
-def desk_cuts(notches, desk=None) -> tuple[Cut, ...]:
-    """The cuts in desk terms, sorted by frequency: a graphic's sliders carry their band label."""
-    from howl.loop.cutfile import slider_label
-
-    graphic = desk is not None and desk.graphic
-    return tuple(
-        Cut(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(n.bandwidth_oct),
-            slider_label(n.freq_hz) if graphic else "")
-        for n in sorted(notches, key=lambda n: n.freq_hz)
+        desk=desk_line(getattr(result, "desk", None)),
     )
 
 
@@ -624,19 +612,9 @@ def cut_sets_from_listen(
     (``howl.notch.cascade_sos``) in the loop, minus the margin without:
     the definition of added stable gain in van Waterschoot & Moonen [4]_.
     """
-    if desk is not None:  # as that desk makes them (merged per slider or band, within its limits)
-        from howl.loop.desk import merge_on_desk
-
-        fs = session.pairs[0].sample_rate_hz if session is not None and session.pairs else 48000.0
-        notches = merge_on_desk(desk, list(notches), fs)
-        if desk.max_bands is not None:
-            notches = sorted(notches, key=lambda n: n.gain_db if n.gain_db is not None else -1e9)[: desk.max_bands]
-    desk_s = "" if desk is None else desk.describe()
-    cuts = desk_cuts(notches, desk) if desk is not None else tuple(
-        Cut(float(n.freq_hz), n.gain_db, float(n.q), float(n.bandwidth_oct)) for n in notches)
+    notches, cuts, desk_s = listened_on_desk(Cut, notches, desk, session)  # with a desk: as it makes them
     if session is None or not margins:
-        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None,
-                       margin_after_db=None, desk=desk_s)]
+        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None, desk=desk_s)]
     from howl.loop.nyquist import nyquist_margin
     from howl.loop.notch import cascade_sos
 
@@ -791,12 +769,9 @@ def build_sheet_data(
     listen_cuts: tuple[list, str] | None = None,
     margin_maps: Sequence[MarginMap] = (),
     date: str | None = None,
-    desk=None,
+    desk=None,  # a howl.loop.desk.Desk: listened cuts are listed as it makes them (ring-outs carry their own)
 ) -> SheetData:
     """Assemble the sheet from the planner's JSON and measured analyses.
-
-    ``desk`` (a :class:`howl.loop.desk.Desk`): the cuts found by listening are listed as that
-    desk makes them (the ring-outs carry their own desk).
 
     Parameters
     ----------
