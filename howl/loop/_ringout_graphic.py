@@ -28,7 +28,8 @@ def graphic_search(loops, score, desk, budget: int, fs: float, band, target) -> 
     grid with the others as they are; the best move is kept while it scores better. A last pass
     lets each pulled slider up a step where that scores better. The search also starts from each
     prefix of the naive ring-out of the same desk (the slider nearest the limiting crossing pulled
-    to the bottom, in turn); the best-scored result is kept.
+    to the bottom, in turn); the best-scored result is kept, unless the naive ring-out itself buys
+    more margin within the tonal share (the tie-break then does not cost margin against it).
     """
     centres = desk.centres_hz(fs, band)
     step, depth, q = float(desk.gain_step_db), float(desk.depth_db(12.0)), float(desk.graphic_q)
@@ -103,6 +104,10 @@ def graphic_search(loops, score, desk, budget: int, fs: float, band, target) -> 
         prefixes.append(dict(naive))
     results = [run({})] + [run(p) for p in prefixes]
     g, m, _ = max(results, key=lambda r: r[2])
+    if prefixes:  # the score's tie-break (less program removed) never costs margin against the naive one
+        m_n = _worst_margin(loops, cuts_of(naive), fs)[0]
+        if m_n > m and score.within_share(cuts_of(naive), m_n):
+            g, m = naive, m_n
     if not cuts_of(g):
         return [], m0
     return cuts_of(g), m

@@ -317,6 +317,10 @@ class _Score:
             p = p * rest_power
         return float(-10.0 * math.log10(np.dot(self.w, p)))
 
+    def within_share(self, cuts, margin_db: float) -> bool:
+        """True when the cuts' tonal cost stays within their share of the gain they buy."""
+        return self.share == math.inf or self.tonal_db(cuts) <= self.share * (margin_db - self.m0) + 1e-9
+
     def __call__(self, cuts, margin_db: float, rest_power: np.ndarray | None = None) -> float:
         t = self.tonal_db(cuts, rest_power)
         over = 0.0 if self.share == math.inf else max(0.0, t - self.share * (margin_db - self.m0))
@@ -543,6 +547,11 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
                     planned, planned_margin = c, m_c
         if desk is not None and planned:
             planned, planned_margin = _on_desk(loops, planned, score, desk, fs)
+        if lim is not None:  # the score's tie-break never costs margin against the naive ring-out
+            naive = _naive_cuts(loops, chosen, fs, lim, desk)  # as many cuts as the plan chosen
+            m_n = _worst_margin(loops, naive, fs)[0] if naive else -math.inf
+            if m_n > planned_margin + 1e-9 and score.within_share(naive, m_n):
+                planned, planned_margin = naive, m_n
         n_used = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
@@ -560,3 +569,16 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
             reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
 
     return planned, planned_margin, reason, m0_grid
+
+
+def _naive_cuts(loops, budget: int, fs: float, lim: Limits, desk) -> list[Notch]:
+    """The naive ring-out within the limits: the deepest allowed cut at the narrowest allowed width
+    at each limiting crossing in turn (as the desk sets it)."""
+    q = q_from_bandwidth_oct(lim.min_bw_oct)
+    cuts: list[Notch] = []
+    for _ in range(budget):
+        f = _worst_margin(loops, cuts, fs)[1]
+        if not math.isfinite(f) or f >= 0.49 * fs:
+            break
+        cuts.append(desk.fit(Notch(f, -lim.max_depth_db, q), fs))
+    return cuts
