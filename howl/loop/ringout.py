@@ -49,10 +49,15 @@ plans the cuts together, as a covering problem over the crossings:
    1..``max_notches`` cuts are compared; a larger plan is taken only if it pays that much per
    extra cut over the last plan taken).
 
-The margins before and after are exact (:func:`howl.loop.nyquist_margin` on the
-whole IR with the cascade passed as ``filters_sos``); the per-step margins come
-from the planning grid (linear interpolation of Im L between grid points; within
-a few hundredths of a dB of the exact values).
+Every margin reported is exact (:func:`howl.loop.nyquist_margin` on the whole IR
+with the cuts so far passed as ``filters_sos``), before, after each step and
+after the last, so the steps add up to the total.
+
+Within a desk's EQ (``desk``, :mod:`howl.loop.desk`) the plan, the simple
+ring-outs and the search keep to its depth and width, the cuts are then set as
+the desk sets them (gain steps), and a graphic EQ is searched slider by slider
+(:mod:`howl.loop._ringout_graphic`); the naive ring-out of the same desk is
+never beaten on margin by the score's tie-break.
 
 References
 ----------
