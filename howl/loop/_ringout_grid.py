@@ -296,27 +296,33 @@ def _cuts_on_grid(notches, cos_w: np.ndarray, inv_sin_w: np.ndarray, fs: float) 
 
 
 def _grid_margins_rows(L: np.ndarray, f: np.ndarray, adj: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_grid_margin_db` of every row of ``L`` (K, n): (margins dB, frequencies Hz)."""
+    """:func:`_grid_margin_db` of every row of ``L`` (K, n): (margins dB, frequencies Hz).
+
+    The same arithmetic on the same sign changes as :func:`_grid_margin_db`, so each row's
+    result is bit for bit the one-row result.
+    """
     im, re = L.imag, L.real
     neg = im < 0.0
     flip = neg[:, :-1] != neg[:, 1:]
     if adj is not None:
         flip &= adj[None, :]
-    a, b = im[:, :-1], im[:, 1:]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = a / (a - b)
-        rc = re[:, :-1] + t * (re[:, 1:] - re[:, :-1])
-    rc = np.where(flip, rc, -np.inf)
-    k = np.argmax(rc, axis=1)
-    top = rc[np.arange(rc.shape[0]), k]
-    out_m = np.full(rc.shape[0], np.inf)
-    out_f = np.full(rc.shape[0], np.nan)
-    ok = top > 0.0
-    if np.any(ok):
-        rows = np.flatnonzero(ok)
-        j = k[rows]
-        out_m[rows] = [-20.0 * math.log10(float(x)) for x in top[rows]]
-        out_f[rows] = [float(f[jj]) + float(t[r, jj]) * (f[jj + 1] - f[jj]) for r, jj in zip(rows, j)]
+    r, c = np.nonzero(flip)
+    a = im[r, c]
+    t = a / (a - im[r, c + 1])
+    rc = re[r, c] + t * (re[r, c + 1] - re[r, c])
+    out_m = np.full(L.shape[0], np.inf)
+    out_f = np.full(L.shape[0], np.nan)
+    starts = np.searchsorted(r, np.arange(L.shape[0] + 1))
+    for row in range(L.shape[0]):
+        lo, hi = starts[row], starts[row + 1]
+        if hi == lo:
+            continue
+        k = lo + int(np.argmax(rc[lo:hi]))
+        if rc[k] <= 0.0:
+            continue
+        j = c[k]
+        out_m[row] = -20.0 * math.log10(float(rc[k]))
+        out_f[row] = float(f[j] + float(t[k]) * (f[j + 1] - f[j]))
     return out_m, out_f
 
 
