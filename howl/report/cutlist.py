@@ -14,14 +14,14 @@ def desk_line(desk) -> str:
 
 
 def desk_cuts(cut_type, notches, desk=None) -> tuple:
-    """``cut_type`` rows (the sheet's ``Cut``) sorted by frequency; a graphic's carry their slider label."""
+    """``cut_type`` rows (the sheet's ``Cut``) in the order given; a graphic's carry their slider label."""
     from howl.loop.cutfile import slider_label
 
     graphic = desk is not None and desk.graphic
     return tuple(
         cut_type(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(n.bandwidth_oct),
                  slider_label(n.freq_hz) if graphic else "")
-        for n in sorted(notches, key=lambda n: n.freq_hz)
+        for n in notches
     )
 
 
