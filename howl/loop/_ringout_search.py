@@ -469,6 +469,8 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
     With a parametric ``desk`` the plan, the simple ring-outs and the search stay within its
     depth and width, and the cuts are then set as the desk sets them (:func:`_on_desk`); a
     graphic desk is searched by :func:`howl.loop._ringout_graphic.graphic_search` instead.
+    (Longer than 80 lines: its stages share the score, the plans and the limits; split, they
+    would hand a dozen values to each other.)
     """
     m0_grid = _worst_margin(loops, [], fs)[0]
     planned: list[Notch] = []
