@@ -419,6 +419,9 @@ def ring_out(
     if robust:
         robust_loops = [(name, exact[0][2][k], exact[-1][2][k]) for k, (name, _) in enumerate(irs)]
     asg = m_after - m_before if math.isfinite(m_before) and math.isfinite(m_after) else 0.0
+    if target is not None and notches and reason.startswith("target margin met"):  # say it with the exact figure
+        word = "met" if m_after >= target else "met on the planning grid, not quite exactly"
+        reason = f"target margin {word} ({m_after:.2f} dB vs {target:g} dB) after {len(notches)} cut(s)"
 
     tonal_pink = tonal_cost_db(notches, band, fs)
     tonal_speech = tonal_cost_db(notches, band, fs, weighting="speech")
