@@ -7,6 +7,8 @@ from pathlib import Path
 
 import typer
 
+from howl.cli import _desk
+
 ORDER = 75
 
 
@@ -75,6 +77,14 @@ def register(app: typer.Typer) -> None:
         max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the running list."),
         temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (drift width of cuts)."),
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
+        eq: str = _desk.EQ,
+        max_bands: int = _desk.MAX_BANDS,
+        max_depth_db: float = _desk.MAX_DEPTH,
+        max_q: float = _desk.MAX_Q,
+        min_width_oct: float = _desk.MIN_WIDTH,
+        gain_step_db: float = _desk.STEP,
+        graphic_q: float = _desk.GRAPHIC_Q,
+        desk_from: Path = _desk.DESK_FROM,
     ) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
@@ -92,6 +102,9 @@ def register(app: typer.Typer) -> None:
         if json_out and duration is None:
             raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
         tau = loop_delay_option(loop_delay_ms, loop_ir)
+        desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
+                             min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
+                             desk_from=desk_from)
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
@@ -104,7 +117,7 @@ def register(app: typer.Typer) -> None:
         label = src.device.label
         typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
-                  temperature_c=temperature_c, swing_c=swing_c)
+                  temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
         try:
             if json_out or not sys.stdout.isatty():
                 res = listen(src, **kw)

@@ -7,6 +7,8 @@ from typing import Optional
 
 import typer
 
+from howl.cli import _desk
+
 ORDER = 50
 
 
@@ -51,16 +53,39 @@ def register(app: typer.Typer) -> None:
         channel: Optional[int] = typer.Option(None, "--channel", help="Channel (1-based) of a multichannel WAV."),
         max_length_s: float = typer.Option(20.0, "--max-length-s", help="Longest IR accepted (s)."),
         trim_s: Optional[float] = typer.Option(None, "--trim-s", help="Use only the first TRIM_S seconds of the IR."),
+        eq: Optional[str] = _desk.EQ,
+        max_bands: Optional[int] = _desk.MAX_BANDS,
+        max_depth_db: Optional[float] = _desk.MAX_DEPTH,
+        max_q: Optional[float] = _desk.MAX_Q,
+        min_width_oct: Optional[float] = _desk.MIN_WIDTH,
+        gain_step_db: Optional[float] = _desk.STEP,
+        graphic_q: Optional[float] = _desk.GRAPHIC_Q,
+        desk_from: Optional[Path] = _desk.DESK_FROM,
+        cuts_out: Optional[Path] = _desk.CUTS_OUT,
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
         from howl.cli._common import capture_warnings, emit_json
 
+        desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
+                             min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
+                             desk_from=desk_from)
+        if cuts_out is not None and cuts_out.suffix.lower() not in (".csv", ".json"):
+            from howl.errors import InputError
+
+            raise InputError(f"must end in .csv or .json, got {str(cuts_out)!r}", key="--cuts-out")
         with capture_warnings():
             report = ringout_report(
                 ir, max_notches=max_notches, target_margin_db=target_margin_db, min_gain_db=min_gain_db,
                 band_hz=band_hz, temperature_c=temperature_c, swing_c=swing_c, robust=robust,
                 tonal_share=tonal_share, tonal_weighting=tonal_weighting, sample_rate_hz=sample_rate_hz, channel=channel, max_length_s=max_length_s, trim_s=trim_s,
+                desk=desk,
             )
+            if cuts_out is not None:
+                from howl.loop.cutfile import write_cut_file
+                from howl.loop.notch import Notch
+
+                cuts = [Notch(n["freq_hz"], n["gain_db"], n["q"]) for n in report["notches"]]
+                report["cuts_out"] = write_cut_file(cuts_out, cuts, desk=desk, source=f"howl ringout {ir}")
         if json_out:
             emit_json(report)
             return
@@ -85,6 +110,7 @@ def _notch_json(n, coeff_fs: float) -> dict:
 def ringout_report(
     path: Path, *, max_notches=6, target_margin_db=None, min_gain_db=0.5, band_hz=None, temperature_c=20.0,
     swing_c=3.0, robust=False, tonal_share=0.5, tonal_weighting="pink", sample_rate_hz=None, channel=None, max_length_s=20.0, trim_s=None,
+    desk=None,
 ) -> dict:
     """The `howl ringout --json` object."""
     import warnings
@@ -104,7 +130,7 @@ def ringout_report(
         res = ring_out(
             h, fs, max_notches=max_notches, target_margin_db=target_margin_db, min_gain_per_notch_db=min_gain_db,
             band_hz=band, temperature_c=temperature_c, swing_c=swing_c, robust=robust, tonal_share=tonal_share,
-            tonal_weighting=tonal_weighting,
+            tonal_weighting=tonal_weighting, desk=desk,
         )
     except InputError as exc:  # name the option the user typed
         opt = {"max_notches": "--max-notches", "min_gain_per_notch_db": "--min-gain-db",
@@ -148,6 +174,8 @@ def ringout_report(
                 "gain_margin_db": s.gain_margin_db,
                 "added_stable_gain_db": s.added_stable_gain_db,
                 "total_added_stable_gain_db": s.total_added_stable_gain_db,
+                "tonal_cost_db": s.tonal_cost_db,
+                "tonal_cost_speech_db": s.tonal_cost_speech_db,
             }
             for s in res.steps
         ],
@@ -164,6 +192,9 @@ def ringout_report(
             {"name": n, "gain_margin_db_before": b, "gain_margin_db_after": a} for n, b, a in res.robust_loops
         ],
         "advice": list(res.advice),
+        "desk": None if desk is None else desk.to_json(),
+        "desk_summary": "ideal EQ (no desk limits given)" if desk is None else desk.describe(),
+        "margins_exact": "every margin and added stable gain, per step and in total, is the Nyquist margin of the whole IR with the cuts so far (as howl margin computes it)",
     }
 
 
@@ -179,12 +210,22 @@ def report_lines(r: dict) -> list[str]:
         f"added stable gain {r['added_stable_gain_db']:5.2f} dB",
         f"  stopped: {r['stopped_because']}",
         "",
-        "  step  centre Hz  gain dB     Q   width oct  margin dB  +dB step  +dB total",
+        f"  desk: {r['desk_summary']}",
+        "  step  centre Hz  gain dB     Q   width oct  margin dB  +dB step  +dB total  tone dB (pink/speech)",
     ]
+    costly = False
     for s in r["steps"]:
+        dear = s["tonal_cost_db"] > r["tonal_share"] * max(s["added_stable_gain_db"], 0.0)
+        costly |= dear
         lines.append(
             f"  {s['index']:4d}  {s['freq_hz']:9.1f}  {gain(s['gain_db'])}  {s['q']:6.2f}  {s['bandwidth_oct']:9.3f}"
             f"  {s['gain_margin_db']:9.2f}  {s['added_stable_gain_db']:8.2f}  {s['total_added_stable_gain_db']:9.2f}"
+            f"  {s['tonal_cost_db']:5.2f} / {s['tonal_cost_speech_db']:5.2f}" + ("  *" if dear else "")
+        )
+    if costly:
+        lines.append(
+            f"  * this cut removes more program than {r['tonal_share']:g} dB per dB it buys: a broad EQ, a mic move "
+            "or a pattern change may serve better there"
         )
     if not r["steps"]:
         lines.append("  (no cuts)")
@@ -202,6 +243,8 @@ def report_lines(r: dict) -> list[str]:
         lines.append(
             f"  loop {rl['name']:<12} margin before {rl['gain_margin_db_before']:6.2f}  after {rl['gain_margin_db_after']:6.2f} dB"
         )
+    if r.get("cuts_out"):
+        lines.append(f"  cut list written to {r['cuts_out']}")
     lines.append("")
     lines += [f"  note: {a}" for a in r["advice"]]
     return lines

@@ -6,6 +6,8 @@ from pathlib import Path
 
 import typer
 
+from howl.cli import _desk
+
 ORDER = 70
 
 CAUTION = (
@@ -42,6 +44,10 @@ def _render_text(rep: dict, path: str) -> list[str]:
             cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
             lines.append(f"    {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f} "
                          f"({n['bandwidth_oct']:.3f} oct)  from {n['n_events']} event(s)")
+    if rep.get("desk_summary"):
+        lines.append(f"  desk: {rep['desk_summary']}")
+    if rep.get("cuts_out"):
+        lines.append(f"  cut list written to {rep['cuts_out']}")
     for a in rep["advice"]:
         lines.append(f"  advice: {a}")
     lines.append(f"  {CAUTION}")
@@ -63,6 +69,15 @@ def register(app: typer.Typer) -> None:
         max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the summary."),
         temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (for the drift width of cuts)."),
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
+        eq: str = _desk.EQ,
+        max_bands: int = _desk.MAX_BANDS,
+        max_depth_db: float = _desk.MAX_DEPTH,
+        max_q: float = _desk.MAX_Q,
+        min_width_oct: float = _desk.MIN_WIDTH,
+        gain_step_db: float = _desk.STEP,
+        graphic_q: float = _desk.GRAPHIC_Q,
+        desk_from: Path = _desk.DESK_FROM,
+        cuts_out: Path = _desk.CUTS_OUT,
     ) -> None:
         """Find howls (growing pure tones) and ringing (slow ring-downs) in a recording; suggest cuts."""
         from howl import validate as v
@@ -74,6 +89,11 @@ def register(app: typer.Typer) -> None:
         v.integer(max_notches, "--max-notches", 1, 64)
         v.in_range(swing_c, "--swing-c", 0.0, 30.0, unit="°C")
         v.in_range(temperature_c, "--temperature-c", -30.0, 50.0, unit="°C")
+        desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
+                             min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
+                             desk_from=desk_from)
+        if cuts_out is not None and cuts_out.suffix.lower() not in (".csv", ".json"):
+            raise v.fail("--cuts-out", "a .csv or .json file name", str(cuts_out))
         with capture_warnings():
             x, fs = read_wav(recording, channel=channel)
             if fs < 4000:
@@ -82,8 +102,14 @@ def register(app: typer.Typer) -> None:
             det.process(x)
             det.finish()
             rep = report(det.events, fs, x.size / fs, loop_delay_s=tau, max_notches=max_notches,
-                         temperature_c=temperature_c, swing_c=swing_c)
+                         temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
         rep = {"file": str(recording), "channel": channel, **rep, "caution": CAUTION}
+        if cuts_out is not None:
+            from howl.loop.cutfile import write_cut_file
+            from howl.loop.notch import Notch
+
+            cuts = [Notch(n["freq_hz"], n["gain_db"], n["q"]) for n in rep["notches"]]
+            rep["cuts_out"] = write_cut_file(cuts_out, cuts, desk=desk, source=f"howl scan {recording}")
         if json_out:
             emit_json(rep)
         else:

@@ -7,6 +7,8 @@ from typing import Optional
 
 import typer
 
+from howl.cli import _desk
+
 ORDER = 80
 
 
@@ -33,6 +35,13 @@ def register(app: typer.Typer) -> None:
         no_plan: bool = typer.Option(False, "--no-plan", help="Leave the room-model plan out (measured numbers only)."),
         date: Optional[str] = typer.Option(None, "--date", metavar="YYYY-MM-DD", help="Date printed on the sheet (default: today)."),
         as_json: bool = typer.Option(False, "--json", help="Print the sheet's numbers as one JSON object."),
+        eq: Optional[str] = _desk.EQ,
+        max_bands: Optional[int] = _desk.MAX_BANDS,
+        max_depth_db: Optional[float] = _desk.MAX_DEPTH,
+        max_q: Optional[float] = _desk.MAX_Q,
+        min_width_oct: Optional[float] = _desk.MIN_WIDTH,
+        gain_step_db: Optional[float] = _desk.STEP,
+        graphic_q: Optional[float] = _desk.GRAPHIC_Q,
     ) -> None:
         """Print the gain-margin sheet: per-mic limits, loop plots, cuts and cautions."""
         from howl import validate as V
@@ -61,6 +70,9 @@ def register(app: typer.Typer) -> None:
             )
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
+            desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
+                                 min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
+                                 base=getattr(rig, "desk", None))
             session = margins = ringouts = None
             if measured is not None:
                 session = read_session(measured)
@@ -80,10 +92,10 @@ def register(app: typer.Typer) -> None:
                 if ringout:
                     from howl.loop.ringout import ring_out
 
-                    ringouts = [ring_out(p.ir, p.sample_rate_hz) for p in session.pairs]
+                    ringouts = [ring_out(p.ir, p.sample_rate_hz, desk=desk) for p in session.pairs]
             data = build_sheet_data(
                 rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
-                margin_maps=margin_maps, date=date,
+                margin_maps=margin_maps, date=date, desk=desk,
             )
             written = render_sheet(data, out, paper=paper_l)
 

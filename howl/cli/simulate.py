@@ -71,6 +71,10 @@ def register(app: typer.Typer) -> None:
         program_mic: Optional[str] = typer.Option(
             None, "--program-mic", help="Folder mode: the mic a mono program is heard at (others hear silence)."
         ),
+        cuts: Optional[Path] = typer.Option(
+            None, "--cuts", metavar="CUTS.json|CUTS.csv",
+            help="Put a cut list in the console channel: the JSON of howl ringout or howl scan, or a --cuts-out file.",
+        ),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
         from howl.cli._common import capture_warnings, emit_json, warn
@@ -78,6 +82,10 @@ def register(app: typer.Typer) -> None:
         warn(CAUTION)
         with capture_warnings():
             if ir.is_dir():
+                if cuts is not None:
+                    from howl.errors import InputError
+
+                    raise InputError("applies to one loop IR, not to a folder of loops", key="--cuts")
                 rep = run_mimo_simulation(
                     ir, program, out, rig_file=rig_file, program_mic=program_mic, gain_db=gain_db,
                     ramp_db=ramp_db, steps=steps, limiter_dbfs=limiter_dbfs, tail_s=tail_s,
@@ -86,7 +94,7 @@ def register(app: typer.Typer) -> None:
             else:
                 rep = run_simulation(
                     ir, program, out, gain_db=gain_db, ramp_db=ramp_db, steps=steps, limiter_dbfs=limiter_dbfs,
-                    tail_s=tail_s, channel=channel, program_channel=program_channel,
+                    tail_s=tail_s, channel=channel, program_channel=program_channel, cuts=cuts,
                 )
         if json_out:
             emit_json(rep)
@@ -174,7 +182,7 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
 
 
 def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, limiter_dbfs=-1.0, tail_s=1.0,
-                   channel=None, program_channel=None) -> dict:
+                   channel=None, program_channel=None, cuts=None) -> dict:
     """Simulate and write OUT; returns the `howl simulate --json` object."""
     import math
     import warnings
@@ -205,18 +213,41 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
     x = np.concatenate([x, np.zeros(int(round(tail_s * fs)))])
     sched = _schedule(x.size, fs, gain_db, ramp_db, steps)
-    r = nyquist_margin(h, fs)
+    cut_list = None
+    if cuts is not None:
+        from howl.loop.cutfile import read_cut_file
+        from howl.loop.notch import cascade_sos
+        from howl.loop.simulate import with_cuts
+
+        cut_list = read_cut_file(cuts)
+        top = max((n.freq_hz for n in cut_list), default=0.0)
+        if top >= fs / 2:
+            raise InputError(f"has a cut at {top:g} Hz, above half the IR's sample rate ({fs} Hz)", file=str(cuts))
+        r0 = nyquist_margin(h, fs)
+        r = nyquist_margin(h, fs, filters_sos=cascade_sos(cut_list, fs)) if cut_list else r0
+        h, x = with_cuts(h, x, fs, cut_list)
+    else:
+        r = nyquist_margin(h, fs)
     y = simulate_closed_loop(h, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
     write_wav_atomic(out, y, fs)
     rms_in = float(np.sqrt(np.mean(x**2))) if np.any(x) else 0.0
     rms_out = float(np.sqrt(np.mean(y**2)))
     level_change_db = float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None
-    return {
+    rep = {
         "ir": str(ir),
         "program": str(program),
         "output": str(out),
         **_run_summary(fs, y.size, sched, r, y, limiter_dbfs, level_change_db=level_change_db),
     }
+    if cut_list is not None:
+        finite = bool(np.isfinite(r0.gain_margin_db))
+        rep["cuts_file"] = str(cuts)
+        rep["cuts"] = [{"freq_hz": n.freq_hz, "gain_db": n.gain_db, "q": n.q, "bandwidth_oct": n.bandwidth_oct}
+                       for n in cut_list]
+        rep["gain_margin_db_without_cuts"] = r0.gain_margin_db if finite else None
+        rep["cuts_where"] = ("in the console channel: the loop IR and the program both pass through them; "
+                             "gain_margin_db and the output are with the cuts in")
+    return rep
 
 
 def simulation_lines(rep: dict) -> list[str]:
@@ -231,6 +262,10 @@ def simulation_lines(rep: dict) -> list[str]:
             f"gain margin at the reference settings {rep['gain_margin_db']:.2f} dB (howl at {rep['howl_freq_hz']:.1f} Hz); "
             f"at the highest gain {rep['margin_at_max_gain_db']:+.2f} dB → expected: {rep['expected']}"
         )
+    if "cuts" in rep:
+        wo = rep["gain_margin_db_without_cuts"]
+        lines.append(f"with {len(rep['cuts'])} cut(s) from {rep['cuts_file']} in the channel"
+                     + ("" if wo is None else f" (margin without them {wo:.2f} dB)"))
     lines.append(
         f"output peak {rep['peak_dbfs']:.1f} dBFS; {rep['limited_fraction']:.1%} of samples in the limiter"
         + (f"; level change {rep['level_change_db']:+.1f} dB" if rep["level_change_db"] is not None else "")

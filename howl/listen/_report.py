@@ -63,7 +63,7 @@ def event_loop_delay_s(event, loop_delay_s) -> float | None:
 
 
 def suggest_event_cut(event, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGIN_DB,
-                      temperature_c: float = 20.0, swing_c: float = 3.0):
+                      temperature_c: float = 20.0, swing_c: float = 3.0, desk=None, sample_rate_hz=None):
     """The cut (a :class:`howl.notch.Notch`) that stops an event, by the ring-out rules.
 
     needed_db = target margin − current margin, where the current margin is
@@ -72,7 +72,24 @@ def suggest_event_cut(event, *, loop_delay_s=None, target_margin_db: float = TAR
     :class:`LoopDelayFromIR` evaluated at the event's frequency) or
     :data:`DEFAULT_LOOP_DELAY_S`. The width covers the temperature drift
     (``howl.notch.suggest_cut``). Returns (notch, needed_db, margin_used_db).
+
+    With a ``desk`` (:class:`howl.loop.desk.Desk`) the cut is one that desk can make
+    (:func:`howl.loop.desk.suggest_on_desk`: no narrower than its highest Q, no deeper than its
+    deepest cut, on its steps, or its nearest graphic slider); whether it reaches the needed
+    depth is :func:`event_cut_on_desk`'s second value.
     """
+    return _event_cut(event, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
+                      temperature_c=temperature_c, swing_c=swing_c, desk=desk, sample_rate_hz=sample_rate_hz)[:3]
+
+
+def event_cut_on_desk(event, desk, **kw):
+    """(notch, reaches) of :func:`suggest_event_cut` on ``desk``."""
+    n, _, _, reaches = _event_cut(event, desk=desk, **kw)
+    return n, reaches
+
+
+def _event_cut(event, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGIN_DB,
+               temperature_c: float = 20.0, swing_c: float = 3.0, desk=None, sample_rate_hz=None):
     from howl.loop.notch import suggest_cut
 
     tau = event_loop_delay_s(event, loop_delay_s)
@@ -87,23 +104,39 @@ def suggest_event_cut(event, *, loop_delay_s=None, target_margin_db: float = TAR
     else:
         margin = (event.decay_db_per_s or 0.0) * tau
     needed = max(target_margin_db - margin, 0.5)
+    if desk is not None:
+        from howl.loop.desk import suggest_on_desk
+        from howl.loop.notch import drift_bandwidth_oct
+
+        drift = drift_bandwidth_oct(temperature_c, swing_c)
+        notch, reaches = suggest_on_desk(desk, event.freq_hz, needed, drift_oct=drift, min_bandwidth_oct=drift,
+                                         sample_rate_hz=sample_rate_hz)
+        return notch, float(needed), float(margin), reaches
     notch = suggest_cut(event.freq_hz, needed, temperature_c=temperature_c, swing_c=swing_c)
-    return notch, float(needed), float(margin)
+    return notch, float(needed), float(margin), True
 
 
-def summarise_notches(notches, sample_rate_hz: float, *, max_notches: int = 6):
+def summarise_notches(notches, sample_rate_hz: float, *, max_notches: int = 6, desk=None):
     """Merge cuts at the same frequency (``howl.notch.merge_notches``) and keep a budget.
 
     Returns (kept notches sorted by frequency, advice strings). When more distinct
     cuts are needed than the budget, or merged cuts reach the 1/3-octave cap,
-    the advice says a broad EQ or a placement change would serve better.
+    the advice says a broad EQ or a placement change would serve better. With a ``desk``, the cuts
+    are merged as that desk would (:func:`howl.loop.desk.merge_on_desk`: one setting per graphic
+    slider) and its ``max_bands`` is the budget.
     """
     from howl.loop.notch import merge_notches
 
     advice = []
     if not notches:
         return [], advice
-    merged = list(merge_notches(list(notches), sample_rate_hz))
+    if desk is not None:
+        from howl.loop.desk import merge_on_desk
+
+        merged = merge_on_desk(desk, list(notches), sample_rate_hz)
+        max_notches = desk.max_bands or max_notches
+    else:
+        merged = list(merge_notches(list(notches), sample_rate_hz))
     depth = [(-(n.gain_db if n.gain_db is not None else -60.0)) for n in merged]
     order = np.argsort(depth)[::-1]
     kept = [merged[i] for i in order[:max_notches]]
@@ -112,7 +145,7 @@ def summarise_notches(notches, sample_rate_hz: float, *, max_notches: int = 6):
             f"{len(merged)} separate frequencies ring but the cut budget is {max_notches}: "
             "a broad EQ or moving the mic/speaker would serve better than more notches"
         )
-    wide = [n for n in kept if n.bandwidth_oct >= 1 / 3 - 1e-9]
+    wide = [] if desk is not None and desk.graphic else [n for n in kept if n.bandwidth_oct >= 1 / 3 - 1e-9]
     if wide:
         advice.append(
             "cut(s) at " + ", ".join(f"{n.freq_hz:.0f} Hz" for n in wide)
@@ -128,10 +161,11 @@ def event_to_dict(event) -> dict:
 
 
 def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGIN_DB,
-                 temperature_c: float = 20.0, swing_c: float = 3.0) -> dict:
+                 temperature_c: float = 20.0, swing_c: float = 3.0, desk=None, sample_rate_hz=None) -> dict:
     """One event as the JSON of ``howl scan``/``howl listen`` shows it, with its suggested cut."""
-    notch, needed, margin_used = suggest_event_cut(
-        e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db, temperature_c=temperature_c, swing_c=swing_c)
+    notch, needed, margin_used, reaches = _event_cut(
+        e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db, temperature_c=temperature_c, swing_c=swing_c,
+        desk=desk, sample_rate_hz=sample_rate_hz)
     d = {
         "time_s": e.time_s, "onset_s": e.onset_s, "freq_hz": e.freq_hz, "kind": e.kind,
         "level_db": e.level_db, "growth_db_per_s": e.growth_db_per_s,
@@ -139,6 +173,7 @@ def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGI
         "notch": {"freq_hz": notch.freq_hz, "gain_db": notch.gain_db, "q": notch.q,
                   "bandwidth_oct": notch.bandwidth_oct},
         "needed_cut_db": needed,
+        **({} if desk is None else {"cut_reaches_needed": bool(reaches)}),
         "features": {"papr_db": e.papr_db, "pnpr_db": e.pnpr_db, "phpr_db": e.phpr_db, "ipmp": e.ipmp,
                      "imsd_db_per_s": e.imsd_db_per_s, "fsd": e.fsd, "phpr_comod_db": e.phpr_comod_db},
     }
@@ -163,7 +198,7 @@ def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGI
 
 def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s=None,
            max_notches: int = 6, temperature_c: float = 20.0, swing_c: float = 3.0,
-           target_margin_db: float = TARGET_MARGIN_DB) -> dict:
+           target_margin_db: float = TARGET_MARGIN_DB, desk=None) -> dict:
     """The JSON-ready report shared by ``howl scan`` and ``howl listen``.
 
     ``loop_delay_s``: a number (s), a :class:`LoopDelayFromIR` (τ at each event's frequency),
@@ -173,11 +208,17 @@ def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s=Non
     budget ``max_notches``; ``advice``: when a broad EQ or placement would serve better.
     """
     ev_out = [event_record(e, loop_delay_s=loop_delay_s, target_margin_db=target_margin_db,
-                           temperature_c=temperature_c, swing_c=swing_c) for e in events]
+                           temperature_c=temperature_c, swing_c=swing_c, desk=desk, sample_rate_hz=sample_rate_hz)
+              for e in events]
     from howl.loop.notch import Notch
 
     cuts = [Notch(d["notch"]["freq_hz"], d["notch"]["gain_db"], d["notch"]["q"]) for d in ev_out]
-    kept, advice = summarise_notches(cuts, sample_rate_hz, max_notches=max_notches)
+    kept, advice = summarise_notches(cuts, sample_rate_hz, max_notches=max_notches, desk=desk)
+    short = sorted({round(d["freq_hz"], 1) for d in ev_out if d.get("cut_reaches_needed") is False})
+    if short:
+        advice.append(
+            f"the desk's deepest cut (-{desk.depth_db(30.0):g} dB) does not stop the ringing at "
+            + ", ".join(f"{f:g} Hz" for f in short) + ": bring the gain down, or move the mic or speaker")
     notches = []
     for n in kept:
         lo, hi = n.band_edges_hz()
@@ -197,4 +238,5 @@ def report(events, sample_rate_hz: float, duration_s: float, *, loop_delay_s=Non
         "advice": advice,
         "n_howl": sum(e.kind == "howl" for e in events),
         "n_ringing": sum(e.kind == "ringing" for e in events),
+        **({} if desk is None else {"desk": desk.to_json(), "desk_summary": desk.describe()}),
     }

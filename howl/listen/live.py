@@ -108,7 +108,7 @@ class JsonlLog:
 
 def listen(source, *, duration_s: float | None = None, log_path=None, on_update=None, update_interval_s: float = 0.25,
            loop_delay_s=None, max_notches: int = 6, temperature_c: float = 20.0,
-           swing_c: float = 3.0, stop=None) -> ListenResult:
+           swing_c: float = 3.0, stop=None, desk=None) -> ListenResult:
     """Run the detector on ``source`` until ``duration_s`` of audio, the source ends, ``stop()`` is
     true, or Ctrl-C. Events are logged as they happen; ``on_update(Snapshot)`` is called about every
     ``update_interval_s`` of wall time. Returns the same report as ``howl scan`` plus the overflow count.
@@ -123,10 +123,13 @@ def listen(source, *, duration_s: float | None = None, log_path=None, on_update=
     last_update = 0.0
     interrupted = False
     kw = dict(loop_delay_s=loop_delay_s, temperature_c=temperature_c, swing_c=swing_c)
+    if desk is not None:  # the suggestions within the desk's EQ (howl.loop.desk)
+        kw.update(desk=desk)
+    kw_desk = {} if desk is None else {"desk": desk}
 
     def _emit(new_events):
         for e in new_events:
-            rec = event_record(e, **kw)
+            rec = event_record(e, **kw, **({} if desk is None else {"sample_rate_hz": fs}))
             records.append(rec)
             if log:
                 log.write({"logged_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="milliseconds"),
@@ -136,7 +139,7 @@ def listen(source, *, duration_s: float | None = None, log_path=None, on_update=
         from howl.loop.notch import Notch
 
         cuts = [Notch(r["notch"]["freq_hz"], r["notch"]["gain_db"], r["notch"]["q"]) for r in records]
-        kept, advice = summarise_notches(cuts, fs, max_notches=max_notches)
+        kept, advice = summarise_notches(cuts, fs, max_notches=max_notches, **kw_desk)
         return Snapshot(elapsed_s=n / fs, level_dbfs=level, candidates=tuple(det.candidates()),
                         events=tuple(records), notches=tuple(kept), advice=tuple(advice),
                         overflows=int(source.overflows))

@@ -261,3 +261,74 @@ class _View:
         """(margin dB, its frequency) with ``notch`` added."""
         c = _cut_on_grid(notch, self.cos_w, self.inv_sin_w, self.fs)
         return _grid_margin_db(self.Lv * c, self.f, self.adj)
+
+
+# --------------------------------------------------------------------------- many candidates at once
+
+
+def _cuts_on_grid(notches, cos_w: np.ndarray, inv_sin_w: np.ndarray, fs: float) -> np.ndarray:
+    """:func:`_cut_on_grid` for many peaking cuts at once: shape (len(notches), n).
+
+    Row k is bit for bit what :func:`_cut_on_grid` gives for ``notches[k]`` (the scalars are
+    rounded to the grid's precision in the same places), so a search that judges its moves in
+    one array chooses exactly what it chose one move at a time.
+    """
+    from howl.loop.notch import _w0_alpha
+
+    k = len(notches)
+    dt = np.float32 if cos_w.dtype == np.float32 else float
+    cw0, pq, qq, qmp = (np.empty((k, 1), dt) for _ in range(4))
+    for i, n in enumerate(notches):
+        w0, alpha = _w0_alpha(n.freq_hz, n.q, fs)
+        if n.gain_db is None:
+            p, q = 0.0, alpha
+        else:
+            a = 10.0 ** (n.gain_db / 40.0)
+            p, q = alpha * a, alpha / a
+        cw0[i, 0], pq[i, 0], qq[i, 0], qmp[i, 0] = math.cos(w0), p * q, q * q, q - p
+    x = (cw0 - cos_w[None, :]) * inv_sin_w[None, :]
+    x2 = x * x
+    d = 1.0 / (qq + x2)
+    out = np.empty(x.shape, np.complex64 if dt is np.float32 else complex)
+    out.real = (pq + x2) * d
+    out.imag = x * (qmp * d)
+    return out
+
+
+def _grid_margins_rows(L: np.ndarray, f: np.ndarray, adj: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_grid_margin_db` of every row of ``L`` (K, n): (margins dB, frequencies Hz).
+
+    The same arithmetic on the same sign changes as :func:`_grid_margin_db`, so each row's
+    result is bit for bit the one-row result.
+    """
+    im, re = L.imag, L.real
+    neg = im < 0.0
+    flip = neg[:, :-1] != neg[:, 1:]
+    if adj is not None:
+        flip &= adj[None, :]
+    r, c = np.nonzero(flip)
+    a = im[r, c]
+    t = a / (a - im[r, c + 1])
+    rc = re[r, c] + t * (re[r, c + 1] - re[r, c])
+    out_m = np.full(L.shape[0], np.inf)
+    out_f = np.full(L.shape[0], np.nan)
+    starts = np.searchsorted(r, np.arange(L.shape[0] + 1))
+    for row in range(L.shape[0]):
+        lo, hi = starts[row], starts[row + 1]
+        if hi == lo:
+            continue
+        k = lo + int(np.argmax(rc[lo:hi]))
+        if rc[k] <= 0.0:
+            continue
+        j = c[k]
+        out_m[row] = -20.0 * math.log10(float(rc[k]))
+        out_f[row] = float(f[j] + float(t[k]) * (f[j + 1] - f[j]))
+    return out_m, out_f
+
+
+def _view_margins(view: "_View", notches) -> tuple[np.ndarray, np.ndarray]:
+    """(margins, frequencies) on a view with each of ``notches`` added, in one array."""
+    if not notches:
+        return np.zeros(0), np.zeros(0)
+    c = _cuts_on_grid(notches, view.cos_w, view.inv_sin_w, view.fs)
+    return _grid_margins_rows(view.Lv[None, :] * c, view.f, view.adj)

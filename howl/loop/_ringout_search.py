@@ -16,6 +16,7 @@ References
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -25,6 +26,7 @@ from howl.loop._ringout_grid import (
     _GridLoop,
     _min_gain_db,
     _View,
+    _view_margins,
     _worst_margin,
 )
 from howl.loop.notch import (
@@ -46,6 +48,23 @@ MAX_TONAL_SHARE = 0.5
 #: Bandwidths (octaves) the planner tries for each cut, up to the 1/3-octave cap.
 PLAN_BANDWIDTHS_OCT = (1 / 24, 1 / 16, 1 / 12, 1 / 9, 1 / 7, 1 / 6, 1 / 5, 1 / 4, 1 / 3)
 
+@dataclass(frozen=True)
+class Limits:
+    """What the search may use: the deepest cut (dB > 0), the narrowest and widest band (oct)."""
+
+    max_depth_db: float = PLAN_MAX_DEPTH_DB
+    min_bw_oct: float = PLAN_BANDWIDTHS_OCT[0]
+    max_bw_oct: float = MAX_NOTCH_BANDWIDTH_OCT
+
+
+def plan_bandwidths_oct(min_bw_oct: float) -> tuple[float, ...]:
+    """The planner's widths no narrower than ``min_bw_oct`` (which leads when it is not one of them)."""
+    if min_bw_oct <= PLAN_BANDWIDTHS_OCT[0] * (1 + 1e-12):
+        return PLAN_BANDWIDTHS_OCT
+    keep = tuple(bw for bw in PLAN_BANDWIDTHS_OCT if bw > min_bw_oct * (1 + 1e-9))
+    return (float(min_bw_oct),) + keep
+
+
 #: Rounds of "insert the cascade, find the crossings again, re-plan".
 PLAN_ROUNDS = 5
 
@@ -58,12 +77,14 @@ SPEECH_LEVELS_DB = (72.5, 74.0, 68.0, 62.0, 57.0)
 class _Planner:
     """Greedy covering of crossings by at most R cuts, bisection on the level T."""
 
-    def __init__(self, fs: float, drift_oct: float, max_depth_db: float = PLAN_MAX_DEPTH_DB):
+    def __init__(self, fs: float, drift_oct: float, max_depth_db: float = PLAN_MAX_DEPTH_DB,
+                 min_bw_oct: float = PLAN_BANDWIDTHS_OCT[0]):
         self.fs = fs
         self.drift = drift_oct
         self.gmax = max_depth_db
-        self.bw_arr = np.array(PLAN_BANDWIDTHS_OCT)
-        self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in PLAN_BANDWIDTHS_OCT])
+        widths = plan_bandwidths_oct(min_bw_oct)
+        self.bw_arr = np.array(widths)
+        self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in widths])
 
     def _one_cut(self, f: np.ndarray, need: np.ndarray):
         """The shallowest cut covering all of (f, need), drift included; None if none can."""
@@ -216,10 +237,20 @@ def tonal_grid(band_hz, fs: float, weighting: str = "pink", n: int = 8000) -> tu
 GREEDY_CUTS = ((-10.0, 1 / 6), (-6.0, 1 / 6), (-10.0, 1 / 10), (-12.0, 1 / 3), (-15.0, 1 / 3), (-18.0, 1 / 3), (-15.0, 1 / 4))
 
 
-def _greedy_prefixes(loops, budget: int, fs: float) -> dict[int, list[tuple[list[Notch], float]]]:
-    """For each budget b, the cuts and margin of each simple ring-out after b cuts."""
+def _greedy_prefixes(loops, budget: int, fs: float, lim: "Limits | None" = None) -> dict[int, list[tuple[list[Notch], float]]]:
+    """For each budget b, the cuts and margin of each simple ring-out after b cuts.
+
+    Within a desk's limits (``lim``) every fixed cut is made to fit them (no deeper, no
+    narrower), and the naive ring-out of those limits (the deepest allowed cut at the
+    narrowest allowed width) is one of them.
+    """
     out: dict[int, list] = {b: [] for b in range(1, budget + 1)}
-    for depth, bw in GREEDY_CUTS:
+    kinds = list(GREEDY_CUTS)
+    if lim is not None:
+        kinds = [(max(d, -lim.max_depth_db), max(bw, lim.min_bw_oct)) for d, bw in kinds]
+        kinds.append((-lim.max_depth_db, lim.min_bw_oct))
+        kinds = list(dict.fromkeys(kinds))
+    for depth, bw in kinds:
         q = q_from_bandwidth_oct(bw)
         now = [lp.H for lp in loops]
         cuts: list[Notch] = []
@@ -286,6 +317,10 @@ class _Score:
             p = p * rest_power
         return float(-10.0 * math.log10(np.dot(self.w, p)))
 
+    def within_share(self, cuts, margin_db: float) -> bool:
+        """True when the cuts' tonal cost stays within their share of the gain they buy."""
+        return self.share == math.inf or self.tonal_db(cuts) <= self.share * (margin_db - self.m0) + 1e-9
+
     def __call__(self, cuts, margin_db: float, rest_power: np.ndarray | None = None) -> float:
         t = self.tonal_db(cuts, rest_power)
         over = 0.0 if self.share == math.inf else max(0.0, t - self.share * (margin_db - self.m0))
@@ -295,28 +330,51 @@ class _Score:
 #: How many of the best-scored cascades at the chosen budget the search starts from.
 POLISH_STARTS = 2
 
-def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: float,
+
+def _margins(loops, views, cands) -> np.ndarray:
+    """Worst margin over the loops for each candidate cut added to its view (one array per loop).
+
+    A candidate that lifts a loop past its view's ceiling is judged again on the whole grid.
+    """
+    worst = np.full(len(cands), np.inf)
+    for lp, view in zip(loops, views):
+        m, _ = _view_margins(view, cands)
+        for k in np.flatnonzero(m >= view.ceiling_db):
+            m[k] = lp.margin(view.L * lp.cut(cands[k]))[0]
+        worst = np.minimum(worst, m)
+    return worst
+
+
+def _moves(kind: int, c: Notch, scale: float, f_lim: float, lim: Limits) -> list[Notch]:
+    """The candidates of one move of the pattern search around cut ``c``."""
+    bw, g = c.bandwidth_oct, (-lim.max_depth_db if c.gain_db is None else c.gain_db)
+    if kind == 3:  # move the cut to where the loop is limited now
+        if not math.isfinite(f_lim):
+            return []
+        return [Notch(f_lim, max(d, -lim.max_depth_db), q_from_bandwidth_oct(max(b, lim.min_bw_oct)))
+                for d in RELOCATE_DEPTHS_DB for b in RELOCATE_WIDTHS_OCT]
+    if kind == 0:
+        return [Notch(c.freq_hz * 2.0 ** (u * scale * bw), g, c.q) for u in SEARCH_CENTRE_STEPS]
+    if kind == 1:
+        return [Notch(c.freq_hz, float(min(-0.1, max(-lim.max_depth_db, g + d * scale))), c.q)
+                for d in SEARCH_DEPTH_STEPS_DB]
+    return [Notch(c.freq_hz, g, q_from_bandwidth_oct(
+        float(min(lim.max_bw_oct, max(lim.min_bw_oct, bw * 2.0 ** (w * scale)))))) for w in SEARCH_WIDTH_STEPS]
+
+
+def _polish(loops, cuts: list[Notch], score: _Score, passes: int, lim: Limits,
             relocate: bool = True) -> tuple[list[Notch], float]:
     """Pattern search around each cut (centre, depth, width), keeping every step that scores better.
 
     A fourth move takes a cut away from where it is and puts it, at a few depths and widths, on
     the crossing that limits the loop now (a cut that has become nearly useless finds new work).
 
-    Each candidate is judged on the whole planning grid with the other cuts in the loop, so the
-    phase the cuts add (which moves the crossings) is accounted for exactly. Widths stay between
-    ``min_bw_oct`` and the 1/3-octave cap, depths within :data:`PLAN_MAX_DEPTH_DB`.
+    Each candidate is judged on the planning grid with the other cuts in the loop, so the phase
+    the cuts add (which moves the crossings) is accounted for exactly. The candidates of one move
+    are judged together in one array (:func:`_margins`), then taken in turn as a one-at-a-time
+    search would take them. Widths stay within the limits' band, depths within their depth.
     """
     cuts = list(cuts)
-
-    def margin(views, cand):
-        worst = math.inf
-        for lp, view in zip(loops, views):
-            m = view.margin(cand)
-            if m >= view.ceiling_db:  # the candidate lifted the loop past the view: judge it whole
-                m = lp.margin(view.L * lp.cut(cand))[0]
-            worst = min(worst, m)
-        return worst
-
     m_best = _worst_margin(loops, cuts, score.fs)[0]
     best = score(cuts, m_best)
     scale = 1.0
@@ -344,28 +402,17 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
                     m_now.append(mv if mv[0] < view.ceiling_db else lp.margin(view.L * lp.cut(c)))
                 f_lim = min(m_now)[1]
             for kind in range(4):
-                bw, g = c.bandwidth_oct, (-PLAN_MAX_DEPTH_DB if c.gain_db is None else c.gain_db)
-                if kind == 3:  # move the cut to where the loop is limited now
-                    if not math.isfinite(f_lim):
+                # each move starts from where the earlier ones left the cut
+                cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
+                if not cands:
+                    continue
+                ms = _margins(loops, others, cands)
+                for cand, m in zip(cands, ms):
+                    if cand == c:
                         continue
-                    cands = [Notch(f_lim, d, q_from_bandwidth_oct(b)) for d in RELOCATE_DEPTHS_DB
-                             for b in RELOCATE_WIDTHS_OCT]
-                elif kind == 0:
-                    cands = [Notch(c.freq_hz * 2.0 ** (u * scale * bw), g, c.q) for u in SEARCH_CENTRE_STEPS]
-                elif kind == 1:
-                    cands = [Notch(c.freq_hz, float(min(-0.1, max(-PLAN_MAX_DEPTH_DB, g + d * scale))), c.q)
-                             for d in SEARCH_DEPTH_STEPS_DB]
-                else:
-                    cands = [Notch(c.freq_hz, g, q_from_bandwidth_oct(
-                        float(min(MAX_NOTCH_BANDWIDTH_OCT, max(min_bw_oct, bw * 2.0 ** (w * scale))))))
-                        for w in SEARCH_WIDTH_STEPS]
-                for cand in cands:
-                    if cand == c or cand.freq_hz >= 0.49 * score.fs:
-                        continue
-                    m = margin(others, cand)
-                    j = score([cand], m, rest_power)
+                    j = score([cand], float(m), rest_power)
                     if j > best + 0.005:
-                        best, m_best, c, improved = j, m, cand, True
+                        best, m_best, c, improved = j, float(m), cand, True
             cuts[i] = c
             before = [b * lp.cut(c) for lp, b in zip(loops, before)]
         if not improved:
@@ -375,17 +422,56 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, min_bw_oct: fl
     return cuts, m_best
 
 
-def _tidy(loops, cuts: list[Notch], fs: float) -> list[Notch]:
-    """Drop cuts of ~0 dB; merge overlapping cuts when that costs no margin."""
+def _tidy(loops, cuts: list[Notch], fs: float, desk=None) -> list[Notch]:
+    """Drop cuts of ~0 dB; merge overlapping cuts when that costs no margin (and the desk can make them)."""
     cuts = [n for n in cuts if n.gain_db is None or n.gain_db < -0.05]
-    merged = merge_notches(cuts, fs)
+    if desk is not None and desk.graphic:
+        return cuts
+    cap = MAX_NOTCH_BANDWIDTH_OCT
+    merged = merge_notches(cuts, fs, cap)
+    if desk is not None:
+        merged = [desk.fit(n, fs) for n in merged]
     if len(merged) < len(cuts) and _worst_margin(loops, merged, fs)[0] >= _worst_margin(loops, cuts, fs)[0] - 0.05:
         return merged
     return cuts
 
 
-def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting):
-    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops)."""
+def _on_desk(loops, cuts: list[Notch], score: _Score, desk, fs: float) -> tuple[list[Notch], float]:
+    """The cuts as the desk sets them (:meth:`howl.loop.desk.Desk.fit`), then each gain moved a step
+    up or down while that scores better (a rounded gain can cost margin a step would win back)."""
+    cuts = [desk.fit(n, fs) for n in cuts]
+    m = _worst_margin(loops, cuts, fs)[0]
+    step = desk.gain_step_db
+    if not step or not cuts:
+        return cuts, m
+    best = score(cuts, m)
+    for _ in range(3):
+        better = False
+        for i, c in enumerate(cuts):
+            for d in (-step, step):
+                g = c.gain_db + d
+                if g > -step / 2 or g < -desk.depth_db(PLAN_MAX_DEPTH_DB) - 1e-9:
+                    continue
+                trial = cuts[:i] + [Notch(c.freq_hz, float(g), c.q)] + cuts[i + 1 :]
+                m_t = _worst_margin(loops, trial, fs)[0]
+                j = score(trial, m_t)
+                if j > best + 0.005:
+                    cuts, m, best, better, c = trial, m_t, j, True, trial[i]
+        if not better:
+            break
+    return cuts, m
+
+
+def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting,
+                 desk=None):
+    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops).
+
+    With a parametric ``desk`` the plan, the simple ring-outs and the search stay within its
+    depth and width, and the cuts are then set as the desk sets them (:func:`_on_desk`); a
+    graphic desk is searched by :func:`howl.loop._ringout_graphic.graphic_search` instead.
+    (Longer than 80 lines: its stages share the score, the plans and the limits; split, they
+    would hand a dozen values to each other.)
+    """
     m0_grid = _worst_margin(loops, [], fs)[0]
     planned: list[Notch] = []
     planned_margin = float("nan")
@@ -396,8 +482,24 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         reason = "the loop never crosses the positive real axis in the band: nothing to cut"
     elif target is not None and m0_grid >= target:
         reason = f"the margin already meets the target ({m0_grid:.2f} dB >= {target:g} dB)"
+    elif desk is not None and desk.graphic:
+        score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
+        from howl.loop._ringout_graphic import graphic_search
+
+        planned, planned_margin = graphic_search(loops, score, desk, budget, fs, band, target)
+        n = len(planned)
+        if target is not None and planned_margin >= target:
+            reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n} slider(s)"
+        elif n >= budget:
+            reason = f"budget of {budget} slider(s) spent"
+        else:
+            reason = f"pulling any slider further no longer pays ({n} slider(s) pulled)"
     else:
-        planner = _Planner(fs, drift)
+        lim = None
+        if desk is not None:
+            lim = Limits(desk.depth_db(PLAN_MAX_DEPTH_DB), max(desk.min_bandwidth_oct or 0.0, PLAN_BANDWIDTHS_OCT[0]),
+                         max(MAX_NOTCH_BANDWIDTH_OCT, desk.min_bandwidth_oct or 0.0))
+        planner = _Planner(fs, drift, *(() if lim is None else (lim.max_depth_db, lim.min_bw_oct)))
         score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
         plans = {0: ([], m0_grid)}
         starts: dict[int, list] = {0: [[]]}
@@ -405,10 +507,10 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
         # At each budget the covering plan and the simple ring-outs compete on the score: the
         # margin, less any tonal cost beyond its share of the gain.
-        greedy = _greedy_prefixes(loops, budget, fs)
+        greedy = _greedy_prefixes(loops, budget, fs, lim)
         for b in range(1, budget + 1):
             cuts, _, _ = _plan_cuts(loops, b, planner, fs)
-            options = [_tidy(loops, cuts, fs)] + [_tidy(loops, g_cuts, fs) for g_cuts, _ in greedy[b]]
+            options = [_tidy(loops, cuts, fs, desk)] + [_tidy(loops, g_cuts, fs, desk) for g_cuts, _ in greedy[b]]
             scored = []
             for c in options:
                 m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
@@ -429,21 +531,29 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
             if gains[b] - gains[chosen] >= min_gain * (b - chosen) - 1e-9:
                 chosen = b
         planned, planned_margin = plans[chosen]
+        lim_p = lim or Limits()
         if polish and planned:
             # one pass of the search from each of the best few starts at that budget, then the
             # search carried on from the best of them
             best = None
             for start in starts[chosen]:
                 if start:
-                    c, m_c = _polish(loops, start, score, 1, min(PLAN_BANDWIDTHS_OCT))
+                    c, m_c = _polish(loops, start, score, 1, lim_p)
                     if best is None or score(c, m_c) > score(best[0], best[1]):
                         best = (c, m_c)
             if best is not None:
-                c, _ = _polish(loops, best[0], score, polish, min(PLAN_BANDWIDTHS_OCT))
-                c = _tidy(loops, c, fs)
+                c, _ = _polish(loops, best[0], score, polish, lim_p)
+                c = _tidy(loops, c, fs, desk)
                 m_c = _worst_margin(loops, c, fs)[0]
                 if score(c, m_c) >= score(planned, planned_margin):
                     planned, planned_margin = c, m_c
+        if desk is not None and planned:
+            planned, planned_margin = _on_desk(loops, planned, score, desk, fs)
+        if lim is not None:  # the score's tie-break never costs margin against the naive ring-out
+            naive = _naive_cuts(loops, chosen, fs, lim, desk)  # as many cuts as the plan chosen
+            m_n = _worst_margin(loops, naive, fs)[0] if naive else -math.inf
+            if m_n > planned_margin + 1e-9 and score.within_share(naive, m_n):
+                planned, planned_margin = naive, m_n
         n_used = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n_used} cut(s)"
@@ -461,3 +571,16 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
             reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
 
     return planned, planned_margin, reason, m0_grid
+
+
+def _naive_cuts(loops, budget: int, fs: float, lim: Limits, desk) -> list[Notch]:
+    """The naive ring-out within the limits: the deepest allowed cut at the narrowest allowed width
+    at each limiting crossing in turn (as the desk sets it)."""
+    q = q_from_bandwidth_oct(lim.min_bw_oct)
+    cuts: list[Notch] = []
+    for _ in range(budget):
+        f = _worst_margin(loops, cuts, fs)[1]
+        if not math.isfinite(f) or f >= 0.49 * fs:
+            break
+        cuts.append(desk.fit(Notch(f, -lim.max_depth_db, q), fs))
+    return cuts

@@ -174,25 +174,70 @@ def cascade_sos(notches: Iterable[Notch], sample_rate_hz: float) -> np.ndarray:
     return np.vstack(rows)
 
 
+#: Grids at least this long keep their cascade responses (see :func:`sos_response`).
+SOS_CACHE_MIN_POINTS = 8192
+_SOS_CACHE_ENTRIES = 10
+_sos_cache: dict = {}
+
+
+def _grid_key(f: np.ndarray, fs: float) -> tuple:
+    import hashlib
+
+    return (f.size, float(fs), hashlib.blake2b(np.ascontiguousarray(f).tobytes(), digest_size=16).digest())
+
+
+def _sections_response(sos: np.ndarray, f: np.ndarray, fs: float) -> np.ndarray:
+    """Product of the sections' responses, real arithmetic (see :func:`sos_response`)."""
+    w = (2.0 * np.pi / float(fs)) * f
+    c1, s1 = np.cos(w), np.sin(w)
+    c2, s2 = 2.0 * c1 * c1 - 1.0, 2.0 * s1 * c1
+    nr = ni = dr = di = None
+    for b0, b1, b2, a0, a1, a2 in sos:
+        xr, xi = b0 + b1 * c1 + b2 * c2, -(b1 * s1 + b2 * s2)
+        yr, yi = a0 + a1 * c1 + a2 * c2, -(a1 * s1 + a2 * s2)
+        if nr is None:
+            nr, ni, dr, di = xr, xi, yr, yi
+        else:
+            nr, ni = nr * xr - ni * xi, nr * xi + ni * xr
+            dr, di = dr * yr - di * yi, dr * yi + di * yr
+    den = dr * dr + di * di
+    out = np.empty(f.shape, dtype=complex)
+    out.real = (nr * dr + ni * di) / den
+    out.imag = (ni * dr - nr * di) / den
+    return out
+
+
 def sos_response(sos: np.ndarray, freq_hz: np.ndarray, sample_rate_hz: float) -> np.ndarray:
     """Complex response of an SOS cascade at arbitrary frequencies.
 
     Evaluates each section's ``B(z)/A(z)`` at ``z = exp(j·2π f/fs)`` directly
     (the same as ``scipy.signal.sosfreqz(sos, worN=freq_hz, fs=fs)``, without
-    its per-call overhead).
+    its per-call overhead), in real arithmetic on cos/sin of w and 2w.
+
+    On long grids (:data:`SOS_CACHE_MIN_POINTS` points or more) the response of every
+    leading run of sections is kept (the last few), so a cascade that grows one cut at a time
+    (the ring-out's exact margin after each step) costs one section per step, not all of them.
     """
     f = np.asarray(freq_hz, dtype=float)
     sos = np.atleast_2d(np.asarray(sos, dtype=float))
-    out = np.ones(f.shape, dtype=complex)
     if sos.size == 0:
-        return out
-    zi = np.exp(-2j * np.pi * f / float(sample_rate_hz))  # z^-1
-    zi2 = zi * zi
-    den = np.ones(f.shape, dtype=complex)
-    for b0, b1, b2, a0, a1, a2 in sos:  # one division for the whole cascade
-        out *= b0 + b1 * zi + b2 * zi2
-        den *= a0 + a1 * zi + a2 * zi2
-    return out / den
+        return np.ones(f.shape, dtype=complex)
+    fs = float(sample_rate_hz)
+    if f.ndim != 1 or f.size < SOS_CACHE_MIN_POINTS:
+        return _sections_response(sos, f, fs)
+    grid = _grid_key(f, fs)
+    rows = tuple(tuple(float(x) for x in r) for r in sos)
+    k = len(rows)
+    while k > 0 and (grid, rows[:k]) not in _sos_cache:
+        k -= 1
+    out = _sos_cache[(grid, rows[:k])].copy() if k else None
+    for j in range(k, len(rows)):
+        c = _sections_response(sos[j : j + 1], f, fs)
+        out = c if out is None else out * c
+        if len(_sos_cache) >= _SOS_CACHE_ENTRIES:
+            _sos_cache.pop(next(iter(_sos_cache)))
+        _sos_cache[(grid, rows[: j + 1])] = out.copy()
+    return out
 
 
 def cascade_response(notches: Iterable[Notch], freq_hz: np.ndarray, sample_rate_hz: float) -> np.ndarray:

@@ -49,10 +49,15 @@ plans the cuts together, as a covering problem over the crossings:
    1..``max_notches`` cuts are compared; a larger plan is taken only if it pays that much per
    extra cut over the last plan taken).
 
-The margins before and after are exact (:func:`howl.loop.nyquist_margin` on the
-whole IR with the cascade passed as ``filters_sos``); the per-step margins come
-from the planning grid (linear interpolation of Im L between grid points; within
-a few hundredths of a dB of the exact values).
+Every margin reported is exact (:func:`howl.loop.nyquist_margin` on the whole IR
+with the cuts so far passed as ``filters_sos``), before, after each step and
+after the last, so the steps add up to the total.
+
+Within a desk's EQ (``desk``, :mod:`howl.loop.desk`) the plan, the simple
+ring-outs and the search keep to its depth and width, the cuts are then set as
+the desk sets them (gain steps), and a graphic EQ is searched slider by slider
+(:mod:`howl.loop._ringout_graphic`); the naive ring-out of the same desk is
+never beaten on margin by the score's tie-break.
 
 References
 ----------
@@ -126,7 +131,10 @@ class RingOutStep:
 
     ``target_freq_hz`` is that crossing; ``gain_margin_db`` the margin with all
     cuts so far; ``added_stable_gain_db`` what this step bought;
-    ``total_added_stable_gain_db`` the ASG so far.
+    ``total_added_stable_gain_db`` the ASG so far. Every margin is exact (the Nyquist margin
+    of the whole IR with the cuts so far, :func:`howl.loop.nyquist_margin`), so the steps add
+    up to the total. ``tonal_cost_db`` / ``tonal_cost_speech_db``: the program power this cut
+    alone removes (pink, speech-weighted), beside what it buys.
     """
 
     index: int
@@ -135,6 +143,8 @@ class RingOutStep:
     gain_margin_db: float
     added_stable_gain_db: float
     total_added_stable_gain_db: float
+    tonal_cost_db: float = 0.0
+    tonal_cost_speech_db: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -176,6 +186,7 @@ class RingOutResult:
     robust_loops: tuple = field(default_factory=tuple)  # (name, margin_before_db, margin_after_db)
     tonal_share: float = MAX_TONAL_SHARE
     tonal_weighting: str = "pink"
+    desk: object = None  # the howl.loop.desk.Desk the cuts were made for (None: an ideal EQ)
 
 
 # --------------------------------------------------------------------------- perturbed loops
@@ -327,6 +338,7 @@ def ring_out(
     polish: int = 6,
     tonal_share: float = MAX_TONAL_SHARE,
     tonal_weighting: str = "pink",
+    desk=None,
 ) -> RingOutResult:
     """Ring a loop out virtually: the cuts that buy the most stable gain, step by step.
 
@@ -348,6 +360,9 @@ def ring_out(
         buy (default 0.5); a cascade past it is scored down (``math.inf``: no limit).
     tonal_weighting : the tonal cost that rule counts: ``"pink"`` (broadband, the default) or
         ``"speech"`` (a male speech spectrum, for a speech system). Both are reported.
+    desk : a :class:`howl.loop.desk.Desk`: the cuts stay within what that console's EQ can do
+        (its ``max_bands`` replaces ``max_notches``; a graphic EQ is searched slider by slider),
+        and every figure is computed with the cuts as the desk sets them. ``None``: an ideal EQ.
     """
     from howl.loop.nyquist import check_ir, nyquist_margin
 
@@ -360,6 +375,13 @@ def ring_out(
     swing_c = v.in_range(swing_c, "swing_c", 0.0, 30.0, unit="°C")
     drift = drift_bandwidth_oct(temperature_c, swing_c)
     tonal_weighting = v.choice(tonal_weighting, "tonal_weighting", ("pink", "speech"))
+    if desk is not None:
+        from howl.loop.desk import Desk
+
+        if not isinstance(desk, Desk):
+            raise v.fail("desk", "a howl.loop.desk.Desk or None", desk)
+        if desk.max_bands is not None:
+            budget = int(desk.max_bands)
     if not (isinstance(tonal_share, float) and tonal_share == math.inf):
         tonal_share = v.in_range(tonal_share, "tonal_share", 0.0, None)
 
@@ -370,7 +392,7 @@ def ring_out(
         irs += perturbed_irs(h, fs, temperature_c=temperature_c, swing_c=swing_c, seed=seed)
     loops = [_GridLoop(name, x, fs, band, PLAN_CAP_DB) for name, x in irs]
     kw = dict(budget=budget, target=target, min_gain=min_gain, fs=fs, drift=drift, band=band, polish=polish,
-              tonal_share=tonal_share, tonal_weighting=tonal_weighting)
+              tonal_share=tonal_share, tonal_weighting=tonal_weighting, desk=desk)
     planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
     if planned and any(lp.saturated(planned_margin) for lp in loops):
         # the plan reached the grid's cap: plan again on every point of the band
@@ -388,25 +410,26 @@ def ring_out(
     steps_raw = steps_raw[:n_keep]
     notches = tuple(s[0] for s in steps_raw)
 
-    sos = cascade_sos(notches, fs) if notches else None
-    after = nyquist_margin(h, fs, band_hz=band, filters_sos=sos)
-    m_before, m_after = before.gain_margin_db, after.gain_margin_db
+    # every figure exact: the Nyquist margin of the whole IR (of each perturbed loop in robust
+    # mode, the worst of them) with the cuts so far, so the steps add up to the total
+    exact = _exact_margins(irs, fs, band, notches, before)
+    after = exact[-1][0]
+    m_before, m_after = exact[0][1], exact[-1][1]
     robust_loops = []
     if robust:
-        robust_loops.append(("nominal", m_before, m_after))
-        for name, x in irs[1:]:
-            b = nyquist_margin(x, fs, band_hz=band).gain_margin_db
-            a = nyquist_margin(x, fs, band_hz=band, filters_sos=sos).gain_margin_db
-            robust_loops.append((name, b, a))
-        m_before = min(r[1] for r in robust_loops)
-        m_after = min(r[2] for r in robust_loops)
+        robust_loops = [(name, exact[0][2][k], exact[-1][2][k]) for k, (name, _) in enumerate(irs)]
     asg = m_after - m_before if math.isfinite(m_before) and math.isfinite(m_after) else 0.0
+    if target is not None and notches and reason.startswith("target margin met"):  # say it with the exact figure
+        word = "met" if m_after >= target else "met on the planning grid, not quite exactly"
+        reason = f"target margin {word} ({m_after:.2f} dB vs {target:g} dB) after {len(notches)} cut(s)"
 
     tonal_pink = tonal_cost_db(notches, band, fs)
     tonal_speech = tonal_cost_db(notches, band, fs, weighting="speech")
     steps = []
-    for i, (n, fh, m, gain) in enumerate(steps_raw):
-        steps.append(RingOutStep(i + 1, n, float(fh), float(m), float(gain), float(m - m0_grid)))
+    for i, (n, fh, _, _) in enumerate(steps_raw):
+        m, m_prev = exact[i + 1][1], exact[i][1]
+        steps.append(RingOutStep(i + 1, n, float(fh), float(m), float(m - m_prev), float(m - m_before),
+                                 tonal_cost_db([n], band, fs), tonal_cost_db([n], band, fs, weighting="speech")))
     return RingOutResult(
         added_stable_gain_db=float(asg),
         gain_margin_db_before=float(m_before),
@@ -430,4 +453,26 @@ def ring_out(
         robust_loops=tuple(robust_loops),
         tonal_share=float(tonal_share),
         tonal_weighting=tonal_weighting,
+        desk=desk,
     )
+
+
+def _exact_margins(irs, fs: float, band, notches, before):
+    """For 0..len(notches) cuts: (the nominal MarginResult, the worst margin, each loop's margin)."""
+    from howl.loop.nyquist import nyquist_margin
+
+    out = []
+    for k in range(len(notches) + 1):
+        sos = cascade_sos(notches[:k], fs) if k else None
+        per = []
+        res0 = before
+        for j, (_, x) in enumerate(irs):
+            if j == 0 and k == 0:
+                r = before
+            else:
+                r = nyquist_margin(x, fs, band_hz=band, filters_sos=sos, n_risks=0 if k < len(notches) else 10)
+            if j == 0:
+                res0 = r
+            per.append(float(r.gain_margin_db))
+        out.append((res0, min(per), per))
+    return out

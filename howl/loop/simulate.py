@@ -307,3 +307,40 @@ def gain_schedule_db(
             out[min(n, int(round(t * fs))) :] = gv
         return out
     return np.full(n, 0.0 if gain_db is None else V.number(gain_db, "gain_db", unit="dB"))
+
+
+#: The loop IR with cuts in it is extended until the slowest cut has rung down this far (dB).
+CUT_TAIL_DB = 140.0
+#: ... but by at most this long (s).
+CUT_TAIL_MAX_S = 10.0
+
+
+def with_cuts(ir, program, sample_rate_hz, notches) -> tuple[np.ndarray, np.ndarray]:
+    """The loop IR and program with a cut list in the console's channel: (C∗h, C∗x).
+
+    With the cuts C in the channel (between the mic input and the output the loop IR starts
+    from), the output v obeys v = C∗(x + g·h∗v) = C∗x + g·(C∗h)∗v, so simulating the loop IR C∗h
+    with the program C∗x gives exactly the console output with the cuts in (and the program
+    heard through them, tonal cost included). The IR is extended until the slowest cut's
+    response has decayed by :data:`CUT_TAIL_DB` (its poles' time constant 2·Q·A/ω0 samples for
+    a peaking cut of gain A², 2·Q/ω0 for a notch; at most :data:`CUT_TAIL_MAX_S`).
+    """
+    from scipy.signal import sosfilt
+
+    from howl.loop.notch import cascade_sos
+
+    fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    h = np.asarray(ir, float)
+    x = np.asarray(program, float)
+    notches = list(notches)
+    if not notches:
+        return h, x
+    sos = cascade_sos(notches, fs)
+    tau = 0.0
+    for n in notches:
+        w0 = 2.0 * math.pi * n.freq_hz / fs
+        a = 1.0 if n.gain_db is None else 10.0 ** (n.gain_db / 40.0)
+        tau = max(tau, 2.0 * n.q * a / w0)
+    pad = int(min(math.ceil(tau * CUT_TAIL_DB / 20.0 * math.log(10.0)), CUT_TAIL_MAX_S * fs))
+    hc = sosfilt(sos, np.concatenate([h, np.zeros(pad)]))
+    return hc, sosfilt(sos, x)

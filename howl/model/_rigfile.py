@@ -46,7 +46,7 @@ FREE_SHAPE_KEYS = ("volume_m3", "surface_m2", "mean_absorption", "material", "rt
 PATCH_KEYS = ("material", "area_m2")
 RIG_KEYS = (
     "name", "description", "notes", "room_file", "fsm_db", "ead_m", "target_spl_db",
-    "speakers", "mics", "talkers", "listeners", "mixes",
+    "speakers", "mics", "talkers", "listeners", "mixes", "desk",
 )
 SPEAKER_KEYS = (
     "name", "position_m", "azimuth_deg", "elevation_deg", "coverage_h_deg", "coverage_v_deg",
@@ -429,6 +429,7 @@ def _angle(table: dict, name: str, key: str, file: str | None, lo: float, hi: fl
 
 
 def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
+    from howl.loop.desk import desk_from_table
     from howl.model.materials import band_values
 
     _known_keys(data, "", RIG_KEYS, file=file)
@@ -606,6 +607,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
         name=name, room=room, speakers=tuple(speakers), mics=tuple(mics), talkers=tuple(talkers),
         listeners=tuple(listeners), mixes=tuple(mixes), fsm_db=fsm_db, ead_m=ead_m, target_spl_db=target_spl_db,
         source_file=file, description=description, notes=notes,
+        desk=None if "desk" not in data else desk_from_table(data["desk"], file=file),
     )
 
 

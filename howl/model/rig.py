@@ -184,6 +184,7 @@ class Rig:
     source_file: str | None = None
     description: str = ""
     notes: tuple[str, ...] = field(default_factory=tuple)
+    desk: object = None  # howl.loop.desk.Desk from the [desk] table; None: no limits given
 
     def speaker(self, name: str) -> Speaker:
         for s in self.speakers:

@@ -395,6 +395,7 @@ def _cuts_blocks(data: SheetData, proto: _Page) -> list[_Block]:
                 if cs.tonal_cost_db is not None else []
             )
             + [(a if cs.source == "listen" else f"Advice: {a}") for a in cs.advice[:n_adv]]
+            + ([f"Desk: {cs.desk}"] if getattr(cs, "desk", "") else [])
         )
         # the foot runs under the table, clear of the ASG box on the right
         foot_lines = [ln for f in foot for ln in proto.wrap(f, foot_size, table_frac * proto.width - 8)]
@@ -423,7 +424,8 @@ def _cuts_blocks(data: SheetData, proto: _Page) -> list[_Block]:
             for i, c in enumerate(cs.cuts, 1):
                 base = yy + 14
                 page.text(xs["n"][0] + 4, base, str(i), size=10)
-                page.text(xs["hz"][0] + 4, base, _hz(c.freq_hz, exact=True).replace(" Hz", ""), size=12, weight="bold")
+                hz = f"{c.band} slider" if getattr(c, "band", "") else _hz(c.freq_hz, exact=True).replace(" Hz", "")
+                page.text(xs["hz"][0] + 4, base, hz, size=12, weight="bold")
                 page.text(xs["g"][0] + 4, base, "notch" if c.gain_db is None else _num(c.gain_db), size=12, weight="bold")
                 page.text(xs["q"][0] + 4, base, f"{c.q:.2f}", size=11)
                 page.text(xs["bw"][0] + 4, base, f"{c.bandwidth_oct:.3f}", size=11)

@@ -47,6 +47,7 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from howl.errors import InputError
+from howl.report.cutlist import desk_cuts, desk_line, listened_on_desk
 
 # ----------------------------------------------------------------------------
 # Paper
@@ -128,6 +129,7 @@ class Cut:
     gain_db: float | None
     q: float
     bandwidth_oct: float
+    band: str = ""  # a graphic EQ's slider label (ISO 266 centre, "1.25k"); "" for a parametric band
 
 
 @dataclass(frozen=True)
@@ -145,6 +147,7 @@ class CutSet:
     tonal_cost_db: float | None = None  # broadband (pink) power the cuts remove
     tonal_cost_speech_db: float | None = None  # the same, speech-weighted
     mark_after_db: float | None = None  # measured "don't go past" with the cuts in
+    desk: str = ""  # the desk's EQ the cuts were made for (howl.report.cutlist); "" = ideal EQ
 
 
 @dataclass(frozen=True)
@@ -533,10 +536,7 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
     With ``fsm_db``, also the measured "don't go past" mark with the cuts in
     (:func:`measured_mark_db` of the margins after the ring-out).
     """
-    cuts = []
-    for n in result.notches:
-        bw = getattr(n, "bandwidth_oct", None)
-        cuts.append(Cut(float(n.freq_hz), None if n.gain_db is None else float(n.gain_db), float(n.q), float(bw)))
+    cuts = desk_cuts(Cut, result.notches, getattr(result, "desk", None))
     advice = getattr(result, "advice", ()) or ()
     if isinstance(advice, str):
         advice = (advice,)
@@ -552,6 +552,7 @@ def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutS
         tonal_cost_db=_f(getattr(result, "tonal_cost_db", None)),
         tonal_cost_speech_db=_f(getattr(result, "tonal_cost_speech_db", None)),
         mark_after_db=_mark_or_none(result.gain_margin_db_after, getattr(result, "magnitude_margin_db_after", None), fsm_db),
+        desk=desk_line(getattr(result, "desk", None)),
     )
 
 
@@ -602,7 +603,8 @@ def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
 
 
 def cut_sets_from_listen(
-    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None
+    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None,
+    desk=None,
 ) -> list[CutSet]:
     """Cut sets for cuts found by listening; with measured loops, the ASG they buy on each.
 
@@ -610,9 +612,9 @@ def cut_sets_from_listen(
     (``howl.notch.cascade_sos``) in the loop, minus the margin without:
     the definition of added stable gain in van Waterschoot & Moonen [4]_.
     """
-    cuts = tuple(Cut(float(n.freq_hz), n.gain_db, float(n.q), float(n.bandwidth_oct)) for n in notches)
+    notches, cuts, desk_s = listened_on_desk(Cut, notches, desk, session)  # with a desk: as it makes them
     if session is None or not margins:
-        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None)]
+        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None, desk=desk_s)]
     from howl.loop.nyquist import nyquist_margin
     from howl.loop.notch import cascade_sos
 
@@ -636,6 +638,7 @@ def cut_sets_from_listen(
             margin_after_db=a,
             advice=tuple(lines),
             mark_after_db=None if any(m is None for m in marks) or not marks else min(marks),
+            desk=desk_s,
         )
     ]
 
@@ -766,6 +769,7 @@ def build_sheet_data(
     listen_cuts: tuple[list, str] | None = None,
     margin_maps: Sequence[MarginMap] = (),
     date: str | None = None,
+    desk=None,  # a howl.loop.desk.Desk: listened cuts are listed as it makes them (ring-outs carry their own)
 ) -> SheetData:
     """Assemble the sheet from the planner's JSON and measured analyses.
 
@@ -810,7 +814,7 @@ def build_sheet_data(
         for pair, ro in zip(session.pairs, ringouts):
             cut_sets.append(cut_set_from_ringout(f"{pair.speaker} \u2192 {pair.mic}", ro, fsm))
     if listen_cuts is not None:
-        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins, fsm)
+        cut_sets += cut_sets_from_listen(listen_cuts[0], listen_cuts[1], session, margins, fsm, desk=desk)
     if plan_json is not None and session is not None:
         basis = "planned+measured"
         words = f"PLANNED from the room model + MEASURED {session.date}"
