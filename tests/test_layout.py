@@ -152,7 +152,6 @@ def test_only_the_edges_import_devices_and_plotting(lib):
 OVERSIZE = {
     "howl.listen.detect": 875,
     "howl.loop.nyquist": 936,
-    "howl.measure.session": 694,
     "howl.measure.sweep": 825,
     "howl.model._rigfile": 786,
     "howl.model.images": 804,
