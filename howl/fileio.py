@@ -93,8 +93,12 @@ def check_writable_folder(target: str | os.PathLike, *, option: str | None = Non
     folder = target.parent if str(target.parent) else Path(".")
     if not folder.is_dir():
         raise InputError(f"folder {str(folder)!r} does not exist", key=key)
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise InputError(f"folder {str(folder)!r} is not writable", key=key)
+    try:  # a real probe: permissions, read-only mounts and pseudo file systems all answer it
+        fd, probe = tempfile.mkstemp(prefix=".howl-probe.", dir=folder)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise InputError(f"cannot write in {str(folder)!r}: {_os_reason(exc)}", key=key) from None
     return target
 
 
