@@ -61,6 +61,10 @@ def register(app: typer.Typer) -> None:
             )
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
+            if not no_plan:
+                from howl.model._plannable import check_plannable
+
+                check_plannable(rig)
             session = margins = ringouts = None
             if measured is not None:
                 session = read_session(measured)

@@ -81,6 +81,13 @@ def _read_toml(path: _Any, *, key: str | None = None, ref_file: str | None = Non
     if not p.is_file():
         raise _InputError("is not a file", file=str(p))
     try:
+        size = p.stat().st_size
+    except OSError as exc:
+        raise _InputError(f"cannot be read ({exc.strerror or exc})", file=str(p)) from None
+    if size > MAX_TOML_BYTES:  # refused before parsing: a hand-written rig or room is a few kB
+        raise _InputError(f"is {size / 1e6:.1f} MB; a rig or room file is expected to be under "
+                          f"{MAX_TOML_BYTES // 1_000_000} MB (is it the right file?)", file=str(p))
+    try:
         raw = p.read_bytes()
     except OSError as exc:
         raise _InputError(f"cannot be read ({exc.strerror or exc})", file=str(p)) from None
@@ -89,7 +96,13 @@ def _read_toml(path: _Any, *, key: str | None = None, ref_file: str | None = Non
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
         raise _InputError(f"TOML syntax error at line {line}: not valid UTF-8 text", file=str(p)) from None
+    if text.startswith("\ufeff"):  # a byte-order mark some editors write: not TOML, but harmless
+        text = text[1:]
     return _loads_toml(text, file=str(p))
+
+
+#: the largest rig, room or polar-table file read (bytes)
+MAX_TOML_BYTES = 4_000_000
 
 
 _TOML_POS = _re.compile(r"^(.*?)\s*\(at line (\d+), column (\d+)\)\s*$", _re.S)

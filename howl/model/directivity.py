@@ -428,11 +428,17 @@ def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
     key = (path, planes, stamp)
     if key in _TABLE_CACHE:
         return _TABLE_CACHE[key]
+    if os.path.getsize(path) > 16_000_000:
+        raise InputError(f"is {os.path.getsize(path) / 1e6:.0f} MB; a polar table is expected under 16 MB", file=path)
     try:
         with open(path, "rb") as fh:
-            data = tomllib.load(fh)
+            data = tomllib.loads(fh.read().decode("utf-8").removeprefix("\ufeff"))
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"TOML syntax error: {exc}", file=path) from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not valid UTF-8 text (byte {exc.start}); expected a TOML polar table", file=path) from None
+    except (RecursionError, ValueError) as exc:  # pathological nesting: still one line
+        raise InputError(f"TOML syntax error: {str(exc)[:200]}", file=path) from None
     except OSError as exc:
         raise InputError(f"cannot be read ({exc.strerror or exc})", file=path) from None
     allowed = ("freq_hz", "angle_deg", "description", "source") + planes
@@ -455,15 +461,27 @@ def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
     return table
 
 
+def _named(exc: InputError, who: str, key: str) -> InputError:
+    """The same error, saying whose file it is (the speaker or mic that names it)."""
+    inner = f"{key} {exc.key}" if exc.key else key
+    return InputError(exc.message, file=exc.file, key=f"{who} ({inner})")
+
+
 def _mic_table(mic: Mic) -> PolarTable:
-    return load_polar_table(str(mic.pattern_file), ("gain_db",))
+    try:
+        return load_polar_table(str(mic.pattern_file), ("gain_db",))
+    except InputError as exc:
+        raise _named(exc, f"mic {mic.name!r}", "pattern_file") from None
 
 
 def _speaker_table(speaker: Speaker):
     path = str(speaker.directivity_file)
-    if path.lower().endswith(".sofa"):
-        return load_sofa_directivity(path)
-    return load_polar_table(path, ("horizontal_db", "vertical_db"))
+    try:
+        if path.lower().endswith(".sofa"):
+            return load_sofa_directivity(path)
+        return load_polar_table(path, ("horizontal_db", "vertical_db"))
+    except InputError as exc:
+        raise _named(exc, f"speaker {speaker.name!r}", "directivity_file") from None
 
 
 class SofaDirectivity:

@@ -273,9 +273,18 @@ class Session:
 def _read_json(path: Path, option: str | None):
     """Parse one JSON file; a file that is not JSON is a one-line InputError naming it (and the option)."""
     try:
-        return json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", key=option, file=str(path)) from None
+        size = Path(path).stat().st_size
+    except OSError as exc:
+        raise InputError(f"cannot be read ({exc.strerror or exc})", key=option, file=str(path)) from None
+    if size > 64_000_000:
+        raise InputError(f"is {size / 1e6:.0f} MB; expected a JSON written by howl (under 64 MB)", key=option,
+                         file=str(path))
+    try:
+        return json.loads(Path(path).read_text(encoding="utf-8-sig"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:  # JSONDecodeError is a ValueError
+        raise InputError(f"cannot be read as JSON ({str(exc)[:200]})", key=option, file=str(path)) from None
+    except RecursionError:
+        raise InputError("cannot be read as JSON (nested too deeply)", key=option, file=str(path)) from None
 
 
 def read_session(folder: str | os.PathLike) -> Session:
