@@ -210,6 +210,8 @@ def read_wav(path: str | os.PathLike, *, channel: int | None = None, option: str
         raise InputError("holds no samples; expected a non-empty WAV", file=name)
     if channel is None:
         if n_ch != 1:
+            if not option:  # the caller has no channel option (a session's loop IR): say what is expected
+                raise InputError(f"has {n_ch} channels; expected a mono loop IR (one speaker-to-mic loop)", file=name)
             raise InputError(
                 f"has {n_ch} channels; pass {option} N (1..{n_ch}) to choose one", file=name
             )
@@ -304,6 +306,27 @@ def to_jsonable(obj: Any) -> Any:
     if isinstance(obj, Path):
         return str(obj)
     return obj
+
+
+#: the largest JSON file read (a howl report or session is far smaller)
+MAX_JSON_BYTES = 64_000_000
+
+
+def read_json_file(path: str | os.PathLike, *, option: str | None = None) -> Any:
+    """Parse a JSON file; a missing, huge, non-UTF-8, malformed or absurdly nested file is one
+    :class:`InputError` naming the file (and ``option``). A UTF-8 byte-order mark is accepted."""
+    p = Path(path)
+    size = p.stat().st_size if p.is_file() else 0
+    if size > MAX_JSON_BYTES:
+        raise InputError(f"is {size / 1e6:.0f} MB; expected a JSON written by howl (under "
+                         f"{MAX_JSON_BYTES // 1_000_000} MB)", key=option, file=str(path))
+    try:
+        return json.loads(p.read_text(encoding="utf-8-sig"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:  # JSONDecodeError is a ValueError
+        reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+        raise InputError(f"cannot be read as JSON ({reason[:200]})", key=option, file=str(path)) from None
+    except RecursionError:
+        raise InputError("cannot be read as JSON (nested too deeply)", key=option, file=str(path)) from None
 
 
 def dumps_json(obj: Any) -> str:

@@ -153,10 +153,10 @@ OVERSIZE = {
     "howl.listen.detect": 875,
     "howl.loop.nyquist": 936,
     "howl.measure.sweep": 825,
-    "howl.model._rigfile": 786,
+    "howl.model._rigfile": 756,
     "howl.model.images": 804,
     "howl.model.plan": 667,
-    "howl.report._page": 889,
+    "howl.report._page": 883,
     "howl.report.sheet": 911,
 }
 

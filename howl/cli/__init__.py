@@ -73,6 +73,7 @@ class _HowlGroup(TyperGroup):
         if not standalone_mode:
             return super().main(*args, standalone_mode=False, **kwargs)
         from typer import _click
+        from typer.exceptions import Abort
 
         try:
             rv = super().main(*args, standalone_mode=False, **kwargs)
@@ -82,7 +83,7 @@ class _HowlGroup(TyperGroup):
         except _click.exceptions.ClickException as exc:
             print(_usage_line(exc), file=sys.stderr)
             sys.exit(exc.exit_code)
-        except _click.exceptions.Abort:
+        except Abort:
             print("howl: aborted", file=sys.stderr)
             sys.exit(1)
         sys.exit(rv if isinstance(rv, int) else 0)

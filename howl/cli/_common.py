@@ -132,3 +132,21 @@ def options_named(mapping: dict):
             raise
 
     return _cm()
+
+
+def progress_iter(items, label: str, *, min_items: int = 2):
+    """Iterate ``items`` with a rich progress bar on stderr (only on a terminal, and only for
+    ``min_items`` or more): long work shows that it moves and how far it has come."""
+    items = list(items)
+    if len(items) < min_items or not sys.stderr.isatty():
+        yield from items
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+    con = make_console(stderr=True)
+    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
+                  console=con, transient=True) as bar:
+        task = bar.add_task(label, total=len(items))
+        for it in items:
+            yield it
+            bar.advance(task)

@@ -39,9 +39,12 @@ def register(app: typer.Typer) -> None:
         from howl.errors import InputError
         from howl.cli._common import capture_warnings, emit_json
 
+        from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
+
         paper_l = V.choice(paper.lower(), "--paper", ["a4", "letter"])
-        if out.suffix.lower() not in (".pdf", ".png"):
-            raise InputError(f"must end in .pdf or .png, got {str(out)!r}", key="-o")
+        refuse_input_as_output(out, [rig_file, measured, cuts, *maps], option="--out")
+        check_suffix(out, [".pdf", ".png"], option="--out", what="a PDF or PNG sheet")
+        check_writable_folder(out, option="--out")
         if ringout and measured is None:
             raise InputError("needs loop IRs to ring out: pass --measured DIR as well", key="--ringout")
         if no_plan and measured is None:
@@ -80,11 +83,15 @@ def register(app: typer.Typer) -> None:
             if session is not None:
                 from howl.loop.nyquist import nyquist_margin
 
-                margins = [nyquist_margin(p.ir, p.sample_rate_hz) for p in session.pairs]
+                from howl.cli._common import progress_iter
+
+                margins = [nyquist_margin(p.ir, p.sample_rate_hz)
+                           for p in progress_iter(session.pairs, "margins of the measured loops")]
                 if ringout:
                     from howl.loop.ringout import ring_out
 
-                    ringouts = [ring_out(p.ir, p.sample_rate_hz) for p in session.pairs]
+                    ringouts = [ring_out(p.ir, p.sample_rate_hz)
+                                for p in progress_iter(session.pairs, "ringing out the measured loops")]
             data = build_sheet_data(
                 rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
                 margin_maps=margin_maps, date=date,

@@ -271,20 +271,10 @@ class Session:
 
 
 def _read_json(path: Path, option: str | None):
-    """Parse one JSON file; a file that is not JSON is a one-line InputError naming it (and the option)."""
-    try:
-        size = Path(path).stat().st_size
-    except OSError as exc:
-        raise InputError(f"cannot be read ({exc.strerror or exc})", key=option, file=str(path)) from None
-    if size > 64_000_000:
-        raise InputError(f"is {size / 1e6:.0f} MB; expected a JSON written by howl (under 64 MB)", key=option,
-                         file=str(path))
-    try:
-        return json.loads(Path(path).read_text(encoding="utf-8-sig"))
-    except (OSError, UnicodeDecodeError, ValueError) as exc:  # JSONDecodeError is a ValueError
-        raise InputError(f"cannot be read as JSON ({str(exc)[:200]})", key=option, file=str(path)) from None
-    except RecursionError:
-        raise InputError("cannot be read as JSON (nested too deeply)", key=option, file=str(path)) from None
+    """Parse one JSON file; any problem is a one-line InputError naming it (and the option)."""
+    from howl.fileio import read_json_file
+
+    return read_json_file(path, option=option)
 
 
 def read_session(folder: str | os.PathLike) -> Session:
@@ -330,7 +320,7 @@ def read_session(folder: str | os.PathLike) -> Session:
             if not isinstance(p.get(k), str) or not p.get(k).strip():
                 raise InputError(f"must be a non-empty string, got {p.get(k)!r}", file=str(meta_p), key=f"{key}.{k}")
         ir_rel = p["ir_file"]
-        ir, fs = read_wav(folder_p / ir_rel)
+        ir, fs = read_wav(folder_p / ir_rel, option="")  # a loop IR per pair: one channel
         pairs.append(SessionPair(p["speaker"], p["mic"], ir_rel, ir, fs))
     if not pairs:
         raise InputError("holds no pair with a usable IR (status 'ok' and an ir_file)", file=str(meta_p), key="pairs")
