@@ -61,6 +61,21 @@ def _view(snap, device_label: str, fs: float):
     return Group(*parts)
 
 
+def _check_log(log: Path, loop_ir) -> None:
+    """--log must be a file howl can append to (checked before the stream opens): one line otherwise."""
+    from howl.errors import InputError
+    from howl.fileio import refuse_input_as_output
+
+    refuse_input_as_output(log, [loop_ir], option="--log")
+    if log.is_dir():
+        raise InputError(f"{str(log)!r} is a folder; expected a file to append events to", key="--log")
+    try:
+        with open(log, "a", encoding="utf-8"):
+            pass
+    except OSError as exc:
+        raise InputError(f"cannot append to {str(log)!r}: {exc.strerror or exc}", key="--log") from None
+
+
 def register(app: typer.Typer) -> None:
     @app.command("listen")
     def listen_cmd(
@@ -91,6 +106,8 @@ def register(app: typer.Typer) -> None:
             v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
         if json_out and duration is None:
             raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
+        if log is not None:
+            _check_log(log, loop_ir)
         tau = loop_delay_option(loop_delay_ms, loop_ir)
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
