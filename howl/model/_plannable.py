@@ -21,9 +21,16 @@ SAME_POINT_M = 1e-3
 
 def check_plannable(rig) -> None:
     """Raise :class:`InputError` (naming the rig file) for a rig the planner cannot plan."""
+    from howl.model.directivity import _mic_table, _speaker_table
     from howl.model.plan import _talker_for, mix_matrix
 
     file = rig.source_file
+    for s in rig.speakers:  # tables named by the rig are read when planning: read them now (errors name the owner)
+        if s.directivity_file:
+            _speaker_table(s)
+    for m in rig.mics:
+        if m.pattern_file:
+            _mic_table(m)
     try:
         e = mix_matrix(rig)
     except InputError as exc:
