@@ -385,3 +385,16 @@ def test_atomic_paths_write_all_or_none(tmp_path):
         ta.write_bytes(b"new 1")
         tb.write_bytes(b"new 2")
     assert a.read_bytes() == b"new 1" and b.read_bytes() == b"new 2"
+
+
+def test_scan_warns_about_a_heavily_clipped_recording_and_not_about_a_clean_one(tmp_path):
+    # issue 18 item 11; the clean case is a sine whose samples hit its peak exactly (1 kHz at 48 kHz:
+    # every 24th sample) without a flat top
+    t = np.arange(2 * 48000) / 48000
+    sf.write(tmp_path / "clipped.wav", np.clip(3 * np.sin(2 * np.pi * 1000 * t), -1, 1), 48000, subtype="FLOAT")
+    sf.write(tmp_path / "clean.wav", 0.5 * np.sin(2 * np.pi * 1000 * t), 48000, subtype="FLOAT")
+    clipped = CliRunner().invoke(app, ["scan", str(tmp_path / "clipped.wav"), "--json"])
+    clean = CliRunner().invoke(app, ["scan", str(tmp_path / "clean.wav"), "--json"])
+    assert clipped.exit_code == 0 and clean.exit_code == 0
+    assert "clipped" in clipped.stderr
+    assert "clipped" not in clean.stderr
