@@ -61,6 +61,20 @@ def _view(snap, device_label: str, fs: float):
     return Group(*parts)
 
 
+def _empty_result(src, kw):
+    """The result of a run stopped before any audio was analysed (no events, zero duration)."""
+    from howl.listen.detect import report
+    from howl.listen.live import ListenResult
+
+    fs = float(src.sample_rate_hz) if src is not None else 48000.0
+    rep = report([], fs, 0.0, max_notches=kw["max_notches"], loop_delay_s=kw["loop_delay_s"],
+                 temperature_c=kw["temperature_c"], swing_c=kw["swing_c"])
+    overflows = int(getattr(src, "overflows", 0) or 0)
+    rep["overflows"] = overflows
+    rep["interrupted"] = True
+    return ListenResult(report=rep, overflows=overflows, interrupted=True, n_samples=0)
+
+
 def _check_log(log: Path, loop_ir) -> None:
     """--log must be a file howl can append to (checked before the stream opens): one line otherwise."""
     from howl.errors import InputError
@@ -116,13 +130,15 @@ def register(app: typer.Typer) -> None:
         from howl.measure.audio import LiveInput
         from howl.listen.detect import Detector
 
-        Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
-        src = LiveInput(device, in_channel)
-        label = src.device.label
-        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c)
+        src = None
+        label = str(device)
         try:
+            Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
+            src = LiveInput(device, in_channel)
+            label = src.device.label
+            typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
             if json_out or not sys.stdout.isatty():
                 res = listen(src, **kw)
             else:
@@ -132,8 +148,16 @@ def register(app: typer.Typer) -> None:
                 console = Console()
                 with Live(console=console, refresh_per_second=4, transient=False) as live:
                     res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
+        except KeyboardInterrupt:  # stopped before the listening loop ran (it handles its own interrupts)
+            if not json_out:
+                raise
+            res = _empty_result(src, kw)  # --json promises one object: an empty report, marked interrupted
         finally:
-            src.close()
+            if src is not None:
+                try:
+                    src.close()
+                except KeyboardInterrupt:  # a second Ctrl-C while closing: the report still goes out
+                    pass
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)

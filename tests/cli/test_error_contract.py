@@ -398,3 +398,19 @@ def test_scan_warns_about_a_heavily_clipped_recording_and_not_about_a_clean_one(
     assert clipped.exit_code == 0 and clean.exit_code == 0
     assert "clipped" in clipped.stderr
     assert "clipped" not in clean.stderr
+
+
+def test_listen_json_stopped_before_the_stream_starts_still_prints_its_report(monkeypatch):
+    # issue 18 item 11: Ctrl-C (or SIGTERM) while the input opens: --json still prints one object
+    from howl.measure import audio
+
+    def stopped(*_a, **_k):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(audio, "LiveInput", stopped)
+    r = CliRunner().invoke(app, ["listen", "--device", "any", "--duration", "20", "--json"])
+    assert r.exit_code == 0, (r.stderr, r.exception)
+    rep = json.loads(r.stdout)
+    assert rep["interrupted"] is True and rep["duration_s"] == 0.0 and rep["n_howl"] == 0
+    r2 = CliRunner().invoke(app, ["listen", "--device", "any", "--duration", "20"])
+    assert r2.exit_code == 130  # without --json: the usual interrupt
