@@ -96,7 +96,7 @@ def register(app: typer.Typer) -> None:
             sample_rate_hz=sample_rate_hz, sweep=SweepSettings(sweep_s, f_lo_hz, f_hi_hz, tail_s),
             level=LevelPolicy(start_level_dbfs, max_level_dbfs, step_db, target_snr_db, min_snr_db),
             repeats=repeats, gains=_parse_assignments(gain_setting, "--gain-setting", "float"), yes=yes,
-            json_out=json_out, say=say)
+            json_out=json_out, say=say, calib_channels=(out_channel, in_channel))
 
 
 def _pairs_and_folder(rig, speaker, mic, out_channel, in_channel, reference_channel, speaker_channel,
@@ -150,7 +150,8 @@ def _check_pair_channels(pairs, reference_channel, out_dev, in_dev) -> None:
 
 
 def _run_session(pairs, session_dir, *, device, input_device, output_device, reference_channel, calibrate,
-                 calibration_file, sample_rate_hz, sweep, level, repeats, gains, yes, json_out, say) -> None:
+                 calibration_file, sample_rate_hz, sweep, level, repeats, gains, yes, json_out, say,
+                 calib_channels=(1, 1)) -> None:
     """Open the interface, show the cautions, measure every pair (or calibrate), report."""
     from howl import validate as v
     from howl.errors import InputError
@@ -182,13 +183,14 @@ def _run_session(pairs, session_dir, *, device, input_device, output_device, ref
                 say("not started")
                 raise typer.Exit(code=1)
         _measure_all(backend, pairs, session_dir, out_dev, in_dev, fs, sweep, level, repeats, reference_channel,
-                     cal, gains, calibrate, cal_path, yes, json_out, say)
+                     cal, gains, calib_channels if calibrate else None, cal_path, yes, json_out, say)
     finally:
         backend.close()
 
 
 def _measure_all(backend, pairs, session_dir, out_dev, in_dev, fs, sweep, level, repeats, reference_channel,
                  cal, gains, calibrate, cal_path, yes, json_out, say) -> None:
+    """Measure every pair in one session (or, with ``calibrate`` = (out, in) channels, the latency)."""
     from howl.cli._common import capture_warnings, emit_json
     from howl.errors import HowlError, MeasurementQualityError
     from howl.measure.session import QualityPolicy, Session, save_calibration, summary
@@ -198,7 +200,7 @@ def _measure_all(backend, pairs, session_dir, out_dev, in_dev, fs, sweep, level,
                           reference_channel, cal, gains, say)
         try:
             if calibrate:
-                lat = session.calibrate(pairs[0].out_channel, pairs[0].in_channel, level.start_level_dbfs)
+                lat = session.calibrate(calibrate[0], calibrate[1], level.start_level_dbfs)
                 save_calibration(cal_path, out_dev, in_dev, fs, lat)
                 rec = session.close()
                 say(f"latency {lat} samples ({1000 * lat / fs:.2f} ms) stored in {cal_path}")
