@@ -91,6 +91,10 @@ def register(app: typer.Typer) -> None:
             added_gain_db(g, f"--ramp-db ({'A' if i == 0 else 'B'})")
         if steps is not None:
             _parse_steps(steps)  # refused before the caution, so an error stays one line
+        from howl import validate as V
+
+        V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
+        V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
         warn(CAUTION)
         with capture_warnings(), options_named({"gain_db": "--gain-db", "ramp_db": "--ramp-db", "steps": "--steps"}):
             if ir.is_dir():
