@@ -52,11 +52,16 @@ def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
     return os.path.realpath(a) == os.path.realpath(b)
 
 
+#: files in an input folder that count as inputs (a sheet or plot written into a session folder does not)
+INPUT_SUFFIXES = (".wav", ".json", ".toml", ".sofa", ".csv")
+
+
 def refuse_input_as_output(output: str | os.PathLike | None, inputs, *, option: str) -> None:
     """Refuse an output that resolves to one of the inputs (same file, symlinks included).
 
     ``inputs`` is an iterable of paths (None entries are skipped); a folder among
-    them protects every file under it (a session folder, a folder of IRs).
+    them protects the data files under it (:data:`INPUT_SUFFIXES`: a session's IRs and
+    session.json, a folder of loop IRs), not a sheet written there earlier.
     """
     if output is None:
         return
@@ -69,7 +74,8 @@ def refuse_input_as_output(output: str | os.PathLike | None, inputs, *, option: 
                              "name", key=option, file=None)
         src_real = os.path.realpath(src)
         if os.path.isdir(src_real) and out_real.startswith(src_real.rstrip(os.sep) + os.sep):
-            if os.path.exists(out_real):
+            # an existing data file in an input folder (a session's IRs, a folder of loop IRs) is an input
+            if os.path.exists(out_real) and Path(out_real).suffix.lower() in INPUT_SUFFIXES:
                 raise InputError(f"is inside the input folder {str(src)!r} and would overwrite "
                                  f"{os.path.relpath(out_real, src_real)!r}: choose another name", key=option)
 

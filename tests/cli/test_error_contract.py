@@ -414,3 +414,17 @@ def test_listen_json_stopped_before_the_stream_starts_still_prints_its_report(mo
     assert rep["interrupted"] is True and rep["duration_s"] == 0.0 and rep["n_howl"] == 0
     r2 = CliRunner().invoke(app, ["listen", "--device", "any", "--duration", "20"])
     assert r2.exit_code == 130  # without --json: the usual interrupt
+
+
+def test_an_input_folder_protects_its_data_but_a_sheet_may_be_rewritten_there(tmp_path):
+    from howl.errors import InputError
+    from howl.fileio import refuse_input_as_output
+
+    folder = tmp_path / "session"
+    (folder / "ir").mkdir(parents=True)
+    (folder / "ir" / "01.wav").write_bytes(b"RIFF")
+    (folder / "sheet.pdf").write_bytes(b"%PDF")
+    with pytest.raises(InputError, match="input folder"):
+        refuse_input_as_output(folder / "ir" / "01.wav", [folder], option="--out")
+    refuse_input_as_output(folder / "sheet.pdf", [folder], option="--out")  # an earlier sheet: not an input
+    refuse_input_as_output(folder / "ir" / "02.wav", [folder], option="--out")  # a new file: nothing to lose
