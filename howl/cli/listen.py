@@ -61,6 +61,41 @@ def _view(snap, device_label: str, fs: float):
     return Group(*parts)
 
 
+def _run(device, in_channel, kw, json_out):
+    """Open the input, listen until the end, Ctrl-C or a stop signal; returns (result, device label)."""
+    from howl.listen.detect import Detector
+    from howl.listen.live import listen
+    from howl.measure.audio import LiveInput
+
+    src = None
+    label = str(device)
+    try:
+        Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
+        src = LiveInput(device, in_channel)
+        label = src.device.label
+        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
+        if json_out or not sys.stdout.isatty():
+            res = listen(src, **kw)
+        else:
+            from rich.console import Console
+            from rich.live import Live
+
+            console = Console()
+            with Live(console=console, refresh_per_second=4, transient=False) as live:
+                res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
+    except KeyboardInterrupt:  # stopped before the listening loop ran (it handles its own interrupts)
+        if not json_out:
+            raise
+        res = _empty_result(src, kw)  # --json promises one object: an empty report, marked interrupted
+    finally:
+        if src is not None:
+            try:
+                src.close()
+            except KeyboardInterrupt:  # a second Ctrl-C while closing: the report still goes out
+                pass
+    return res, label
+
+
 def _empty_result(src, kw):
     """The result of a run stopped before any audio was analysed (no events, zero duration)."""
     from howl.listen.detect import report
@@ -108,7 +143,7 @@ def register(app: typer.Typer) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
         from howl.errors import InputError
-        from howl.listen.live import CAUTIONS, listen
+        from howl.listen.live import CAUTIONS
         from howl.cli._common import emit_json, loop_delay_option
 
         if device is None:
@@ -127,37 +162,9 @@ def register(app: typer.Typer) -> None:
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
-        from howl.measure.audio import LiveInput
-        from howl.listen.detect import Detector
-
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c)
-        src = None
-        label = str(device)
-        try:
-            Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
-            src = LiveInput(device, in_channel)
-            label = src.device.label
-            typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
-            if json_out or not sys.stdout.isatty():
-                res = listen(src, **kw)
-            else:
-                from rich.console import Console
-                from rich.live import Live
-
-                console = Console()
-                with Live(console=console, refresh_per_second=4, transient=False) as live:
-                    res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
-        except KeyboardInterrupt:  # stopped before the listening loop ran (it handles its own interrupts)
-            if not json_out:
-                raise
-            res = _empty_result(src, kw)  # --json promises one object: an empty report, marked interrupted
-        finally:
-            if src is not None:
-                try:
-                    src.close()
-                except KeyboardInterrupt:  # a second Ctrl-C while closing: the report still goes out
-                    pass
+        res, label = _run(device, in_channel, kw, json_out)
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)

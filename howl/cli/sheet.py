@@ -38,7 +38,6 @@ def register(app: typer.Typer) -> None:
         from howl import validate as V
         from howl.errors import InputError
         from howl.cli._common import capture_warnings, emit_json
-
         from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
 
         paper_l = V.choice(paper.lower(), "--paper", ["a4", "letter"])
@@ -68,30 +67,14 @@ def register(app: typer.Typer) -> None:
                 from howl.model._plannable import check_plannable
 
                 check_plannable(rig)
-            session = margins = ringouts = None
+            session = None
             if measured is not None:
                 session = read_session(measured)
                 check_session(session, rig)
                 session = with_combined_loops(session)
             listen_cuts = read_cuts(cuts) if cuts is not None else None
             margin_maps = [read_margin_map(m, rig) for m in maps]
-            plan_json = None
-            if not no_plan:
-                from howl.model.plan import plan_rig, plan_to_json
-
-                plan_json = plan_to_json(plan_rig(rig))
-            if session is not None:
-                from howl.loop.nyquist import nyquist_margin
-
-                from howl.cli._common import progress_iter
-
-                margins = [nyquist_margin(p.ir, p.sample_rate_hz)
-                           for p in progress_iter(session.pairs, "margins of the measured loops")]
-                if ringout:
-                    from howl.loop.ringout import ring_out
-
-                    ringouts = [ring_out(p.ir, p.sample_rate_hz)
-                                for p in progress_iter(session.pairs, "ringing out the measured loops")]
+            plan_json, margins, ringouts = _compute(rig, session, no_plan, ringout)
             data = build_sheet_data(
                 rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
                 margin_maps=margin_maps, date=date,
@@ -106,3 +89,24 @@ def register(app: typer.Typer) -> None:
         else:
             for w in written:
                 typer.echo(f"wrote {w}")
+
+
+def _compute(rig, session, no_plan: bool, ringout: bool):
+    """The plan (unless --no-plan), and each measured loop's margins (and ring-out): progress on stderr."""
+    plan_json = margins = ringouts = None
+    if not no_plan:
+        from howl.model.plan import plan_rig, plan_to_json
+
+        plan_json = plan_to_json(plan_rig(rig))
+    if session is not None:
+        from howl.cli._common import progress_iter
+        from howl.loop.nyquist import nyquist_margin
+
+        margins = [nyquist_margin(p.ir, p.sample_rate_hz)
+                   for p in progress_iter(session.pairs, "margins of the measured loops")]
+        if ringout:
+            from howl.loop.ringout import ring_out
+
+            ringouts = [ring_out(p.ir, p.sample_rate_hz)
+                        for p in progress_iter(session.pairs, "ringing out the measured loops")]
+    return plan_json, margins, ringouts
