@@ -428,3 +428,36 @@ def test_an_input_folder_protects_its_data_but_a_sheet_may_be_rewritten_there(tm
         refuse_input_as_output(folder / "ir" / "01.wav", [folder], option="--out")
     refuse_input_as_output(folder / "sheet.pdf", [folder], option="--out")  # an earlier sheet: not an input
     refuse_input_as_output(folder / "ir" / "02.wav", [folder], option="--out")  # a new file: nothing to lose
+
+
+_TERM_WHILE_WRITING = """
+import os, signal, sys
+import soundfile
+
+_write = soundfile.write
+
+def write_then_killed(path, *a, **k):
+    _write(path, *a, **k)  # the temporary beside the target is on disk now
+    os.kill(os.getpid(), signal.SIGTERM)
+    for _ in range(10 ** 6):  # the handler runs between bytecodes
+        pass
+    raise SystemExit("SIGTERM was not delivered")
+
+soundfile.write = write_then_killed
+sys.argv = ["howl", *sys.argv[1:]]
+from howl.cli import main
+main()
+"""
+
+
+def test_sigterm_while_simulate_writes_leaves_no_temporary(tmp_path):
+    # issue 18 item 3: a killed simulate once left hidden temporaries of up to 24 MB beside the target
+    import subprocess
+    import sys
+
+    out = tmp_path / "out.wav"
+    r = subprocess.run([sys.executable, "-c", _TERM_WHILE_WRITING, "simulate", str(IR), str(PROG), "-o", str(out),
+                        "--gain-db", "-6"], capture_output=True, text=True, timeout=300)
+    assert r.returncode == 128 + signal.SIGTERM, r.stderr
+    assert "Traceback" not in r.stderr and "stopped by SIGTERM" in r.stderr
+    assert sorted(q.name for q in tmp_path.iterdir()) == []  # neither the target nor a temporary
