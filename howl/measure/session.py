@@ -44,7 +44,7 @@ from howl.measure.audio import AudioBackend, DeviceInfo, PlaybackInterrupted, Pl
 from howl.errors import HowlError, InputError, MeasurementQualityError
 from howl.fileio import dumps_json, write_text_atomic, write_wav_atomic
 from howl.measure.sweep import Analysis, Sweep, analyse, exponential_sweep, ir_difference_db
-from howl.units import P_REF_PA, db, from_db
+from howl.units import db, from_db
 
 # --------------------------------------------------------------------- settings
 

@@ -71,7 +71,7 @@ _SPHERE_SURFACE_FACTOR = (36.0 * _math.pi) ** (1.0 / 3.0)
 
 # ---------------------------------------------------------------------------- TOML ----
 
-from howl.model._tomlfile import MAX_TOML_BYTES, _loads_toml, _read_toml  # noqa: E402,F401  (moved; names kept)
+from howl.model._tomlfile import _read_toml  # noqa: E402  (TOML reading lives there)
 
 
 # ----------------------------------------------------------------------- helpers ----

@@ -39,7 +39,6 @@ References
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import math
 import os
 from dataclasses import dataclass, field
