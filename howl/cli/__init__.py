@@ -97,8 +97,9 @@ class _HowlGroup(TyperGroup):
             raise typer.Exit(code=2) from None
         except KeyboardInterrupt as exc:
             signum = _signal_of(exc)
-            typer.echo("howl: interrupted" if signum is None else f"howl: stopped by {signal.Signals(signum).name}",
-                       err=True)
+            with contextlib.suppress(OSError):  # after SIGHUP the terminal may be gone
+                typer.echo("howl: interrupted" if signum is None else f"howl: stopped by {signal.Signals(signum).name}",
+                           err=True)
             raise typer.Exit(code=130 if signum is None else 128 + signum) from None
 
 
