@@ -233,6 +233,12 @@ def _check_listener_on_speaker(t):
     return ["check", _rig_copy(t, edit)], []
 
 
+def _check_huge_rig(t):
+    p = t / "rig.toml"
+    p.write_text('name = "x"\nroom_file = "r.toml"\n' + "# padding\n" * 500_000, encoding="utf-8")  # 5 MB
+    return ["check", p], []
+
+
 def _check_no_open_mic(t):
     return ["check", _rig_copy(t, lambda s: s.replace("open = true", "open = false"))], []
 
@@ -275,6 +281,7 @@ CASES = [
     ("map -o m.jpg", _map_wrong_extension, ["--out", ".png"]),
     ("check: listener on a loudspeaker", _check_listener_on_speaker, ["rig.toml", "listener", "loudspeaker"]),
     ("check: no open mic", _check_no_open_mic, ["rig.toml", "no open mic"]),
+    ("check: a 5 MB rig", _check_huge_rig, ["rig.toml", "MB"]),
 ]
 
 # internal names that must never reach the user in place of the option they typed
