@@ -73,5 +73,13 @@ class MeasurementQualityError(HowlError):
     """A recording failed a quality gate and must not be used silently."""
 
 
+class Terminated(KeyboardInterrupt):
+    """SIGTERM or SIGHUP, raised where Ctrl-C would be so the same clean-up runs."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = int(signum)
+
+
 class HowlWarning(UserWarning):
     """Computable but doubtful input or result."""

@@ -152,13 +152,12 @@ def test_only_the_edges_import_devices_and_plotting(lib):
 OVERSIZE = {
     "howl.listen.detect": 875,
     "howl.loop.nyquist": 936,
-    "howl.measure.session": 694,
     "howl.measure.sweep": 825,
-    "howl.model._rigfile": 788,  # + the [desk] table hook (issue 20)
+    "howl.model._rigfile": 758,
     "howl.model.images": 804,
     "howl.model.plan": 667,
-    "howl.report._page": 891,  # + the desk line and graphic slider labels in the cut table (issue 20)
-    "howl.report.sheet": 915,  # + the desk fields of a cut (issue 20; the lists live in howl.report.cutlist)
+    "howl.report._page": 885,
+    "howl.report.sheet": 913,
 }
 
 

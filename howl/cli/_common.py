@@ -89,3 +89,64 @@ def loop_delay_option(loop_delay_ms, loop_ir):
         for w in warns:
             warnings.warn(w, HowlWarning)
         return LoopDelayFromIR(h, fs, label=str(loop_ir))
+
+
+#: the loudest and quietest added loop gain (a fader move) any command accepts: beyond these a real
+#: desk has no travel (faders and trims span roughly −∞..+10 dB and 0..+60 dB), and the arithmetic
+#: overflows long before (10^(1e308/20))
+GAIN_DB_MIN = -100.0
+GAIN_DB_MAX = 60.0
+
+
+def added_gain_db(value, option: str) -> float:
+    """An added loop gain in dB, bounded to what a desk can do."""
+    from howl import validate as v
+
+    return v.in_range(value, option, GAIN_DB_MIN, GAIN_DB_MAX, unit="dB")
+
+
+def options_named(mapping: dict):
+    """Context manager: an InputError about an internal key (``band_hz[1]``) names the flag the user typed.
+
+    ``mapping`` maps an internal key to the option (``{"band_hz": "--band-hz"}``). Errors that carry a
+    file are about that file and pass unchanged.
+    """
+    import contextlib
+
+    from howl.errors import InputError
+
+    @contextlib.contextmanager
+    def _cm():
+        try:
+            yield
+        except InputError as exc:
+            key = exc.key or ""
+            if exc.file is None:
+                for inner, flag in mapping.items():
+                    if key == inner or key.startswith((inner + "[", inner + " ", inner + ".")):
+                        rest = key[len(inner):].strip()
+                        if rest.startswith("[") and rest[1:-1].isdigit():
+                            rest = f"value {int(rest[1:-1]) + 1}"
+                        where = f"{flag} ({rest})" if rest else flag
+                        raise InputError(exc.message, key=where) from None
+            raise
+
+    return _cm()
+
+
+def progress_iter(items, label: str, *, min_items: int = 2):
+    """Iterate ``items`` with a rich progress bar on stderr (only on a terminal, and only for
+    ``min_items`` or more): long work shows that it moves and how far it has come."""
+    items = list(items)
+    if len(items) < min_items or not sys.stderr.isatty():
+        yield from items
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+    con = make_console(stderr=True)
+    with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
+                  console=con, transient=True) as bar:
+        task = bar.add_task(label, total=len(items))
+        for it in items:
+            yield it
+            bar.advance(task)

@@ -35,6 +35,9 @@ def register(app: typer.Typer) -> None:
             rig = load_rig(path)
             if what_if:
                 rig = with_changes(rig, list(what_if))
+            from howl.model._plannable import check_plannable
+
+            check_plannable(rig)  # what the planner would refuse, refused here too (naming the file)
             summary = rig_summary(rig)
         if json_out:
             emit_json(summary)

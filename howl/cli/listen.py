@@ -63,6 +63,70 @@ def _view(snap, device_label: str, fs: float):
     return Group(*parts)
 
 
+def _run(device, in_channel, kw, json_out):
+    """Open the input, listen until the end, Ctrl-C or a stop signal; returns (result, device label)."""
+    from howl.listen.detect import Detector
+    from howl.listen.live import listen
+    from howl.measure.audio import LiveInput
+
+    src = None
+    label = str(device)
+    try:
+        Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
+        src = LiveInput(device, in_channel)
+        label = src.device.label
+        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
+        if json_out or not sys.stdout.isatty():
+            res = listen(src, **kw)
+        else:
+            from rich.console import Console
+            from rich.live import Live
+
+            console = Console()
+            with Live(console=console, refresh_per_second=4, transient=False) as live:
+                res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
+    except KeyboardInterrupt:  # stopped before the listening loop ran (it handles its own interrupts)
+        if not json_out:
+            raise
+        res = _empty_result(src, kw)  # --json promises one object: an empty report, marked interrupted
+    finally:
+        if src is not None:
+            try:
+                src.close()
+            except KeyboardInterrupt:  # a second Ctrl-C while closing: the report still goes out
+                pass
+    return res, label
+
+
+def _empty_result(src, kw):
+    """The result of a run stopped before any audio was analysed (no events, zero duration)."""
+    from howl.listen.detect import report
+    from howl.listen.live import ListenResult
+
+    fs = float(src.sample_rate_hz) if src is not None else 48000.0
+    rep = report([], fs, 0.0, max_notches=kw["max_notches"], loop_delay_s=kw["loop_delay_s"],
+                 temperature_c=kw["temperature_c"], swing_c=kw["swing_c"])
+    overflows = int(getattr(src, "overflows", 0) or 0)
+    rep["overflows"] = overflows
+    rep["interrupted"] = True
+    return ListenResult(report=rep, overflows=overflows, interrupted=True, n_samples=0)
+
+
+def _check_log(log: Path, loop_ir) -> None:
+    """--log must be a file howl can append to (checked before the stream opens): one line otherwise."""
+    from howl.errors import InputError
+    from howl.fileio import refuse_input_as_output
+
+    refuse_input_as_output(log, [loop_ir], option="--log")
+    if log.is_dir():
+        raise InputError(f"{str(log)!r} is a folder; expected a file to append events to", key="--log")
+    try:
+        with open(log, "a", encoding="utf-8"):
+            pass
+    except OSError as exc:
+        raise InputError(f"cannot append to {str(log)!r}: {exc.strerror or exc}", key="--log") from None
+
+
 def register(app: typer.Typer) -> None:
     @app.command("listen")
     def listen_cmd(
@@ -89,7 +153,7 @@ def register(app: typer.Typer) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
         from howl.errors import InputError
-        from howl.listen.live import CAUTIONS, listen
+        from howl.listen.live import CAUTIONS
         from howl.cli._common import emit_json, loop_delay_option
 
         if device is None:
@@ -101,6 +165,8 @@ def register(app: typer.Typer) -> None:
             v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
         if json_out and duration is None:
             raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
+        if log is not None:
+            _check_log(log, loop_ir)
         tau = loop_delay_option(loop_delay_ms, loop_ir)
         desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
                              min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
@@ -109,27 +175,9 @@ def register(app: typer.Typer) -> None:
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
-        from howl.measure.audio import LiveInput
-        from howl.listen.detect import Detector
-
-        Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
-        src = LiveInput(device, in_channel)
-        label = src.device.label
-        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
-        try:
-            if json_out or not sys.stdout.isatty():
-                res = listen(src, **kw)
-            else:
-                from rich.console import Console
-                from rich.live import Live
-
-                console = Console()
-                with Live(console=console, refresh_per_second=4, transient=False) as live:
-                    res = listen(src, on_update=lambda s: live.update(_view(s, label, src.sample_rate_hz)), **kw)
-        finally:
-            src.close()
+        res, label = _run(device, in_channel, kw, json_out)
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)

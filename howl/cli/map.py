@@ -70,7 +70,9 @@ def register(app: typer.Typer) -> None:
         what_if: list[str] = typer.Option([], "--what-if", help="Try a change first, e.g. mics.lectern.pattern=supercardioid (repeatable)."),
         sample_rate_hz: float = typer.Option(8000.0, "--sample-rate-hz", help="Images method: sample rate of the loop IRs."),
         max_order: int = typer.Option(3, "--max-order", help="Images method: highest reflection order before the statistical tail."),
-        output: Optional[Path] = typer.Option(None, "-o", "--output", help="Write the heat map as PNG."),
+        output: Optional[Path] = typer.Option(None, "-o", "--out", help="Write the heat map as PNG."),
+        output_alias: Optional[Path] = typer.Option(None, "--output", hidden=True,
+                                                    help="Old spelling of --out (kept for scripts)."),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
         from howl.validate import choice, in_range, integer
@@ -85,14 +87,23 @@ def register(app: typer.Typer) -> None:
         in_range(step_m, "--step-m", 0.01, 10.0, unit="m")
         in_range(sample_rate_hz, "--sample-rate-hz", 4000.0, 96000.0, unit="Hz")
         integer(max_order, "--max-order", 0, 30)
-        if output is not None and output.suffix.lower() != ".png":
-            raise InputError(f"must end in .png, got {str(output)!r}", key="--output")
+        from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
+
+        if output is not None and output_alias is not None:
+            raise InputError("give the output once (--out; --output is its old spelling)", key="--output")
+        output = output if output is not None else output_alias
+        if output is not None:
+            refuse_input_as_output(output, [rig_file], option="--out")
+            check_suffix(output, [".png"], option="--out", what="a PNG image")
+            check_writable_folder(output, option="--out")
 
         with capture_warnings():
             path = bundled_rig_path() if rig_file is None else rig_file
             rig = load_rig(path)
             if what_if:
                 rig = with_changes(rig, list(what_if))
+            if area is not None:
+                _check_area(area, rig)
             from howl.model.placement import map_to_json, margin_map
 
             prog = _LazyProgress(f"mapping {mic}", quiet=False)
@@ -108,13 +119,28 @@ def register(app: typer.Typer) -> None:
             if output is not None:
                 from howl.report.placement_plot import save_map_png
 
-                save_map_png(m, rig, output)
+                save_map_png(m, rig, output, option="--out")
                 obj["plot"] = str(output)
 
         if json_out:
             emit_json(obj)
             return
         _print(obj, m)
+
+
+def _check_area(area, rig) -> None:
+    """--area must lie on the room's floor (a shoebox room; a free shape has no floor plan to check)."""
+    from howl.errors import InputError
+    from howl.validate import number
+
+    x0, y0, x1, y1 = (number(v, "--area", unit="m") for v in area)
+    if not (x1 > x0 and y1 > y0):
+        raise InputError(f"must be X0 Y0 X1 Y1 with X1 > X0 and Y1 > Y0, got {x0:g} {y0:g} {x1:g} {y1:g}", key="--area")
+    if rig.room.is_shoebox:
+        lx, ly, _ = rig.room.dimensions_m
+        if x0 < 0 or y0 < 0 or x1 > lx or y1 > ly:
+            raise InputError(f"must lie on the floor of room {rig.room.name!r} (0 0 {lx:g} {ly:g} m), got "
+                             f"{x0:g} {y0:g} {x1:g} {y1:g}", key="--area")
 
 
 def _fmt(v, spec="+.1f") -> str:

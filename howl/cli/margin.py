@@ -43,9 +43,21 @@ def register(app: typer.Typer) -> None:
         trim_s: Optional[float] = typer.Option(None, "--trim-s", help="Use only the first TRIM_S seconds of the IR."),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
-        from howl.cli._common import capture_warnings, emit_json
+        from howl.cli._common import added_gain_db, capture_warnings, emit_json, options_named
 
-        with capture_warnings():
+        added_gain_db(gain_db, "--gain-db")
+        if band_hz is not None:
+            from howl import validate as V
+
+            for i, f in enumerate(band_hz):
+                V.in_range(f, f"--band-hz ({'LO' if i == 0 else 'HI'})", 0.0, 1e6, unit="Hz")
+        if plot is not None:
+            from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
+
+            refuse_input_as_output(plot, [*irs, rig_file], option="--plot")
+            check_suffix(plot, [".png"], option="--plot", what="a PNG image")
+            check_writable_folder(plot, option="--plot")
+        with capture_warnings(), options_named({"band_hz": "--band-hz", "gain_db": "--gain-db"}):
             if len(irs) == 1 and not irs[0].is_dir():
                 report, plot_data = siso_report(
                     irs[0], gain_db=gain_db, band_hz=band_hz, channel=channel, n_risks=n_risks,
@@ -211,7 +223,7 @@ def _plot(path: Path, plot_data, title: str) -> None:
     from howl.report.plots import margin_figure, save_figure
 
     r, f, H = plot_data
-    save_figure(margin_figure(r, f, H, title=title), path)
+    save_figure(margin_figure(r, f, H, title=title), path, option="--plot")
 
 
 def _pairs(paths: list[Path]):

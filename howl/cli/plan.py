@@ -56,6 +56,9 @@ def register(app: typer.Typer) -> None:
             rig = load_rig(path)
             if what_if:
                 rig = with_changes(rig, list(what_if))
+            from howl.model._plannable import check_plannable
+
+            check_plannable(rig)  # as `howl check` does: refused naming the rig file
             from howl.model.plan import plan_rig, plan_to_json
 
             result = plan_rig(rig, fraction=fraction, f_lo_hz=f_lo_hz, f_hi_hz=f_hi_hz, fsm_db=fsm_db)

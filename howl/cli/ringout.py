@@ -124,6 +124,9 @@ def ringout_report(
     for w in warns:
         warnings.warn(w, HowlWarning)
     V.integer(max_notches, "--max-notches", 0, 64)
+    V.in_range(min_gain_db, "--min-gain-db", 0.0, 60.0, unit="dB")  # no cut buys more than a desk's range
+    if target_margin_db is not None:
+        V.in_range(target_margin_db, "--target-margin-db", -60.0, 60.0, unit="dB")
     coeff_fs = float(fs) if sample_rate_hz is None else V.positive(sample_rate_hz, "--sample-rate-hz", unit="Hz")
     band = None if band_hz is None else (float(band_hz[0]), float(band_hz[1]))
     try:
@@ -133,11 +136,16 @@ def ringout_report(
             tonal_weighting=tonal_weighting, desk=desk,
         )
     except InputError as exc:  # name the option the user typed
-        opt = {"max_notches": "--max-notches", "min_gain_per_notch_db": "--min-gain-db",
+        if exc.key == "freq_hz" and exc.file is None:  # a cut asked for at 0 Hz: the loop's worst crossing is DC
+            raise InputError("the loop's worst crossing is at 0 Hz (DC), where no cut can act; restrict the band "
+                             "(--band-hz) or high-pass the IR", file=str(path)) from None
+        opt = {"band_hz": "--band-hz", "max_notches": "--max-notches", "min_gain_per_notch_db": "--min-gain-db",
                "target_margin_db": "--target-margin-db", "temperature_c": "--temperature-c",
                "swing_c": "--swing-c", "tonal_share": "--tonal-share",
-               "tonal_weighting": "--tonal-weighting"}.get(exc.key or "", exc.key)
-        raise InputError(exc.message, file=str(path), key=opt) from None
+               "tonal_weighting": "--tonal-weighting"}.get((exc.key or "").split("[")[0])
+        if opt is not None:  # about an option the user typed: name it, not the file
+            raise InputError(exc.message, key=opt) from None
+        raise InputError(exc.message, file=str(path), key=exc.key) from None
     top = max((n.freq_hz for n in res.notches), default=0.0)
     if top >= coeff_fs / 2:
         raise InputError(

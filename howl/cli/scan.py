@@ -54,6 +54,34 @@ def _render_text(rep: dict, path: str) -> list[str]:
     return lines
 
 
+#: a recording with more than this share of its samples pinned at its peak is called clipped
+CLIPPED_SHARE = 0.001
+
+
+def _warn_if_clipped(x, name: str) -> None:
+    """Warn when a recording is heavily clipped: its loudest samples sit in flat runs at one level.
+
+    A clipped howl is a square-ish wave: its harmonics look like further howls and its growth
+    stops at full scale, so frequencies may be doubled up and growth rates understated.
+    """
+    import warnings
+
+    import numpy as np
+
+    from howl.errors import HowlWarning
+
+    peak = float(np.max(np.abs(x))) if x.size else 0.0
+    if peak <= 0.0:
+        return
+    at_peak = np.abs(x) >= peak * (1.0 - 1e-6)
+    flat = at_peak[1:-1] & at_peak[:-2] & at_peak[2:]  # inside a run of 3+ samples at the peak: a flat top
+    share = float(np.mean(flat)) if flat.size else 0.0
+    if share > CLIPPED_SHARE and int(np.sum(flat)) >= 16:
+        warnings.warn(f"{name}: {100 * share:.1f} % of the samples sit at the peak level ({20 * np.log10(peak):+.1f} "
+                      "dBFS): the recording is clipped; growth rates stop at the clip and harmonics may show as "
+                      "extra howls (record with more headroom)", HowlWarning)
+
+
 def register(app: typer.Typer) -> None:
     @app.command("scan")
     def scan(
@@ -98,6 +126,7 @@ def register(app: typer.Typer) -> None:
             x, fs = read_wav(recording, channel=channel)
             if fs < 4000:
                 raise v.fail("sample rate", ">= 4000 Hz", fs, "Hz", file=str(recording))
+            _warn_if_clipped(x, str(recording))
             det = Detector(fs, loop_delay_s=None if callable(tau) else tau)
             det.process(x)
             det.finish()

@@ -47,10 +47,12 @@ def register(app: typer.Typer) -> None:
         from howl import validate as V
         from howl.errors import InputError
         from howl.cli._common import capture_warnings, emit_json
+        from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
 
         paper_l = V.choice(paper.lower(), "--paper", ["a4", "letter"])
-        if out.suffix.lower() not in (".pdf", ".png"):
-            raise InputError(f"must end in .pdf or .png, got {str(out)!r}", key="-o")
+        refuse_input_as_output(out, [rig_file, measured, cuts, *maps], option="--out")
+        check_suffix(out, [".pdf", ".png"], option="--out", what="a PDF or PNG sheet")
+        check_writable_folder(out, option="--out")
         if ringout and measured is None:
             raise InputError("needs loop IRs to ring out: pass --measured DIR as well", key="--ringout")
         if no_plan and measured is None:
@@ -73,26 +75,18 @@ def register(app: typer.Typer) -> None:
             desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
                                  min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
                                  base=getattr(rig, "desk", None))
-            session = margins = ringouts = None
+            if not no_plan:
+                from howl.model._plannable import check_plannable
+
+                check_plannable(rig)
+            session = None
             if measured is not None:
                 session = read_session(measured)
                 check_session(session, rig)
                 session = with_combined_loops(session)
             listen_cuts = read_cuts(cuts) if cuts is not None else None
             margin_maps = [read_margin_map(m, rig) for m in maps]
-            plan_json = None
-            if not no_plan:
-                from howl.model.plan import plan_rig, plan_to_json
-
-                plan_json = plan_to_json(plan_rig(rig))
-            if session is not None:
-                from howl.loop.nyquist import nyquist_margin
-
-                margins = [nyquist_margin(p.ir, p.sample_rate_hz) for p in session.pairs]
-                if ringout:
-                    from howl.loop.ringout import ring_out
-
-                    ringouts = [ring_out(p.ir, p.sample_rate_hz, desk=desk) for p in session.pairs]
+            plan_json, margins, ringouts = _compute(rig, session, no_plan, ringout, desk)
             data = build_sheet_data(
                 rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
                 margin_maps=margin_maps, date=date, desk=desk,
@@ -107,3 +101,24 @@ def register(app: typer.Typer) -> None:
         else:
             for w in written:
                 typer.echo(f"wrote {w}")
+
+
+def _compute(rig, session, no_plan: bool, ringout: bool, desk=None):
+    """The plan (unless --no-plan), and each measured loop's margins (and ring-out): progress on stderr."""
+    plan_json = margins = ringouts = None
+    if not no_plan:
+        from howl.model.plan import plan_rig, plan_to_json
+
+        plan_json = plan_to_json(plan_rig(rig))
+    if session is not None:
+        from howl.cli._common import progress_iter
+        from howl.loop.nyquist import nyquist_margin
+
+        margins = [nyquist_margin(p.ir, p.sample_rate_hz)
+                   for p in progress_iter(session.pairs, "margins of the measured loops")]
+        if ringout:
+            from howl.loop.ringout import ring_out
+
+            ringouts = [ring_out(p.ir, p.sample_rate_hz, desk=desk)
+                        for p in progress_iter(session.pairs, "ringing out the measured loops")]
+    return plan_json, margins, ringouts

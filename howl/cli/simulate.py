@@ -28,9 +28,15 @@ def _parse_steps(text: str):
             raise InputError(f"must be TIME_S:GAIN_DB[,TIME_S:GAIN_DB...], got {part!r}", key="--steps")
         t, g = part.split(":", 1)
         try:
-            out.append((float(t), float(g)))
+            t_s, g_db = float(t), float(g)
         except ValueError:
             raise InputError(f"must be TIME_S:GAIN_DB pairs of numbers, got {part!r}", key="--steps") from None
+        from howl import validate as V
+        from howl.cli._common import added_gain_db
+
+        V.in_range(t_s, f"--steps (time in {part!r})", 0.0, 24 * 3600.0, unit="s")
+        added_gain_db(g_db, f"--steps (gain in {part!r})")
+        out.append((t_s, g_db))
     if not out:
         raise InputError("must hold at least one TIME_S:GAIN_DB pair", key="--steps")
     return out
@@ -77,10 +83,24 @@ def register(app: typer.Typer) -> None:
         ),
         json_out: bool = typer.Option(False, "--json", help="Print one JSON object instead of text."),
     ) -> None:
-        from howl.cli._common import capture_warnings, emit_json, warn
+        from howl.cli._common import added_gain_db, capture_warnings, emit_json, options_named, warn
+        from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
 
+        refuse_input_as_output(out, [ir, program, rig_file], option="--out")
+        check_suffix(out, [".wav"], option="--out", what="a WAV")
+        check_writable_folder(out, option="--out")
+        if gain_db is not None:
+            added_gain_db(gain_db, "--gain-db")
+        for i, g in enumerate(ramp_db or ()):
+            added_gain_db(g, f"--ramp-db ({'A' if i == 0 else 'B'})")
+        if steps is not None:
+            _parse_steps(steps)  # refused before the caution, so an error stays one line
+        from howl import validate as V
+
+        V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
+        V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
         warn(CAUTION)
-        with capture_warnings():
+        with capture_warnings(), options_named({"gain_db": "--gain-db", "ramp_db": "--ramp-db", "steps": "--steps"}):
             if ir.is_dir():
                 if cuts is not None:
                     from howl.errors import InputError
@@ -163,6 +183,9 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
     if fs_p != fs:
         from scipy.signal import resample_poly
 
+        from howl.fileio import resampled_length
+
+        resampled_length(x.shape[1], int(fs_p), int(fs), file=str(program))  # bound the size before the work
         g = math.gcd(int(fs), int(fs_p))
         x = resample_poly(x, int(fs) // g, int(fs_p) // g, axis=1)
         warnings.warn(f"{program}: resampled from {fs_p} Hz to the IRs' {fs} Hz", HowlWarning)
@@ -170,7 +193,7 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
     sched = _schedule(x.shape[1], fs, gain_db, ramp_db, steps)
     r = mimo_margin(irs, mix, fs)
     y = simulate_mimo(irs, mix, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
-    write_wav_atomic(out, y.T, fs)
+    write_wav_atomic(out, y.T, fs, option="--out")
     return {
         "irs": str(folder),
         "program": str(program),
@@ -206,6 +229,9 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     if fs_p != fs:
         from scipy.signal import resample_poly
 
+        from howl.fileio import resampled_length
+
+        resampled_length(x.size, int(fs_p), int(fs), file=str(program))  # bound the size before the work
         g = math.gcd(int(fs), int(fs_p))
         x = resample_poly(x, int(fs) // g, int(fs_p) // g)
         warnings.warn(f"{program}: resampled from {fs_p} Hz to the IR's {fs} Hz", HowlWarning)
@@ -229,7 +255,7 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
     else:
         r = nyquist_margin(h, fs)
     y = simulate_closed_loop(h, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
-    write_wav_atomic(out, y, fs)
+    write_wav_atomic(out, y, fs, option="--out")
     rms_in = float(np.sqrt(np.mean(x**2))) if np.any(x) else 0.0
     rms_out = float(np.sqrt(np.mean(y**2)))
     level_change_db = float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None

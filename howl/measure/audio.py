@@ -105,7 +105,7 @@ class AudioBackend(Protocol):
 
     def list_devices(self) -> list[DeviceInfo]: ...
 
-    def resolve(self, spec: str | int | None, kind: str) -> DeviceInfo: ...
+    def resolve(self, spec: str | int | None, kind: str, option: str | None = None) -> DeviceInfo: ...
 
     def play_record(
         self,
@@ -130,10 +130,12 @@ def _check_channels(channels: Sequence[int], dev: DeviceInfo, kind: str, option:
             )
 
 
-def _resolve_in(devices: list[DeviceInfo], spec: str | int | None, kind: str) -> DeviceInfo:
+def _resolve_in(devices: list[DeviceInfo], spec: str | int | None, kind: str, option: str | None = None
+                ) -> DeviceInfo:
     """Pick a device by index or by name fragment(s), the way sounddevice matches names:
-    every space/comma-separated word of ``spec`` must occur in "name, host API" (case-insensitive)."""
-    option = "--device" if kind == "both" else f"--{kind}-device"
+    every space/comma-separated word of ``spec`` must occur in "name, host API" (case-insensitive).
+    ``option`` is the option the user typed (default ``--device`` / ``--input-device`` / ``--output-device``)."""
+    option = option or ("--device" if kind == "both" else f"--{kind}-device")
     want_in = kind in ("input", "both")
     want_out = kind in ("output", "both")
 
@@ -194,8 +196,8 @@ class PortAudioBackend:
             ))
         return out
 
-    def resolve(self, spec: str | int | None, kind: str) -> DeviceInfo:
-        return _resolve_in(self.list_devices(), spec, kind)
+    def resolve(self, spec: str | int | None, kind: str, option: str | None = None) -> DeviceInfo:
+        return _resolve_in(self.list_devices(), spec, kind, option)
 
     def play_record(
         self,
@@ -252,6 +254,7 @@ class PortAudioBackend:
                 f"cannot open {input_device.label!r} → {output_device.label!r} at {sample_rate_hz} Hz: {exc}"
             ) from None
         interrupted = False
+        stop: BaseException | None = None
         try:
             stream.start()
             state["last"] = time.monotonic()
@@ -267,9 +270,10 @@ class PortAudioBackend:
                     raise AudioServerGone(f"no audio for {self.stall_timeout_s:g} s: the audio server or device "
                                           "stopped responding; check it and measure again")
                 time.sleep(0.02)
-        except KeyboardInterrupt:
+        except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM/SIGHUP raised as an interrupt by the CLI
             state["abort"] = True
             interrupted = True
+            stop = exc
             try:
                 stream.abort()  # stop the output at once
             except Exception:
@@ -283,7 +287,7 @@ class PortAudioBackend:
         result = PlayRecordResult(picked, int(sample_rate_hz), tuple(sorted(state["flags"])), int(state["pos"]),
                                   interrupted)
         if interrupted:
-            raise PlaybackInterrupted(result)
+            raise PlaybackInterrupted(result) from stop
         return result
 
     def _lose_server(self) -> None:
@@ -358,8 +362,8 @@ class FakeBackend:
     def list_devices(self) -> list[DeviceInfo]:
         return [self.device]
 
-    def resolve(self, spec, kind) -> DeviceInfo:
-        return _resolve_in(self.list_devices(), spec if spec is not None else "fake", kind)
+    def resolve(self, spec, kind, option=None) -> DeviceInfo:
+        return _resolve_in(self.list_devices(), spec if spec is not None else "fake", kind, option)
 
     def play_record(self, output, *, sample_rate_hz, output_device, input_device, output_channels, input_channels):
         from scipy.signal import fftconvolve
@@ -445,7 +449,7 @@ class LiveInput:
         self._backend = PortAudioBackend(stall_timeout_s=stall_timeout_s)
         sd = self._backend._sd
         try:
-            dev = self._backend.resolve(device, "input")
+            dev = self._backend.resolve(device, "input", "--device")
             _check_channels([channel], dev, "input", "--in-channel")
         except InputError as exc:
             self._backend.close()

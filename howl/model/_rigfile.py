@@ -71,48 +71,7 @@ _SPHERE_SURFACE_FACTOR = (36.0 * _math.pi) ** (1.0 / 3.0)
 
 # ---------------------------------------------------------------------------- TOML ----
 
-def _read_toml(path: _Any, *, key: str | None = None, ref_file: str | None = None) -> dict:
-    """Parse a TOML file; any problem becomes an InputError naming the file (and line/column)."""
-    p = _Path(path)
-    if not p.exists():
-        if ref_file:
-            raise _InputError(f"file not found: {str(p)!r}", file=ref_file, key=key)
-        raise _InputError("file not found", file=str(p))
-    if not p.is_file():
-        raise _InputError("is not a file", file=str(p))
-    try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise _InputError(f"cannot be read ({exc.strerror or exc})", file=str(p)) from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        raise _InputError(f"TOML syntax error at line {line}: not valid UTF-8 text", file=str(p)) from None
-    return _loads_toml(text, file=str(p))
-
-
-_TOML_POS = _re.compile(r"^(.*?)\s*\(at line (\d+), column (\d+)\)\s*$", _re.S)
-_TOML_EOD = _re.compile(r"^(.*?)\s*\(at end of document\)\s*$", _re.S)
-
-
-def _loads_toml(text: str, *, file: str | None) -> dict:
-    try:
-        return _tomllib.loads(text)
-    except _tomllib.TOMLDecodeError as exc:
-        msg = str(exc)
-        m = _TOML_POS.match(msg)
-        if m:
-            raise _InputError(
-                f"TOML syntax error at line {m.group(2)}, column {m.group(3)}: {m.group(1)}", file=file
-            ) from None
-        m = _TOML_EOD.match(msg)
-        if m:
-            n_lines = text.count("\n") + 1
-            raise _InputError(f"TOML syntax error at line {n_lines} (end of file): {m.group(1)}", file=file) from None
-        raise _InputError(f"TOML syntax error: {msg}", file=file) from None
-    except (ValueError, RecursionError) as exc:  # pathological input (deep nesting) — still one line
-        raise _InputError(f"TOML syntax error: {exc}", file=file) from None
+from howl.model._tomlfile import _read_toml  # noqa: E402  (TOML reading lives there)
 
 
 # ----------------------------------------------------------------------- helpers ----
@@ -136,7 +95,16 @@ def _text(value: _Any, key: str, file: str | None, *, allow_empty: bool = True) 
     return value
 
 
+#: longest name accepted (it has to fit a column of the desk sheet and a file name)
+MAX_NAME_CHARS = 100
+#: most blocks of one kind ([[speakers]], [[mics]]...) in a rig: far beyond any real show
+MAX_BLOCKS = 512
+
+
 def _name(value: _Any, key: str, file: str | None) -> str:
+    if isinstance(value, str) and len(value) > MAX_NAME_CHARS:
+        raise _InputError(f"must be a name of at most {MAX_NAME_CHARS} characters, got {len(value)} "
+                          f"({value[:20]!r}...)", file=file, key=key)
     s = _v.string(value, key, file=file)
     if s != s.strip() or any(ch in s for ch in "=.[]\"'\n\t"):
         raise _v.fail(key, "a name without spaces at the ends and without = . [ ] or quotes", value, file=file)
@@ -166,6 +134,8 @@ def _boolean(value: _Any, key: str, file: str | None) -> bool:
 def _list_of_tables(value: _Any, key: str, file: str | None) -> list:
     if not isinstance(value, list):
         raise _v.fail(key, f"an array of tables ([[{key}]] blocks)", value, file=file)
+    if len(value) > MAX_BLOCKS:
+        raise _InputError(f"holds {len(value)} [[{key}]] blocks; expected at most {MAX_BLOCKS}", file=file, key=key)
     for i, item in enumerate(value):
         if not isinstance(item, dict):
             raise _v.fail(f"{key}[{i}]", "a table", item, file=file)

@@ -419,7 +419,8 @@ def _table_array(data: dict, key: str, path: str, shape: tuple[int, ...] | None 
 def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
     """Read and validate a polar table file (cached per path and modification time)."""
     import os
-    import tomllib
+
+    from howl.model._tomlfile import _read_toml
 
     try:
         stamp = os.stat(path).st_mtime_ns
@@ -428,13 +429,7 @@ def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
     key = (path, planes, stamp)
     if key in _TABLE_CACHE:
         return _TABLE_CACHE[key]
-    try:
-        with open(path, "rb") as fh:
-            data = tomllib.load(fh)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"TOML syntax error: {exc}", file=path) from None
-    except OSError as exc:
-        raise InputError(f"cannot be read ({exc.strerror or exc})", file=path) from None
+    data = _read_toml(path)  # size bound, BOM, UTF-8, syntax and nesting: one line naming the file
     allowed = ("freq_hz", "angle_deg", "description", "source") + planes
     for k in data:
         if k not in allowed:
@@ -455,15 +450,24 @@ def load_polar_table(path: str, planes: tuple[str, ...]) -> PolarTable:
     return table
 
 
+def _named(exc: InputError, who: str, key: str) -> InputError:  # the same error, naming whose file it is
+    return InputError(exc.message, file=exc.file, key=f"{who} ({key} {exc.key})" if exc.key else f"{who} ({key})")
+
+
 def _mic_table(mic: Mic) -> PolarTable:
-    return load_polar_table(str(mic.pattern_file), ("gain_db",))
+    try:
+        return load_polar_table(str(mic.pattern_file), ("gain_db",))
+    except InputError as exc:
+        raise _named(exc, f"mic {mic.name!r}", "pattern_file") from None
 
 
 def _speaker_table(speaker: Speaker):
     path = str(speaker.directivity_file)
-    if path.lower().endswith(".sofa"):
-        return load_sofa_directivity(path)
-    return load_polar_table(path, ("horizontal_db", "vertical_db"))
+    try:
+        sofa = path.lower().endswith(".sofa")
+        return load_sofa_directivity(path) if sofa else load_polar_table(path, ("horizontal_db", "vertical_db"))
+    except InputError as exc:
+        raise _named(exc, f"speaker {speaker.name!r}", "directivity_file") from None
 
 
 class SofaDirectivity:

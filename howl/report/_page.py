@@ -34,33 +34,31 @@ _GREY = "0.45"
 _LIGHT = "0.88"
 
 
-_ADVANCE_CACHE: dict[tuple[str, str], float] = {}
-
-
 def _text_width_pt(s: str, size: float, weight: Any = "normal") -> float:
-    """Width of a one-line text in points, from the font's advance widths.
+    """Width of a one-line text in points, from the font's advance widths (:mod:`howl.report._fonts`).
 
     Summing per-character advances (cached) ignores kerning, so 3 % is added
     to stay on the safe side; it is much faster than laying out each trial
     string with the renderer.
     """
-    from matplotlib.font_manager import FontProperties, findfont, get_font
+    from howl.report._fonts import advance_pt_per_pt
 
-    w = "bold" if weight in ("bold", 700, "heavy", "black", "semibold") else "normal"
-    total = 0.0
-    font = None
-    for ch in s:
-        key = (w, ch)
-        adv = _ADVANCE_CACHE.get(key)
-        if adv is None:
-            if font is None:
-                font = get_font(findfont(FontProperties(family="DejaVu Sans", weight=w)))
-                font.set_size(100.0, 72)
-            glyph = font.load_char(ord(ch))
-            adv = glyph.linearHoriAdvance / 65536.0 / 100.0  # points per point of size
-            _ADVANCE_CACHE[key] = adv
-        total += adv
-    return total * size * 1.03
+    return sum(advance_pt_per_pt(ch, weight) for ch in s) * size * 1.03
+
+
+def _cut_to_width(s: str, size: float, weight: Any, max_w: float) -> str:
+    """The longest start of ``s`` that fits ``max_w`` with an ellipsis: a binary search over the
+    cumulative advances (a 10 000-character name costs one pass, not one pass per character)."""
+    import bisect
+    import itertools
+
+    from howl.report._fonts import advance_pt_per_pt
+
+    scale = size * 1.03
+    room = max_w / scale - advance_pt_per_pt("\u2026", weight)
+    widths = list(itertools.accumulate(advance_pt_per_pt(ch, weight) for ch in s))
+    n = max(2, bisect.bisect_right(widths, room))
+    return s[:n].rstrip() + "\u2026"
 
 
 class _Page:
@@ -106,9 +104,7 @@ class _Page:
             size = max(min_size, size - 0.5)
         t.set_fontsize(size)
         if _text_width_pt(s, size, weight) > max_w:
-            while len(s) > 2 and _text_width_pt(s + "\u2026", size, weight) > max_w:
-                s = s[:-1]
-            t.set_text(s.rstrip() + "\u2026")
+            t.set_text(_cut_to_width(s, size, weight, max_w))
 
     def width_of(self, s: str, size: float, weight: str = "normal") -> float:
         return _text_width_pt(s, size, weight)
@@ -859,33 +855,31 @@ def render(data: SheetData, path: str | os.PathLike, *, paper: str = "a4", png_d
     suffix = p.suffix.lower()
     if suffix not in (".pdf", ".png"):
         raise InputError(f"must end in .pdf or .png, got {p.name!r}", key="-o")
+    from howl.report._fonts import printable_sheet
+
+    data, families = printable_sheet(data)
     rc = {
         "pdf.fonttype": 42,
         "ps.fonttype": 42,
-        "font.family": "DejaVu Sans",
+        "font.family": families,
         "axes.unicode_minus": True,
         "path.simplify": True,
         "hatch.color": "black",
         "hatch.linewidth": 0.5,
     }
-    written = []
     with matplotlib.rc_context(rc):
         pages = _layout(data, paper)
         if suffix == ".pdf":
             from matplotlib.backends.backend_pdf import PdfPages
 
-            with atomic_path(p) as tmp:
+            with atomic_path(p, option="--out") as tmp:
                 with PdfPages(
                     str(tmp),
                     metadata={"Title": f"Gain sheet: {data.rig_name}", "Subject": f"Room: {data.room_name}", "Creator": "howl"},
                 ) as pdf:
                     for pg in pages:
                         pdf.savefig(pg.fig)
-            written.append(str(p))
-        else:
-            for i, pg in enumerate(pages):
-                target = p if i == 0 else p.with_name(f"{p.stem}-{i + 1}{p.suffix}")
-                with atomic_path(target) as tmp:
-                    pg.fig.savefig(str(tmp), format="png", dpi=png_dpi, facecolor="white")
-                written.append(str(target))
-    return written
+            return [str(p)]
+        from howl.report._png import write_png_pages
+
+        return write_png_pages([pg.fig for pg in pages], p, png_dpi)

@@ -111,10 +111,10 @@ def _nice_levels(lo: float, hi: float) -> list[float]:
     return [float(v) for v in levels if lo < v < hi]
 
 
-def save_map_png(m: PlacementMap, rig: Rig, path) -> None:
-    """Write the map as PNG atomically (:func:`howl.fileio.atomic_path`)."""
+def save_map_png(m: PlacementMap, rig: Rig, path, *, option: str | None = None) -> None:
+    """Write the map as PNG atomically (:func:`howl.fileio.atomic_path`); errors name ``option``."""
     from howl.fileio import atomic_path
 
     fig = map_figure(m, rig)
-    with atomic_path(path) as tmp:
+    with atomic_path(path, option=option) as tmp:
         fig.savefig(tmp, format="png")

@@ -84,9 +84,9 @@ def margin_figure(result, freq_hz: np.ndarray, H: np.ndarray, *, title: str | No
     return fig
 
 
-def save_figure(fig, path) -> None:
-    """Write a figure as PNG atomically."""
+def save_figure(fig, path, *, option: str | None = None) -> None:
+    """Write a figure as PNG atomically; errors name ``option``."""
     from howl.fileio import atomic_path
 
-    with atomic_path(path, suffix=".png") as tmp:
+    with atomic_path(path, suffix=".png", option=option) as tmp:
         fig.savefig(str(tmp), format="png", dpi=120)

@@ -39,7 +39,6 @@ References
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import math
 import os
 from dataclasses import dataclass, field
@@ -274,11 +273,10 @@ class Session:
 
 
 def _read_json(path: Path, option: str | None):
-    """Parse one JSON file; a file that is not JSON is a one-line InputError naming it (and the option)."""
-    try:
-        return json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", key=option, file=str(path)) from None
+    """Parse one JSON file; any problem is a one-line InputError naming it (and the option)."""
+    from howl.fileio import read_json_file
+
+    return read_json_file(path, option=option)
 
 
 def read_session(folder: str | os.PathLike) -> Session:
@@ -324,7 +322,7 @@ def read_session(folder: str | os.PathLike) -> Session:
             if not isinstance(p.get(k), str) or not p.get(k).strip():
                 raise InputError(f"must be a non-empty string, got {p.get(k)!r}", file=str(meta_p), key=f"{key}.{k}")
         ir_rel = p["ir_file"]
-        ir, fs = read_wav(folder_p / ir_rel)
+        ir, fs = read_wav(folder_p / ir_rel, option="")  # a loop IR per pair: one channel
         pairs.append(SessionPair(p["speaker"], p["mic"], ir_rel, ir, fs))
     if not pairs:
         raise InputError("holds no pair with a usable IR (status 'ok' and an ir_file)", file=str(meta_p), key="pairs")

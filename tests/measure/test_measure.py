@@ -310,3 +310,38 @@ def test_an_ir_longer_than_the_window_asks_for_a_longer_tail(tmp_path):
     h[24] += 0.3  # direct sound
     e = session(fake(h=h), tmp_path, sweep=SweepSettings(0.5, 40.0, None, 0.3)).measure_pair(Pair("main", "lectern"))
     assert any("lengthen --tail-s" in w for w in e["warnings"])
+
+
+def test_a_block_measured_again_keeps_both_raw_recordings(tmp_path):
+    # issue 18 item 2: the second block of repeats once reused the first block's file name
+    extra = np.zeros(400)
+    extra[300] = 0.2
+    period = int(round(SWEEP.duration_s * FS)) + int(round(SWEEP.tail_s * FS))
+    fb = fake(vary_segment=(period, extra))  # every block disagrees: measured again, then refused
+    with pytest.raises(MeasurementQualityError, match="disagree"):
+        session(fb, tmp_path).measure_pair(Pair("main", "lectern"))
+    rec = json.loads((tmp_path / "s" / "session.json").read_text())
+    files = [r["file"] for r in rec["pairs"][0]["raw_files"]]
+    blocks = [f for f in files if "_block_" in f]
+    assert len(blocks) == 2 and len(set(files)) == len(files)
+    for f in files:
+        assert (tmp_path / "s" / f).is_file()
+    assert len(list((tmp_path / "s" / "raw").glob("*.wav"))) == len(files)
+
+
+def test_an_unknown_output_channel_is_refused_before_the_session_folder_is_made(tmp_path, monkeypatch):
+    fb = fake()
+    monkeypatch.setattr(audio, "open_backend", lambda: fb)
+    r = CliRunner().invoke(app, ["measure", "--device", "fake", "--out-channel", "9", "--out", str(tmp_path / "s"),
+                                 "--yes"])
+    assert r.exit_code == 2 and "--out-channel" in r.output
+    assert not (tmp_path / "s").exists()
+
+
+def test_device_errors_name_the_option_typed(tmp_path, monkeypatch):
+    # issue 19 item 10: `--device X` once complained about --output-device
+    fb = fake()
+    monkeypatch.setattr(audio, "open_backend", lambda: fb)
+    r = CliRunner().invoke(app, ["measure", "--device", "nosuchcard", "--out", str(tmp_path / "s"), "--yes"])
+    assert r.exit_code == 2
+    assert "--device" in r.output and "--output-device" not in r.output and "--input-device" not in r.output

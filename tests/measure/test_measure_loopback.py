@@ -19,6 +19,7 @@ import os
 import shutil
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -218,3 +219,73 @@ def test_portaudio_backend_round_trip_is_bit_exact_and_leaves_defaults_alone(jac
     assert out["exact"]  # float32 in, the same float32 out, channels in the order asked for
     assert not [f for f in out["flags"] if f != "priming_output"]  # no over/underflow
     assert out["same_defaults"]  # sounddevice's global defaults never touched
+
+
+@pytest.mark.parametrize("signame", ["SIGTERM", "SIGHUP"])
+def test_a_stop_signal_mid_measure_keeps_the_partial_raw_and_marks_the_session(jack_env, tmp_path, signame):
+    # issue 18 item 3: `kill` or a closed terminal is handled as Ctrl-C is
+    import signal
+    import time
+
+    sig = getattr(signal, signame)
+    out = tmp_path / "s"
+    err = tmp_path / "stderr.txt"
+    with open(err, "w") as fh:
+        p = subprocess.Popen([sys.executable, "-m", "howl", "measure", "--device", "loopback, JACK", "--out", str(out),
+                              "--yes", "--json", "--sweep-s", "4", "--tail-s", "0.5"],
+                             env=jack_env, stdout=subprocess.PIPE, stderr=fh, text=True)
+        assert _wait_for(err, "sweep at"), err.read_text()
+        time.sleep(1.0)  # let part of the sweep play and be recorded
+        p.send_signal(sig)
+        rc = p.wait(timeout=30)
+    assert rc == 128 + sig, err.read_text()  # the shell's convention for a death by signal
+    assert "Traceback" not in err.read_text()
+    rec = json.loads((out / "session.json").read_text())
+    assert rec["status"] == "interrupted" and rec["pairs"][0]["status"] == "interrupted"
+    kept = [f for f in rec["pairs"][0]["raw_files"] if f["status"] == "interrupted"]
+    assert kept and (out / kept[0]["file"]).exists()
+    data, _ = sf.read(out / kept[0]["file"])
+    assert 0 < data.shape[0] < 4.0 * RATE
+    assert not [q.name for q in out.rglob(".*") if q.is_file()]  # no temporaries left
+
+
+_FORCE_ONE_DISAGREEMENT = """
+import dataclasses, sys
+import howl.measure.session as s
+
+_analyse = s.analyse
+blocks = []
+
+def first_block_disagrees(*args, **kw):
+    an = _analyse(*args, **kw)
+    if kw.get("n_repeats", 1) > 1:
+        blocks.append(1)
+        if len(blocks) == 1:  # the first block of repeats is made to disagree: the session measures again
+            an = dataclasses.replace(an, repeat_difference_db=0.0)
+    return an
+
+s.analyse = first_block_disagrees
+sys.argv = ["howl", *sys.argv[1:]]
+from howl.cli import main
+main()
+"""
+
+
+def test_a_forced_re_measure_keeps_both_raw_recordings(jack_env, tmp_path):
+    # issue 18 item 2: the second block once overwrote the first block's raw recording
+    out = tmp_path / "s"
+    r = subprocess.run([sys.executable, "-c", _FORCE_ONE_DISAGREEMENT, "measure", "--device", "loopback, JACK",
+                        "--reference-channel", "2", "--out", str(out), "--yes", "--json", "--sweep-s", "0.5",
+                        "--tail-s", "0.3"], env=jack_env, capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+    rec = json.loads((out / "session.json").read_text())
+    (pair,) = rec["pairs"]
+    assert any("repeats disagreed" in w for w in pair["warnings"])
+    files = [f["file"] for f in pair["raw_files"]]
+    assert len(set(files)) == len(files), files  # no name used twice
+    # blocks that were analysed (a loaded machine may add dropout retries, each its own file too)
+    blocks = [f["file"] for f in pair["raw_files"] if "_block_" in f["file"] and f["status"] != "dropout"]
+    assert len(blocks) == 2, pair["raw_files"]
+    first, second = (sf.read(out / f)[0] for f in blocks)
+    assert first.shape == second.shape and first.shape[0] > 0  # both blocks kept, whole
+    assert sorted(q.name for q in (out / "raw").iterdir()) == sorted(Path(f).name for f in files)

@@ -164,3 +164,55 @@ def test_random_what_if_edits_give_a_rig_or_an_input_error(tmp_path_factory, edi
         with_changes(rig, [f"{p}={v}" for p, v in edits])
     except InputError as exc:
         assert "--what-if" in str(exc) and "\n" not in str(exc)
+
+
+_POSITIONED = [("speakers", 0), ("speakers", 1), ("mics", 0), ("mics", 1), ("talkers", 0), ("listeners", 0)]
+
+
+def _collide(doc: dict, data) -> dict:
+    """Now and then put one thing where another stands, or close every mic: the faults that show only
+    when the parts of a rig meet (a listener on a loudspeaker, a talker on a capsule, no open mic)."""
+    action = data.draw(st.sampled_from(["none", "none", "collide", "collide", "mute"]))
+    if action == "collide":
+        a, b = data.draw(st.sampled_from(_POSITIONED)), data.draw(st.sampled_from(_POSITIONED))
+        try:
+            doc[a[0]][a[1]]["position_m"] = copy.deepcopy(doc[b[0]][b[1]]["position_m"])
+        except (KeyError, IndexError, TypeError):
+            pass
+    elif action == "mute":
+        for m in doc.get("mics", []) if isinstance(doc.get("mics"), list) else []:
+            if isinstance(m, dict):
+                m["open"] = False
+    return doc
+
+
+def _cli(*args):
+    from typer.testing import CliRunner
+
+    from howl.cli import app
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return CliRunner().invoke(app, list(args))
+
+
+@seed(18005)
+@settings(max_examples=60, deadline=None, suppress_health_check=_QUIET)
+@given(data=st.data())
+def test_check_and_plan_agree_on_mutated_rigs(tmp_path_factory, data):
+    # issue 18: a rig that `check` passes must not fail `plan` on validation (exit 2); both
+    # exit 0 or 2 (never a traceback, exit 1)
+    folder = _folder(tmp_path_factory, "fuzz_agree")
+    room = _mutate(ROOM, data) if data.draw(st.booleans()) else ROOM
+    (folder / "room.toml").write_text(dumps_toml(room), encoding="utf-8")
+    p = folder / "rig.toml"
+    p.write_text(dumps_toml(_collide(_mutate(RIG, data), data)), encoding="utf-8")
+    c = _cli("check", str(p))
+    assert c.exit_code in (0, 2), c.output
+    pl = _cli("plan", str(p), "--json")
+    assert pl.exit_code in (0, 2), pl.output
+    if c.exit_code == 0:
+        assert pl.exit_code == 0, f"check passed, plan refused: {pl.output}"
+    else:
+        err = c.output.strip().splitlines()
+        assert len(err) == 1 and "rig.toml" in err[0] or "room.toml" in err[0], c.output

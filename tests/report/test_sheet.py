@@ -538,3 +538,56 @@ def test_a_mic_heard_through_two_loudspeakers_gets_their_summed_loop(tmp_path):
     assert both["mic"] == "lectern" and both["ir_file"] == "ir/n.wav + ir/s.wav"
     assert both["gain_margin_db"] == pytest.approx(-20 * math.log10(0.6), abs=1e-6)
     assert both["magnitude_margin_db"] == pytest.approx(-20 * math.log10(0.6), abs=1e-6)
+
+
+# ----------------------------------------------------------------------------- nothing lost (issue 18)
+
+
+def test_png_pages_left_by_an_earlier_longer_sheet_are_removed(tmp_path):
+    _write_session(tmp_path / "s")
+    out = tmp_path / "sheet.png"
+    args = ["sheet", str(bundled_rig_path()), "--measured", str(tmp_path / "s"), "-o", str(out), "--json"]
+    first = runner.invoke(app, args)
+    assert first.exit_code == 0, first.output
+    n = len(json.loads(first.stdout)["files"])
+    magic = b"\x89PNG\r\n\x1a\n"
+    stale = [tmp_path / f"sheet-{k}.png" for k in (n + 1, n + 2)]
+    for q in stale:
+        q.write_bytes(magic + b"an older sheet's page")
+    foreign = tmp_path / f"sheet-{n + 3}.png"  # after the stale pages, but not a PNG: not ours, kept
+    foreign.write_text("notes", encoding="utf-8")
+    again = runner.invoke(app, args)
+    assert again.exit_code == 0, again.output
+    assert not any(q.exists() for q in stale)
+    assert foreign.read_text(encoding="utf-8") == "notes"
+    for q in stale:
+        assert f"removed {q}" in again.stderr
+
+
+def test_a_name_no_installed_font_draws_is_printed_as_question_marks(tmp_path):
+    from howl.report._fonts import fallback_for
+
+    name = "\u8bb2\u53f0\U0001F3A4"  # two CJK ideographs and a microphone emoji
+    src = Path(bundled_rig_path())
+    text = src.read_text(encoding="utf-8").replace('"lectern"', f'"{name}"').replace("\nlectern = ", f'\n"{name}" = ')
+    room = re.search(r'room_file\s*=\s*"([^"]+)"', text).group(1)
+    text = text.replace(f'"{room}"', f'"{(src.parent / room).resolve().as_posix()}"')
+    rig = tmp_path / "rig.toml"
+    rig.write_text(text, encoding="utf-8")
+    res = runner.invoke(app, ["sheet", str(rig), "-o", str(tmp_path / "s.pdf")])
+    assert res.exit_code == 0, (res.output, res.exception)
+    if all(fallback_for(ch) is None for ch in name):  # the usual case: no font here draws them
+        assert "U+8BB2" in res.stderr and "printed as '?'" in res.stderr
+        txt = subprocess.run(["pdftotext", str(tmp_path / "s.pdf"), "-"], capture_output=True, text=True).stdout
+        assert "???" in txt
+
+
+def test_a_long_name_is_cut_to_the_longest_start_that_fits():
+    from howl.report._page import _cut_to_width, _text_width_pt
+
+    s = "lectern-" * 1250  # 10 000 characters, no spaces (none stripped at the cut)
+    cut = _cut_to_width(s, 9.0, "normal", 120.0)
+    assert cut.endswith("\u2026")
+    assert _text_width_pt(cut, 9.0) <= 120.0 + 1e-9
+    longer = s[: len(cut)] + "\u2026"  # one more character of the name
+    assert _text_width_pt(longer, 9.0) > 120.0
