@@ -119,7 +119,7 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
     from howl import validate as V
     from howl.errors import HowlWarning, InputError
     from howl.fileio import read_wav, write_wav_atomic
-    from howl.loop.nyquist import mimo_margin
+    from howl.loop.mimo import mimo_margin
     from howl.loop.simulate import simulate_mimo
     from howl.cli.margin import load_pair_loop
 

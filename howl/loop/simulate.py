@@ -268,7 +268,7 @@ def simulate_mimo(
     i carries y_i = sat(x_i + g·Σ_j l_ij * y_j), l_ij = Σ_spk mix[spk, j]·h[spk, i]
     (see :func:`howl.loop.loop_matrix`). Returns (n_mic, T).
     """
-    from howl.loop.nyquist import _check_mimo, loop_matrix
+    from howl.loop.mimo import _check_mimo, loop_matrix
 
     V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
     a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
