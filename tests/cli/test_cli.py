@@ -55,3 +55,18 @@ def test_version_is_printed():
     result = runner.invoke(app, ["--version"])
     assert result.exit_code == 0
     assert "howl" in result.output
+
+
+def test_every_command_module_is_imported_by_name(repo):
+    # plain imports make each command visible to `python -X importtime -m howl ...`
+    from howl.cli import COMMANDS
+
+    on_disk = {p.stem for p in (repo / "howl" / "cli").glob("*.py") if not p.stem.startswith("_")}
+    assert on_disk == set(COMMANDS)
+
+
+def test_command_modules_show_in_importtime():
+    out = subprocess.run([sys.executable, "-X", "importtime", "-m", "howl", "--help"], capture_output=True, text=True)
+    shown = {line.rsplit("|", 1)[-1].strip() for line in out.stderr.splitlines()}
+    assert {"howl.cli.plan", "howl.cli.scan", "howl.cli.margin"} <= shown
+    assert "numpy" not in shown  # --help pays for no numerical library
