@@ -63,6 +63,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -119,8 +120,18 @@ class ImageSourceInfo:
 # ---------------------------------------------------------------------------
 
 
+@functools.lru_cache(maxsize=8)
 def _index_triples(max_order: int, *, exact: bool = False) -> np.ndarray:
-    """All integer (kx, ky, kz) with |kx|+|ky|+|kz| ≤ max_order (or == max_order if ``exact``)."""
+    """All integer (kx, ky, kz) with |kx|+|ky|+|kz| ≤ max_order (or == max_order if ``exact``).
+
+    The same for every room: cached (read-only) per order.
+    """
+    k = _index_triples_uncached(max_order, exact=exact)
+    k.flags.writeable = False
+    return k
+
+
+def _index_triples_uncached(max_order: int, *, exact: bool = False) -> np.ndarray:
     n = int(max_order)
     k = np.arange(-n, n + 1)
     kx, ky = np.meshgrid(k, k, indexing="ij")
@@ -167,11 +178,29 @@ def _images_from_indices(dims: np.ndarray, src: np.ndarray, k: np.ndarray) -> Im
     )
 
 
+@functools.lru_cache(maxsize=8)
+def _image_layout(max_order: int) -> tuple[np.ndarray, ...]:
+    """What the images up to ``max_order`` share in every room: (k, odd, order, hits, mirror_sign), read-only."""
+    k = _index_triples(max_order)
+    ref = _images_from_indices(np.zeros(3), np.zeros(3), k)
+    out = (k.astype(float), (k % 2) != 0, ref.order, ref.hits, ref.mirror_sign)
+    for a in out:
+        a.flags.writeable = False
+    return out
+
+
 def shoebox_images(dimensions_m, source_position_m, max_order: int) -> ImageSet:
-    """Image sources up to ``max_order`` reflections (Allen & Berkley 1979, §II)."""
+    """Image sources up to ``max_order`` reflections (Allen & Berkley 1979, §II).
+
+    Image k (integers per axis) sits at k·L + s on an even axis and at (k + 1)·L − s = k·L + (L − s)
+    on an odd one; the reflection counts and mirror signs depend on k alone (cached per order).
+    """
     dims = np.asarray(dimensions_m, dtype=float)
     src = np.asarray(source_position_m, dtype=float)
-    return _images_from_indices(dims, src, _index_triples(max_order))
+    kf, odd, order, hits, mirror = _image_layout(int(max_order))
+    pos = kf * dims
+    pos += np.where(odd, dims - src, src)
+    return ImageSet(positions_m=pos, order=order, hits=hits, mirror_sign=mirror)
 
 
 def _first_missing_arrival_s(dims, src, mic, max_order: int, c: float) -> float:
@@ -293,31 +322,98 @@ def band_weights(freq_hz: np.ndarray, centres_hz) -> np.ndarray:
     return w
 
 
-def _fractional_delay_kernel(delay_samples: np.ndarray, half_width: int):
+def _fractional_delay_kernel(delay_samples: np.ndarray, half_width: int, scale: np.ndarray | None = None):
     """Blackman-windowed sinc taps for each delay: (start index (N,), taps (N, 2·half_width)).
 
-    Unit DC gain per delay (the taps are normalised to sum to one), cut-off at
-    Nyquist (windowed-sinc fractional delay: T. I. Laakso et al., "Splitting the
-    unit delay", IEEE Signal Processing Magazine 13(1):30–60, 1996, §III).
+    Unit DC gain per delay (the taps are normalised to sum to one; with ``scale`` (N,) to sum
+    to ``scale``), cut-off at Nyquist (windowed-sinc fractional delay: T. I. Laakso et al.,
+    "Splitting the unit delay", IEEE Signal Processing Magazine 13(1):30–60, 1996, §III).
 
-    The trigonometric terms are split by the angle-sum identities into one
-    sine/cosine per image and a fixed table per tap, so the cost per tap is a
-    few multiply-adds.
+    sinc(o − f) = −(−1)^o·sin(πf)/(π(o − f)); the factor sin(πf)/π is the same for all taps of
+    an image, so the normalisation removes it and it is never computed. The window's cosine is
+    split by the angle-sum identity into one sine/cosine per image and a fixed table per tap,
+    and every step works in place: the cost per tap is a few multiply-adds.
     """
-    base = np.floor(delay_samples).astype(np.int64)
+    base = np.floor(delay_samples)
     frac = np.maximum(delay_samples - base, 1e-9)  # (N,), in (0, 1); never exactly 0 (sinc's 0/0)
-    offs = np.arange(-half_width + 1, half_width + 1, dtype=float)  # tap positions o
-    x = offs[None, :] - frac[:, None]  # tap position minus the exact delay
-    # sinc(o − f) = −(−1)^o · sin(πf) / (π (o − f))
-    sign = np.where(offs.astype(np.int64) % 2 == 0, -1.0, 1.0)
-    taps = (np.sin(math.pi * frac)[:, None] * sign[None, :]) / (math.pi * x)
+    o = np.arange(-half_width + 1, half_width + 1)
+    offs = o.astype(float)  # tap positions o
+    sign = np.where(o % 2 == 0, -1.0, 1.0)
+    taps = offs[None, :] - frac[:, None]  # tap position minus the exact delay
+    np.reciprocal(taps, out=taps)
+    taps *= sign
     # Blackman window on (o − f)/half_width: cos(a − b) = cos a cos b + sin a sin b
     a = (math.pi / half_width) * offs
     bf = (math.pi / half_width) * frac
-    cw = np.cos(a)[None, :] * np.cos(bf)[:, None] + np.sin(a)[None, :] * np.sin(bf)[:, None]
-    taps *= 0.34 + cw * (0.5 + 0.16 * cw)  # 0.42 + 0.5·cos θ + 0.08·cos 2θ, with cos 2θ = 2cos²θ − 1
-    taps /= taps.sum(axis=1, keepdims=True)
-    return base - half_width + 1, taps
+    cw = np.cos(a)[None, :] * np.cos(bf)[:, None]
+    cw += np.sin(a)[None, :] * np.sin(bf)[:, None]
+    win = cw * 0.16  # 0.42 + 0.5·cos θ + 0.08·cos 2θ, with cos 2θ = 2cos²θ − 1
+    win += 0.5
+    win *= cw
+    win += 0.34
+    taps *= win
+    norm = 1.0 / taps.sum(axis=1) if scale is None else np.asarray(scale, dtype=float) / taps.sum(axis=1)
+    taps *= norm[:, None]
+    return base.astype(np.int64) - half_width + 1, taps
+
+
+#: Images per block of the one-band synthesis: the block's arrays stay small enough (≤ 96 kB) to be
+#: reused from the heap, where one array for all images would be fresh memory (page faults) each call.
+_PLACE_BLOCK = 384
+
+
+#: Fractional delays tabulated per sample for the one-band synthesis (linear interpolation between
+#: rows: the kernel is smooth in the delay, so the error is below 1e-6 of its peak; the tests check it).
+_KERNEL_STEPS = 1024
+
+
+@functools.lru_cache(maxsize=4)
+def _kernel_table(half_width: int) -> tuple[np.ndarray, np.ndarray]:
+    """Rows of :func:`_fractional_delay_kernel` at fractions 0, 1/S, …, 1 and their differences."""
+    frac = np.arange(_KERNEL_STEPS + 1) / _KERNEL_STEPS
+    frac[-1] = 1.0 - 1e-12  # the last row is the delay of one whole sample, still on this row's taps
+    _, rows = _fractional_delay_kernel(frac, half_width)
+    rows.flags.writeable = False
+    diff = np.diff(rows, axis=0)
+    diff.flags.writeable = False
+    return rows, diff
+
+
+def _place_images(delay: np.ndarray, gain: np.ndarray, half_width: int, n: int) -> np.ndarray:
+    """Σ over images of gain × the fractional-delay kernel at its delay, cut to [0, n) (one band).
+
+    Block by block: the kernels of a block (linear interpolation in :func:`_kernel_table`) are
+    added into the output in place (``np.add.at``), in order of arrival so that a block writes to
+    one stretch.
+    """
+    # sorted by arrival on a coarse integer key (a radix sort): the blocks need locality, not order
+    key = np.minimum(delay * (1.0 / 64.0), 32767.0).astype(np.int16)
+    order = np.argsort(key, kind="stable")
+    rows, diff = _kernel_table(half_width)
+    base = np.floor(delay[order])
+    pos = (delay[order] - base) * _KERNEL_STEPS
+    row = np.minimum(pos.astype(np.intp), _KERNEL_STEPS - 1)
+    g = gain[order]
+    gr = (pos - row) * g
+    start_all = base.astype(np.int64) - half_width + 1
+    out = np.zeros(n)
+    cols = np.arange(2 * half_width)
+    for a in range(0, delay.size, _PLACE_BLOCK):
+        b = min(a + _PLACE_BLOCK, delay.size)
+        # the kernel by linear interpolation between tabulated rows, times the image's gain
+        taps = diff[row[a:b]]
+        taps *= gr[a:b, None]
+        tg = rows[row[a:b]]
+        tg *= g[a:b, None]
+        taps += tg
+        start = start_all[a:b]
+        idx = start[:, None] + cols
+        if start[0] >= 0 and np.all(idx < n) and np.all(start >= 0):
+            np.add.at(out, idx.ravel(), taps.ravel())
+        else:
+            ok = (idx >= 0) & (idx < n)
+            np.add.at(out, idx[ok], taps[ok])
+    return out
 
 
 def _scatter(start: np.ndarray, taps: np.ndarray, amp: np.ndarray, n_fft: int) -> np.ndarray:
@@ -428,49 +524,26 @@ def image_source_ir(
     c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
         speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"
     )
+    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
     dims = np.asarray(room.dimensions_m, dtype=float)
     bands = np.asarray(OCTAVE_BANDS_HZ, dtype=float)
-    alpha = _surface_absorption(room)  # (6, B)
-
     imgs = shoebox_images(dims, src, max_order)
-    vec = imgs.positions_m - mic  # mic → image
-    dist = np.linalg.norm(vec, axis=1)
-    dist = np.maximum(dist, 1e-6)
-    arrive_dir = vec / dist[:, None]
-    depart_dir = (-arrive_dir) * imgs.mirror_sign  # as the ray left the real source
-
-    # band amplitudes (N, B)
-    log_refl = 0.5 * np.log1p(-alpha)  # (6, B)
-    log_amp = imgs.hits.astype(float) @ log_refl
-    if air_absorption:
-        m = _air_m_inv(room, bands)
-        log_amp -= 0.5 * dist[:, None] * m[None, :]
-    amp = np.exp(log_amp) / (4.0 * math.pi * dist[:, None])
-    if source_gain is not None:
-        amp *= np.asarray(source_gain(depart_dir, bands), dtype=float)
-    if mic_gain is not None:
-        amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
-
-    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
+    amp, dist = _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorption)
     t_arr = dist / c + delay_s
-    rt60 = r_m2 = None
-    t_x = None
-    tail_energy = rev_energy = None
+    rt60 = r_m2 = t_x = tail_energy = rev_energy = None
     if tail:
         rt60, r_m2 = _tail_model(room, bands)
         t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
         if crossfade_s is None:
             crossfade_s = min(0.25 * t_x, 0.02)
         crossfade_s = max(float(crossfade_s), 2.0 / fs)
-        t_fade0 = t_x - crossfade_s
-        u = np.clip((t_arr - t_fade0) / crossfade_s, 0.0, 1.0)
+        u = np.clip((t_arr - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0)
         w_img = np.cos(0.5 * math.pi * u)
         keep = w_img > 0
         amp = amp[keep] * w_img[keep, None]
         t_arr = t_arr[keep]
     else:
         crossfade_s = 0.0 if crossfade_s is None else float(crossfade_s)
-
     delay = t_arr * fs
     if duration_s is None:
         if tail:
@@ -480,40 +553,24 @@ def image_source_ir(
     else:
         n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
     n = max(n, 1)
-
+    inside = delay < n + half_width
+    amp_in = amp[inside]
+    if not tail and (amp_in.size == 0 or np.all(amp_in == amp_in[:, :1])):
+        # equal band gains: the band weights sum to one, so skip the band synthesis and scale each
+        # image's kernel by its gain directly
+        ir = _place_images(delay[inside], amp_in[:, 0] if amp_in.size else np.zeros(0), half_width, n)
+        return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+    start, taps = _fractional_delay_kernel(delay[inside], half_width)
     # zero-phase band synthesis in one FFT frame with room for the kernels' spread
     pad = int(math.ceil(0.1 * fs)) + 2 * half_width
     n_fft = _good_fft_size(n + pad)
-    freq = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    weights = band_weights(freq, bands)  # (B, F)
-
-    inside = delay < n + half_width
-    start, taps = _fractional_delay_kernel(delay[inside], half_width)
-    amp_in = amp[inside]
-    flat = bool(amp_in.size == 0 or np.all(amp_in == amp_in[:, :1]))
-    if flat and not tail:  # equal band gains: the band weights sum to one, skip the band synthesis
-        ir = _scatter(start, taps, amp_in[:, :1], n_fft)[0, :n].copy()
-        return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
-    chan = _scatter(start, taps, amp_in, n_fft)  # (B, n_fft)
-
+    chan = _scatter(start, taps, np.broadcast_to(amp_in, (amp_in.shape[0], bands.size)), n_fft)  # (B, n_fft)
     if tail:
-        k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
-        dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
-        rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
-        t = np.arange(n_fft) / fs
-        fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
-        fade_in[n:] = 0.0
-        # mean-square per sample so that Σ over all n (from emission) equals rev_energy
-        t_e = np.maximum(t - delay_s, 0.0)  # time since emission
-        var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
-        env = np.sqrt(var) * fade_in[None, :]
-        tail_energy = np.sum(env**2, axis=1)
-        rng = np.random.default_rng(seed)
-        noise = rng.standard_normal(n_fft)
-        chan += env * noise[None, :]
-
+        tail_energy, rev_energy = _add_tail(chan, n, fs, bands, rt60, r_m2, t_x, crossfade_s, delay_s,
+                                            source_gain, mic_gain, seed)
     from scipy import fft as sfft
 
+    weights = band_weights(np.fft.rfftfreq(n_fft, 1.0 / fs), bands)  # (B, F)
     spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
     ir = sfft.irfft(spec, n_fft)[:n]
     # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
@@ -521,6 +578,57 @@ def image_source_ir(
     if delay.size:
         ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
     return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+
+
+def _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorption):
+    """Band amplitudes (N, B) of the images at the mic, and their distances (N,).
+
+    With the same absorption in every band, no air absorption and omni source and mic, every
+    band has the same amplitude: computed once, as (N, 1).
+    """
+    alpha = _surface_absorption(room)  # (6, B)
+    if source_gain is None and mic_gain is None and not air_absorption and np.all(alpha == alpha[:, :1]):
+        alpha = alpha[:, :1]
+    vec = imgs.positions_m - mic  # mic → image
+    dist = np.linalg.norm(vec, axis=1)
+    dist = np.maximum(dist, 1e-6)
+    log_refl = 0.5 * np.log1p(-alpha)  # (6, B)
+    log_amp = imgs.hits.astype(float) @ log_refl
+    if air_absorption:
+        m = _air_m_inv(room, bands)
+        log_amp -= 0.5 * dist[:, None] * m[None, :]
+    amp = np.exp(log_amp) / (4.0 * math.pi * dist[:, None])
+    if source_gain is not None or mic_gain is not None:
+        arrive_dir = vec / dist[:, None]
+        depart_dir = (-arrive_dir) * imgs.mirror_sign  # as the ray left the real source
+        if source_gain is not None:
+            amp *= np.asarray(source_gain(depart_dir, bands), dtype=float)
+        if mic_gain is not None:
+            amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
+    return amp, dist
+
+
+def _add_tail(chan, n, fs, bands, rt60, r_m2, t_x, crossfade_s, delay_s, source_gain, mic_gain, seed):
+    """Add the statistical late tail to the band channels ``chan`` (B, n_fft) in place.
+
+    Returns (tail energy per band, the model's reverberant energy per band).
+    """
+    n_fft = chan.shape[1]
+    k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
+    dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
+    rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
+    t = np.arange(n_fft) / fs
+    fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
+    fade_in[n:] = 0.0
+    # mean-square per sample so that Σ over all n (from emission) equals rev_energy
+    t_e = np.maximum(t - delay_s, 0.0)  # time since emission
+    var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
+    env = np.sqrt(var) * fade_in[None, :]
+    tail_energy = np.sum(env**2, axis=1)
+    rng = np.random.default_rng(seed)
+    noise = rng.standard_normal(n_fft)
+    chan += env * noise[None, :]
+    return tail_energy, rev_energy
 
 
 def _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c):
