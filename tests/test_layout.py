@@ -155,7 +155,7 @@ OVERSIZE = {
     "howl.measure.session": 694,
     "howl.measure.sweep": 825,
     "howl.model._rigfile": 786,
-    "howl.model.images": 804,
+    "howl.model.images": 600,
     "howl.model.plan": 667,
     "howl.report._page": 889,
     "howl.report.sheet": 911,

@@ -304,7 +304,7 @@ def test_the_piston_factor_matches_scipy_bessel_j1():
     # reference: scipy.special.j1; 2·J1(x)/x, the series to x = 16, the large-argument expansion beyond
     from scipy.special import j1
 
-    from howl.model.directivity import _piston
+    from howl.model._piston import piston_factor as _piston
 
     x = np.linspace(1e-6, 16.0, 20001)
     assert np.max(np.abs(_piston(x) - 2.0 * j1(x) / x)) < 1e-10
