@@ -151,7 +151,6 @@ def test_only_the_edges_import_devices_and_plotting(lib):
 #: split them and strike them off.
 OVERSIZE = {
     "howl.listen.detect": 875,
-    "howl.loop.nyquist": 668,
     "howl.measure.session": 694,
     "howl.model._rigfile": 786,
     "howl.model.plan": 667,

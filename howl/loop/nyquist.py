@@ -35,6 +35,8 @@ import numpy as np
 
 from howl import validate as V
 from howl.errors import HowlWarning, InputError
+from howl.loop._dtft import _FastDTFT, _next_pow2, dtft  # noqa: F401  (re-exported)
+from howl.loop._risks import Risk, lobe_risks  # noqa: F401  (Risk re-exported)
 from howl.units import db, from_db
 
 #: Default zero-padding factor of the search grid relative to the IR length.
@@ -148,30 +150,6 @@ def _sos(filters_sos):
 # --------------------------------------------------------------------------- transfer
 
 
-def _next_pow2(n: int) -> int:
-    return 1 << max(0, int(math.ceil(math.log2(max(1, n)))))
-
-
-def dtft(ir: np.ndarray, freq_hz, sample_rate_hz: float) -> np.ndarray:
-    """Exact DTFT H(f) = Σ_k h[k]·exp(−j2πfk/fs) at arbitrary frequencies (chunked)."""
-    h = np.asarray(ir, dtype=float)
-    f = np.atleast_1d(np.asarray(freq_hz, dtype=float))
-    nz = np.flatnonzero(h)
-    if nz.size == 0:
-        return np.zeros(f.shape, dtype=complex)
-    k = np.arange(nz[0], nz[-1] + 1, dtype=float)
-    hk = h[nz[0] : nz[-1] + 1]
-    out = np.empty(f.shape, dtype=complex)
-    chunk = max(1, int(2_000_000 // k.size))
-    w = -2.0 * np.pi * f / sample_rate_hz
-    for i in range(0, f.size, chunk):
-        ph = np.multiply.outer(w[i : i + chunk], k)
-        out[i : i + chunk] = np.cos(ph) @ hk + 1j * (np.sin(ph) @ hk)
-    # a real IR has a real transfer at DC and at Nyquist
-    out[(f == 0.0) | (f == sample_rate_hz / 2.0)] = out[(f == 0.0) | (f == sample_rate_hz / 2.0)].real
-    return out
-
-
 def loop_response(ir, sample_rate_hz, freq_hz=None, n_fft=None) -> tuple[np.ndarray, np.ndarray]:
     """Open-loop transfer H(f) of a loop IR (the DTFT, positive-feedback convention).
 
@@ -210,23 +188,6 @@ def _sos_response(sos, freq_hz, fs):
 # --------------------------------------------------------------------------- results
 
 
-@dataclass(frozen=True)
-class Risk:
-    """A frequency at risk of howling.
-
-    ``kind`` is ``"crossing"`` (a positive real-axis crossing of H: ``margin_db``
-    is the phase-aware margin there) or ``"peak"`` (a peak of |H| with no
-    crossing in its lobe: ``margin_db`` is the phase-blind margin, what is left
-    if the phase drifts onto 0°). ``magnitude_margin_db`` and ``peak_freq_hz``
-    give the phase-blind margin and frequency of the highest peak of the lobe
-    (between the neighbouring minima of |L|) the risk sits in.
-    """
-
-    freq_hz: float
-    margin_db: float
-    kind: str
-    magnitude_margin_db: float = float("nan")  # phase-blind margin of the lobe's peak
-    peak_freq_hz: float = float("nan")  # where that peak is
 
 
 @dataclass(frozen=True, eq=False)
@@ -265,48 +226,6 @@ class MarginResult:
 
 
 # --------------------------------------------------------------------------- refinement
-
-
-class _FastDTFT:
-    """Exact DTFT (value and derivative) of a fixed IR at many arbitrary frequencies.
-
-    With k = B·b + m (0 ≤ m < B): H(ω) = Σ_b e^{−jωBb}·Σ_m h[Bb+m]·e^{−jωm}, so one
-    evaluation costs about B + N/B complex exponentials and one real-by-complex
-    matrix product of N terms instead of N exponentials. Rounding is that of the
-    products and of the phase arguments (relative ~1e-11 for 10⁵ taps), not an approximation.
-    """
-
-    def __init__(self, h: np.ndarray, block: int = 256):
-        nz = np.flatnonzero(h)
-        self.k0 = int(nz[0])
-        hk = h[nz[0] : nz[-1] + 1]
-        B = int(min(block, max(1, hk.size)))
-        nb = -(-hk.size // B)
-        hp = np.zeros(nb * B)
-        hp[: hk.size] = hk
-        self.B = B
-        self.hb = hp.reshape(nb, B)  # (nb, B)
-        self.m = np.arange(B, dtype=float)
-        self.b = np.arange(nb, dtype=float)
-        self.hbm = self.hb * self.m[None, :]  # for the derivative
-
-    def __call__(self, w: np.ndarray, deriv: bool = False):
-        """H and (optionally) dH/dw at angular frequencies ``w`` (rad/sample)."""
-        w = np.atleast_1d(np.asarray(w, dtype=float))
-        ang = np.multiply.outer(self.m, w)  # (B, M)
-        c, sn = np.cos(ang), np.sin(ang)
-        outer = np.exp(-1j * np.multiply.outer(self.b * self.B, w))  # (nb, M)
-        # real matrix products (a real-by-complex product takes a slow path in numpy)
-        s0 = self.hb @ c - 1j * (self.hb @ sn)  # (nb, M)
-        ph0 = np.exp(-1j * w * self.k0)
-        H = ph0 * np.sum(outer * s0, axis=0)
-        if not deriv:
-            return H
-        s1 = self.hbm @ c - 1j * (self.hbm @ sn)
-        # d/dw of Σ h[k] e^{−jw(k0+k)} = −j Σ (k0 + B b + m) h e^{...}
-        kb = (self.b * self.B)[:, None]
-        dH = -1j * ph0 * np.sum(outer * (s1 + kb * s0), axis=0) - 1j * self.k0 * H
-        return H, dH
 
 
 class _Loop:
@@ -449,141 +368,16 @@ def nyquist_margin(
     sos = _sos(filters_sos)
     g = from_db(gdb)
     L = _Loop(h, fs, g, sos)
-
-    n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
-    df = fs / n_fft
-    i0 = int(math.ceil(lo / df - 1e-9))
-    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
-    H_all = np.fft.rfft(h, n_fft)
-    dc_gain = float(H_all[0].real) * g
-    f = np.arange(i0, i1) * df
-    Lg = H_all[i0:i1] * g
-    if sos is not None and f.size:
-        Lg = Lg * _sos_response(sos, f, fs)
-    # band edges evaluated exactly (L includes the filters)
-    if f.size == 0 or f[0] > lo:
-        f = np.concatenate([[lo], f])
-        Lg = np.concatenate([L(lo), Lg])
-    if f[-1] < hi:
-        f = np.concatenate([f, [hi]])
-        Lg = np.concatenate([Lg, L(hi)])
-    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
-        if f[e] == 0.0 or f[e] == fs / 2.0:
-            Lg[e] = Lg[e].real
+    n_fft, f, Lg, dc_gain = _loop_grid(h, fs, g, sos, L, lo, hi, oversample)
     re, im = Lg.real, Lg.imag
     mag2 = re * re + im * im
-    tol_hz = 1e-12 * fs
-
-    # ---- crossings: sign changes of Im with Re > 0, and exact real points
-    pos = im > 0
-    neg = im < 0
-    iv = np.flatnonzero((pos[:-1] & neg[1:]) | (neg[:-1] & pos[1:]))
-    iv = iv[(re[iv] > 0) | (re[iv + 1] > 0)]
-    t = im[iv] / (im[iv] - im[iv + 1])
-    fc = f[iv] + t * (f[iv + 1] - f[iv])
-    rc = re[iv] + t * (re[iv + 1] - re[iv])
-    ex = np.flatnonzero((im == 0.0) & (re > 0))
-    cand_f = np.concatenate([fc, f[ex]])
-    cand_r = np.concatenate([rc, re[ex]])
-    cand_lo = np.concatenate([iv, ex])  # grid index of the bracket start (for lobes)
-    n_iv = iv.size
-
-    # refine the worst ones (top n_risks, and all within 1 dB of the coarse best)
-    order = np.argsort(-cand_r)
-    n_ref = 0
-    if cand_r.size:
-        best = cand_r[order[0]]
-        close = int(np.count_nonzero(cand_r >= best * from_db(-1.0))) if best > 0 else 1
-        n_ref = min(cand_r.size, max(n_risks, close, 1), 512)
-    cand_f = cand_f.copy()
-    cand_r = cand_r.copy()
-    j = order[:n_ref]
-    j = j[j < n_iv]  # exact real points need no refinement
-    if j.size:
-        i = iv[j]
-        x, v = _refine_crossings(L, f[i], f[i + 1], im[i], im[i + 1], cand_f[j], tol_hz)
-        cand_f[j] = x
-        cand_r[j] = v.real
-    keep = cand_r > 0
-    cand_f, cand_r, cand_lo = cand_f[keep], cand_r[keep], cand_lo[keep]
-
-    # ---- phase-blind margin: the global maximum of |L| in the band
-    # (parabolic interpolation of |L| in dB on the grid, then checked exactly)
-    ipk = int(np.argmax(mag2))
-    fpk, mpk = float(f[ipk]), float(np.sqrt(mag2[ipk]))
-    if 0 < ipk < mag2.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
-        y0, y1, y2 = 10.0 * np.log10(np.maximum(mag2[ipk - 1 : ipk + 2], 1e-300))
-        den = y0 - 2 * y1 + y2
-        if den < 0:
-            off = 0.5 * (y0 - y2) / den
-            fx = f[ipk] + off * (f[ipk + 1] - f[ipk])
-            mx = float(np.abs(L(fx))[0])
-            if mx > mpk:
-                fpk, mpk = float(fx), mx
+    cand_f, cand_r, cand_lo = _crossings(L, f, re, im, n_risks, 1e-12 * fs)
+    fpk, mpk = _magnitude_peak(L, f, mag2)
     magnitude_margin_db = -db(mpk)
-
-    # ---- gain margin and ties
-    if cand_r.size:
-        o = np.argsort(-cand_r)
-        cand_f, cand_r, cand_lo = cand_f[o], cand_r[o], cand_lo[o]
-        margins = -db(cand_r)
-        gain_margin_db = float(margins[0])
-        howl_freq_hz = float(cand_f[0])
-        tie = margins <= gain_margin_db + tie_db
-        howl_freqs = tuple(float(x) for x in cand_f[tie][:MAX_TIES])
-        # ring-down prediction at the howl frequency
-        v, dv = L.with_deriv(howl_freq_hz)
-        dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
-        ring = ring_decay_rate_db_per_s(gain_margin_db, dln)
-        tau_g = float(-dln.imag)
-    else:
-        margins = np.zeros(0)
-        gain_margin_db = float("inf")
-        howl_freq_hz = float("nan")
-        howl_freqs = ()
-        ring = float("nan")
-        tau_g = float("nan")
-
-    # ---- risks: one per lobe of |L| (between neighbouring minima): its worst crossing if it
-    # has one (with the lobe's phase-blind margin beside it), else its peak
-    mid, left, right = mag2[1:-1], mag2[:-2], mag2[2:]
-    # (a peak must stand out of its neighbours by more than rounding: a flat loop has none)
-    m_in = mid * (1.0 - 2e-9)
-    pk = np.flatnonzero((m_in >= left) & (m_in > right)) + 1
-    mins = np.flatnonzero((mid <= left) & (mid < right)) + 1
-    lobe_pk = np.searchsorted(mins, pk)
-    # the highest peak of each lobe
-    o_pk = np.lexsort((-mag2[pk], lobe_pk))
-    lobes_u, first = np.unique(lobe_pk[o_pk], return_index=True)
-    lobe_peak = dict(zip(lobes_u.tolist(), pk[o_pk][first].tolist()))
-    lobe_cr = np.searchsorted(mins, cand_lo, side="right")  # crossings are sorted worst first
-    seen: set[int] = set()
-    risks_all = []
-    for m, x, lb in zip(margins, cand_f, lobe_cr):
-        if lb in seen:
-            continue
-        seen.add(int(lb))
-        ip = lobe_peak.get(int(lb))
-        pm = -10.0 * math.log10(max(mag2[ip], 1e-300)) if ip is not None else float(m)
-        pf = float(f[ip]) if ip is not None else float(x)
-        risks_all.append(Risk(float(x), float(m), "crossing", min(pm, float(m)), pf))
-        if len(seen) >= n_risks + len(howl_freqs):
-            break
-    lobes_with_crossing = set(lobe_cr.tolist())  # built once: a set per item made this quadratic
-    free = [(lb, ip) for lb, ip in lobe_peak.items() if lb not in lobes_with_crossing]
-    if free:
-        ips = np.array([ip for _, ip in free])
-        pm = -10.0 * np.log10(np.maximum(mag2[ips], 1e-300))
-        for i in np.argsort(pm)[:n_risks]:
-            risks_all.append(Risk(float(f[ips[i]]), float(pm[i]), "peak", float(pm[i]), float(f[ips[i]])))
-    risks_all.sort(key=lambda r: (r.margin_db, r.kind != "crossing"))
-    risks_l = risks_all[:n_risks]
-    if n_risks and margins.size and not any(r.kind == "crossing" and r.freq_hz == howl_freq_hz for r in risks_l):
-        # the limiting crossing is always listed (in place of the last, less urgent, entry)
-        top = next(r for r in risks_all if r.kind == "crossing" and r.freq_hz == howl_freq_hz)
-        risks_l = sorted(risks_l[:-1] + [top], key=lambda r: (r.margin_db, r.kind != "crossing"))
-    risks = tuple(risks_l)
-
+    cand_f, cand_r, cand_lo, margins, howl_freqs, ring, tau_g = _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db)
+    gain_margin_db = float(margins[0]) if margins.size else float("inf")
+    howl_freq_hz = float(cand_f[0]) if margins.size else float("nan")
+    risks = lobe_risks(f, mag2, margins, cand_f, cand_lo, n_risks, len(howl_freqs), howl_freq_hz)
     o = np.argsort(cand_f)
     return MarginResult(
         gain_margin_db=gain_margin_db,
@@ -604,7 +398,97 @@ def nyquist_margin(
     )
 
 
-# --------------------------------------------------------------------------- bands
+def _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db):
+    """Crossings sorted worst first, their margins (dB), the tied howl frequencies, and the ring-down
+    rate and group delay at the worst one (NaN without a crossing)."""
+    if not cand_r.size:
+        return cand_f, cand_r, cand_lo, np.zeros(0), (), float("nan"), float("nan")
+    o = np.argsort(-cand_r)
+    cand_f, cand_r, cand_lo = cand_f[o], cand_r[o], cand_lo[o]
+    margins = -db(cand_r)
+    tie = margins <= margins[0] + tie_db
+    howl_freqs = tuple(float(x) for x in cand_f[tie][:MAX_TIES])
+    # ring-down prediction at the howl frequency
+    v, dv = L.with_deriv(float(cand_f[0]))
+    dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
+    return cand_f, cand_r, cand_lo, margins, howl_freqs, ring_decay_rate_db_per_s(float(margins[0]), dln), float(-dln.imag)
+
+
+def _loop_grid(h, fs, g, sos, L, lo, hi, oversample):
+    """(n_fft, f, L on f, DC gain): L on the zero-padded FFT grid inside [lo, hi], band edges exact."""
+    n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
+    df = fs / n_fft
+    i0 = int(math.ceil(lo / df - 1e-9))
+    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
+    H_all = np.fft.rfft(h, n_fft)
+    dc_gain = float(H_all[0].real) * g
+    f = np.arange(i0, i1) * df
+    Lg = H_all[i0:i1] * g
+    if sos is not None and f.size:
+        Lg = Lg * _sos_response(sos, f, fs)
+    # band edges evaluated exactly (L includes the filters)
+    if f.size == 0 or f[0] > lo:
+        f = np.concatenate([[lo], f])
+        Lg = np.concatenate([L(lo), Lg])
+    if f[-1] < hi:
+        f = np.concatenate([f, [hi]])
+        Lg = np.concatenate([Lg, L(hi)])
+    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
+        if f[e] == 0.0 or f[e] == fs / 2.0:
+            Lg[e] = Lg[e].real
+    return n_fft, f, Lg, dc_gain
+
+
+def _crossings(L, f, re, im, n_risks, tol_hz):
+    """Positive real-axis crossings (frequency, value, grid index of the bracket start): sign changes
+    of Im L with Re L > 0 and exact real points; the worst (top ``n_risks`` and all within 1 dB of
+    the coarse best, up to 512) refined by :func:`_refine_crossings`."""
+    pos = im > 0
+    neg = im < 0
+    iv = np.flatnonzero((pos[:-1] & neg[1:]) | (neg[:-1] & pos[1:]))
+    iv = iv[(re[iv] > 0) | (re[iv + 1] > 0)]
+    t = im[iv] / (im[iv] - im[iv + 1])
+    fc = f[iv] + t * (f[iv + 1] - f[iv])
+    rc = re[iv] + t * (re[iv + 1] - re[iv])
+    ex = np.flatnonzero((im == 0.0) & (re > 0))
+    cand_f = np.concatenate([fc, f[ex]])
+    cand_r = np.concatenate([rc, re[ex]])
+    cand_lo = np.concatenate([iv, ex])  # grid index of the bracket start (for lobes)
+    n_iv = iv.size
+    order = np.argsort(-cand_r)
+    n_ref = 0
+    if cand_r.size:
+        best = cand_r[order[0]]
+        close = int(np.count_nonzero(cand_r >= best * from_db(-1.0))) if best > 0 else 1
+        n_ref = min(cand_r.size, max(n_risks, close, 1), 512)
+    cand_f = cand_f.copy()
+    cand_r = cand_r.copy()
+    j = order[:n_ref]
+    j = j[j < n_iv]  # exact real points need no refinement
+    if j.size:
+        i = iv[j]
+        x, v = _refine_crossings(L, f[i], f[i + 1], im[i], im[i + 1], cand_f[j], tol_hz)
+        cand_f[j] = x
+        cand_r[j] = v.real
+    keep = cand_r > 0
+    return cand_f[keep], cand_r[keep], cand_lo[keep]
+
+
+def _magnitude_peak(L, f, mag2):
+    """(frequency, |L|) of the global maximum of |L| in the band: parabolic interpolation of |L| in dB
+    on the grid, kept if the exact value there is higher."""
+    ipk = int(np.argmax(mag2))
+    fpk, mpk = float(f[ipk]), float(np.sqrt(mag2[ipk]))
+    if 0 < ipk < mag2.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
+        y0, y1, y2 = 10.0 * np.log10(np.maximum(mag2[ipk - 1 : ipk + 2], 1e-300))
+        den = y0 - 2 * y1 + y2
+        if den < 0:
+            off = 0.5 * (y0 - y2) / den
+            fx = f[ipk] + off * (f[ipk + 1] - f[ipk])
+            mx = float(np.abs(L(fx))[0])
+            if mx > mpk:
+                fpk, mpk = float(fx), mx
+    return fpk, mpk
 
 
 def _band_edges(centres_hz: np.ndarray, fraction: int) -> tuple[np.ndarray, np.ndarray]:
