@@ -1,6 +1,7 @@
 """Room data per band for the image-source model: wall absorption per surface, air absorption,
-positions checked inside the shoebox, and the diffuse-field power of a directional source or
-mic (integrated over the sphere). Used by :mod:`howl.model.images`.
+positions checked inside the shoebox, the diffuse-field power of a directional source or mic
+(integrated over the sphere), and the statistical late tail from the room model. Used by
+:mod:`howl.model.images`.
 """
 
 from __future__ import annotations
@@ -98,3 +99,40 @@ def diffuse_power_factor(gain: GainFunction | None, freq_hz: np.ndarray) -> np.n
         return np.ones(freq_hz.shape)
     g = np.asarray(gain(_sphere_directions(), freq_hz), dtype=float)
     return np.mean(g * g, axis=0)
+
+
+#: Energy decay rate for a reverberation time T: 60 dB in T seconds → k = 6·ln(10)/T.
+_DECAY_LN = 6.0 * math.log(10.0)
+
+
+def _tail_model(room: Room, bands_hz: np.ndarray):
+    """RT60 (Eyring with air) and room constant per band from the room model."""
+    from howl.model.room import room_acoustics
+
+    ra = room_acoustics(room, np.asarray(bands_hz, dtype=float))
+    rt60 = np.asarray(ra.rt60_eyring_s, dtype=float)
+    r_m2 = np.asarray(ra.room_constant_m2, dtype=float)
+    return rt60, r_m2
+
+
+def _add_tail(chan, n, fs, bands, rt60, r_m2, t_x, crossfade_s, delay_s, source_gain, mic_gain, seed):
+    """Add the statistical late tail to the band channels ``chan`` (B, n_fft) in place.
+
+    Returns (tail energy per band, the model's reverberant energy per band).
+    """
+    n_fft = chan.shape[1]
+    k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
+    dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
+    rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
+    t = np.arange(n_fft) / fs
+    fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
+    fade_in[n:] = 0.0
+    # mean-square per sample so that Σ over all n (from emission) equals rev_energy
+    t_e = np.maximum(t - delay_s, 0.0)  # time since emission
+    var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
+    env = np.sqrt(var) * fade_in[None, :]
+    tail_energy = np.sum(env**2, axis=1)
+    rng = np.random.default_rng(seed)
+    noise = rng.standard_normal(n_fft)
+    chan += env * noise[None, :]
+    return tail_energy, rev_energy

@@ -74,11 +74,14 @@ from howl.errors import InputError
 from howl.model.rig import OCTAVE_BANDS_HZ, SHOEBOX_SURFACES, Mic, Rig, Room, Speaker
 from howl.units import speed_of_sound_m_s
 from howl.model._image_room import (  # noqa: F401  (re-exported)
+    _DECAY_LN,
+    _add_tail,
     _air_m_inv,
     _check_inside,
     _require_shoebox,
     _sphere_directions,
     _surface_absorption,
+    _tail_model,
     diffuse_power_factor,
 )
 from howl.model._image_synth import (  # noqa: F401  (re-exported: the public names and what tests reach)
@@ -100,8 +103,6 @@ GainFunction = Callable[[np.ndarray, np.ndarray], np.ndarray]
 #: Largest image set one IR may use (memory: about 1 kB per image during synthesis).
 MAX_IMAGES = 3_000_000
 
-#: Energy decay rate for a reverberation time T: 60 dB in T seconds → k = 6·ln(10)/T.
-_DECAY_LN = 6.0 * math.log(10.0)
 
 
 @dataclass(frozen=True)
@@ -123,15 +124,6 @@ class ImageSourceInfo:
 # the image-source IR
 # ---------------------------------------------------------------------------
 
-
-def _tail_model(room: Room, bands_hz: np.ndarray):
-    """RT60 (Eyring with air) and room constant per band from the room model."""
-    from howl.model.room import room_acoustics
-
-    ra = room_acoustics(room, np.asarray(bands_hz, dtype=float))
-    rt60 = np.asarray(ra.rt60_eyring_s, dtype=float)
-    r_m2 = np.asarray(ra.room_constant_m2, dtype=float)
-    return rt60, r_m2
 
 
 def image_source_ir(
@@ -191,20 +183,14 @@ def image_source_ir(
     Returns
     -------
     ir : ndarray (n,), float64; sample 0 is the emission time.
+
+    (Long for its documented parameters: the body is about 45 lines.)
     """
     _require_shoebox(room)
     fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
     src = _check_inside(room, source_position_m, "source_position_m")
     mic = _check_inside(room, mic_position_m, "mic_position_m")
-    if max_order is None:
-        max_order = 6 if tail else 20
-    max_order = V.integer(max_order, "max_order", 0, 150)
-    n_img = (2 * max_order + 1) * (2 * max_order**2 + 2 * max_order + 3) // 3  # |kx|+|ky|+|kz| ≤ N
-    if n_img > MAX_IMAGES:
-        raise InputError(
-            f"gives {n_img} image sources; expected at most {MAX_IMAGES} (lower the order: the statistical "
-            "tail takes over the late part)", key="max_order",
-        )
+    max_order = _checked_order(max_order, tail)
     half_width = V.integer(half_width, "half_width", 2, 512)
     c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
         speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"
@@ -219,25 +205,11 @@ def image_source_ir(
     if tail:
         rt60, r_m2 = _tail_model(room, bands)
         t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
-        if crossfade_s is None:
-            crossfade_s = min(0.25 * t_x, 0.02)
-        crossfade_s = max(float(crossfade_s), 2.0 / fs)
-        u = np.clip((t_arr - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0)
-        w_img = np.cos(0.5 * math.pi * u)
-        keep = w_img > 0
-        amp = amp[keep] * w_img[keep, None]
-        t_arr = t_arr[keep]
+        amp, t_arr, crossfade_s = _fade_out_images(amp, t_arr, t_x, crossfade_s, fs)
     else:
         crossfade_s = 0.0 if crossfade_s is None else float(crossfade_s)
     delay = t_arr * fs
-    if duration_s is None:
-        if tail:
-            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
-        else:
-            n = int(math.ceil(delay.max())) + half_width + 1
-    else:
-        n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
-    n = max(n, 1)
+    n = _ir_length(duration_s, rt60, t_x, delay, half_width, fs)
     inside = delay < n + half_width
     amp_in = amp[inside]
     if not tail and (amp_in.size == 0 or np.all(amp_in == amp_in[:, :1])):
@@ -245,24 +217,73 @@ def image_source_ir(
         # image's kernel by its gain directly
         ir = _place_images(delay[inside], amp_in[:, 0] if amp_in.size else np.zeros(0), half_width, n)
         return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
-    start, taps = _fractional_delay_kernel(delay[inside], half_width)
-    # zero-phase band synthesis in one FFT frame with room for the kernels' spread
-    pad = int(math.ceil(0.1 * fs)) + 2 * half_width
-    n_fft = _good_fft_size(n + pad)
-    chan = _scatter(start, taps, np.broadcast_to(amp_in, (amp_in.shape[0], bands.size)), n_fft)  # (B, n_fft)
-    if tail:
-        tail_energy, rev_energy = _add_tail(chan, n, fs, bands, rt60, r_m2, t_x, crossfade_s, delay_s,
-                                            source_gain, mic_gain, seed)
-    from scipy import fft as sfft
-
-    weights = band_weights(np.fft.rfftfreq(n_fft, 1.0 / fs), bands)  # (B, F)
-    spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
-    ir = sfft.irfft(spec, n_fft)[:n]
+    ir, tail_energy, rev_energy = _band_synthesis(
+        delay[inside], amp_in, n, fs, bands, half_width,
+        (rt60, r_m2, t_x, crossfade_s, delay_s, source_gain, mic_gain, seed) if tail else None,
+    )
     # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
     # crossovers leak ~1e-4 of the peak ahead of an arrival whose band gains differ)
     if delay.size:
         ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
     return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+
+
+def _checked_order(max_order, tail: bool) -> int:
+    """The image order (default 6 with a tail, 20 without), refused past :data:`MAX_IMAGES` images."""
+    if max_order is None:
+        max_order = 6 if tail else 20
+    max_order = V.integer(max_order, "max_order", 0, 150)
+    n_img = (2 * max_order + 1) * (2 * max_order**2 + 2 * max_order + 3) // 3  # |kx|+|ky|+|kz| ≤ N
+    if n_img > MAX_IMAGES:
+        raise InputError(
+            f"gives {n_img} image sources; expected at most {MAX_IMAGES} (lower the order: the statistical "
+            "tail takes over the late part)", key="max_order",
+        )
+    return max_order
+
+
+def _ir_length(duration_s, rt60, t_x, delay, half_width, fs) -> int:
+    """Samples of the IR: ``duration_s``, else to the −60 dB point of the slowest band (with a tail,
+    ``rt60`` given) or to the last image's arrival (without)."""
+    if duration_s is None:
+        if rt60 is not None:
+            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
+        else:
+            n = int(math.ceil(delay.max())) + half_width + 1
+    else:
+        n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
+    return max(n, 1)
+
+
+def _fade_out_images(amp, t_arr, t_x, crossfade_s, fs):
+    """Images faded out (equal-power) over the crossfade ending at the transition time ``t_x``;
+    those past it dropped. Returns (amplitudes, arrival times, crossfade length)."""
+    if crossfade_s is None:
+        crossfade_s = min(0.25 * t_x, 0.02)
+    crossfade_s = max(float(crossfade_s), 2.0 / fs)
+    u = np.clip((t_arr - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0)
+    w_img = np.cos(0.5 * math.pi * u)
+    keep = w_img > 0
+    return amp[keep] * w_img[keep, None], t_arr[keep], crossfade_s
+
+
+def _band_synthesis(delay, amp_in, n, fs, bands, half_width, tail_args):
+    """The IR (n,) from images with per-band amplitudes: each band's images placed in one FFT frame,
+    the statistical tail added per band (``tail_args``, or None), the bands summed through zero-phase
+    crossover weights. Returns (ir, tail energy per band, reverberant energy per band)."""
+    start, taps = _fractional_delay_kernel(delay, half_width)
+    # zero-phase band synthesis in one FFT frame with room for the kernels' spread
+    pad = int(math.ceil(0.1 * fs)) + 2 * half_width
+    n_fft = _good_fft_size(n + pad)
+    chan = _scatter(start, taps, np.broadcast_to(amp_in, (amp_in.shape[0], bands.size)), n_fft)  # (B, n_fft)
+    tail_energy = rev_energy = None
+    if tail_args is not None:
+        tail_energy, rev_energy = _add_tail(chan, n, fs, bands, *tail_args)
+    from scipy import fft as sfft
+
+    weights = band_weights(np.fft.rfftfreq(n_fft, 1.0 / fs), bands)  # (B, F)
+    spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
+    return sfft.irfft(spec, n_fft)[:n], tail_energy, rev_energy
 
 
 def _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorption):
@@ -292,28 +313,6 @@ def _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorpt
             amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
     return amp, dist
 
-
-def _add_tail(chan, n, fs, bands, rt60, r_m2, t_x, crossfade_s, delay_s, source_gain, mic_gain, seed):
-    """Add the statistical late tail to the band channels ``chan`` (B, n_fft) in place.
-
-    Returns (tail energy per band, the model's reverberant energy per band).
-    """
-    n_fft = chan.shape[1]
-    k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
-    dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
-    rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
-    t = np.arange(n_fft) / fs
-    fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
-    fade_in[n:] = 0.0
-    # mean-square per sample so that Σ over all n (from emission) equals rev_energy
-    t_e = np.maximum(t - delay_s, 0.0)  # time since emission
-    var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
-    env = np.sqrt(var) * fade_in[None, :]
-    tail_energy = np.sum(env**2, axis=1)
-    rng = np.random.default_rng(seed)
-    noise = rng.standard_normal(n_fft)
-    chan += env * noise[None, :]
-    return tail_energy, rev_energy
 
 
 def _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c):
