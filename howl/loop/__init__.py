@@ -17,6 +17,7 @@ _NAMES = {
     "ir_warnings": "nyquist",
     "simulate_closed_loop": "simulate",
     "simulate_mimo": "simulate",
+    "stream_closed_loop": "simulate",
     "gain_schedule_db": "simulate",
     "soft_limit": "simulate",
     "Notch": "notch",

@@ -81,6 +81,7 @@ def main() -> None:
     ok = two["median_s"] < TARGET_S
     print(f"target: 2 s IR under {TARGET_S} s -> {'met' if ok else 'NOT met'}")
     out = {
+        **__import__("_machine").machine_info(),
         "benchmark": "margin",
         "target_s": TARGET_S,
         "target_met": ok,

@@ -185,6 +185,9 @@ def main() -> None:
           "cuts remove; 'share 1' lets the cuts cost up to 1 dB of tone per dB of gain instead of 0.5)")
     res_dir = Path(__file__).resolve().parent / "results"
     res_dir.mkdir(exist_ok=True)
+    from _machine import machine_info
+
+    out = {**machine_info(), **out}  # CPU model and core count beside the figures
     (res_dir / "ringout.json").write_text(json.dumps(out, indent=2), encoding="utf-8")
 
 

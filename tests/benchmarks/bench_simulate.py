@@ -1,6 +1,6 @@
 """Benchmark: `howl.simulate.simulate_closed_loop`, 10 s of program through a 3 s loop IR at 48 kHz.
 
-Target: real-time factor (compute time / program duration) under 0.5 on one core
+Target: real-time factor (CPU time / program duration) under 0.5 on one core
 (BLAS threads pinned to 1 before numpy loads), for loop delays of 1, 5 and 20 ms.
 
 Then a long render through the command line: ``howl simulate`` of a 30-minute 48 kHz program
@@ -86,14 +86,16 @@ def main() -> None:
     for delay_s in (0.001, 0.005, 0.020):
         h = synthetic_loop_ir(3.0, rt60_s=1.2, delay_s=delay_s)
         g = nyquist_margin(h, FS).gain_margin_db - 3.0  # 3 dB below the edge: rings but stays stable
-        times = []
+        times, cpu = [], []
         for _ in range(3):
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             simulate_closed_loop(h, x, FS, gain_db=g)
             times.append(time.perf_counter() - t0)
-        med = statistics.median(times)
-        rows.append({"loop_delay_s": delay_s, "median_s": med, "real_time_factor": med / PROGRAM_S})
-    print(f"{'delay (ms)':>10} {'median (s)':>11} {'RTF':>7}")
+            cpu.append(time.process_time() - c0)
+        med = statistics.median(cpu)  # CPU time: the wall clock of a shared machine measures the others too
+        rows.append({"loop_delay_s": delay_s, "median_s": med, "real_time_factor": med / PROGRAM_S,
+                     "median_wall_s": statistics.median(times)})
+    print(f"{'delay (ms)':>10} {'median CPU s':>11} {'RTF':>7}")
     for r in rows:
         print(f"{r['loop_delay_s'] * 1e3:10.1f} {r['median_s']:11.3f} {r['real_time_factor']:7.3f}")
     ok = all(r["real_time_factor"] < TARGET_RTF for r in rows)

@@ -29,7 +29,6 @@ os.environ.setdefault("MKL_NUM_THREADS", "1")
 
 import argparse  # noqa: E402
 import json  # noqa: E402
-import platform  # noqa: E402
 import resource  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
@@ -58,16 +57,6 @@ def cases(tmp: Path) -> list[tuple[str, list[str]]]:
         ("scan", ["scan", str(sound)]),
         ("sheet", ["sheet", str(EX / "chapel_lectern.toml"), "-o", str(tmp / "sheet.pdf")]),
     ]
-
-
-def cpu_model() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or platform.machine()
 
 
 def _child_cpu(argv: list[str]) -> tuple[float, int]:
@@ -131,15 +120,14 @@ def main() -> int:
                   f"  {'ok' if r['fixed_cpu_s'] < TARGET_FIXED_S else 'OVER'}", flush=True)
     for k, v in scale.items():
         print(f"{k:16s} {v:6.3f} s")
-    import numpy
     import typer
 
     out = HERE / "results"
     out.mkdir(exist_ok=True)
+    from _machine import machine_info
+
     (out / "bench_startup.json").write_text(json.dumps({
-        "benchmark": "bench_startup", "cpu_model": cpu_model(), "cores": os.cpu_count(),
-        "load_average_1min_at_end": os.getloadavg()[0], "python": platform.python_version(),
-        "numpy": numpy.__version__, "typer": typer.__version__, "repeats": a.repeats,
+        **machine_info(), "benchmark": "bench_startup", "typer": typer.__version__, "repeats": a.repeats,
         "target_fixed_cpu_s": TARGET_FIXED_S, "scale_cpu_s": {k: round(v, 3) for k, v in scale.items()},
         "commands": rows,
         "all_under_target": all(r["fixed_cpu_s"] < TARGET_FIXED_S for r in rows),
