@@ -34,6 +34,10 @@ else 256.
 A nonzero tap 0 makes the loop implicit; it is solved exactly in the linear
 regime (u = (x + g·rest)/(1 − g·h[0])) before the limiter.
 
+Only the outputs the longest tap reaches back to are kept between chunks, so
+:func:`stream_closed_loop` runs a program of any length in constant memory, with
+the same output to the bit as the whole program at once (``howl simulate`` uses it).
+
 References
 ----------
 .. [1] T. G. Stockham, "High-speed convolution and correlation", AFIPS Spring
@@ -52,7 +56,8 @@ from howl import validate as V
 from howl.errors import InputError
 from howl.units import from_db
 
-#: Longest program simulated in one call (samples), to keep memory bounded.
+#: Longest program :func:`simulate_closed_loop` takes in one call (samples), to keep memory bounded;
+#: :func:`stream_closed_loop` has no limit.
 MAX_SAMPLES = 48000 * 60 * 30
 
 
