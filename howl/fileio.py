@@ -288,6 +288,50 @@ def resampled_length(n: int, fs_from: int, fs_to: int, *, file: str, max_s: floa
     return n_out
 
 
+def wav_blocks(path: str | os.PathLike, *, channels: list[int] | None = None, option: str = "--channel",
+               blocksize: int = 1 << 16) -> tuple[int, int, Iterator[np.ndarray]]:
+    """Read a WAV a block at a time, as float64: (sample_rate_hz, n_frames, blocks).
+
+    The same checks and messages as :func:`read_wav` (missing file, folder, not audio, empty,
+    a multichannel file without ``channels``, NaN or infinite samples), so a long recording is
+    never held whole. ``channels``: 1-based channels to take (default: the only one); each
+    block is (len(channels), n) (one row for a mono file).
+    """
+    import soundfile as sf
+
+    p = Path(path)
+    name = str(path)
+    if not p.exists():
+        raise InputError("file not found", file=name)
+    if p.is_dir():
+        raise InputError("is a folder, expected a WAV file", file=name)
+    try:
+        info = sf.info(str(p))
+    except Exception as exc:  # soundfile raises its own LibsndfileError/RuntimeError
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"cannot read as audio ({first}); expected a WAV file", file=name) from None
+    n_ch = info.channels
+    if info.frames == 0:
+        raise InputError("holds no samples; expected a non-empty WAV", file=name)
+    if channels is None:
+        if n_ch != 1:
+            raise InputError(f"has {n_ch} channels; pass {option} N (1..{n_ch}) to choose one", file=name)
+        channels = [1]
+    for c in channels:
+        if not 1 <= c <= n_ch:
+            raise InputError(f"{option} must be in 1..{n_ch}, got {c}", file=name)
+    cols = [c - 1 for c in channels]
+
+    def blocks() -> Iterator[np.ndarray]:
+        for b in sf.blocks(str(p), blocksize=blocksize, dtype="float64", always_2d=True):
+            x = np.ascontiguousarray(b[:, cols].T)
+            if not np.all(np.isfinite(x)):
+                raise InputError("holds NaN or infinite samples", file=name)
+            yield x
+
+    return int(info.samplerate), int(info.frames), blocks()
+
+
 def to_jsonable(obj: Any) -> Any:
     """Turn numpy scalars/arrays, dataclasses, tuples and paths into JSON types.
 

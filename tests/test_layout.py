@@ -151,11 +151,7 @@ def test_only_the_edges_import_devices_and_plotting(lib):
 #: split them and strike them off.
 OVERSIZE = {
     "howl.listen.detect": 875,
-    "howl.loop.nyquist": 936,
-    "howl.measure.sweep": 825,
     "howl.model._rigfile": 758,
-    "howl.model.images": 804,
-    "howl.model.plan": 667,
     "howl.report._page": 885,
     "howl.report.sheet": 913,
 }

@@ -321,7 +321,7 @@ def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None
     import numpy as np
 
     from howl.errors import InputError
-    from howl.loop.nyquist import mimo_margin
+    from howl.loop.mimo import mimo_margin
     from howl.units import from_db
 
     irs, mix, speakers, mics, fs0, pairs, mix_source = load_pair_loop(

@@ -124,31 +124,121 @@ def register(app: typer.Typer) -> None:
 
 
 def _schedule(n, fs, gain_db, ramp_db, steps):
+    """The gain schedule of the options, a piece at a time (:class:`howl.loop.simulate.GainSchedule`)."""
     from howl.errors import InputError
-    from howl.loop.simulate import gain_schedule_db
+    from howl.loop.simulate import GainSchedule
 
     given = [k for k, v in (("--gain-db", gain_db), ("--ramp-db", ramp_db), ("--steps", steps)) if v is not None]
     if len(given) > 1:
         raise InputError(f"give only one of --gain-db, --ramp-db, --steps; got {' and '.join(given)}", key=given[1])
-    return gain_schedule_db(
+    return GainSchedule(
         n, fs, gain_db=gain_db, ramp_db=None if ramp_db is None else tuple(ramp_db),
         steps=None if steps is None else _parse_steps(steps),
     )
 
 
-def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None, gain_db=None, ramp_db=None,
-                        steps=None, limiter_dbfs=-1.0, tail_s=1.0, program_channel=None) -> dict:
-    """Folder mode: one output channel per mic (sorted by name); returns the JSON object."""
+#: Program and output are read and written in blocks of this many samples.
+BLOCK = 1 << 16
+
+
+def _program_chunks(program, *, channels, fs, n_rows, row=None, tail_s):
+    """(n_samples with the tail, chunks (n_rows, C)) of PROGRAM at the IRs' rate ``fs``, then the silent tail.
+
+    Read a block at a time; a program at another rate is read whole and resampled (band-limited,
+    scipy.signal.resample_poly). ``row``: the one row a mono program goes to (others silent).
+    """
     import math
     import warnings
 
     import numpy as np
 
     from howl import validate as V
-    from howl.errors import HowlWarning, InputError
-    from howl.fileio import read_wav, write_wav_atomic
-    from howl.loop.nyquist import mimo_margin
-    from howl.loop.simulate import simulate_mimo
+    from howl.errors import HowlWarning
+    from howl.fileio import wav_blocks
+
+    fs_p, n_prog, blocks = wav_blocks(program, channels=channels, option="--program-channel", blocksize=BLOCK)
+    if fs_p != fs:
+        from scipy.signal import resample_poly
+
+        from howl.fileio import resampled_length
+
+        resampled_length(n_prog, int(fs_p), int(fs), file=str(program))  # bound the size before the work
+        g = math.gcd(int(fs), int(fs_p))
+        x = resample_poly(np.concatenate(list(blocks), axis=1), int(fs) // g, int(fs_p) // g, axis=1)
+        whose = "IRs'" if n_rows > 1 else "IR's"
+        warnings.warn(f"{program}: resampled from {fs_p} Hz to the {whose} {fs} Hz", HowlWarning)
+        n_prog, blocks = x.shape[1], iter([x])
+    V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
+    n_tail = int(round(tail_s * fs))
+
+    def chunks():
+        for b in blocks:
+            if row is None:
+                yield b
+            else:
+                full = np.zeros((n_rows, b.shape[1]))
+                full[row] = b[0]
+                yield full
+        for a in range(0, n_tail, BLOCK):
+            yield np.zeros((n_rows, min(BLOCK, n_tail - a)))
+
+    return n_prog + n_tail, chunks()
+
+
+def _stream_to_wav(out, irs, chunks, n, sched, limiter_dbfs, fs) -> dict:
+    """Run the loop over the program chunks, writing OUT (float32, atomically) as it goes.
+
+    Returns the figures of the run without holding it: the schedule's first, last and highest
+    gain, the output peak, the share of samples in the limiter, and the RMS of input and output
+    (summed as numpy sums a whole array, so the figures match an in-memory run to the bit).
+    """
+    import numpy as np
+    import soundfile as sf
+
+    from howl.fileio import atomic_path
+    from howl.loop.simulate import PairwiseSum, stream_closed_loop
+
+    n_ch = irs.shape[0]
+    st = {"first": None, "last": None, "max": -np.inf, "peak": 0.0, "limited": 0, "any_in": False}
+    sq_in, sq_out = PairwiseSum(n), PairwiseSum(n)
+    ceiling = 10 ** (limiter_dbfs / 20)
+
+    def gains(a, b):
+        v = sched.values(a, b)
+        st["first"] = v[0] if st["first"] is None else st["first"]
+        st["last"], st["max"] = v[-1], max(st["max"], float(np.max(v)))
+        return v
+
+    def watched():
+        for c in chunks:
+            st["any_in"] = st["any_in"] or bool(np.any(c))
+            if n_ch == 1:
+                sq_in.add(c[0] ** 2)
+            yield c
+
+    with atomic_path(out) as tmp:
+        with sf.SoundFile(str(tmp), "w", samplerate=int(fs), channels=n_ch, subtype="FLOAT", format="WAV") as f:
+            for y in stream_closed_loop(irs, watched(), gains, limiter_dbfs=limiter_dbfs):
+                f.write(np.asarray(y.T if n_ch > 1 else y[0], dtype=np.float32))
+                st["peak"] = max(st["peak"], float(np.max(np.abs(y))))
+                st["limited"] += int(np.count_nonzero(np.abs(y) > 0.5 * ceiling))
+                if n_ch == 1:
+                    sq_out.add(y[0] ** 2)
+    level_change_db = None
+    if n_ch == 1:
+        rms_in = float(np.sqrt(np.float64(sq_in.total()) / n)) if st["any_in"] else 0.0
+        rms_out = float(np.sqrt(np.float64(sq_out.total()) / n))
+        level_change_db = float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None
+    return {"n": n, "n_ch": n_ch, "gain_first": float(st["first"]), "gain_last": float(st["last"]), "gain_max": st["max"],
+            "peak": st["peak"], "limited_fraction": st["limited"] / (n * n_ch), "level_change_db": level_change_db}
+
+
+def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None, gain_db=None, ramp_db=None,
+                        steps=None, limiter_dbfs=-1.0, tail_s=1.0, program_channel=None) -> dict:
+    """Folder mode: one output channel per mic (sorted by name); returns the JSON object."""
+    from howl import validate as V
+    from howl.errors import InputError
+    from howl.loop.mimo import _check_mimo, loop_matrix, mimo_margin
     from howl.cli.margin import load_pair_loop
 
     irs, mix, speakers, mics, fs, _, mix_source = load_pair_loop([folder], rig_file=rig_file)
@@ -159,18 +249,16 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
     try:
         n_prog_ch = sf.info(str(program)).channels
     except Exception:
-        n_prog_ch = 1  # read_wav below gives the clear message
+        n_prog_ch = 1  # wav_blocks below gives the clear message
     if n_prog_ch > 1 and program_channel is None:
         if n_prog_ch != len(mics):
             raise InputError(
                 f"has {n_prog_ch} channels; a multichannel program needs one per mic ({len(mics)}: "
                 f"{', '.join(mics)}), or pass --program-channel N and --program-mic NAME", file=str(program)
             )
-        chans = [read_wav(program, channel=c + 1, option="--program-channel") for c in range(n_prog_ch)]
-        fs_p = chans[0][1]
-        x = np.vstack([c[0] for c in chans])
+        channels, row = list(range(1, n_prog_ch + 1)), None
     else:
-        x1, fs_p = read_wav(program, channel=program_channel, option="--program-channel")
+        channels = None if program_channel is None else [program_channel]
         if program_mic is None:
             if len(mics) > 1:
                 raise InputError(f"must name the mic a mono program is heard at (one of {', '.join(mics)})",
@@ -178,45 +266,33 @@ def run_mimo_simulation(folder, program, out, *, rig_file=None, program_mic=None
             program_mic = mics[0]
         if program_mic not in mics:
             raise InputError(f"must be one of {', '.join(mics)}, got {program_mic!r}", key="--program-mic")
-        x = np.zeros((len(mics), x1.size))
-        x[mics.index(program_mic)] = x1
-    if fs_p != fs:
-        from scipy.signal import resample_poly
-
-        from howl.fileio import resampled_length
-
-        resampled_length(x.shape[1], int(fs_p), int(fs), file=str(program))  # bound the size before the work
-        g = math.gcd(int(fs), int(fs_p))
-        x = resample_poly(x, int(fs) // g, int(fs_p) // g, axis=1)
-        warnings.warn(f"{program}: resampled from {fs_p} Hz to the IRs' {fs} Hz", HowlWarning)
-    x = np.concatenate([x, np.zeros((x.shape[0], int(round(tail_s * fs))))], axis=1)
-    sched = _schedule(x.shape[1], fs, gain_db, ramp_db, steps)
+        row = mics.index(program_mic)
+    n, chunks = _program_chunks(program, channels=channels, fs=fs, n_rows=len(mics), row=row, tail_s=tail_s)
+    sched = _schedule(n, fs, gain_db, ramp_db, steps)
     r = mimo_margin(irs, mix, fs)
-    y = simulate_mimo(irs, mix, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
-    write_wav_atomic(out, y.T, fs, option="--out")
+    a, m = _check_mimo(irs, mix, fs)
+    run = _stream_to_wav(out, loop_matrix(a, m), chunks, n, sched, limiter_dbfs, fs)
     return {
         "irs": str(folder),
         "program": str(program),
         "output": str(out),
         "channels": mics,
         "mix_source": mix_source,
-        **_run_summary(fs, y.shape[1], sched, r, y, limiter_dbfs, level_change_db=None),
+        **_run_summary(fs, run, r, limiter_dbfs),
     }
 
 
 def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, limiter_dbfs=-1.0, tail_s=1.0,
                    channel=None, program_channel=None, cuts=None) -> dict:
-    """Simulate and write OUT; returns the `howl simulate --json` object."""
-    import math
+    """Simulate and write OUT as it goes (memory does not grow with the program); returns the
+    `howl simulate --json` object. ``cuts``: a cut file put in the console channel (loop IR and
+    program both pass through it)."""
     import warnings
-
-    import numpy as np
 
     from howl import validate as V
     from howl.errors import HowlWarning, InputError
-    from howl.fileio import read_wav, write_wav_atomic
+    from howl.fileio import read_wav
     from howl.loop.nyquist import check_ir, ir_warnings, nyquist_margin
-    from howl.loop.simulate import simulate_closed_loop
 
     h, fs = read_wav(ir, channel=channel)
     try:
@@ -225,47 +301,34 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
         raise exc.located(file=str(ir)) from None
     for m in ir_warnings(h, fs):
         warnings.warn(f"{ir}: {m}", HowlWarning)
-    x, fs_p = read_wav(program, channel=program_channel, option="--program-channel")
-    if fs_p != fs:
-        from scipy.signal import resample_poly
-
-        from howl.fileio import resampled_length
-
-        resampled_length(x.size, int(fs_p), int(fs), file=str(program))  # bound the size before the work
-        g = math.gcd(int(fs), int(fs_p))
-        x = resample_poly(x, int(fs) // g, int(fs_p) // g)
-        warnings.warn(f"{program}: resampled from {fs_p} Hz to the IR's {fs} Hz", HowlWarning)
-    V.in_range(tail_s, "--tail-s", 0.0, 600.0, unit="s")
+    channels = None if program_channel is None else [program_channel]
+    n, chunks = _program_chunks(program, channels=channels, fs=fs, n_rows=1, tail_s=tail_s)
     V.in_range(limiter_dbfs, "--limiter-dbfs", -60.0, 0.0, unit="dBFS")
-    x = np.concatenate([x, np.zeros(int(round(tail_s * fs)))])
-    sched = _schedule(x.size, fs, gain_db, ramp_db, steps)
+    sched = _schedule(n, fs, gain_db, ramp_db, steps)
     cut_list = None
     if cuts is not None:
         from howl.loop.cutfile import read_cut_file
         from howl.loop.notch import cascade_sos
-        from howl.loop.simulate import with_cuts
 
         cut_list = read_cut_file(cuts)
-        top = max((n.freq_hz for n in cut_list), default=0.0)
+        top = max((c.freq_hz for c in cut_list), default=0.0)
         if top >= fs / 2:
             raise InputError(f"has a cut at {top:g} Hz, above half the IR's sample rate ({fs} Hz)", file=str(cuts))
         r0 = nyquist_margin(h, fs)
         r = nyquist_margin(h, fs, filters_sos=cascade_sos(cut_list, fs)) if cut_list else r0
-        h, x = with_cuts(h, x, fs, cut_list)
+        h, chunks = _through_cuts(h, chunks, fs, cut_list)
     else:
         r = nyquist_margin(h, fs)
-    y = simulate_closed_loop(h, x, fs, gain_db=sched, limiter_dbfs=limiter_dbfs)
-    write_wav_atomic(out, y, fs, option="--out")
-    rms_in = float(np.sqrt(np.mean(x**2))) if np.any(x) else 0.0
-    rms_out = float(np.sqrt(np.mean(y**2)))
-    level_change_db = float(20 * np.log10(max(rms_out, 1e-12) / rms_in)) if rms_in > 0 else None
+    run = _stream_to_wav(out, h[None, None, :], chunks, n, sched, limiter_dbfs, fs)
     rep = {
         "ir": str(ir),
         "program": str(program),
         "output": str(out),
-        **_run_summary(fs, y.size, sched, r, y, limiter_dbfs, level_change_db=level_change_db),
+        **_run_summary(fs, run, r, limiter_dbfs),
     }
     if cut_list is not None:
+        import numpy as np
+
         finite = bool(np.isfinite(r0.gain_margin_db))
         rep["cuts_file"] = str(cuts)
         rep["cuts"] = [{"freq_hz": n.freq_hz, "gain_db": n.gain_db, "q": n.q, "bandwidth_oct": n.bandwidth_oct}
@@ -274,6 +337,27 @@ def run_simulation(ir, program, out, *, gain_db=None, ramp_db=None, steps=None, 
         rep["cuts_where"] = ("in the console channel: the loop IR and the program both pass through them; "
                              "gain_margin_db and the output are with the cuts in")
     return rep
+
+
+def _through_cuts(h, chunks, fs, cut_list):
+    """The loop IR with the cuts in (C∗h) and the program chunks filtered by the cuts as they
+    stream (the filter state carried from chunk to chunk: the same as filtering the whole)."""
+    from scipy.signal import sosfilt, sosfilt_zi
+
+    from howl.loop.simulate import cut_loop_ir
+
+    hc, sos = cut_loop_ir(h, fs, cut_list)
+    if sos is None:
+        return hc, chunks
+
+    def filtered():
+        zi = sosfilt_zi(sos) * 0.0
+        for c in chunks:
+            y, zi_new = sosfilt(sos, c[0], zi=zi)
+            zi[...] = zi_new
+            yield y[None, :]
+
+    return hc, filtered()
 
 
 def simulation_lines(rep: dict) -> list[str]:
@@ -299,26 +383,27 @@ def simulation_lines(rep: dict) -> list[str]:
     return lines
 
 
-def _run_summary(fs, n_samples, sched, r, y, limiter_dbfs, *, level_change_db):
+def _run_summary(fs, run, r, limiter_dbfs):
     """The JSON fields common to single and multi-IR simulation: schedule, prediction, output level."""
+    import math
+
     import numpy as np
 
-    gmax = float(np.max(sched))
-    finite = bool(np.isfinite(r.gain_margin_db))
-    ceiling = 10 ** (limiter_dbfs / 20)
+    gmax = run["gain_max"]
+    finite = bool(math.isfinite(r.gain_margin_db))
     return {
         "sample_rate_hz": fs,
-        "duration_s": n_samples / fs,
-        "gain_db_start": float(sched[0]),
-        "gain_db_end": float(sched[-1]),
+        "duration_s": run["n"] / fs,
+        "gain_db_start": run["gain_first"],
+        "gain_db_end": run["gain_last"],
         "gain_db_max": gmax,
         "gain_margin_db": r.gain_margin_db if finite else None,
         "howl_freq_hz": r.howl_freq_hz if finite else None,
         "margin_at_max_gain_db": (r.gain_margin_db - gmax) if finite else None,
         "expected": ("stable" if (not finite or r.gain_margin_db - gmax > 0) else "howls"),
-        "peak_dbfs": float(20 * np.log10(max(float(np.max(np.abs(y))), 1e-12))),
+        "peak_dbfs": float(20 * np.log10(max(run["peak"], 1e-12))),
         "limiter_dbfs": limiter_dbfs,
-        "limited_fraction": float(np.mean(np.abs(y) > 0.5 * ceiling)),
-        "level_change_db": level_change_db,
+        "limited_fraction": run["limited_fraction"],
+        "level_change_db": run["level_change_db"],
         "caution": CAUTION,
     }

@@ -16,6 +16,7 @@ the main lane's (see :func:`lane_config`).
 
 from __future__ import annotations
 
+import math
 from dataclasses import replace
 
 import numpy as np
@@ -78,20 +79,41 @@ def lane_config(cfg, lane_hz: float):
     return replace(cfg, **kw)
 
 
+def kaiser_lowpass(atten_db: float, width: float, cutoff: float) -> np.ndarray:
+    """Windowed-sinc low-pass FIR with a Kaiser window, odd length, unit gain at DC (numpy only).
+
+    ``width`` (transition) and ``cutoff`` are fractions of the Nyquist frequency. Kaiser's
+    formulas (J. F. Kaiser, "Nonrecursive digital filter design using the I0-sinh window
+    function", Proc. IEEE ISCAS 1974): β = 0.1102·(A − 8.7) for A > 50 dB, 0.5842·(A − 21)^0.4
+    + 0.07886·(A − 21) for 21 < A ≤ 50, else 0; N = ⌈(A − 7.95)/(2.285·π·width) + 1⌉, made odd.
+    The same taps as ``scipy.signal.firwin(kaiserord(A, width)[0] | 1, cutoff, window=("kaiser",
+    β))`` (the tests check it), without importing scipy.signal for one small filter.
+    """
+    a = float(atten_db)
+    if a > 50.0:
+        beta = 0.1102 * (a - 8.7)
+    elif a > 21.0:
+        beta = 0.5842 * (a - 21.0) ** 0.4 + 0.07886 * (a - 21.0)
+    else:
+        beta = 0.0
+    n = int(math.ceil((a - 7.95) / 2.285 / (math.pi * width) + 1)) | 1
+    m = np.arange(n) - 0.5 * (n - 1)
+    h = cutoff * np.sinc(cutoff * m) * np.kaiser(n, beta)
+    return h / np.sum(h)
+
+
 class Decimator:
     """Streaming low-pass FIR and decimation by ``factor``, exact and independent of the block
     sizes fed: output m is Σ_j h[j]·x[m·D − j] (causal: available once input m·D has arrived), and
     outputs are computed in fixed groups of ``group`` samples aligned to the global output index,
     each group by the same dot products, so any split of the input gives the same samples.
 
-    The filter: a Kaiser-window FIR (scipy.signal.firwin), pass band to 0.375·rate_out, stop band
+    The filter: a Kaiser-window FIR (:func:`kaiser_lowpass`), pass band to 0.375·rate_out, stop band
     from 0.625·rate_out (what folds onto the pass band is attenuated by ≥ 70 dB; Kaiser 1974's
     length formula sizes it). At 48 kHz → 2400 Hz: 900 Hz pass, 1500 Hz stop, about 350 taps.
     """
 
     def __init__(self, sample_rate_hz: float, factor: int, group: int = 32):
-        from scipy.signal import firwin, kaiserord
-
         self.factor = int(factor)
         self.group = int(group)
         rate_out = sample_rate_hz / self.factor
@@ -99,8 +121,7 @@ class Decimator:
             self.h = np.ones(1)
         else:
             nyq = sample_rate_hz / 2.0
-            n_taps, beta = kaiserord(70.0, 0.25 * rate_out / nyq)
-            self.h = firwin(n_taps | 1, 0.5 * rate_out, window=("kaiser", beta), fs=sample_rate_hz)
+            self.h = kaiser_lowpass(70.0, 0.25 * rate_out / nyq, 0.5 * rate_out / nyq)
         # polyphase: with rows of D samples (row n = x[(n−1)·D + 1 … n·D]), output m is
         # Σ_q row(m − q) · g_q, g_q = h[q·D : (q + 1)·D] reversed (h zero-padded to Q·D taps)
         D = self.factor

@@ -9,8 +9,8 @@ from howl._lazy import lazy_exports
 _NAMES = {
     "loop_response": "nyquist",
     "nyquist_margin": "nyquist",
-    "mimo_margin": "nyquist",
-    "loop_matrix": "nyquist",
+    "mimo_margin": "mimo",
+    "loop_matrix": "mimo",
     "band_loop_gain_db": "nyquist",
     "third_octave_loop_gain": "nyquist",
     "check_ir": "nyquist",
@@ -20,6 +20,7 @@ _NAMES = {
     "OutsideCrossing": "_outside",
     "simulate_closed_loop": "simulate",
     "simulate_mimo": "simulate",
+    "stream_closed_loop": "simulate",
     "gain_schedule_db": "simulate",
     "soft_limit": "simulate",
     "Notch": "notch",

@@ -1,4 +1,4 @@
-"""Loop analysis of impulse responses: Nyquist gain margin, howl frequencies, MIMO loops.
+"""Loop analysis of impulse responses: Nyquist gain margin and howl frequencies.
 
 Convention (positive feedback): the closed loop is ``y[n] = x[n] + Σ_k h[k]·y[n−k]``,
 so with the open-loop transfer H(f) (the DTFT of the loop IR ``h``) the closed
@@ -12,11 +12,8 @@ multiple of 360°.
 * Phase-blind margin: −20·log10 max|H(f)| in the band. The phase of a room's
   loop drifts with temperature and movement, so any peak can become a crossing.
 
-MIMO loops (several mics and speakers) use the generalized Nyquist criterion
-[3]_: with L(f) the mics × mics loop transfer matrix, the closed loop
-(I − k·L)⁻¹ loses stability at the smallest broadband gain k for which some
-eigenvalue λ(f) of L satisfies k·λ(f) = 1, i.e. where an eigenvalue locus
-crosses the positive real axis.
+MIMO loops (several mics and speakers, the generalized Nyquist criterion) are in
+:mod:`howl.loop.mimo`.
 
 References
 ----------
@@ -26,21 +23,20 @@ References
    control: state of the art and future challenges", Proc. IEEE 99(2),
    288–327, 2011 (MSG = −20·log10 max |J F| over the frequencies where the
    loop phase is a multiple of 2π).
-.. [3] A. G. J. MacFarlane and I. Postlethwaite, "The generalized Nyquist
-   stability criterion and multivariable root loci", Int. J. Control 25(1),
-   81–127, 1977.
 """
 
 from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 from howl import validate as V
 from howl.errors import HowlWarning, InputError
+from howl.loop._dtft import _FastDTFT, _next_pow2, dtft  # noqa: F401  (re-exported)
+from howl.loop._risks import Risk, lobe_risks  # noqa: F401  (Risk re-exported)
 from howl.units import db, from_db
 
 #: Default zero-padding factor of the search grid relative to the IR length.
@@ -64,6 +60,17 @@ FIRST_SAMPLE_LIM = 10 ** (-50 / 20)
 
 #: Longest loop IR accepted (s); longer files are almost always a wrong file.
 MAX_IR_S = 20.0
+
+#: The MIMO names live in :mod:`howl.loop.mimo`; importing them from here still works.
+_MIMO_NAMES = ("MimoMarginResult", "loop_matrix", "mimo_margin", "_check_mimo", "_MatrixLoop", "_track_loci", "_refine_loci")
+
+
+def __getattr__(name: str):
+    if name in _MIMO_NAMES:
+        from howl.loop import mimo
+
+        return getattr(mimo, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 # --------------------------------------------------------------------------- checks
@@ -143,30 +150,6 @@ def _sos(filters_sos):
 # --------------------------------------------------------------------------- transfer
 
 
-def _next_pow2(n: int) -> int:
-    return 1 << max(0, int(math.ceil(math.log2(max(1, n)))))
-
-
-def dtft(ir: np.ndarray, freq_hz, sample_rate_hz: float) -> np.ndarray:
-    """Exact DTFT H(f) = Σ_k h[k]·exp(−j2πfk/fs) at arbitrary frequencies (chunked)."""
-    h = np.asarray(ir, dtype=float)
-    f = np.atleast_1d(np.asarray(freq_hz, dtype=float))
-    nz = np.flatnonzero(h)
-    if nz.size == 0:
-        return np.zeros(f.shape, dtype=complex)
-    k = np.arange(nz[0], nz[-1] + 1, dtype=float)
-    hk = h[nz[0] : nz[-1] + 1]
-    out = np.empty(f.shape, dtype=complex)
-    chunk = max(1, int(2_000_000 // k.size))
-    w = -2.0 * np.pi * f / sample_rate_hz
-    for i in range(0, f.size, chunk):
-        ph = np.multiply.outer(w[i : i + chunk], k)
-        out[i : i + chunk] = np.cos(ph) @ hk + 1j * (np.sin(ph) @ hk)
-    # a real IR has a real transfer at DC and at Nyquist
-    out[(f == 0.0) | (f == sample_rate_hz / 2.0)] = out[(f == 0.0) | (f == sample_rate_hz / 2.0)].real
-    return out
-
-
 def loop_response(ir, sample_rate_hz, freq_hz=None, n_fft=None) -> tuple[np.ndarray, np.ndarray]:
     """Open-loop transfer H(f) of a loop IR (the DTFT, positive-feedback convention).
 
@@ -205,23 +188,6 @@ def _sos_response(sos, freq_hz, fs):
 # --------------------------------------------------------------------------- results
 
 
-@dataclass(frozen=True)
-class Risk:
-    """A frequency at risk of howling.
-
-    ``kind`` is ``"crossing"`` (a positive real-axis crossing of H: ``margin_db``
-    is the phase-aware margin there) or ``"peak"`` (a peak of |H| with no
-    crossing in its lobe: ``margin_db`` is the phase-blind margin, what is left
-    if the phase drifts onto 0°). ``magnitude_margin_db`` and ``peak_freq_hz``
-    give the phase-blind margin and frequency of the highest peak of the lobe
-    (between the neighbouring minima of |L|) the risk sits in.
-    """
-
-    freq_hz: float
-    margin_db: float
-    kind: str
-    magnitude_margin_db: float = float("nan")  # phase-blind margin of the lobe's peak
-    peak_freq_hz: float = float("nan")  # where that peak is
 
 
 @dataclass(frozen=True, eq=False)
@@ -260,48 +226,6 @@ class MarginResult:
 
 
 # --------------------------------------------------------------------------- refinement
-
-
-class _FastDTFT:
-    """Exact DTFT (value and derivative) of a fixed IR at many arbitrary frequencies.
-
-    With k = B·b + m (0 ≤ m < B): H(ω) = Σ_b e^{−jωBb}·Σ_m h[Bb+m]·e^{−jωm}, so one
-    evaluation costs about B + N/B complex exponentials and one real-by-complex
-    matrix product of N terms instead of N exponentials. Rounding is that of the
-    products and of the phase arguments (relative ~1e-11 for 10⁵ taps), not an approximation.
-    """
-
-    def __init__(self, h: np.ndarray, block: int = 256):
-        nz = np.flatnonzero(h)
-        self.k0 = int(nz[0])
-        hk = h[nz[0] : nz[-1] + 1]
-        B = int(min(block, max(1, hk.size)))
-        nb = -(-hk.size // B)
-        hp = np.zeros(nb * B)
-        hp[: hk.size] = hk
-        self.B = B
-        self.hb = hp.reshape(nb, B)  # (nb, B)
-        self.m = np.arange(B, dtype=float)
-        self.b = np.arange(nb, dtype=float)
-        self.hbm = self.hb * self.m[None, :]  # for the derivative
-
-    def __call__(self, w: np.ndarray, deriv: bool = False):
-        """H and (optionally) dH/dw at angular frequencies ``w`` (rad/sample)."""
-        w = np.atleast_1d(np.asarray(w, dtype=float))
-        ang = np.multiply.outer(self.m, w)  # (B, M)
-        c, sn = np.cos(ang), np.sin(ang)
-        outer = np.exp(-1j * np.multiply.outer(self.b * self.B, w))  # (nb, M)
-        # real matrix products (a real-by-complex product takes a slow path in numpy)
-        s0 = self.hb @ c - 1j * (self.hb @ sn)  # (nb, M)
-        ph0 = np.exp(-1j * w * self.k0)
-        H = ph0 * np.sum(outer * s0, axis=0)
-        if not deriv:
-            return H
-        s1 = self.hbm @ c - 1j * (self.hbm @ sn)
-        # d/dw of Σ h[k] e^{−jw(k0+k)} = −j Σ (k0 + B b + m) h e^{...}
-        kb = (self.b * self.B)[:, None]
-        dH = -1j * ph0 * np.sum(outer * (s1 + kb * s0), axis=0) - 1j * self.k0 * H
-        return H, dH
 
 
 class _Loop:
@@ -444,141 +368,16 @@ def nyquist_margin(
     sos = _sos(filters_sos)
     g = from_db(gdb)
     L = _Loop(h, fs, g, sos)
-
-    n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
-    df = fs / n_fft
-    i0 = int(math.ceil(lo / df - 1e-9))
-    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
-    H_all = np.fft.rfft(h, n_fft)
-    dc_gain = float(H_all[0].real) * g
-    f = np.arange(i0, i1) * df
-    Lg = H_all[i0:i1] * g
-    if sos is not None and f.size:
-        Lg = Lg * _sos_response(sos, f, fs)
-    # band edges evaluated exactly (L includes the filters)
-    if f.size == 0 or f[0] > lo:
-        f = np.concatenate([[lo], f])
-        Lg = np.concatenate([L(lo), Lg])
-    if f[-1] < hi:
-        f = np.concatenate([f, [hi]])
-        Lg = np.concatenate([Lg, L(hi)])
-    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
-        if f[e] == 0.0 or f[e] == fs / 2.0:
-            Lg[e] = Lg[e].real
+    n_fft, f, Lg, dc_gain = _loop_grid(h, fs, g, sos, L, lo, hi, oversample)
     re, im = Lg.real, Lg.imag
     mag2 = re * re + im * im
-    tol_hz = 1e-12 * fs
-
-    # ---- crossings: sign changes of Im with Re > 0, and exact real points
-    pos = im > 0
-    neg = im < 0
-    iv = np.flatnonzero((pos[:-1] & neg[1:]) | (neg[:-1] & pos[1:]))
-    iv = iv[(re[iv] > 0) | (re[iv + 1] > 0)]
-    t = im[iv] / (im[iv] - im[iv + 1])
-    fc = f[iv] + t * (f[iv + 1] - f[iv])
-    rc = re[iv] + t * (re[iv + 1] - re[iv])
-    ex = np.flatnonzero((im == 0.0) & (re > 0))
-    cand_f = np.concatenate([fc, f[ex]])
-    cand_r = np.concatenate([rc, re[ex]])
-    cand_lo = np.concatenate([iv, ex])  # grid index of the bracket start (for lobes)
-    n_iv = iv.size
-
-    # refine the worst ones (top n_risks, and all within 1 dB of the coarse best)
-    order = np.argsort(-cand_r)
-    n_ref = 0
-    if cand_r.size:
-        best = cand_r[order[0]]
-        close = int(np.count_nonzero(cand_r >= best * from_db(-1.0))) if best > 0 else 1
-        n_ref = min(cand_r.size, max(n_risks, close, 1), 512)
-    cand_f = cand_f.copy()
-    cand_r = cand_r.copy()
-    j = order[:n_ref]
-    j = j[j < n_iv]  # exact real points need no refinement
-    if j.size:
-        i = iv[j]
-        x, v = _refine_crossings(L, f[i], f[i + 1], im[i], im[i + 1], cand_f[j], tol_hz)
-        cand_f[j] = x
-        cand_r[j] = v.real
-    keep = cand_r > 0
-    cand_f, cand_r, cand_lo = cand_f[keep], cand_r[keep], cand_lo[keep]
-
-    # ---- phase-blind margin: the global maximum of |L| in the band
-    # (parabolic interpolation of |L| in dB on the grid, then checked exactly)
-    ipk = int(np.argmax(mag2))
-    fpk, mpk = float(f[ipk]), float(np.sqrt(mag2[ipk]))
-    if 0 < ipk < mag2.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
-        y0, y1, y2 = 10.0 * np.log10(np.maximum(mag2[ipk - 1 : ipk + 2], 1e-300))
-        den = y0 - 2 * y1 + y2
-        if den < 0:
-            off = 0.5 * (y0 - y2) / den
-            fx = f[ipk] + off * (f[ipk + 1] - f[ipk])
-            mx = float(np.abs(L(fx))[0])
-            if mx > mpk:
-                fpk, mpk = float(fx), mx
+    cand_f, cand_r, cand_lo = _crossings(L, f, re, im, n_risks, 1e-12 * fs)
+    fpk, mpk = _magnitude_peak(L, f, mag2)
     magnitude_margin_db = -db(mpk)
-
-    # ---- gain margin and ties
-    if cand_r.size:
-        o = np.argsort(-cand_r)
-        cand_f, cand_r, cand_lo = cand_f[o], cand_r[o], cand_lo[o]
-        margins = -db(cand_r)
-        gain_margin_db = float(margins[0])
-        howl_freq_hz = float(cand_f[0])
-        tie = margins <= gain_margin_db + tie_db
-        howl_freqs = tuple(float(x) for x in cand_f[tie][:MAX_TIES])
-        # ring-down prediction at the howl frequency
-        v, dv = L.with_deriv(howl_freq_hz)
-        dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
-        ring = ring_decay_rate_db_per_s(gain_margin_db, dln)
-        tau_g = float(-dln.imag)
-    else:
-        margins = np.zeros(0)
-        gain_margin_db = float("inf")
-        howl_freq_hz = float("nan")
-        howl_freqs = ()
-        ring = float("nan")
-        tau_g = float("nan")
-
-    # ---- risks: one per lobe of |L| (between neighbouring minima): its worst crossing if it
-    # has one (with the lobe's phase-blind margin beside it), else its peak
-    mid, left, right = mag2[1:-1], mag2[:-2], mag2[2:]
-    # (a peak must stand out of its neighbours by more than rounding: a flat loop has none)
-    m_in = mid * (1.0 - 2e-9)
-    pk = np.flatnonzero((m_in >= left) & (m_in > right)) + 1
-    mins = np.flatnonzero((mid <= left) & (mid < right)) + 1
-    lobe_pk = np.searchsorted(mins, pk)
-    # the highest peak of each lobe
-    o_pk = np.lexsort((-mag2[pk], lobe_pk))
-    lobes_u, first = np.unique(lobe_pk[o_pk], return_index=True)
-    lobe_peak = dict(zip(lobes_u.tolist(), pk[o_pk][first].tolist()))
-    lobe_cr = np.searchsorted(mins, cand_lo, side="right")  # crossings are sorted worst first
-    seen: set[int] = set()
-    risks_all = []
-    for m, x, lb in zip(margins, cand_f, lobe_cr):
-        if lb in seen:
-            continue
-        seen.add(int(lb))
-        ip = lobe_peak.get(int(lb))
-        pm = -10.0 * math.log10(max(mag2[ip], 1e-300)) if ip is not None else float(m)
-        pf = float(f[ip]) if ip is not None else float(x)
-        risks_all.append(Risk(float(x), float(m), "crossing", min(pm, float(m)), pf))
-        if len(seen) >= n_risks + len(howl_freqs):
-            break
-    lobes_with_crossing = set(lobe_cr.tolist())  # built once: a set per item made this quadratic
-    free = [(lb, ip) for lb, ip in lobe_peak.items() if lb not in lobes_with_crossing]
-    if free:
-        ips = np.array([ip for _, ip in free])
-        pm = -10.0 * np.log10(np.maximum(mag2[ips], 1e-300))
-        for i in np.argsort(pm)[:n_risks]:
-            risks_all.append(Risk(float(f[ips[i]]), float(pm[i]), "peak", float(pm[i]), float(f[ips[i]])))
-    risks_all.sort(key=lambda r: (r.margin_db, r.kind != "crossing"))
-    risks_l = risks_all[:n_risks]
-    if n_risks and margins.size and not any(r.kind == "crossing" and r.freq_hz == howl_freq_hz for r in risks_l):
-        # the limiting crossing is always listed (in place of the last, less urgent, entry)
-        top = next(r for r in risks_all if r.kind == "crossing" and r.freq_hz == howl_freq_hz)
-        risks_l = sorted(risks_l[:-1] + [top], key=lambda r: (r.margin_db, r.kind != "crossing"))
-    risks = tuple(risks_l)
-
+    cand_f, cand_r, cand_lo, margins, howl_freqs, ring, tau_g = _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db)
+    gain_margin_db = float(margins[0]) if margins.size else float("inf")
+    howl_freq_hz = float(cand_f[0]) if margins.size else float("nan")
+    risks = lobe_risks(f, mag2, margins, cand_f, cand_lo, n_risks, len(howl_freqs), howl_freq_hz)
     o = np.argsort(cand_f)
     return MarginResult(
         gain_margin_db=gain_margin_db,
@@ -599,7 +398,97 @@ def nyquist_margin(
     )
 
 
-# --------------------------------------------------------------------------- bands
+def _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db):
+    """Crossings sorted worst first, their margins (dB), the tied howl frequencies, and the ring-down
+    rate and group delay at the worst one (NaN without a crossing)."""
+    if not cand_r.size:
+        return cand_f, cand_r, cand_lo, np.zeros(0), (), float("nan"), float("nan")
+    o = np.argsort(-cand_r)
+    cand_f, cand_r, cand_lo = cand_f[o], cand_r[o], cand_lo[o]
+    margins = -db(cand_r)
+    tie = margins <= margins[0] + tie_db
+    howl_freqs = tuple(float(x) for x in cand_f[tie][:MAX_TIES])
+    # ring-down prediction at the howl frequency
+    v, dv = L.with_deriv(float(cand_f[0]))
+    dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
+    return cand_f, cand_r, cand_lo, margins, howl_freqs, ring_decay_rate_db_per_s(float(margins[0]), dln), float(-dln.imag)
+
+
+def _loop_grid(h, fs, g, sos, L, lo, hi, oversample):
+    """(n_fft, f, L on f, DC gain): L on the zero-padded FFT grid inside [lo, hi], band edges exact."""
+    n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
+    df = fs / n_fft
+    i0 = int(math.ceil(lo / df - 1e-9))
+    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
+    H_all = np.fft.rfft(h, n_fft)
+    dc_gain = float(H_all[0].real) * g
+    f = np.arange(i0, i1) * df
+    Lg = H_all[i0:i1] * g
+    if sos is not None and f.size:
+        Lg = Lg * _sos_response(sos, f, fs)
+    # band edges evaluated exactly (L includes the filters)
+    if f.size == 0 or f[0] > lo:
+        f = np.concatenate([[lo], f])
+        Lg = np.concatenate([L(lo), Lg])
+    if f[-1] < hi:
+        f = np.concatenate([f, [hi]])
+        Lg = np.concatenate([Lg, L(hi)])
+    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
+        if f[e] == 0.0 or f[e] == fs / 2.0:
+            Lg[e] = Lg[e].real
+    return n_fft, f, Lg, dc_gain
+
+
+def _crossings(L, f, re, im, n_risks, tol_hz):
+    """Positive real-axis crossings (frequency, value, grid index of the bracket start): sign changes
+    of Im L with Re L > 0 and exact real points; the worst (top ``n_risks`` and all within 1 dB of
+    the coarse best, up to 512) refined by :func:`_refine_crossings`."""
+    pos = im > 0
+    neg = im < 0
+    iv = np.flatnonzero((pos[:-1] & neg[1:]) | (neg[:-1] & pos[1:]))
+    iv = iv[(re[iv] > 0) | (re[iv + 1] > 0)]
+    t = im[iv] / (im[iv] - im[iv + 1])
+    fc = f[iv] + t * (f[iv + 1] - f[iv])
+    rc = re[iv] + t * (re[iv + 1] - re[iv])
+    ex = np.flatnonzero((im == 0.0) & (re > 0))
+    cand_f = np.concatenate([fc, f[ex]])
+    cand_r = np.concatenate([rc, re[ex]])
+    cand_lo = np.concatenate([iv, ex])  # grid index of the bracket start (for lobes)
+    n_iv = iv.size
+    order = np.argsort(-cand_r)
+    n_ref = 0
+    if cand_r.size:
+        best = cand_r[order[0]]
+        close = int(np.count_nonzero(cand_r >= best * from_db(-1.0))) if best > 0 else 1
+        n_ref = min(cand_r.size, max(n_risks, close, 1), 512)
+    cand_f = cand_f.copy()
+    cand_r = cand_r.copy()
+    j = order[:n_ref]
+    j = j[j < n_iv]  # exact real points need no refinement
+    if j.size:
+        i = iv[j]
+        x, v = _refine_crossings(L, f[i], f[i + 1], im[i], im[i + 1], cand_f[j], tol_hz)
+        cand_f[j] = x
+        cand_r[j] = v.real
+    keep = cand_r > 0
+    return cand_f[keep], cand_r[keep], cand_lo[keep]
+
+
+def _magnitude_peak(L, f, mag2):
+    """(frequency, |L|) of the global maximum of |L| in the band: parabolic interpolation of |L| in dB
+    on the grid, kept if the exact value there is higher."""
+    ipk = int(np.argmax(mag2))
+    fpk, mpk = float(f[ipk]), float(np.sqrt(mag2[ipk]))
+    if 0 < ipk < mag2.size - 1 and f[ipk + 1] - f[ipk - 1] > 0:
+        y0, y1, y2 = 10.0 * np.log10(np.maximum(mag2[ipk - 1 : ipk + 2], 1e-300))
+        den = y0 - 2 * y1 + y2
+        if den < 0:
+            off = 0.5 * (y0 - y2) / den
+            fx = f[ipk] + off * (f[ipk + 1] - f[ipk])
+            mx = float(np.abs(L(fx))[0])
+            if mx > mpk:
+                fpk, mpk = float(fx), mx
+    return fpk, mpk
 
 
 def _band_edges(centres_hz: np.ndarray, fraction: int) -> tuple[np.ndarray, np.ndarray]:
@@ -649,285 +538,6 @@ def third_octave_loop_gain(freq_hz, H, band_hz) -> tuple[np.ndarray, np.ndarray]
         c = 1000.0 * G ** (x / 3.0)
         c = c[(c >= lo) & (c <= hi)]
     return c, band_loop_gain_db(freq_hz, H, c, 3)
-
-
-# --------------------------------------------------------------------------- MIMO
-
-
-@dataclass(frozen=True, eq=False)
-class MimoMarginResult:
-    """Result of :func:`mimo_margin` (generalized Nyquist on det(I − k·L(f))).
-
-    gain_margin_db : −20·log10 of the largest positive real eigenvalue of L(f) in the
-        band: the broadband gain scale (all sends together) at which the loop howls.
-    howl_freq_hz : where that eigenvalue crosses the positive real axis.
-    worst_mic_index : the mic with the largest share in the howl mode
-        (``participation``: |w_i·v_i|/Σ|w·v| with right/left eigenvectors v, w;
-        the first-order sensitivity of the eigenvalue to that mic's channel gain).
-    eigenvector : right eigenvector (mic signals of the howl mode), unit norm.
-    magnitude_margin_db : −20·log10 of the largest spectral radius of L in the band
-        (phase-blind).
-    crossings_freq_hz, crossings_value : every eigenvalue crossing (frequency, λ).
-    """
-
-    gain_margin_db: float
-    howl_freq_hz: float
-    worst_mic_index: int
-    eigenvector: np.ndarray
-    participation: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    magnitude_margin_db: float = float("nan")
-    crossings_freq_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    crossings_value: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    sample_rate_hz: float = float("nan")
-    band_hz: tuple = ()
-
-
-def loop_matrix(irs: np.ndarray, mix_lin: np.ndarray) -> np.ndarray:
-    """Mic-to-mic loop IRs l[i, j, k] = Σ_spk mix[spk, j]·h[spk, i, k].
-
-    ``irs[spk, mic]`` runs from speaker ``spk``'s feed to mic ``mic``'s channel;
-    ``mix_lin[spk, mic]`` is the linear send from mic's channel to that speaker.
-    """
-    return np.einsum("sik,sj->ijk", irs, mix_lin)
-
-
-def _check_mimo(irs, mix_lin, sample_rate_hz):
-    V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
-    a = V.finite_array(irs, "irs", ndim=3)
-    m = V.finite_array(mix_lin, "mix_lin", ndim=2)
-    if m.shape != a.shape[:2]:
-        raise InputError(f"must have shape (n_spk, n_mic) = {a.shape[:2]}, got {m.shape}", key="mix_lin")
-    if not np.any(a):
-        raise InputError("are all silent", key="irs")
-    return a, m
-
-
-class _MatrixLoop:
-    """Exact L(f) (n × n) of mic-to-mic loop IRs at any frequency."""
-
-    def __init__(self, l, fs):
-        self.fs = fs
-        self.n = l.shape[0]
-        self.parts = [[_FastDTFT(l[i, j]) if np.any(l[i, j]) else None for j in range(self.n)] for i in range(self.n)]
-
-    def matrices(self, f) -> np.ndarray:
-        """L at frequencies ``f`` (M,) → (M, n, n)."""
-        return self.with_deriv(f, deriv=False)
-
-    def with_deriv(self, f, deriv: bool = True):
-        """L and dL/df (per Hz) at frequencies ``f`` (M,) → (M, n, n) each."""
-        f = np.atleast_1d(np.asarray(f, dtype=float))
-        w = 2.0 * np.pi * f / self.fs
-        Lm = np.zeros((f.size, self.n, self.n), dtype=complex)
-        dL = np.zeros_like(Lm)
-        for i in range(self.n):
-            for j in range(self.n):
-                part = self.parts[i][j]
-                if part is None:
-                    continue
-                if deriv:
-                    Lm[:, i, j], d = part(w, deriv=True)
-                    dL[:, i, j] = d * (2.0 * np.pi / self.fs)
-                else:
-                    Lm[:, i, j] = part(w)
-        edge = (f == 0.0) | (f == self.fs / 2.0)
-        if np.any(edge):
-            Lm[edge] = Lm[edge].real
-        return (Lm, dL) if deriv else Lm
-
-    def __call__(self, f: float) -> np.ndarray:
-        w = 2.0 * np.pi * f / self.fs
-        Lm = np.zeros((self.n, self.n), dtype=complex)
-        for i in range(self.n):
-            for j in range(self.n):
-                if self.parts[i][j] is not None:
-                    Lm[i, j] = self.parts[i][j](w)[0]
-        if f == 0.0 or f == self.fs / 2.0:
-            Lm = Lm.real.astype(complex)
-        return Lm
-
-
-def _track_loci(lam: np.ndarray) -> np.ndarray:
-    """Order eigenvalues along frequency so each column follows one locus (nearest neighbour)."""
-    import itertools
-
-    F, n = lam.shape
-    perms = list(itertools.permutations(range(n)))
-    P = np.array(perms)
-    # best permutation of row q's raw order to match row q-1's raw order
-    cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
-    step = np.argmin(cost, axis=1)
-    if n == 2:  # the two orders form a group of two: the running order is the parity of the swaps
-        parity = np.concatenate([[0], np.cumsum(step != 0) % 2])
-        out = lam.copy()
-        sw = parity == 1
-        out[sw] = lam[sw][:, ::-1]
-        return out
-    index = {p: k for k, p in enumerate(perms)}
-    # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
-    table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
-    out = np.empty_like(lam)
-    out[0] = lam[0]
-    cur = 0  # permutation applied to row q-1 (identity)
-    for q in range(1, F):
-        # row q reordered by perms[step] matches raw row q-1; raw row q-1 was reordered by cur
-        cur = table[step[q - 1]][cur]
-        out[q] = lam[q][list(perms[cur])]
-    return out
-
-
-def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
-    """Frequencies where eigenvalue loci cross the real axis, one per bracket (vectorised).
-
-    Newton steps on Im λ(f) with the eigenvalue derivative dλ/df = wᵀ (dL/df) v (v the right
-    eigenvector, wᵀ the matching row of V⁻¹, so wᵀv = 1), kept inside the shrinking bracket
-    (bisection when a step leaves it); the locus is followed by taking, at each step, the
-    eigenvalue nearest to the previous one. Returns (f, λ).
-    """
-    a = np.array(a, dtype=float)
-    b = np.array(b, dtype=float)
-    za = np.asarray(za, dtype=complex)
-    zb = np.asarray(zb, dtype=complex)
-    sa = np.sign(za.imag)
-    t = za.imag / (za.imag - zb.imag)
-    x = a + t * (b - a)
-    z = za + t * (zb - za)
-    active = np.ones(x.size, bool)
-    tol = 1e-12 * ev_at.fs
-    for _ in range(max_iter):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        Lm, dL = ev_at.with_deriv(x[idx])
-        ev, V = np.linalg.eig(Lm)
-        k = np.argmin(np.abs(ev - z[idx, None]), axis=1)
-        lam = ev[np.arange(idx.size), k]
-        W = np.linalg.inv(V)
-        w = W[np.arange(idx.size), k, :]
-        v = V[np.arange(idx.size), :, k]
-        dlam = np.einsum("mi,mij,mj->m", w, dL, v)
-        z[idx] = lam
-        fx = lam.imag
-        left = np.sign(fx) == sa[idx]
-        a[idx[left]] = x[idx[left]]
-        b[idx[~left]] = x[idx[~left]]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            xn = x[idx] - fx / dlam.imag
-        bad = ~np.isfinite(xn) | (xn <= a[idx]) | (xn >= b[idx])
-        xn[bad] = 0.5 * (a[idx[bad]] + b[idx[bad]])
-        step_tol = tol + 1e-11 * np.abs(x[idx])
-        done = (fx == 0.0) | (np.abs(xn - x[idx]) < step_tol) | (b[idx] - a[idx] < step_tol)
-        x[idx] = np.where(fx == 0.0, x[idx], xn)
-        active[idx[done]] = False
-    # final values at the final frequencies, on the same loci
-    Lm = ev_at.matrices(x)
-    ev = np.linalg.eigvals(Lm)
-    k = np.argmin(np.abs(ev - z[:, None]), axis=1)
-    return x, ev[np.arange(x.size), k]
-
-
-def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
-    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [3]_.
-
-    L(f)[i, j] = Σ_spk H[spk, i](f)·mix[spk, j]. The loop y = x + k·L·y loses
-    stability at the smallest broadband gain k with det(I − k·L(f)) = 0 for some
-    f, i.e. k·λ(f) = 1 for an eigenvalue λ(f) that is real and positive. The
-    eigenvalue loci are followed on a zero-padded FFT grid (nearest-neighbour
-    matching from one frequency to the next), every crossing of the positive real
-    axis is bisected with exact DTFTs, and the worst one sets the margin.
-    """
-    a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
-    fs = float(sample_rate_hz)
-    lo, hi = _band(band_hz, fs)
-    l = loop_matrix(a, m)
-    n_mic = l.shape[0]
-    n = l.shape[2]
-    n_fft = max(1 << 14, _next_pow2(oversample * n))
-    Hs = np.fft.rfft(l, n_fft, axis=2)  # (i, j, F)
-    f_all = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    sel = (f_all >= lo) & (f_all <= hi)
-    f = f_all[sel]
-    Lf = np.moveaxis(Hs[:, :, sel], 2, 0)  # (F, i, j)
-    if n_mic == 2:  # closed form: λ = tr/2 ± √((tr/2)² − det)
-        half = 0.5 * (Lf[:, 0, 0] + Lf[:, 1, 1])
-        det = Lf[:, 0, 0] * Lf[:, 1, 1] - Lf[:, 0, 1] * Lf[:, 1, 0]
-        root = np.sqrt(half * half - det)
-        lam = np.stack([half + root, half - root], axis=1)
-    else:
-        lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
-    if n_mic > 1:
-        lam = _track_loci(lam)
-    rad = np.max(np.abs(lam), axis=1)
-    magnitude_margin_db = -db(float(np.max(rad)))
-    # coarse crossings of every locus
-    c_e, c_i, c_r = [], [], []
-    for e in range(n_mic):
-        z = lam[:, e]
-        s = np.sign(z.imag)
-        iv = np.flatnonzero((s[:-1] * s[1:] < 0) & ((z.real[:-1] > 0) | (z.real[1:] > 0)))
-        t = z.imag[iv] / (z.imag[iv] - z.imag[iv + 1])
-        c_e.append(np.full(iv.size, e))
-        c_i.append(iv)
-        c_r.append(z.real[iv] + t * (z.real[iv + 1] - z.real[iv]))
-    c_e, c_i, c_r = (np.concatenate(v) for v in (c_e, c_i, c_r))
-    # exact real points (DC, Nyquist)
-    ex_f = [float(f[i]) for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
-    ex_v = [lam[i, e] for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
-    cr_f, cr_v = list(ex_f), list(ex_v)
-    if c_r.size:
-        order = np.argsort(-c_r)
-        best = c_r[order[0]]
-        n_ref = int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1
-        ev_at = _MatrixLoop(l, fs)
-        sel = order[: min(max(n_ref, 4), 64)]
-        ii = c_i[sel]
-        fz, zc = _refine_loci(ev_at, f[ii], f[ii + 1], lam[ii, c_e[sel]], lam[ii + 1, c_e[sel]])
-        # a locus mismatch between grid points can fake a sign change: keep true crossings only
-        for fq, zq in zip(fz, zc):
-            if zq.real > 0 and abs(zq.imag) <= 1e-6 * abs(zq):
-                cr_f.append(float(fq))
-                cr_v.append(complex(zq))
-        rest_j = order[min(max(n_ref, 4), 64) :]
-        rest_j = rest_j[c_r[rest_j] > 0]
-        if rest_j.size:
-            i = c_i[rest_j]
-            za_, zb_ = lam[i, c_e[rest_j]], lam[i + 1, c_e[rest_j]]
-            t = za_.imag / (za_.imag - zb_.imag)
-            cr_f.extend((f[i] + t * (f[i + 1] - f[i])).tolist())
-            cr_v.extend(c_r[rest_j].astype(complex).tolist())
-    cr_f = np.asarray(cr_f, dtype=float)
-    cr_v = np.asarray(cr_v, dtype=complex)
-    if cr_f.size == 0:
-        return MimoMarginResult(
-            gain_margin_db=float("inf"), howl_freq_hz=float("nan"), worst_mic_index=-1,
-            eigenvector=np.zeros(n_mic, complex), participation=np.zeros(n_mic),
-            magnitude_margin_db=magnitude_margin_db, sample_rate_hz=fs, band_hz=(lo, hi),
-        )
-    o = np.argsort(cr_f)
-    cr_f, cr_v = cr_f[o], cr_v[o]
-    magnitude_margin_db = min(magnitude_margin_db, float(-db(np.max(np.abs(cr_v)))))
-    w = int(np.argmax(cr_v.real))
-    fh = float(cr_f[w])
-    Lm = _MatrixLoop(l, fs)(fh)
-    ev, vr = np.linalg.eig(Lm)
-    idx = int(np.argmin(np.abs(ev - cr_v[w])))
-    v = vr[:, idx]
-    evl, vl = np.linalg.eig(Lm.T)  # left eigenvectors: w^T L = λ w^T
-    wl = vl[:, int(np.argmin(np.abs(evl - ev[idx])))]
-    part = np.abs(wl * v)
-    part = part / part.sum() if part.sum() > 0 else part
-    return MimoMarginResult(
-        gain_margin_db=float(-db(cr_v[w].real)),
-        howl_freq_hz=fh,
-        worst_mic_index=int(np.argmax(part)),
-        eigenvector=v / np.linalg.norm(v),
-        participation=part,
-        magnitude_margin_db=magnitude_margin_db,
-        crossings_freq_hz=cr_f,
-        crossings_value=cr_v,
-        sample_rate_hz=fs,
-        band_hz=(lo, hi),
-    )
 
 
 def warn_ir(ir, sample_rate_hz) -> None:

@@ -85,6 +85,7 @@ import math
 import numpy as np
 
 from howl.errors import InputError
+from howl.model._piston import piston_factor
 from howl.model.rig import OCTAVE_BANDS_HZ, Mic, Speaker
 from howl.units import speed_of_sound_m_s
 
@@ -237,11 +238,7 @@ def mic_pattern_gain(a, cos_theta, freq_hz, *, ideal: bool = False, temperature_
     rho = a_eff + (1.0 - a_eff) * u
     k = 2.0 * np.pi * f / speed_of_sound_m_s(temperature_c)
     x = k * MIC_CAPSULE_RADIUS_M * np.sqrt(np.maximum(0.0, 1.0 - u * u))
-    from scipy.special import j1
-
-    safe = np.where(x < 1e-9, 1.0, x)
-    piston = np.where(x < 1e-9, 1.0, 2.0 * j1(safe) / safe)
-    rho = rho * piston
+    rho = rho * piston_factor(x)
     xx = (f / MIC_HF_LEAK_CORNER_HZ) ** 2
     eps2 = (MIC_HF_LEAK_MAX * xx / (1.0 + xx)) ** 2
     mag = np.sqrt((rho * rho + eps2) / (1.0 + eps2))

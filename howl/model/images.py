@@ -73,30 +73,36 @@ from howl import validate as V
 from howl.errors import InputError
 from howl.model.rig import OCTAVE_BANDS_HZ, SHOEBOX_SURFACES, Mic, Rig, Room, Speaker
 from howl.units import speed_of_sound_m_s
+from howl.model._image_room import (  # noqa: F401  (re-exported)
+    _DECAY_LN,
+    _add_tail,
+    _air_m_inv,
+    _check_inside,
+    _require_shoebox,
+    _sphere_directions,
+    _surface_absorption,
+    _tail_model,
+    diffuse_power_factor,
+)
+from howl.model._image_synth import (  # noqa: F401  (re-exported: the public names and what tests reach)
+    ImageSet,
+    _first_missing_arrival_s,
+    _fractional_delay_kernel,
+    _image_layout,
+    _images_from_indices,
+    _index_triples,
+    _kernel_table,
+    _place_images,
+    _scatter,
+    band_weights,
+    shoebox_images,
+)
 
 GainFunction = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 #: Largest image set one IR may use (memory: about 1 kB per image during synthesis).
 MAX_IMAGES = 3_000_000
 
-#: Energy decay rate for a reverberation time T: 60 dB in T seconds → k = 6·ln(10)/T.
-_DECAY_LN = 6.0 * math.log(10.0)
-
-
-@dataclass(frozen=True)
-class ImageSet:
-    """Image sources of one source in a shoebox room (all arrays over images).
-
-    ``positions_m`` (N, 3); ``order`` (N,) total number of reflections;
-    ``hits`` (N, 6) reflections per surface in :data:`howl.rig.SHOEBOX_SURFACES`
-    order; ``mirror_sign`` (N, 3) ±1: −1 where the image is mirrored an odd
-    number of times along that axis.
-    """
-
-    positions_m: np.ndarray
-    order: np.ndarray
-    hits: np.ndarray
-    mirror_sign: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -115,242 +121,9 @@ class ImageSourceInfo:
 
 
 # ---------------------------------------------------------------------------
-# images
-# ---------------------------------------------------------------------------
-
-
-def _index_triples(max_order: int, *, exact: bool = False) -> np.ndarray:
-    """All integer (kx, ky, kz) with |kx|+|ky|+|kz| ≤ max_order (or == max_order if ``exact``)."""
-    n = int(max_order)
-    k = np.arange(-n, n + 1)
-    kx, ky = np.meshgrid(k, k, indexing="ij")
-    kx = kx.ravel()
-    ky = ky.ravel()
-    rest = n - np.abs(kx) - np.abs(ky)
-    keep = rest >= 0
-    kx, ky, rest = kx[keep], ky[keep], rest[keep]
-    if exact:
-        # kz = ±rest (one value when rest == 0)
-        counts = np.where(rest == 0, 1, 2)
-        kx_r = np.repeat(kx, counts)
-        ky_r = np.repeat(ky, counts)
-        rest_r = np.repeat(rest, counts)
-        first = np.ones(kx_r.size, dtype=bool)
-        starts = np.cumsum(counts) - counts
-        second = np.zeros(kx_r.size, dtype=bool)
-        second[starts[counts == 2] + 1] = True
-        first[second] = False
-        kz = np.where(second, -rest_r, rest_r)
-        return np.stack([kx_r, ky_r, kz], axis=1)
-    counts = 2 * rest + 1
-    kx_r = np.repeat(kx, counts)
-    ky_r = np.repeat(ky, counts)
-    starts = np.cumsum(counts) - counts
-    within = np.arange(kx_r.size) - np.repeat(starts, counts)
-    kz = within - np.repeat(rest, counts)
-    return np.stack([kx_r, ky_r, kz], axis=1)
-
-
-def _images_from_indices(dims: np.ndarray, src: np.ndarray, k: np.ndarray) -> ImageSet:
-    odd = (k % 2) != 0
-    pos = np.where(odd, (k + 1) * dims - src, k * dims + src)
-    ka = np.abs(k)
-    hi = np.where(k >= 0, (ka + 1) // 2, ka // 2)  # hits on the wall at coordinate L
-    lo = np.where(k >= 0, ka // 2, (ka + 1) // 2)  # hits on the wall at coordinate 0
-    # SHOEBOX_SURFACES order: floor (z=0), ceiling (z=H), wall_x0, wall_x1, wall_y0, wall_y1
-    hits = np.stack([lo[:, 2], hi[:, 2], lo[:, 0], hi[:, 0], lo[:, 1], hi[:, 1]], axis=1)
-    return ImageSet(
-        positions_m=pos.astype(float),
-        order=ka.sum(axis=1),
-        hits=hits,
-        mirror_sign=np.where(odd, -1.0, 1.0),
-    )
-
-
-def shoebox_images(dimensions_m, source_position_m, max_order: int) -> ImageSet:
-    """Image sources up to ``max_order`` reflections (Allen & Berkley 1979, §II)."""
-    dims = np.asarray(dimensions_m, dtype=float)
-    src = np.asarray(source_position_m, dtype=float)
-    return _images_from_indices(dims, src, _index_triples(max_order))
-
-
-def _first_missing_arrival_s(dims, src, mic, max_order: int, c: float) -> float:
-    """Earliest arrival among the images of order max_order+1 (where the image set stops being complete)."""
-    k = _index_triples(max_order + 1, exact=True)
-    imgs = _images_from_indices(np.asarray(dims, float), np.asarray(src, float), k)
-    d = np.linalg.norm(imgs.positions_m - np.asarray(mic, float), axis=1)
-    return float(d.min() / c)
-
-
-# ---------------------------------------------------------------------------
-# room data per band
-# ---------------------------------------------------------------------------
-
-
-def _surface_absorption(room: Room) -> np.ndarray:
-    """(6, B) energy absorption per shoebox surface and octave band."""
-    by_name = {s.name: s for s in room.surfaces}
-    rows = []
-    for name in SHOEBOX_SURFACES:
-        s = by_name.get(name)
-        if s is None:
-            raise InputError(
-                f"shoebox room needs a surface named {name!r} for image sources, found "
-                f"{', '.join(by_name) or 'none'}",
-                file=room.source_file,
-                key="surfaces",
-            )
-        a = np.asarray(s.absorption, dtype=float)
-        if a.shape != (len(OCTAVE_BANDS_HZ),):
-            raise InputError(
-                f"must hold {len(OCTAVE_BANDS_HZ)} octave-band values, got {a.size}",
-                file=room.source_file,
-                key=f"surfaces.{name}.absorption",
-            )
-        rows.append(a)
-    alpha = np.stack(rows)
-    if np.any(alpha < 0) or np.any(alpha >= 1):
-        raise InputError("absorption must be in [0, 1)", file=room.source_file, key="surfaces")
-    return alpha
-
-
-def _check_inside(room: Room, p, name: str) -> np.ndarray:
-    p = np.asarray(p, dtype=float)
-    if p.shape != (3,) or not np.all(np.isfinite(p)):
-        raise InputError(f"must be 3 finite coordinates in m, got {p.tolist()}", key=name)
-    dims = np.asarray(room.dimensions_m, dtype=float)
-    if np.any(p <= 0) or np.any(p >= dims):
-        raise InputError(
-            f"must lie inside the room (0, 0, 0)–({dims[0]:g}, {dims[1]:g}, {dims[2]:g}) m, got "
-            f"({p[0]:g}, {p[1]:g}, {p[2]:g}) m",
-            file=room.source_file,
-            key=name,
-        )
-    return p
-
-
-def _require_shoebox(room: Room) -> None:
-    if not room.is_shoebox:
-        raise InputError(
-            "image sources need a shoebox room (dimensions_m with six surfaces); "
-            f"room {room.name!r} has a free shape: use the statistical method",
-            file=room.source_file,
-            key="dimensions_m",
-        )
-
-
-def _air_m_inv(room: Room, freq_hz: np.ndarray) -> np.ndarray:
-    from howl.model.room import air_power_attenuation_m_inv
-
-    return np.asarray(
-        air_power_attenuation_m_inv(freq_hz, room.temperature_c, room.humidity_pct), dtype=float
-    )
-
-
-def _sphere_directions(n: int = 1024) -> np.ndarray:
-    """Nearly uniform unit vectors (Fibonacci lattice), for averages over the sphere."""
-    i = np.arange(n) + 0.5
-    z = 1.0 - 2.0 * i / n
-    phi = math.pi * (1.0 + math.sqrt(5.0)) * i
-    r = np.sqrt(1.0 - z * z)
-    return np.stack([r * np.cos(phi), r * np.sin(phi), z], axis=1)
-
-
-def diffuse_power_factor(gain: GainFunction | None, freq_hz: np.ndarray) -> np.ndarray:
-    """Mean of |gain|² over all directions per band (1/Q for a speaker on axis 1; REE for a mic)."""
-    freq_hz = np.asarray(freq_hz, dtype=float)
-    if gain is None:
-        return np.ones(freq_hz.shape)
-    g = np.asarray(gain(_sphere_directions(), freq_hz), dtype=float)
-    return np.mean(g * g, axis=0)
-
-
-# ---------------------------------------------------------------------------
-# synthesis helpers
-# ---------------------------------------------------------------------------
-
-
-def band_weights(freq_hz: np.ndarray, centres_hz) -> np.ndarray:
-    """(B, F) zero-phase band weights summing to one at every frequency.
-
-    Raised-cosine crossovers on log2 frequency between adjacent centres; the
-    first band holds down to DC and the last up to Nyquist.
-    """
-    f = np.asarray(freq_hz, dtype=float)
-    c = np.log2(np.asarray(centres_hz, dtype=float))
-    lf = np.log2(np.maximum(f, 1e-12))
-    w = np.zeros((c.size, f.size))
-    if c.size == 1:
-        w[0] = 1.0
-        return w
-    pos = np.interp(lf, c, np.arange(c.size))  # fractional band index, clamped at the ends
-    lower = np.clip(np.floor(pos).astype(int), 0, c.size - 2)
-    t = pos - lower
-    up = np.sin(0.5 * math.pi * t) ** 2
-    cols = np.arange(f.size)
-    w[lower, cols] = 1.0 - up
-    w[lower + 1, cols] += up
-    return w
-
-
-def _fractional_delay_kernel(delay_samples: np.ndarray, half_width: int):
-    """Blackman-windowed sinc taps for each delay: (start index (N,), taps (N, 2·half_width)).
-
-    Unit DC gain per delay (the taps are normalised to sum to one), cut-off at
-    Nyquist (windowed-sinc fractional delay: T. I. Laakso et al., "Splitting the
-    unit delay", IEEE Signal Processing Magazine 13(1):30–60, 1996, §III).
-
-    The trigonometric terms are split by the angle-sum identities into one
-    sine/cosine per image and a fixed table per tap, so the cost per tap is a
-    few multiply-adds.
-    """
-    base = np.floor(delay_samples).astype(np.int64)
-    frac = np.maximum(delay_samples - base, 1e-9)  # (N,), in (0, 1); never exactly 0 (sinc's 0/0)
-    offs = np.arange(-half_width + 1, half_width + 1, dtype=float)  # tap positions o
-    x = offs[None, :] - frac[:, None]  # tap position minus the exact delay
-    # sinc(o − f) = −(−1)^o · sin(πf) / (π (o − f))
-    sign = np.where(offs.astype(np.int64) % 2 == 0, -1.0, 1.0)
-    taps = (np.sin(math.pi * frac)[:, None] * sign[None, :]) / (math.pi * x)
-    # Blackman window on (o − f)/half_width: cos(a − b) = cos a cos b + sin a sin b
-    a = (math.pi / half_width) * offs
-    bf = (math.pi / half_width) * frac
-    cw = np.cos(a)[None, :] * np.cos(bf)[:, None] + np.sin(a)[None, :] * np.sin(bf)[:, None]
-    taps *= 0.34 + cw * (0.5 + 0.16 * cw)  # 0.42 + 0.5·cos θ + 0.08·cos 2θ, with cos 2θ = 2cos²θ − 1
-    taps /= taps.sum(axis=1, keepdims=True)
-    return base - half_width + 1, taps
-
-
-def _scatter(start: np.ndarray, taps: np.ndarray, amp: np.ndarray, n_fft: int) -> np.ndarray:
-    """Σ over images of taps ⊗ band amplitudes, placed at their sample indices: (B, n_fft).
-
-    One sparse (n_fft × N) placement matrix times the dense (N × B) band
-    amplitudes; indices wrap circularly (the FFT frame is padded for that).
-    """
-    from scipy import sparse
-
-    n_img, width = taps.shape
-    if n_img == 0:
-        return np.zeros((amp.shape[1], n_fft))
-    idx = (start[:, None] + np.arange(width)[None, :]) % n_fft
-    mat = sparse.csc_matrix(
-        (taps.ravel(), idx.ravel(), np.arange(0, n_img * width + 1, width)), shape=(n_fft, n_img)
-    )
-    return np.ascontiguousarray((mat @ amp).T)
-
-
-# ---------------------------------------------------------------------------
 # the image-source IR
 # ---------------------------------------------------------------------------
 
-
-def _tail_model(room: Room, bands_hz: np.ndarray):
-    """RT60 (Eyring with air) and room constant per band from the room model."""
-    from howl.model.room import room_acoustics
-
-    ra = room_acoustics(room, np.asarray(bands_hz, dtype=float))
-    rt60 = np.asarray(ra.rt60_eyring_s, dtype=float)
-    r_m2 = np.asarray(ra.room_constant_m2, dtype=float)
-    return rt60, r_m2
 
 
 def image_source_ir(
@@ -410,11 +183,53 @@ def image_source_ir(
     Returns
     -------
     ir : ndarray (n,), float64; sample 0 is the emission time.
+
+    (Long for its documented parameters: the body is about 45 lines.)
     """
     _require_shoebox(room)
     fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
     src = _check_inside(room, source_position_m, "source_position_m")
     mic = _check_inside(room, mic_position_m, "mic_position_m")
+    max_order = _checked_order(max_order, tail)
+    half_width = V.integer(half_width, "half_width", 2, 512)
+    c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
+        speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"
+    )
+    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
+    dims = np.asarray(room.dimensions_m, dtype=float)
+    bands = np.asarray(OCTAVE_BANDS_HZ, dtype=float)
+    imgs = shoebox_images(dims, src, max_order)
+    amp, dist = _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorption)
+    t_arr = dist / c + delay_s
+    rt60 = r_m2 = t_x = tail_energy = rev_energy = None
+    if tail:
+        rt60, r_m2 = _tail_model(room, bands)
+        t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
+        amp, t_arr, crossfade_s = _fade_out_images(amp, t_arr, t_x, crossfade_s, fs)
+    else:
+        crossfade_s = 0.0 if crossfade_s is None else float(crossfade_s)
+    delay = t_arr * fs
+    n = _ir_length(duration_s, rt60, t_x, delay, half_width, fs)
+    inside = delay < n + half_width
+    amp_in = amp[inside]
+    if not tail and (amp_in.size == 0 or np.all(amp_in == amp_in[:, :1])):
+        # equal band gains: the band weights sum to one, so skip the band synthesis and scale each
+        # image's kernel by its gain directly
+        ir = _place_images(delay[inside], amp_in[:, 0] if amp_in.size else np.zeros(0), half_width, n)
+        return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+    ir, tail_energy, rev_energy = _band_synthesis(
+        delay[inside], amp_in, n, fs, bands, half_width,
+        (rt60, r_m2, t_x, crossfade_s, delay_s, source_gain, mic_gain, seed) if tail else None,
+    )
+    # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
+    # crossovers leak ~1e-4 of the peak ahead of an arrival whose band gains differ)
+    if delay.size:
+        ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
+    return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
+
+
+def _checked_order(max_order, tail: bool) -> int:
+    """The image order (default 6 with a tail, 20 without), refused past :data:`MAX_IMAGES` images."""
     if max_order is None:
         max_order = 6 if tail else 20
     max_order = V.integer(max_order, "max_order", 0, 150)
@@ -424,103 +239,80 @@ def image_source_ir(
             f"gives {n_img} image sources; expected at most {MAX_IMAGES} (lower the order: the statistical "
             "tail takes over the late part)", key="max_order",
         )
-    half_width = V.integer(half_width, "half_width", 2, 512)
-    c = speed_of_sound_m_s_default(room) if speed_of_sound_m_s is None else V.positive(
-        speed_of_sound_m_s, "speed_of_sound_m_s", unit="m/s"
-    )
-    dims = np.asarray(room.dimensions_m, dtype=float)
-    bands = np.asarray(OCTAVE_BANDS_HZ, dtype=float)
-    alpha = _surface_absorption(room)  # (6, B)
+    return max_order
 
-    imgs = shoebox_images(dims, src, max_order)
+
+def _ir_length(duration_s, rt60, t_x, delay, half_width, fs) -> int:
+    """Samples of the IR: ``duration_s``, else to the −60 dB point of the slowest band (with a tail,
+    ``rt60`` given) or to the last image's arrival (without)."""
+    if duration_s is None:
+        if rt60 is not None:
+            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
+        else:
+            n = int(math.ceil(delay.max())) + half_width + 1
+    else:
+        n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
+    return max(n, 1)
+
+
+def _fade_out_images(amp, t_arr, t_x, crossfade_s, fs):
+    """Images faded out (equal-power) over the crossfade ending at the transition time ``t_x``;
+    those past it dropped. Returns (amplitudes, arrival times, crossfade length)."""
+    if crossfade_s is None:
+        crossfade_s = min(0.25 * t_x, 0.02)
+    crossfade_s = max(float(crossfade_s), 2.0 / fs)
+    u = np.clip((t_arr - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0)
+    w_img = np.cos(0.5 * math.pi * u)
+    keep = w_img > 0
+    return amp[keep] * w_img[keep, None], t_arr[keep], crossfade_s
+
+
+def _band_synthesis(delay, amp_in, n, fs, bands, half_width, tail_args):
+    """The IR (n,) from images with per-band amplitudes: each band's images placed in one FFT frame,
+    the statistical tail added per band (``tail_args``, or None), the bands summed through zero-phase
+    crossover weights. Returns (ir, tail energy per band, reverberant energy per band)."""
+    start, taps = _fractional_delay_kernel(delay, half_width)
+    # zero-phase band synthesis in one FFT frame with room for the kernels' spread
+    pad = int(math.ceil(0.1 * fs)) + 2 * half_width
+    n_fft = _good_fft_size(n + pad)
+    chan = _scatter(start, taps, np.broadcast_to(amp_in, (amp_in.shape[0], bands.size)), n_fft)  # (B, n_fft)
+    tail_energy = rev_energy = None
+    if tail_args is not None:
+        tail_energy, rev_energy = _add_tail(chan, n, fs, bands, *tail_args)
+    from scipy import fft as sfft
+
+    weights = band_weights(np.fft.rfftfreq(n_fft, 1.0 / fs), bands)  # (B, F)
+    spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
+    return sfft.irfft(spec, n_fft)[:n], tail_energy, rev_energy
+
+
+def _image_amplitudes(room, imgs, mic, bands, source_gain, mic_gain, air_absorption):
+    """Band amplitudes (N, B) of the images at the mic, and their distances (N,).
+
+    With the same absorption in every band, no air absorption and omni source and mic, every
+    band has the same amplitude: computed once, as (N, 1).
+    """
+    alpha = _surface_absorption(room)  # (6, B)
+    if source_gain is None and mic_gain is None and not air_absorption and np.all(alpha == alpha[:, :1]):
+        alpha = alpha[:, :1]
     vec = imgs.positions_m - mic  # mic → image
     dist = np.linalg.norm(vec, axis=1)
     dist = np.maximum(dist, 1e-6)
-    arrive_dir = vec / dist[:, None]
-    depart_dir = (-arrive_dir) * imgs.mirror_sign  # as the ray left the real source
-
-    # band amplitudes (N, B)
     log_refl = 0.5 * np.log1p(-alpha)  # (6, B)
     log_amp = imgs.hits.astype(float) @ log_refl
     if air_absorption:
         m = _air_m_inv(room, bands)
         log_amp -= 0.5 * dist[:, None] * m[None, :]
     amp = np.exp(log_amp) / (4.0 * math.pi * dist[:, None])
-    if source_gain is not None:
-        amp *= np.asarray(source_gain(depart_dir, bands), dtype=float)
-    if mic_gain is not None:
-        amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
+    if source_gain is not None or mic_gain is not None:
+        arrive_dir = vec / dist[:, None]
+        depart_dir = (-arrive_dir) * imgs.mirror_sign  # as the ray left the real source
+        if source_gain is not None:
+            amp *= np.asarray(source_gain(depart_dir, bands), dtype=float)
+        if mic_gain is not None:
+            amp *= np.asarray(mic_gain(arrive_dir, bands), dtype=float)
+    return amp, dist
 
-    delay_s = V.in_range(delay_s, "delay_s", 0.0, 10.0, unit="s")
-    t_arr = dist / c + delay_s
-    rt60 = r_m2 = None
-    t_x = None
-    tail_energy = rev_energy = None
-    if tail:
-        rt60, r_m2 = _tail_model(room, bands)
-        t_x = _first_missing_arrival_s(dims, src, mic, max_order, c) + delay_s
-        if crossfade_s is None:
-            crossfade_s = min(0.25 * t_x, 0.02)
-        crossfade_s = max(float(crossfade_s), 2.0 / fs)
-        t_fade0 = t_x - crossfade_s
-        u = np.clip((t_arr - t_fade0) / crossfade_s, 0.0, 1.0)
-        w_img = np.cos(0.5 * math.pi * u)
-        keep = w_img > 0
-        amp = amp[keep] * w_img[keep, None]
-        t_arr = t_arr[keep]
-    else:
-        crossfade_s = 0.0 if crossfade_s is None else float(crossfade_s)
-
-    delay = t_arr * fs
-    if duration_s is None:
-        if tail:
-            n = int(math.ceil((float(np.max(rt60)) * 1.05 + t_x) * fs))  # t_x includes delay_s
-        else:
-            n = int(math.ceil(delay.max())) + half_width + 1
-    else:
-        n = int(math.ceil(V.positive(duration_s, "duration_s", unit="s") * fs))
-    n = max(n, 1)
-
-    # zero-phase band synthesis in one FFT frame with room for the kernels' spread
-    pad = int(math.ceil(0.1 * fs)) + 2 * half_width
-    n_fft = _good_fft_size(n + pad)
-    freq = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    weights = band_weights(freq, bands)  # (B, F)
-
-    inside = delay < n + half_width
-    start, taps = _fractional_delay_kernel(delay[inside], half_width)
-    amp_in = amp[inside]
-    flat = bool(amp_in.size == 0 or np.all(amp_in == amp_in[:, :1]))
-    if flat and not tail:  # equal band gains: the band weights sum to one, skip the band synthesis
-        ir = _scatter(start, taps, amp_in[:, :1], n_fft)[0, :n].copy()
-        return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
-    chan = _scatter(start, taps, amp_in, n_fft)  # (B, n_fft)
-
-    if tail:
-        k = _DECAY_LN / rt60  # (B,) energy decay rate 1/s
-        dpf = diffuse_power_factor(source_gain, bands) * diffuse_power_factor(mic_gain, bands)
-        rev_energy = dpf / (math.pi * r_m2)  # 4/R on the Green's-function scale 1/(4π)
-        t = np.arange(n_fft) / fs
-        fade_in = np.sin(0.5 * math.pi * np.clip((t - (t_x - crossfade_s)) / crossfade_s, 0.0, 1.0))
-        fade_in[n:] = 0.0
-        # mean-square per sample so that Σ over all n (from emission) equals rev_energy
-        t_e = np.maximum(t - delay_s, 0.0)  # time since emission
-        var = rev_energy[:, None] * (-np.expm1(-k[:, None] / fs)) * np.exp(-k[:, None] * t_e[None, :])
-        env = np.sqrt(var) * fade_in[None, :]
-        tail_energy = np.sum(env**2, axis=1)
-        rng = np.random.default_rng(seed)
-        noise = rng.standard_normal(n_fft)
-        chan += env * noise[None, :]
-
-    from scipy import fft as sfft
-
-    spec = np.einsum("bf,bf->f", weights, sfft.rfft(chan, axis=1))
-    ir = sfft.irfft(spec, n_fft)[:n]
-    # causal: nothing before the first arrival's fractional-delay filter (the zero-phase band
-    # crossovers leak ~1e-4 of the peak ahead of an arrival whose band gains differ)
-    if delay.size:
-        ir[: max(0, int(math.floor(float(delay.min()))) - half_width + 1)] = 0.0
-    return _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c)
 
 
 def _finish(ir, return_info, imgs, max_order, t_x, crossfade_s, bands, rt60, tail_energy, rev_energy, c):

@@ -66,13 +66,13 @@ References
 
 from __future__ import annotations
 
-import functools
 import math
 import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from howl.model import _peak_table as pt  # the peak-factor table, shipped as data
 from howl.model import directivity as _dir
 from howl.errors import HowlWarning, InputError
 from howl.model.rig import Mic, Rig
@@ -211,41 +211,6 @@ def independent_samples(bandwidth_hz, rt60_s) -> np.ndarray:
     return np.maximum(1.0, np.asarray(bandwidth_hz, float) * np.asarray(rt60_s, float) * math.exp(-EULER_GAMMA))
 
 
-def _max_quantile(q, n, k):
-    """Quantile q of max of n Rician power samples, re the mean power (1 + K) (σ² = 1)."""
-    from scipy.special import chndtrix
-
-    return chndtrix(np.asarray(q) ** (1.0 / np.asarray(n)), 2.0, 2.0 * np.asarray(k)) / 2.0 / (1.0 + np.asarray(k))
-
-
-_LOGN = np.linspace(0.0, 7.0, 29)
-_LOGK = np.linspace(-3.0, 3.0, 37)  # log10(K + 1e-3); K = 0 sits at −3
-
-
-@functools.lru_cache(maxsize=1)
-def _peak_tables():
-    """Tables over (log10 N, log10(K + 1e-3)) of the peak factor in dB: mean, 10 %, 90 %. Built once per process (about 0.1 s)."""
-    from scipy.interpolate import RegularGridInterpolator
-    from scipy.special import chndtr
-
-    n = 10.0 ** _LOGN[:, None]
-    k = np.maximum(10.0 ** _LOGK[None, :] - 1e-3, 0.0)
-    q_lo = _max_quantile(SPREAD_QUANTILES[0], n, k)
-    q_hi = _max_quantile(SPREAD_QUANTILES[1], n, k)
-    # mean of the maximum: E = ∫0^∞ (1 − F(x)^N) dx, x re σ²; the integrand is ≈ 1 below the 0.1 % point x₀,
-    # so E = x₀ + ∫ from x₀ to the 99.99 % point (Simpson, 65 points)
-    from scipy.integrate import simpson
-
-    x0 = _max_quantile(1e-3, n, k) * (1.0 + k)
-    top = _max_quantile(1.0 - 1e-4, n, k) * (1.0 + k)
-    t = np.linspace(0.0, 1.0, 65)
-    x = x0[..., None] + (top - x0)[..., None] * t  # (N, K, 65)
-    surv = 1.0 - chndtr(2.0 * x, 2.0, 2.0 * k[..., None]) ** n[..., None]
-    mean = (x0 * (1.0 - 0.5e-3) + simpson(surv, x=x, axis=-1)) / (1.0 + k)
-    tabs = np.stack([10.0 * np.log10(np.maximum(v, 1e-12)) for v in (mean, q_lo, q_hi)], axis=-1)  # (N, K, 3)
-    return RegularGridInterpolator((_LOGN, _LOGK), tabs, bounds_error=False, fill_value=None)
-
-
 def peak_factor_db(bandwidth_hz, rt60_s, k_factor=0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Worst peak above the band-average power, dB: (mean, 10 % quantile, 90 % quantile).
 
@@ -256,8 +221,8 @@ def peak_factor_db(bandwidth_hz, rt60_s, k_factor=0.0) -> tuple[np.ndarray, np.n
     n = independent_samples(bandwidth_hz, rt60_s)
     k = np.nan_to_num(np.asarray(k_factor, float), nan=0.0, posinf=1e3)
     b = np.broadcast_arrays(np.log10(n), np.log10(np.clip(k, 0.0, 1e3) + 1e-3))
-    pts = np.stack([np.clip(b[0], _LOGN[0], _LOGN[-1]), np.clip(b[1], _LOGK[0], _LOGK[-1])], axis=-1)
-    vals = _peak_tables()(pts.reshape(-1, 2))  # (P, 3): mean, 10 %, 90 %
+    pts = np.stack([np.clip(b[0], pt.LOGN[0], pt.LOGN[-1]), np.clip(b[1], pt.LOGK[0], pt.LOGK[-1])], axis=-1)
+    vals = pt.interpolate(*pts.reshape(-1, 2).T)  # (P, 3): mean, 10 %, 90 %
     shape = b[0].shape
     return tuple(vals[:, j].reshape(shape) for j in range(3))
 

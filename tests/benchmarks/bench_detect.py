@@ -394,6 +394,9 @@ def main() -> None:
            "false_alarms_low_programs": fa_low}
     path = HERE / "results" / "bench_detect.json"
     path.parent.mkdir(exist_ok=True)
+    from _machine import machine_info
+
+    out = {**machine_info(), **out}  # CPU model and core count beside the figures
     path.write_text(json.dumps(out, indent=2), encoding="utf-8")
     print(f"\nwrote {path}")
 

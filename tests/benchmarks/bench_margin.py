@@ -62,7 +62,7 @@ def main() -> None:
             "n_crossings": int(r.crossings_freq_hz.size),
         })
     # a 2 x 2 loop (two speakers, two mics) of 2 s IRs: generalized Nyquist (no target, for reference)
-    from howl.loop.nyquist import mimo_margin
+    from howl.loop.mimo import mimo_margin
 
     irs = np.array([[synthetic_loop_ir(2.0, seed=2 * s + m) * 0.5 for m in range(2)] for s in range(2)])
     mimo_margin(irs, np.ones((2, 2)), FS)
@@ -81,6 +81,7 @@ def main() -> None:
     ok = two["median_s"] < TARGET_S
     print(f"target: 2 s IR under {TARGET_S} s -> {'met' if ok else 'NOT met'}")
     out = {
+        **__import__("_machine").machine_info(),
         "benchmark": "margin",
         "target_s": TARGET_S,
         "target_met": ok,

@@ -100,7 +100,10 @@ def main() -> int:
         pass
     out = HERE / "results"
     out.mkdir(exist_ok=True)
+    from _machine import machine_info
+
     (out / "bench_plan.json").write_text(json.dumps({
+        **machine_info(),
         "benchmark": "bench_plan", "python": sys.version.split()[0], "machine": platform.machine(),
         "n_mics": 8, "n_speakers": 12, "fraction": 12, "n_bands": len(res.bands_hz),
         "median_ms": med, "best_ms": min(times), "cpu_median_ms": statistics.median(cpu), "json_median_ms": statistics.median(times_json), "first_call_ms": first_ms,

@@ -311,6 +311,9 @@ def main() -> None:
                       "numpy": np.__version__}
     res_dir = Path(__file__).resolve().parent / "results"
     res_dir.mkdir(exist_ok=True)
+    from _machine import machine_info
+
+    out = {**machine_info(), **out}  # CPU model and core count beside the figures
     (res_dir / "ringout.json").write_text(json.dumps(out, indent=2), encoding="utf-8")
 
 

@@ -60,6 +60,7 @@ def main(n_runs: int = 7) -> dict:
     except (AttributeError, OSError):
         load = None
     result = {
+        **__import__("_machine").machine_info(),
         "benchmark": "sweep analyse, 10 s sweep, 96 kHz, 2 channels",
         "median_s": med, "min_s": min(times), "target_s": TARGET_S, "meets_target": med < TARGET_S,
         "median_cpu_s": med_cpu, "load_average_1min": load, "n_cpus": __import__("os").cpu_count(),

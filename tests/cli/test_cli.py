@@ -88,3 +88,18 @@ def test_the_readme_tour_what_if_line_names_its_rig_and_runs(repo):
     obj = json.loads(res.stdout)
     assert any(m["name"] == "lectern" for m in obj["mics"])
     assert obj["what_if"] == ["mics.lectern.pattern=supercardioid"]
+
+
+def test_every_command_module_is_imported_by_name(repo):
+    # plain imports make each command visible to `python -X importtime -m howl ...`
+    from howl.cli import COMMANDS
+
+    on_disk = {p.stem for p in (repo / "howl" / "cli").glob("*.py") if not p.stem.startswith("_")}
+    assert on_disk == set(COMMANDS)
+
+
+def test_command_modules_show_in_importtime():
+    out = subprocess.run([sys.executable, "-X", "importtime", "-m", "howl", "--help"], capture_output=True, text=True)
+    shown = {line.rsplit("|", 1)[-1].strip() for line in out.stderr.splitlines()}
+    assert {"howl.cli.plan", "howl.cli.scan", "howl.cli.margin"} <= shown
+    assert "numpy" not in shown  # --help pays for no numerical library

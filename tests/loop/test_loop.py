@@ -17,10 +17,10 @@ from howl.loop.nyquist import (
     band_loop_gain_db,
     ir_warnings,
     loop_response,
-    mimo_margin,
     nyquist_margin,
     third_octave_loop_gain,
 )
+from howl.loop.mimo import mimo_margin
 from howl.loop.simulate import simulate_closed_loop, simulate_mimo
 
 FS16 = 16000

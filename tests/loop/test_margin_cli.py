@@ -10,7 +10,7 @@ import soundfile as sf
 from typer.testing import CliRunner
 
 from howl.cli import app
-from howl.loop.nyquist import mimo_margin
+from howl.loop.mimo import mimo_margin
 from howl.loop.simulate import simulate_closed_loop
 
 runner = CliRunner()

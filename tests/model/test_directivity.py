@@ -299,3 +299,16 @@ def test_a_sofa_directivity_file_read_with_sofar_gives_the_q_of_the_data_it_hold
     on = d.speaker_gain(st, np.array([[1.0, 0.0, 0.0], [math.cos(math.pi / 4), math.sin(math.pi / 4), 0.0]]),
                         [1000.0])[:, 0]
     np.testing.assert_allclose(20 * np.log10(on), [0.0, -6.02], atol=0.1)
+
+
+def test_the_piston_factor_matches_scipy_bessel_j1():
+    # reference: scipy.special.j1; 2·J1(x)/x, the series to x = 16, the large-argument expansion beyond
+    from scipy.special import j1
+
+    from howl.model._piston import piston_factor as _piston
+
+    x = np.linspace(1e-6, 16.0, 20001)
+    assert np.max(np.abs(_piston(x) - 2.0 * j1(x) / x)) < 1e-10
+    x = np.linspace(16.0, 400.0, 20001)
+    assert np.max(np.abs(_piston(x) - 2.0 * j1(x) / x)) < 1e-8  # two-term expansion (A&S 9.2.9–10)
+    assert _piston(0.0) == 1.0

@@ -1,0 +1,300 @@
+"""MIMO loops (several mics and speakers): the generalized Nyquist margin [1]_.
+
+With L(f) the mics × mics loop transfer matrix, the closed loop (I − k·L)⁻¹ loses
+stability at the smallest broadband gain k for which some eigenvalue λ(f) of L
+satisfies k·λ(f) = 1, i.e. where an eigenvalue locus crosses the positive real axis.
+Same positive-feedback convention as :mod:`howl.loop.nyquist`.
+
+References
+----------
+.. [1] A. G. J. MacFarlane and I. Postlethwaite, "The generalized Nyquist
+   stability criterion and multivariable root loci", Int. J. Control 25(1),
+   81–127, 1977.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from howl import validate as V
+from howl.errors import InputError
+from howl.loop.nyquist import _band, _FastDTFT, _next_pow2
+from howl.units import db, from_db
+
+
+@dataclass(frozen=True, eq=False)
+class MimoMarginResult:
+    """Result of :func:`mimo_margin` (generalized Nyquist on det(I − k·L(f))).
+
+    gain_margin_db : −20·log10 of the largest positive real eigenvalue of L(f) in the
+        band: the broadband gain scale (all sends together) at which the loop howls.
+    howl_freq_hz : where that eigenvalue crosses the positive real axis.
+    worst_mic_index : the mic with the largest share in the howl mode
+        (``participation``: |w_i·v_i|/Σ|w·v| with right/left eigenvectors v, w;
+        the first-order sensitivity of the eigenvalue to that mic's channel gain).
+    eigenvector : right eigenvector (mic signals of the howl mode), unit norm.
+    magnitude_margin_db : −20·log10 of the largest spectral radius of L in the band
+        (phase-blind).
+    crossings_freq_hz, crossings_value : every eigenvalue crossing (frequency, λ).
+    """
+
+    gain_margin_db: float
+    howl_freq_hz: float
+    worst_mic_index: int
+    eigenvector: np.ndarray
+    participation: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    magnitude_margin_db: float = float("nan")
+    crossings_freq_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    crossings_value: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    sample_rate_hz: float = float("nan")
+    band_hz: tuple = ()
+
+
+def loop_matrix(irs: np.ndarray, mix_lin: np.ndarray) -> np.ndarray:
+    """Mic-to-mic loop IRs l[i, j, k] = Σ_spk mix[spk, j]·h[spk, i, k].
+
+    ``irs[spk, mic]`` runs from speaker ``spk``'s feed to mic ``mic``'s channel;
+    ``mix_lin[spk, mic]`` is the linear send from mic's channel to that speaker.
+    """
+    return np.einsum("sik,sj->ijk", irs, mix_lin)
+
+
+def _check_mimo(irs, mix_lin, sample_rate_hz):
+    V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
+    a = V.finite_array(irs, "irs", ndim=3)
+    m = V.finite_array(mix_lin, "mix_lin", ndim=2)
+    if m.shape != a.shape[:2]:
+        raise InputError(f"must have shape (n_spk, n_mic) = {a.shape[:2]}, got {m.shape}", key="mix_lin")
+    if not np.any(a):
+        raise InputError("are all silent", key="irs")
+    return a, m
+
+
+class _MatrixLoop:
+    """Exact L(f) (n × n) of mic-to-mic loop IRs at any frequency."""
+
+    def __init__(self, l, fs):
+        self.fs = fs
+        self.n = l.shape[0]
+        self.parts = [[_FastDTFT(l[i, j]) if np.any(l[i, j]) else None for j in range(self.n)] for i in range(self.n)]
+
+    def matrices(self, f) -> np.ndarray:
+        """L at frequencies ``f`` (M,) → (M, n, n)."""
+        return self.with_deriv(f, deriv=False)
+
+    def with_deriv(self, f, deriv: bool = True):
+        """L and dL/df (per Hz) at frequencies ``f`` (M,) → (M, n, n) each."""
+        f = np.atleast_1d(np.asarray(f, dtype=float))
+        w = 2.0 * np.pi * f / self.fs
+        Lm = np.zeros((f.size, self.n, self.n), dtype=complex)
+        dL = np.zeros_like(Lm)
+        for i in range(self.n):
+            for j in range(self.n):
+                part = self.parts[i][j]
+                if part is None:
+                    continue
+                if deriv:
+                    Lm[:, i, j], d = part(w, deriv=True)
+                    dL[:, i, j] = d * (2.0 * np.pi / self.fs)
+                else:
+                    Lm[:, i, j] = part(w)
+        edge = (f == 0.0) | (f == self.fs / 2.0)
+        if np.any(edge):
+            Lm[edge] = Lm[edge].real
+        return (Lm, dL) if deriv else Lm
+
+    def __call__(self, f: float) -> np.ndarray:
+        w = 2.0 * np.pi * f / self.fs
+        Lm = np.zeros((self.n, self.n), dtype=complex)
+        for i in range(self.n):
+            for j in range(self.n):
+                if self.parts[i][j] is not None:
+                    Lm[i, j] = self.parts[i][j](w)[0]
+        if f == 0.0 or f == self.fs / 2.0:
+            Lm = Lm.real.astype(complex)
+        return Lm
+
+
+def _track_loci(lam: np.ndarray) -> np.ndarray:
+    """Order eigenvalues along frequency so each column follows one locus (nearest neighbour)."""
+    import itertools
+
+    F, n = lam.shape
+    perms = list(itertools.permutations(range(n)))
+    P = np.array(perms)
+    # best permutation of row q's raw order to match row q-1's raw order
+    cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
+    step = np.argmin(cost, axis=1)
+    if n == 2:  # the two orders form a group of two: the running order is the parity of the swaps
+        parity = np.concatenate([[0], np.cumsum(step != 0) % 2])
+        out = lam.copy()
+        sw = parity == 1
+        out[sw] = lam[sw][:, ::-1]
+        return out
+    index = {p: k for k, p in enumerate(perms)}
+    # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
+    table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
+    out = np.empty_like(lam)
+    out[0] = lam[0]
+    cur = 0  # permutation applied to row q-1 (identity)
+    for q in range(1, F):
+        # row q reordered by perms[step] matches raw row q-1; raw row q-1 was reordered by cur
+        cur = table[step[q - 1]][cur]
+        out[q] = lam[q][list(perms[cur])]
+    return out
+
+
+def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
+    """Frequencies where eigenvalue loci cross the real axis, one per bracket (vectorised).
+
+    Newton steps on Im λ(f) with the eigenvalue derivative dλ/df = wᵀ (dL/df) v (v the right
+    eigenvector, wᵀ the matching row of V⁻¹, so wᵀv = 1), kept inside the shrinking bracket
+    (bisection when a step leaves it); the locus is followed by taking, at each step, the
+    eigenvalue nearest to the previous one. Returns (f, λ).
+    """
+    a = np.array(a, dtype=float)
+    b = np.array(b, dtype=float)
+    za = np.asarray(za, dtype=complex)
+    zb = np.asarray(zb, dtype=complex)
+    sa = np.sign(za.imag)
+    t = za.imag / (za.imag - zb.imag)
+    x = a + t * (b - a)
+    z = za + t * (zb - za)
+    active = np.ones(x.size, bool)
+    tol = 1e-12 * ev_at.fs
+    for _ in range(max_iter):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        Lm, dL = ev_at.with_deriv(x[idx])
+        ev, V = np.linalg.eig(Lm)
+        k = np.argmin(np.abs(ev - z[idx, None]), axis=1)
+        lam = ev[np.arange(idx.size), k]
+        W = np.linalg.inv(V)
+        w = W[np.arange(idx.size), k, :]
+        v = V[np.arange(idx.size), :, k]
+        dlam = np.einsum("mi,mij,mj->m", w, dL, v)
+        z[idx] = lam
+        fx = lam.imag
+        left = np.sign(fx) == sa[idx]
+        a[idx[left]] = x[idx[left]]
+        b[idx[~left]] = x[idx[~left]]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xn = x[idx] - fx / dlam.imag
+        bad = ~np.isfinite(xn) | (xn <= a[idx]) | (xn >= b[idx])
+        xn[bad] = 0.5 * (a[idx[bad]] + b[idx[bad]])
+        step_tol = tol + 1e-11 * np.abs(x[idx])
+        done = (fx == 0.0) | (np.abs(xn - x[idx]) < step_tol) | (b[idx] - a[idx] < step_tol)
+        x[idx] = np.where(fx == 0.0, x[idx], xn)
+        active[idx[done]] = False
+    # final values at the final frequencies, on the same loci
+    Lm = ev_at.matrices(x)
+    ev = np.linalg.eigvals(Lm)
+    k = np.argmin(np.abs(ev - z[:, None]), axis=1)
+    return x, ev[np.arange(x.size), k]
+
+
+def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
+    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [1]_.
+
+    L(f)[i, j] = Σ_spk H[spk, i](f)·mix[spk, j]. The loop y = x + k·L·y loses
+    stability at the smallest broadband gain k with det(I − k·L(f)) = 0 for some
+    f, i.e. k·λ(f) = 1 for an eigenvalue λ(f) that is real and positive. The
+    eigenvalue loci are followed on a zero-padded FFT grid (nearest-neighbour
+    matching from one frequency to the next), every crossing of the positive real
+    axis is bisected with exact DTFTs, and the worst one sets the margin.
+    """
+    a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
+    fs = float(sample_rate_hz)
+    lo, hi = _band(band_hz, fs)
+    l = loop_matrix(a, m)
+    n_mic = l.shape[0]
+    n = l.shape[2]
+    n_fft = max(1 << 14, _next_pow2(oversample * n))
+    Hs = np.fft.rfft(l, n_fft, axis=2)  # (i, j, F)
+    f_all = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    sel = (f_all >= lo) & (f_all <= hi)
+    f = f_all[sel]
+    Lf = np.moveaxis(Hs[:, :, sel], 2, 0)  # (F, i, j)
+    if n_mic == 2:  # closed form: λ = tr/2 ± √((tr/2)² − det)
+        half = 0.5 * (Lf[:, 0, 0] + Lf[:, 1, 1])
+        det = Lf[:, 0, 0] * Lf[:, 1, 1] - Lf[:, 0, 1] * Lf[:, 1, 0]
+        root = np.sqrt(half * half - det)
+        lam = np.stack([half + root, half - root], axis=1)
+    else:
+        lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
+    if n_mic > 1:
+        lam = _track_loci(lam)
+    rad = np.max(np.abs(lam), axis=1)
+    magnitude_margin_db = -db(float(np.max(rad)))
+    # coarse crossings of every locus
+    c_e, c_i, c_r = [], [], []
+    for e in range(n_mic):
+        z = lam[:, e]
+        s = np.sign(z.imag)
+        iv = np.flatnonzero((s[:-1] * s[1:] < 0) & ((z.real[:-1] > 0) | (z.real[1:] > 0)))
+        t = z.imag[iv] / (z.imag[iv] - z.imag[iv + 1])
+        c_e.append(np.full(iv.size, e))
+        c_i.append(iv)
+        c_r.append(z.real[iv] + t * (z.real[iv + 1] - z.real[iv]))
+    c_e, c_i, c_r = (np.concatenate(v) for v in (c_e, c_i, c_r))
+    # exact real points (DC, Nyquist)
+    ex_f = [float(f[i]) for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
+    ex_v = [lam[i, e] for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
+    cr_f, cr_v = list(ex_f), list(ex_v)
+    if c_r.size:
+        order = np.argsort(-c_r)
+        best = c_r[order[0]]
+        n_ref = int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1
+        ev_at = _MatrixLoop(l, fs)
+        sel = order[: min(max(n_ref, 4), 64)]
+        ii = c_i[sel]
+        fz, zc = _refine_loci(ev_at, f[ii], f[ii + 1], lam[ii, c_e[sel]], lam[ii + 1, c_e[sel]])
+        # a locus mismatch between grid points can fake a sign change: keep true crossings only
+        for fq, zq in zip(fz, zc):
+            if zq.real > 0 and abs(zq.imag) <= 1e-6 * abs(zq):
+                cr_f.append(float(fq))
+                cr_v.append(complex(zq))
+        rest_j = order[min(max(n_ref, 4), 64) :]
+        rest_j = rest_j[c_r[rest_j] > 0]
+        if rest_j.size:
+            i = c_i[rest_j]
+            za_, zb_ = lam[i, c_e[rest_j]], lam[i + 1, c_e[rest_j]]
+            t = za_.imag / (za_.imag - zb_.imag)
+            cr_f.extend((f[i] + t * (f[i + 1] - f[i])).tolist())
+            cr_v.extend(c_r[rest_j].astype(complex).tolist())
+    cr_f = np.asarray(cr_f, dtype=float)
+    cr_v = np.asarray(cr_v, dtype=complex)
+    if cr_f.size == 0:
+        return MimoMarginResult(
+            gain_margin_db=float("inf"), howl_freq_hz=float("nan"), worst_mic_index=-1,
+            eigenvector=np.zeros(n_mic, complex), participation=np.zeros(n_mic),
+            magnitude_margin_db=magnitude_margin_db, sample_rate_hz=fs, band_hz=(lo, hi),
+        )
+    o = np.argsort(cr_f)
+    cr_f, cr_v = cr_f[o], cr_v[o]
+    magnitude_margin_db = min(magnitude_margin_db, float(-db(np.max(np.abs(cr_v)))))
+    w = int(np.argmax(cr_v.real))
+    fh = float(cr_f[w])
+    Lm = _MatrixLoop(l, fs)(fh)
+    ev, vr = np.linalg.eig(Lm)
+    idx = int(np.argmin(np.abs(ev - cr_v[w])))
+    v = vr[:, idx]
+    evl, vl = np.linalg.eig(Lm.T)  # left eigenvectors: w^T L = λ w^T
+    wl = vl[:, int(np.argmin(np.abs(evl - ev[idx])))]
+    part = np.abs(wl * v)
+    part = part / part.sum() if part.sum() > 0 else part
+    return MimoMarginResult(
+        gain_margin_db=float(-db(cr_v[w].real)),
+        howl_freq_hz=fh,
+        worst_mic_index=int(np.argmax(part)),
+        eigenvector=v / np.linalg.norm(v),
+        participation=part,
+        magnitude_margin_db=magnitude_margin_db,
+        crossings_freq_hz=cr_f,
+        crossings_value=cr_v,
+        sample_rate_hz=fs,
+        band_hz=(lo, hi),
+    )
