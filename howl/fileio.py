@@ -228,7 +228,13 @@ def read_wav(path: str | os.PathLike, *, channel: int | None = None, option: str
         x = data[:, channel - 1]
     if not np.all(np.isfinite(x)):
         raise InputError("holds NaN or infinite samples", file=name)
-    short = wav_shortfall(p)
+    warn_if_truncated(p, name)
+    return np.ascontiguousarray(x), int(fs)
+
+
+def warn_if_truncated(path: str | os.PathLike, name: str) -> None:
+    """A warning when the WAV's header promises more samples than the file holds."""
+    short = wav_shortfall(path)
     if short:
         import warnings
 
@@ -237,7 +243,6 @@ def read_wav(path: str | os.PathLike, *, channel: int | None = None, option: str
         warnings.warn(f"{name}: the header promises {short[0]} bytes of samples but the file holds {short[1]}: "
                       "the file is truncated (a copy or a recording cut short); only what is there was read",
                       HowlWarning)
-    return np.ascontiguousarray(x), int(fs)
 
 
 #: sample rates accepted from a WAV: below 1 kHz is not audio a PA plays; above 768 kHz no interface records
@@ -313,6 +318,8 @@ def wav_blocks(path: str | os.PathLike, *, channels: list[int] | None = None, op
     n_ch = info.channels
     if info.frames == 0:
         raise InputError("holds no samples; expected a non-empty WAV", file=name)
+    check_wav_rate(int(info.samplerate), file=name)
+    warn_if_truncated(p, name)
     if channels is None:
         if n_ch != 1:
             raise InputError(f"has {n_ch} channels; pass {option} N (1..{n_ch}) to choose one", file=name)

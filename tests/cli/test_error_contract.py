@@ -450,7 +450,17 @@ def write_then_killed(path, *a, **k):
         pass
     raise SystemExit("SIGTERM was not delivered")
 
+_block_write = soundfile.SoundFile.write
+
+def block_then_killed(self, data):  # simulate writes its output a block at a time as it goes
+    _block_write(self, data)
+    os.kill(os.getpid(), signal.SIGTERM)
+    for _ in range(10 ** 6):
+        pass
+    raise SystemExit("SIGTERM was not delivered")
+
 soundfile.write = write_then_killed
+soundfile.SoundFile.write = block_then_killed
 sys.argv = ["howl", *sys.argv[1:]]
 from howl.cli import main
 main()
