@@ -75,6 +75,11 @@ def register(app: typer.Typer) -> None:
         max_notches: int = typer.Option(6, "--max-notches", help="Budget of cuts in the running list."),
         temperature_c: float = typer.Option(20.0, "--temperature-c", help="Air temperature (drift width of cuts)."),
         swing_c: float = typer.Option(3.0, "--swing-c", help="Temperature swing to cover."),
+        view: str = typer.Option("terminal", "--view", help="terminal (a text table) or web (a live page in the "
+                                 "browser; the address is printed)."),
+        port: int = typer.Option(None, "--port", help="With --view web: the page's port (default: a free one)."),
+        share: bool = typer.Option(False, "--share", help="With --view web: serve on the LAN address for a tablet, "
+                                   "behind a key in the link (printed with a QR code)."),
     ) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
@@ -92,6 +97,9 @@ def register(app: typer.Typer) -> None:
         if json_out and duration is None:
             raise InputError("needs --duration (the JSON report is printed when the run ends)", key="--json")
         tau = loop_delay_option(loop_delay_ms, loop_ir)
+        from howl.cli import _webview
+
+        web = _webview.check_options(view, port, share)
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
@@ -106,7 +114,9 @@ def register(app: typer.Typer) -> None:
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c)
         try:
-            if json_out or not sys.stdout.isatty():
+            if web:
+                res = _webview.run_listen(src, label=label, port=port, share=share, err=json_out, **kw)
+            elif json_out or not sys.stdout.isatty():
                 res = listen(src, **kw)
             else:
                 from rich.console import Console

@@ -12,6 +12,7 @@ from __future__ import annotations
 import hmac
 import secrets
 import socket
+import socketserver
 import threading
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from importlib import resources
@@ -112,6 +113,7 @@ class _Handler(BaseHTTPRequestHandler):
         self.close_connection = True
         state, stopping = self.server.state, self.server.stopping
         seq = -1
+        self.server.open_streams.acquire()
         try:
             while not stopping.is_set():
                 new_seq, text = state.wait_newer(seq, KEEPALIVE_S)
@@ -127,11 +129,40 @@ class _Handler(BaseHTTPRequestHandler):
                     break
         except (BrokenPipeError, ConnectionResetError, TimeoutError):
             pass
+        finally:
+            self.server.open_streams.release()
+
+
+class _OpenCount:
+    """How many event streams are open (so ``stop`` can let each send its last update)."""
+
+    def __init__(self):
+        self._n = 0
+        self._cond = threading.Condition()
+
+    def acquire(self):
+        with self._cond:
+            self._n += 1
+
+    def release(self):
+        with self._cond:
+            self._n -= 1
+            self._cond.notify_all()
+
+    def wait_zero(self, timeout_s: float) -> bool:
+        with self._cond:
+            return self._cond.wait_for(lambda: self._n == 0, timeout=timeout_s)
 
 
 class _Server(ThreadingHTTPServer):
     daemon_threads = True
-    allow_reuse_address = True
+    allow_reuse_address = True  # a restart may take the same --port at once (Linux: never two listeners)
+
+    def server_bind(self):
+        """Bind without HTTPServer's reverse DNS lookup of the host (slow or hanging off-line)."""
+        socketserver.TCPServer.server_bind(self)
+        host, port = self.server_address[:2]
+        self.server_name, self.server_port = host, port
 
 
 class LiveServer:
@@ -147,6 +178,7 @@ class LiveServer:
         self._srv.state = state
         self._srv.token = token
         self._srv.stopping = threading.Event()
+        self._srv.open_streams = _OpenCount()
         self.token = token
         self._thread = None
 
@@ -167,8 +199,9 @@ class LiveServer:
 
     def stop(self) -> None:
         """End every stream (one last update goes out), stop accepting, close the socket."""
-        self._srv.stopping.set()
         self.state.end()
+        self._srv.open_streams.wait_zero(1.0)  # each stream sends its last update and the end
+        self._srv.stopping.set()
         self._srv.shutdown()
         self._srv.server_close()
         if self._thread is not None:

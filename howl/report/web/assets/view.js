@@ -65,7 +65,8 @@
     for (const f of [50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000]) {
       const x = xOfHz(f, w);
       g.beginPath(); g.moveTo(x, PAD.t); g.lineTo(x, h - PAD.b); g.stroke();
-      g.fillText(f >= 1000 ? f / 1000 + "k" : String(f), x - 8, h - 5);
+      const lab = f >= 1000 ? f / 1000 + "k" : String(f);
+      g.fillText(lab, Math.min(x - g.measureText(lab).width / 2, w - PAD.r - g.measureText(lab).width), h - 5);
     }
     const fr = s.spectrum.freq_hz, lv = s.spectrum.level_db;
     if (fr.length) {
@@ -96,7 +97,7 @@
     const ul = $("cands");
     ul.replaceChildren(...s.candidates.map((c) => {
       const li = el("li", "s-" + c.state, fmtHz(c.freq_hz) + " · " + c.words + " · " + arrow[c.trend] + " " +
-        fmtDb(c.trend_db_per_s, true) + " dB/s · " + fmtDb(c.level_db) + " dB");
+        fmtDb(c.trend_db_per_s, true) + " dB/s · " + fmtDb(c.level_db) + " dBFS");
       li.dataset.freqHz = c.freq_hz;
       return li;
     }));
@@ -108,7 +109,7 @@
       const li = el("li", "event s-" + e.kind);
       li.dataset.freqHz = e.freq_hz; li.dataset.kind = e.words;
       li.append(el("span", "when", fmtClock(e.time_s)), el("span", "kind", e.words),
-        el("span", "freq", fmtHz(e.freq_hz) + " at " + fmtDb(e.level_db) + " dB"));
+        el("span", "freq", fmtHz(e.freq_hz) + " at " + fmtDb(e.level_db) + " dBFS"));
       li.append(el("span", "spacer"), el("span", "spacer"), el("span", "cut", cutText(e.cut)));
       let note = "";
       if (e.margin_db != null) note = e.margin_db > 0 ? (e.margin_assumed ? "about " : "") + fmtDb(e.margin_db) + " dB short of howling"
