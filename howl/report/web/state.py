@@ -87,9 +87,15 @@ def _bands(fs: float, n_fft: int):
         centres = SPECTRUM_LO_HZ * 2.0 ** (np.arange(n + 1) / SPECTRUM_FRACTION)
         half = 2.0 ** (0.5 / SPECTRUM_FRACTION)
         bin_hz = fs / n_fft
-        lo = np.minimum(np.round(centres / half / bin_hz).astype(int), n_fft // 2)
-        hi_i = np.maximum(np.round(centres * half / bin_hz).astype(int), lo + 1)
-        _BAND_CACHE[key] = (centres, lo, np.minimum(hi_i, n_fft // 2 + 1))
+        # bin k belongs to the band whose edges hold its frequency (lo ≤ k·Δf < hi); a band
+        # narrower than a bin shows the bin nearest its centre
+        lo = np.ceil(centres / half / bin_hz).astype(int)
+        hi_i = np.ceil(centres * half / bin_hz).astype(int)
+        near = np.round(centres / bin_hz).astype(int)
+        empty = hi_i <= lo
+        lo[empty], hi_i[empty] = near[empty], near[empty] + 1
+        top = n_fft // 2
+        _BAND_CACHE[key] = (centres, np.minimum(lo, top), np.minimum(hi_i, top + 1))
     return _BAND_CACHE[key]
 
 
@@ -145,6 +151,7 @@ class LiveState:
              "advice": list(snap.advice)}
         if spectrum is not None:
             f, db = spectrum
+            db = np.nan_to_num(np.asarray(db, float), nan=-140.0, neginf=-140.0, posinf=0.0)
             d["spectrum"] = {"freq_hz": [round(float(v), 1) for v in f],
                              "level_db": [round(max(float(v), -140.0), 1) for v in db]}
         else:
