@@ -95,7 +95,11 @@ def _bands(fs: float, n_fft: int):
         empty = hi_i <= lo
         lo[empty], hi_i[empty] = near[empty], near[empty] + 1
         top = n_fft // 2
-        _BAND_CACHE[key] = (centres, np.minimum(lo, top), np.minimum(hi_i, top + 1))
+        lo, hi_i = np.minimum(lo, top), np.minimum(hi_i, top + 1)
+        # one row of bin indices per band, padded with the band's last bin: max over a row = the band
+        width = int((hi_i - lo).max())
+        idx = np.minimum(lo[:, None] + np.arange(width)[None, :], (hi_i - 1)[:, None])
+        _BAND_CACHE[key] = (centres, idx)
     return _BAND_CACHE[key]
 
 
@@ -107,8 +111,8 @@ def spectrum_db(samples: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]
     n = x.size
     w = np.hanning(n)
     mag = np.abs(np.fft.rfft(x * w)) / (0.5 * w.sum())
-    centres, lo, hi = _bands(fs, n)
-    peak = np.array([mag[a:b].max() for a, b in zip(lo, hi)])
+    centres, idx = _bands(fs, n)
+    peak = mag[idx].max(axis=1)
     return centres, 20 * np.log10(peak + 1e-10)
 
 
@@ -152,8 +156,8 @@ class LiveState:
         if spectrum is not None:
             f, db = spectrum
             db = np.nan_to_num(np.asarray(db, float), nan=-140.0, neginf=-140.0, posinf=0.0)
-            d["spectrum"] = {"freq_hz": [round(float(v), 1) for v in f],
-                             "level_db": [round(max(float(v), -140.0), 1) for v in db]}
+            d["spectrum"] = {"freq_hz": np.round(np.asarray(f, float), 1).tolist(),
+                             "level_db": np.round(np.maximum(db, -140.0), 1).tolist()}
         else:
             d["spectrum"] = self._listen["spectrum"]
         with self._cond:
