@@ -5,7 +5,7 @@
   const Q = document.body.dataset.q || "";
   const $ = (id) => document.getElementById(id);
   const F_LO = 40, F_HI = 20000, DB_LO = -110, DB_HI = 0;
-  const lags = [];            // [seq, ms from the audio block to this page's redraw]
+  const lags = [];  // [seq, ms from the audio block to this page's redraw, ms from the update's publication]
   window.howlLags = lags;
   window.howlState = null;
 
@@ -103,7 +103,12 @@
     }));
   }
 
+  let listsKey = null;
   function drawEvents(s) {
+    // the lists change only with a new event or cut: rebuild them only then
+    const key = s.n_events + "|" + JSON.stringify(s.cuts) + "|" + s.advice.length;
+    if (key === listsKey) return;
+    listsKey = key;
     $("events-none").hidden = s.events.length > 0;
     $("events").replaceChildren(...s.events.map((e) => {
       const li = el("li", "event s-" + e.kind);
@@ -186,7 +191,8 @@
     drawTop(s); drawSpectrum(s); drawEvents(s); drawMargin(s);
     document.body.dataset.seq = s.seq;
     if (s.block_wall_s != null) {
-      lags.push([s.seq, Date.now() - 1000 * s.block_wall_s]);
+      const now = Date.now();
+      lags.push([s.seq, now - 1000 * s.block_wall_s, now - 1000 * s.sent_wall_s]);
       if (lags.length > 20000) lags.splice(0, lags.length - 20000);
     }
   }
