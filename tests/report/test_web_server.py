@@ -184,3 +184,21 @@ def test_bad_view_options_say_so_in_one_line(args, key):
 
     res = CliRunner().invoke(app, ["listen", "--device", "x", "--duration", "1", *args])
     assert res.exit_code == 2 and key in res.output and "Traceback" not in res.output
+
+
+def test_a_port_in_use_or_no_lan_address_is_one_input_error(monkeypatch):
+    import howl.report.web.server as server
+    from howl.cli._webview import WebView
+    from howl.errors import InputError
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        s.listen()
+        busy = s.getsockname()[1]
+        with pytest.raises(InputError) as e:
+            WebView(command="listen", label="t", sample_rate_hz=48000.0, port=busy).start()
+        assert e.value.key == "--port"
+    monkeypatch.setattr(server, "lan_address", lambda: "127.0.0.1")
+    with pytest.raises(InputError) as e:
+        WebView(command="listen", label="t", sample_rate_hz=48000.0, share=True).start()
+    assert e.value.key == "--share"
