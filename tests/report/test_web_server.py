@@ -202,3 +202,40 @@ def test_a_port_in_use_or_no_lan_address_is_one_input_error(monkeypatch):
     with pytest.raises(InputError) as e:
         WebView(command="listen", label="t", sample_rate_hz=48000.0, share=True).start()
     assert e.value.key == "--share"
+
+
+def test_ctrl_c_stops_the_listen_loop_and_the_page_cleanly(monkeypatch):
+    """Ctrl-C (KeyboardInterrupt raised while reading the input) ends the run: summary printed,
+    exit 0, the page's port closed."""
+    from typer.testing import CliRunner
+
+    import howl.cli._webview as webview
+    import howl.measure.audio as audio
+    from howl.cli import app
+    from howl.listen.live import ArraySource
+
+    seen = {}
+
+    class InterruptedInput(ArraySource):
+        def __init__(self, device, channel):
+            super().__init__(np.zeros(48000 * 60), 48000.0)
+            self.device = type("D", (), {"label": "interrupted"})()
+
+        def read(self, timeout_s=0.1):
+            if self._pos >= 48000:
+                raise KeyboardInterrupt
+            return super().read(timeout_s)
+
+    real_start = webview.WebView.start
+
+    def start(self):
+        out = real_start(self)
+        seen["port"] = self.server.address[1]
+        return out
+
+    monkeypatch.setattr(audio, "LiveInput", InterruptedInput)
+    monkeypatch.setattr(webview.WebView, "start", start)
+    res = CliRunner().invoke(app, ["listen", "--device", "x", "--view", "web"])
+    assert res.exit_code == 0, res.output
+    assert "stopped (Ctrl-C)" in res.stdout and "live page: http://127.0.0.1:" in res.stdout
+    assert _listening_addresses(seen["port"]) == set()
