@@ -48,7 +48,8 @@ def test_a_full_scale_sine_reads_0_db_in_the_band_holding_its_frequency():
 
 
 def test_the_detector_states_are_named_in_a_techs_words():
-    assert STATE_WORDS == {"howl": "howling", "ringing": "ringing", "watch": "watch", "program": "program"}
+    assert STATE_WORDS == {"howl": "howling", "ringing": "ringing", "watch": "watch", "program": "program",
+                           "product": "overtone of a howl"}
     assert [trend_words(x) for x in (12.0, 0.5, -8.0)] == ["rising", "steady", "falling"]
     st = LiveState()
     st.update(_snap(candidates=[_cand("howl", 12.0), _cand("watch", 0.0, 800.0), _cand("program", -9.0, 90.0)]))

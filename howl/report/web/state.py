@@ -18,7 +18,8 @@ from collections import deque
 import numpy as np
 
 #: The detector's states in the words a tech uses on the page.
-STATE_WORDS = {"howl": "howling", "ringing": "ringing", "watch": "watch", "program": "program"}
+STATE_WORDS = {"howl": "howling", "ringing": "ringing", "watch": "watch", "program": "program",
+               "product": "overtone of a howl"}
 #: A candidate's level trend in words (dB/s thresholds: a howl grows at ≥ 6 dB/s, see DetectorConfig).
 TREND_RISE_DB_PER_S = 3.0
 #: How many events and margin estimates the page keeps (memory stays flat over a long show).

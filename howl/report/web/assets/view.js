@@ -84,9 +84,10 @@
     const colours = getComputedStyle(document.body);
     s.candidates.forEach((c, i) => {
       const x = xOfHz(c.freq_hz, w);
-      g.strokeStyle = colours.getPropertyValue("--" + c.words).trim() || "#ccc";
-      g.lineWidth = c.state === "program" ? 1 : 2;
-      g.setLineDash(c.state === "program" ? [3, 3] : []);
+      g.strokeStyle = colours.getPropertyValue("--st-" + c.state).trim() || "#ccc";
+      const faint = c.state === "program" || c.state === "product";
+      g.lineWidth = faint ? 1 : 2;
+      g.setLineDash(faint ? [3, 3] : []);
       g.beginPath(); g.moveTo(x, PAD.t); g.lineTo(x, h - PAD.b); g.stroke();
       g.setLineDash([]);
       const t = el("div", "tag s-" + c.state, fmtHz(c.freq_hz) + " " + c.words + " " + arrow[c.trend]);
