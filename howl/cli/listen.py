@@ -63,7 +63,7 @@ def _view(snap, device_label: str, fs: float):
     return Group(*parts)
 
 
-def _run(device, in_channel, kw, json_out):
+def _run(device, in_channel, kw, json_out, web=None):
     """Open the input, listen until the end, Ctrl-C or a stop signal; returns (result, device label)."""
     from howl.listen.detect import Detector
     from howl.listen.live import listen
@@ -76,7 +76,11 @@ def _run(device, in_channel, kw, json_out):
         src = LiveInput(device, in_channel)
         label = src.device.label
         typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
-        if json_out or not sys.stdout.isatty():
+        if web is not None:
+            from howl.cli import _webview
+
+            res = _webview.run_listen(src, label=label, port=web[0], share=web[1], err=json_out, **kw)
+        elif json_out or not sys.stdout.isatty():
             res = listen(src, **kw)
         else:
             from rich.console import Console
@@ -149,6 +153,11 @@ def register(app: typer.Typer) -> None:
         gain_step_db: float = _desk.STEP,
         graphic_q: float = _desk.GRAPHIC_Q,
         desk_from: Path = _desk.DESK_FROM,
+        view: str = typer.Option("terminal", "--view", help="terminal (a text table) or web (a live page in the "
+                                 "browser; the address is printed)."),
+        port: int = typer.Option(None, "--port", help="With --view web: the page's port (default: a free one)."),
+        share: bool = typer.Option(False, "--share", help="With --view web: serve on the LAN address for a tablet, "
+                                   "behind a key in the link (printed with a QR code)."),
     ) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
@@ -171,13 +180,16 @@ def register(app: typer.Typer) -> None:
         desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
                              min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
                              desk_from=desk_from)
+        from howl.cli import _webview
+
+        web = _webview.check_options(view, port, share)
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
-        res, label = _run(device, in_channel, kw, json_out)
+        res, label = _run(device, in_channel, kw, json_out, web=(port, share) if web else None)
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)

@@ -1,0 +1,115 @@
+"""`--view web` for the live commands: the page's state and server around a listen loop.
+
+``listen`` calls :func:`check_options` before it opens the device and :func:`run_listen` instead
+of its terminal view. A margin tracker feeds the same page through :meth:`WebView.add_margin`
+(estimates as dicts: time_s, gain_margin_db, howl_freq_hz, magnitude_margin_db, uncertainty_db,
+status), so a command running both shows both on one page.
+"""
+
+from __future__ import annotations
+
+import sys
+
+import typer
+
+VIEWS = ("terminal", "web")
+#: The page is redrawn at least 10 times a second: an update is pushed once this long has passed
+#: (checked after each audio block, so ~0.064 s at 1024 frames and 48 kHz: ~15 updates/s, with
+#: room for a loaded machine).
+UPDATE_INTERVAL_S = 0.06
+
+
+def check_options(view: str, port: int | None, share: bool) -> bool:
+    """Validate --view/--port/--share; True when the web view is wanted."""
+    from howl import validate as v
+    from howl.errors import InputError
+
+    if view not in VIEWS:
+        raise InputError(f"must be one of {', '.join(VIEWS)}, got {view!r}", key="--view")
+    web = view == "web"
+    if not web and (port is not None or share):
+        raise InputError("needs --view web", key="--port" if port is not None else "--share")
+    if port is not None:
+        v.integer(port, "--port", 1, 65535)
+    return web
+
+
+class WebView:
+    """The page for one run: start it (prints the link, and with ``share`` a QR code), feed it,
+    stop it. ``err``: print the link on stderr (when stdout carries the JSON)."""
+
+    def __init__(self, *, command: str, label: str, sample_rate_hz: float, port: int | None = None,
+                 share: bool = False, err: bool = False, cautions=(), margin_warn_db: float = 3.0):
+        from howl.report.web import LiveState
+
+        self.state = LiveState(command=command, label=label, sample_rate_hz=sample_rate_hz, cautions=cautions,
+                               margin_warn_db=margin_warn_db)
+        self.port, self.share, self.err = port, share, err
+        self.server = None
+        self.tap = None
+
+    def start(self) -> "WebView":
+        from howl.errors import InputError
+        from howl.report.web import LiveServer, lan_address, new_token
+
+        host, token = "127.0.0.1", None
+        if self.share:
+            host, token = lan_address(), new_token()
+            if host.startswith("127."):
+                raise InputError("found no network address to share the page on (is the laptop on the LAN?)",
+                                 key="--share")
+        try:
+            self.server = LiveServer(self.state, host=host, port=self.port or 0, token=token).start()
+        except OSError as e:
+            raise InputError(f"cannot serve the page on {host}:{self.port or 0}: {e.strerror or e}",
+                             key="--port" if self.port else "--view") from None
+        self._announce()
+        return self
+
+    def _announce(self) -> None:
+        url = self.server.url
+        typer.echo(f"live page: {url}  (read-only; Ctrl-C stops)", err=self.err)
+        if self.share:
+            typer.echo("open it on a tablet on the same network (the key in the link is needed):", err=self.err)
+            import segno
+
+            segno.make(url, error="m").terminal(out=sys.stderr if self.err else sys.stdout, compact=True)
+
+    def tap_source(self, source):
+        """Wrap the listen source so the page gets the mic spectrum and the block times."""
+        from howl.report.web import BlockTap
+
+        self.tap = BlockTap(source)
+        return self.tap
+
+    def on_listen_update(self, snap) -> None:
+        from howl.report.web import spectrum_db
+
+        spec = None
+        if self.tap is not None and self.tap.n_read:
+            spec = spectrum_db(self.tap.recent(), self.tap.sample_rate_hz)
+        self.state.update(snap, spec, None if self.tap is None else self.tap.block_wall_s)
+
+    def add_margin(self, estimate: dict) -> None:
+        self.state.add_margin(estimate)
+
+    def stop(self) -> None:
+        if self.server is not None:
+            self.server.stop()
+            self.server = None
+
+    def __enter__(self):
+        return self.start()
+
+    def __exit__(self, *exc):
+        self.stop()
+
+
+def run_listen(src, *, label: str, port: int | None, share: bool, err: bool, **listen_kw):
+    """``listen(...)`` with the page: started before the loop, stopped when the audio ends or on Ctrl-C."""
+    from howl.listen.live import CAUTIONS, listen
+
+    with WebView(command="listen", label=label, sample_rate_hz=src.sample_rate_hz, port=port, share=share,
+                 err=err, cautions=CAUTIONS) as view:
+        return listen(view.tap_source(src), on_update=view.on_listen_update,
+                      update_interval_s=UPDATE_INTERVAL_S, **listen_kw)
