@@ -54,34 +54,6 @@ def _render_text(rep: dict, path: str) -> list[str]:
     return lines
 
 
-#: a recording with more than this share of its samples pinned at its peak is called clipped
-CLIPPED_SHARE = 0.001
-
-
-def _warn_if_clipped(x, name: str) -> None:
-    """Warn when a recording is heavily clipped: its loudest samples sit in flat runs at one level.
-
-    A clipped howl is a square-ish wave: its harmonics look like further howls and its growth
-    stops at full scale, so frequencies may be doubled up and growth rates understated.
-    """
-    import warnings
-
-    import numpy as np
-
-    from howl.errors import HowlWarning
-
-    peak = float(np.max(np.abs(x))) if x.size else 0.0
-    if peak <= 0.0:
-        return
-    at_peak = np.abs(x) >= peak * (1.0 - 1e-6)
-    flat = at_peak[1:-1] & at_peak[:-2] & at_peak[2:]  # inside a run of 3+ samples at the peak: a flat top
-    share = float(np.mean(flat)) if flat.size else 0.0
-    if share > CLIPPED_SHARE and int(np.sum(flat)) >= 16:
-        warnings.warn(f"{name}: {100 * share:.1f} % of the samples sit at the peak level ({20 * np.log10(peak):+.1f} "
-                      "dBFS): the recording is clipped; growth rates stop at the clip and harmonics may show as "
-                      "extra howls (record with more headroom)", HowlWarning)
-
-
 def register(app: typer.Typer) -> None:
     @app.command("scan")
     def scan(
@@ -109,8 +81,8 @@ def register(app: typer.Typer) -> None:
     ) -> None:
         """Find howls (growing pure tones) and ringing (slow ring-downs) in a recording; suggest cuts."""
         from howl import validate as v
-        from howl.listen.detect import Detector, report
-        from howl.fileio import read_wav
+        from howl.listen.detect import report
+        from howl.listen._stream import scan_wav
         from howl.cli._common import capture_warnings, emit_json, loop_delay_option
 
         tau = loop_delay_option(loop_delay_ms, loop_ir)
@@ -123,14 +95,12 @@ def register(app: typer.Typer) -> None:
         if cuts_out is not None and cuts_out.suffix.lower() not in (".csv", ".json"):
             raise v.fail("--cuts-out", "a .csv or .json file name", str(cuts_out))
         with capture_warnings():
-            x, fs = read_wav(recording, channel=channel)
-            if fs < 4000:
-                raise v.fail("sample rate", ">= 4000 Hz", fs, "Hz", file=str(recording))
-            _warn_if_clipped(x, str(recording))
-            det = Detector(fs, loop_delay_s=None if callable(tau) else tau)
-            det.process(x)
-            det.finish()
-            rep = report(det.events, fs, x.size / fs, loop_delay_s=tau, max_notches=max_notches,
+            # read in blocks and fed to the incremental detector: memory does not grow with length
+            # with a loop IR, a component far from all of its crossings is not a howl
+            events, fs, duration_s = scan_wav(recording, channel=channel,
+                                              loop_delay_s=None if callable(tau) else tau,
+                                              crossings_hz=getattr(tau, "crossings_hz", None))
+            rep = report(events, fs, duration_s, loop_delay_s=tau, max_notches=max_notches,
                          temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
         rep = {"file": str(recording), "channel": channel, **rep, "caution": CAUTION}
         if cuts_out is not None:

@@ -202,8 +202,13 @@ class _CandidateSearch:
         e, c = e[steady], c[steady]
         if e.size == 0:
             return _NONE, _NONE
-        rr = e - off  # frame index within this chunk
-        kk = c - 1 + lo
+        return self._rising_keep(power, rows, k, e - off, c - 1 + lo, ext, off, M)
+
+    def _rising_keep(self, power, rows, k, rr, kk, ext, off, M):
+        """The rising candidates at (frame ``rr``, bin ``kk``) of this chunk that are pure (PNPR ≥
+        ``rise_min_pnpr_db``, or on the quieter side below ``rise_contrast_f_hi_hz``), not already
+        candidates, at most ``n_rising_candidates`` per frame, steepest first."""
+        lo = self.k_lo
         # purity: PNPR >= the howl threshold in this frame; below rise_contrast_f_hi_hz, on the quieter
         # side is enough (a howl may start beside a louder partial: the contrast-of-growth test)
         p0 = power[rr, kk]

@@ -36,6 +36,11 @@ class LoopDelayFromIR:
         r = nyquist_margin(self.ir, self.sample_rate_hz)
         self._crossings = (np.asarray(r.crossings_freq_hz, float), np.asarray(r.crossings_value, float))
 
+    @property
+    def crossings_hz(self) -> np.ndarray:
+        """The IR's positive real-axis crossings (Hz): the only frequencies the loop can howl at."""
+        return self._crossings[0]
+
     def nearest_crossing(self, freq_hz: float) -> tuple[float, float] | None:
         """The IR's positive real-axis crossing nearest ``freq_hz`` (howl.loop.nyquist_margin) and
         its margin (dB) at the IR's own settings, or None when it has none."""

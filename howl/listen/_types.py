@@ -124,6 +124,24 @@ class DetectorConfig:
     ring_max_fsd: the ring-down's frequency-spread limit (None: ``max_fsd``).
     ring_exact_partners: the ring-down's PHPR counts only partners at the exact multiple in most
         frames (the low lane: there a loop's other modes ring at near-harmonic ratios).
+    full_min_decel_ratio, line_min_decel_ratio, line_min_span_windows: a howl grows on a straight
+        line in dB from the fader move to the limiter (its rate set by the loop's gain past unity);
+        an attack, a fade-in or a swell (linear in amplitude, an RC curve, a raised cosine: an organ
+        flue stop swelling in, a sine pad) rises in dB ever more slowly. So the 0.30 s window's
+        second half must grow at ≥ 0.6 × its first (as the 0.15 s window's), and the whole rise
+        since the track came out of the program (the lowest level of the last ``growth_fit_s``,
+        when that spans at least one decision window) at ≥ 0.7 × in its second half. Chosen on
+        the tuning split of tests/listen/detect_corpus.py only (issue 22; before: 85 false howls on
+        its 244 no-howl cases at full size; on every second case, 38 → 3, no howl lost or later).
+    persist_min_growth_db_per_s: a pure steady tone held ``persist_s`` counts as a howl only if it
+        still grows, ≥ 1 dB/s and not slowing (second half ≥ ``line_min_decel_ratio`` × the
+        first): a held pure tone (an organ flue pipe, a test tone, a sine pad) is ``watch``, not a
+        howl, unless it grows like one. None: the earlier rule (not falling faster than
+        ``min_decay_db_per_s``).
+    max_crossing_offset_pct: with a loop IR's crossings given to the detector, a component farther
+        than this (1 %) from every crossing is not a howl: a loop howls only at a crossing.
+    max_track_history_s: a track keeps the last 20-40 s of its frames (every test looks back a few
+        seconds at most): memory does not grow with a held tone's length.
     min_decay_span_db, min_decay_s: a ring-down must fall ≥ 10 dB over ≥ 0.15 s. It is
         tested while the track still fades (every 4 frames once the level is 10 dB
         under the track's peak) and reported as soon as it passes (``live``); a track
@@ -180,6 +198,12 @@ class DetectorConfig:
     hot_rise_db: float = 1.0
     growth_fit_s: float = 0.5
     low_lane_hz: float | None = 300.0
+    max_track_history_s: float = 20.0
+    full_min_decel_ratio: float = 0.6
+    line_min_decel_ratio: float | None = 0.7
+    line_min_span_windows: float = 1.0
+    persist_min_growth_db_per_s: float | None = 1.0
+    max_crossing_offset_pct: float | None = 1.0
 
     def validated(self) -> "DetectorConfig":
         v.in_range(self.window_s, "window_s", 0.01, 1.0, unit="s")
@@ -192,6 +216,8 @@ class DetectorConfig:
         v.in_range(self.fsd_floor_bins, "fsd_floor_bins", 0.0, 1.0, unit="bins")
         v.in_range(self.decision_window_s, "decision_window_s", 2 * self.hop_s, 5.0, unit="s")
         v.integer(self.imsd_points, "imsd_points", 3, 50)
+        looks_back = max(self.decision_window_s, self.growth_fit_s, self.persist_s if self.persist_s < 1e9 else 0.0)
+        v.in_range(self.max_track_history_s, "max_track_history_s", 2.0 * looks_back, None, unit="s")
         if self.rise_min_pnpr_one_side_db is not None:
             v.in_range(self.rise_min_pnpr_one_side_db, "rise_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
         if self.contrast_min_pnpr_one_side_db is not None:

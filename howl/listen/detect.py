@@ -80,7 +80,7 @@ from __future__ import annotations
 
 import bisect
 import operator
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -117,6 +117,7 @@ from howl.listen._report import (  # noqa: F401  (re-exported)
     summarise_notches,
 )
 from howl.listen._candidates import _CandidateSearch
+from howl.listen._decide import RING_EXACT_TOL_BINS, REFINE_FACTOR, _Decisions, _Tier, _Track  # noqa: F401
 from howl.listen._lane import Decimator, lane_config, lane_factor
 from howl.listen._types import Candidate, DetectionResult, DetectorConfig, Event  # noqa: F401  (re-exported)
 
@@ -150,93 +151,15 @@ __all__ = [
 
 
 _LAST_KF = operator.attrgetter("last_kf")
-#: a howl's frequency is refined on a frame this many times the analysis frame (see Detector._refine_kf)
-REFINE_FACTOR = 4
 #: a howl reported by both lanes within this time (s) and max(1 %, a lane bin) is reported once
 LANE_SAME_S = 3.0
 #: track ids of the low lane's events are offset by this (the two lanes number their tracks apart)
 LANE_TRACK_ID_OFFSET = 1_000_000
-#: a ring-down's partner is at the exact multiple h when its median distance from it is within
-#: this many bins × max(1, h) (a plucked string's inharmonicity, B = 0.0004, puts its 2nd partial
-#: 0.08 % off: 0.06 bin at 880 Hz; a loop's modes 4/5 or 3/2 apart were 0.25-0.64 bin off)
-RING_EXACT_TOL_BINS = 0.1
 
 #: frames analysed per batch (one FFT call, one feature pass)
 CHUNK_FRAMES = 256
 
-
-def _partner_trends(partners: np.ndarray, ts: np.ndarray):
-    """From a track's partner rows (frames × [ratios dB, distances from the exact multiple, bins])
-    over times ``ts``: the ratios R (capped at 200 dB), the distances, each partner's median ratio
-    and the least-squares slope of its ratio (dB/s). A partner whose ratio stays put rises or
-    falls with the peak: a partial of the same sound."""
-    H = partners.shape[1] // 2
-    R = np.minimum(partners[:, :H], 200.0)
-    dx = ts - ts.mean()
-    r_slope = dx @ (R - R.mean(axis=0)) / float(dx @ dx)
-    return R, partners[:, H:], np.median(R, axis=0), r_slope
-
-
-@dataclass(frozen=True)
-class _Tier:
-    """One decision window and the tests a growing track must pass on it."""
-
-    frames: int
-    min_growth_db_per_s: float
-    min_pnpr_db: float
-    min_pnpr_each_db: float | None
-    min_phpr_db: float
-    max_fsd: float
-    imsd_fraction: float
-    imsd_floor_db_per_s: float
-    min_ipmp: float
-    halves_fraction: float
-    min_rise_db: float
-    full: bool = False
-    other_partners: bool = True
-    min_decel_ratio: float = 0.0
-    max_drift: float = 1.0
-    min_pnpr_one_side_db: float | None = None
-
-
-class _Track:
-    """One tracked peak. Per frame: the frame index and a row
-    (kf, level, papr, pnpr, phpr, nb, phf, ratios); columns are built only when evaluated.
-    ``ratios`` holds the peak-to-partner ratios (dB) at :data:`HARMONIC_MULTIPLIERS`."""
-
-    __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval", "hot", "peak",
-                 "last_ring", "seen")
-    FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "partners": 7, "pnpr1": 8, "kf1": 9}
-
-    def __init__(self, tid: int):
-        self.tid = tid
-        self.frames: list[int] = []
-        self.rows: list[tuple] = []
-        self.last_kf = 0.0
-        self.gap = 0
-        self.reported: str | None = None
-        self.state = "program"
-        self.last_eval = -1
-        self.hot = False  # rising lately: evaluated every frame
-        self.peak = -np.inf  # highest level so far (dB)
-        self.last_ring = -1  # frame of the last live ring-down test
-        self.seen = -1  # the last frame in which the track got a peak
-
-    def add(self, t: int, row: tuple) -> None:
-        self.frames.append(t)
-        self.rows.append(row)
-        self.last_kf = row[0]
-        self.gap = 0
-        self.seen = t
-        if row[1] > self.peak:
-            self.peak = row[1]
-
-    def col(self, name: str, start: int = 0) -> list:
-        k = self.FIELDS[name]
-        return [r[k] for r in self.rows[start:]]
-
-
-class Detector(_CandidateSearch):
+class Detector(_CandidateSearch, _Decisions):
     """Streaming detector: feed blocks of any length with :meth:`process`.
 
     Parameters
@@ -245,12 +168,17 @@ class Detector(_CandidateSearch):
     config: :class:`DetectorConfig` (defaults documented there).
     loop_delay_s: the loop delay τ when known (measured loop IR, or passed in);
         enables ``margin_db`` on events.
+    crossings_hz: the positive real-axis crossings of a measured loop IR (Hz), when known: a
+        component farther than ``max_crossing_offset_pct`` from every one is not a howl.
     """
 
-    def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None):
+    def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None,
+                 crossings_hz=None):
         self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 2000.0, 768000.0, unit="Hz")
         self.cfg = (config or DetectorConfig()).validated()
         self.loop_delay_s = None if loop_delay_s is None else v.positive(loop_delay_s, "loop_delay_s", unit="s")
+        # the loop's positive real-axis crossings (Hz), when a loop IR is known: a howl can only be on one
+        self.crossings_hz = None if crossings_hz is None else np.asarray(crossings_hz, float).ravel()
         import scipy.fft as sfft
 
         self._fft = sfft
@@ -287,9 +215,10 @@ class Detector(_CandidateSearch):
             _Tier(self.win_frames, c.min_growth_db_per_s, min_pnpr_db=c.min_pnpr_db, min_pnpr_each_db=None,
                   min_phpr_db=c.min_phpr_db, max_fsd=c.max_fsd, imsd_fraction=0.6,
                   imsd_floor_db_per_s=c.max_imsd_db_per_s, min_ipmp=c.min_ipmp, halves_fraction=c.halves_fraction,
-                  min_rise_db=0.0, full=True, max_drift=c.max_fsd,
+                  min_rise_db=0.0, full=True, max_drift=c.max_fsd, min_decel_ratio=c.full_min_decel_ratio,
                   min_pnpr_one_side_db=c.contrast_min_pnpr_one_side_db),
         )
+        self._hist_cap = max(1, int(round(self.cfg.max_track_history_s / self.dt)))
         persist = self.cfg.persist_s / self.dt
         self.persist_frames = max(self.win_frames, int(round(persist))) if np.isfinite(persist) else 2 ** 62
         self._buf = np.zeros(0)
@@ -326,7 +255,7 @@ class Detector(_CandidateSearch):
         if lane_hz is not None and lane_factor(self.fs) >= 2:
             self._dec = Decimator(self.fs, lane_factor(self.fs))
             self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz),
-                                  loop_delay_s=self.loop_delay_s)
+                                  loop_delay_s=self.loop_delay_s, crossings_hz=self.crossings_hz)
 
     # ------------------------------------------------------------------ public
 
@@ -393,7 +322,7 @@ class Detector(_CandidateSearch):
             kf = np.asarray(tr.col("kf", i0))
             out.append(Candidate(
                 track_id=tr.tid, freq_hz=float(np.median(kf)) * self.bin_hz, level_db=float(lv[-1]),
-                trend_db_per_s=float(slope), age_s=(tr.frames[-1] - tr.frames[0] + 1) * self.dt,
+                trend_db_per_s=float(slope), age_s=(tr.frames[-1] - tr.first + 1) * self.dt,
                 pnpr_db=_median(tr.col("pnpr", i0)), phpr_db=_median(tr.col("phpr", i0)),
                 fsd=float(np.std(kf) / max(np.mean(kf), _TINY)), state=tr.reported or tr.state,
             ))
@@ -442,8 +371,12 @@ class Detector(_CandidateSearch):
         seg = self._buf[start0: start0 + (n_f - 1) * self.hop + self.n_win]
         # float32 FFT: 2x faster; its ~-140 dB rounding floor is far below any decision
         frames = sliding_window_view(seg.astype(np.float32), self.n_win)[:: self.hop][:n_f]
-        spec = self._fft.rfft(frames * self._win32, axis=1)
-        power = spec.real ** 2 + spec.imag ** 2  # (F, n_bins) float32
+        spec = self._fft.rfft(frames * self._win32, axis=1, overwrite_x=True)
+        # |X|² in place on the interleaved (re, im) float32 pairs: the same float32 operations as
+        # re² + im², without the temporaries
+        ri = spec.view(np.float32)
+        np.square(ri, out=ri)
+        power = ri[:, 0::2] + ri[:, 1::2]  # (F, n_bins) float32
         lo, hi = self.k_lo, self.k_hi
         band = power[:, lo:hi]
         mean_p = band.mean(axis=1, dtype=np.float64) + _TINY
@@ -497,7 +430,7 @@ class Detector(_CandidateSearch):
             if best is None:
                 if n_tr + len(born) >= cfg.max_tracks:
                     continue
-                best = _Track(self._next_tid)
+                best = _Track(self._next_tid, self._hist_cap)
                 self._next_tid += 1
                 born.append(best)
             best.add(t, row)
@@ -533,235 +466,6 @@ class Detector(_CandidateSearch):
                     self._report_ringing(ev)
         self._tracks = alive
 
-    def _fsd_limit(self, rel_limit: float, kf: float) -> float:
-        """A relative frequency-spread (or drift) limit, with the floor ``fsd_floor_bins`` (scaled
-        as ``rel_limit`` is to ``max_fsd``): the estimate's scatter is in bins, not relative, so
-        at low frequencies a relative limit alone is finer than the estimate can be."""
-        return max(rel_limit, self.cfg.fsd_floor_bins * rel_limit / (self.cfg.max_fsd * max(kf, 1.0)))
-
-    def _window(self, tr: _Track, t: int, n_frames: int):
-        fr = np.asarray(tr.frames)
-        i0 = np.searchsorted(fr, t - n_frames + 1)
-        return i0, fr[i0:]
-
-    def _window_test(self, tr: _Track, t: int, tier: "_Tier"):
-        """Features over the last ``tier.frames`` frames; None when the track is not pure and steady there.
-
-        Returns (i0, ipmp, pnpr, phpr, kf, fsd, levels, slope, imsd, growing, phpr_comod).
-        """
-        W = tier.frames
-        # cheap tests first (pure Python on <= W values): IPMP, PNPR, FSD
-        i0 = bisect.bisect_left(tr.frames, t - W + 1)
-        ip = (len(tr.frames) - i0) / W
-        if ip < tier.min_ipmp:
-            return None
-        # quick gate: a growing track has risen over the window (the steady-tone test needs a long track)
-        rows = tr.rows
-        if (rows[-1][1] - rows[i0][1] < 0.3 * tier.min_growth_db_per_s * (W - 1) * self.dt
-                and not (tier.full and tr.frames[-1] - tr.frames[0] + 1 >= self.persist_frames)):
-            return None
-        pns = tr.col('pnpr', i0)
-        pn = _median(pns)
-        contrast = False
-        if pn < tier.min_pnpr_db or (tier.min_pnpr_each_db is not None and min(pns) < tier.min_pnpr_each_db):
-            # contrast of growth: a peak beside a louder partial is allowed when it is pure on its
-            # other side in every frame and outgrows its neighbours (checked below, on the level line)
-            if tier.min_pnpr_one_side_db is None or tr.last_kf > self.k_contrast_hi:
-                return None
-            if min(tr.col('pnpr1', i0)) < tier.min_pnpr_one_side_db:
-                return None
-            contrast = True
-        # beside a louder partial, the frequency comes from the quieter side (kf1: no pull toward it)
-        kfl = tr.col('kf1' if contrast else 'kf', i0)
-        fsd = _rel_std(kfl)
-        if fsd > self._fsd_limit(tier.max_fsd, kfl[-1]):
-            return None
-        frl = tr.frames[i0:]
-        lvl = tr.col('level', i0)
-        dt = self.dt
-        slope = _slope(frl, lvl) / dt
-        if slope < tier.min_growth_db_per_s and not tier.full:
-            return None
-        # straightness (pure Python): both halves grow, the second not much slower than the
-        # first (an onset or a swell that levels off is not a line), the total rise, IMSD
-        n = len(lvl)
-        h = n // 2
-        s_a = _slope(frl[:h + 1], lvl[:h + 1]) / dt
-        s_b = _slope(frl[h:], lvl[h:]) / dt
-        rise = slope * (frl[-1] - frl[0]) * dt
-        imsd = _imsd_on_line(frl, lvl, dt, self.cfg.imsd_points)
-        # frequency drift over the window (a partial swept through a loop resonance by vibrato or a
-        # glide rises in level while its frequency moves; a howl stays put)
-        drift = abs(_slope(frl, kfl)) * (frl[-1] - frl[0]) / kfl[-1]
-        growing = (slope >= tier.min_growth_db_per_s and drift <= self._fsd_limit(tier.max_drift, kfl[-1])
-                   and imsd <= max(tier.imsd_floor_db_per_s, tier.imsd_fraction * slope)
-                   and min(s_a, s_b) >= tier.halves_fraction * slope
-                   and s_b >= tier.min_decel_ratio * s_a and rise >= tier.min_rise_db)
-        if contrast and growing:
-            # the neighbours' level (peak level − PNPR) rose at most (1 − comod_fraction) × as
-            # fast as the peak: PNPR's own slope is at least comod_fraction × the growth
-            growing = _slope(frl, pns) / dt >= self.cfg.comod_fraction * slope
-        if not growing and not tier.full:
-            return None
-        ph = _median(tr.col('phf', i0))
-        kf = np.asarray(kfl)
-        lv = np.asarray(lvl)
-        if not growing:
-            # not growing: the full window goes on to the steady-tone test, on the plain PHPR
-            if ph < self.cfg.min_phpr_db:
-                return None
-            return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, False, ph
-        # PHPR over the partners that grow along with the peak (co-modulated: a partial of the
-        # same note); a partner that does not grow with it (other program) does not explain it
-        # unless the peak is not yet min_phpr_other_db above it.
-        cfg = self.cfg
-        ts = np.asarray(frl) * dt
-        R, dev, med, r_slope = _partner_trends(np.asarray(tr.col('partners', i0)), ts)
-        grows_along = r_slope <= (1.0 - cfg.comod_fraction) * slope
-        grows_along &= np.mean(dev <= self._exact_tol_bins, axis=0) >= 0.5  # exact in most frames
-        explains = grows_along & (med < max(tier.min_phpr_db, cfg.min_phpr_comod_db))
-        if tier.other_partners:
-            explains |= med < cfg.min_phpr_other_db
-        ph_c = float(med[grows_along].min()) if np.any(grows_along) else float("inf")
-        if np.any(explains):
-            return None
-        return i0, ip, pn, ph, kf, fsd, lv, slope, imsd, True, ph_c
-
-    def _evaluate(self, tr: _Track, t: int) -> None:
-        cfg = self.cfg
-        span = tr.frames[-1] - tr.frames[0] + 1
-        rows = tr.rows
-        back = rows[max(0, len(rows) - self.rise_win_frames)]
-        last = rows[-1]
-        tr.hot = last[1] - back[1] >= cfg.hot_rise_db
-        # quick rejections (no window test can pass): the newest frame is far from pure, or the
-        # frequency moved by more than a few times the allowed spread (a glide) since the look-back
-        pure_now = max(last[3], last[8]) if last[0] <= self.k_contrast_hi else last[3]
-        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * self._fsd_limit(cfg.max_fsd, last[0]) * last[0]:
-            if span >= self._tiers[0].frames:
-                tr.state = "program"
-            return
-        res = None
-        # fast growth is decided on shorter windows (a loop well past unity must not wait);
-        # the shorter the window, the stricter the tests (fewer frames to judge by)
-        for tier in self._tiers:
-            if span >= tier.frames:
-                res = self._window_test(tr, t, tier)
-                if res is not None:
-                    break
-        if res is None:
-            tr.state = "program" if span >= self._tiers[0].frames else tr.state
-            return
-        i0, ip, pn, ph, kf, fsd, lv, slope, imsd, growing, ph_c = res
-        steady = False
-        if not growing and tr.frames[-1] - tr.frames[0] + 1 >= self.persist_frames:
-            j0, frp = self._window(tr, t, self.persist_frames)
-            kfp = np.asarray(tr.col('kf', j0))
-            lvp = np.asarray(tr.col('level', j0))
-            sp = _linfit(frp * self.dt, lvp)[0]
-            steady = (frp.size / self.persist_frames >= cfg.min_ipmp
-                      and np.std(kfp) / np.mean(kfp) <= cfg.max_fsd
-                      and float(np.median(tr.col('pnpr', j0))) >= cfg.min_pnpr_db
-                      and _median(tr.col('phf', j0)) >= cfg.min_phpr_db
-                      and sp > -cfg.min_decay_db_per_s)
-        if (growing or steady) and self._is_howl_product(float(np.median(kf)) * self.bin_hz):
-            tr.reported = "product"
-            tr.state = "product"
-            return
-        if growing:
-            slope = self._growth_estimate(tr, len(lv), slope)
-        if growing or steady:
-            fr_end = tr.frames[-1]
-            kf_med = float(np.median(kf))
-            if (fr_end - tr.frames[0]) * self.hop + self.n_win >= self.n_long:  # tracked over the long frame
-                kf_med = self._refine_kf(kf_med, t * self.hop + self.n_win)
-            time_s = (t * self.hop + self.n_win) / self.fs
-            if self._same_event(kf_med * self.bin_hz, time_s, "lane") is not None:
-                tr.reported = "howl"  # the low lane has reported it
-                tr.state = "howl"
-                return
-            tr.reported = "howl"
-            tr.state = "howl"
-            margin = None if self.loop_delay_s is None else -slope * self.loop_delay_s
-            self._report(Event(
-                time_s=time_s,
-                onset_s=(tr.frames[0] * self.hop + self.n_win / 2) / self.fs,
-                freq_hz=kf_med * self.bin_hz, kind="howl", level_db=float(lv[-1]),
-                growth_db_per_s=float(slope), papr_db=float(np.median(tr.col('papr', i0))), pnpr_db=pn, phpr_db=ph,
-                ipmp=float(ip), imsd_db_per_s=float(imsd), fsd=fsd, track_id=tr.tid, margin_db=margin,
-                steady=bool(steady and not growing), window_s=len(lv) and (fr_end - tr.frames[i0] + 1) * self.dt,
-                phpr_comod_db=None if not np.isfinite(ph_c) else float(ph_c),
-            ))
-        else:
-            tr.state = "watch"
-
-    def _refine_kf(self, kf: float, end_sample: int) -> float:
-        """The howl's frequency (in short-frame bins) refined on a frame ``REFINE_FACTOR`` times
-        longer that ends with the decision frame (used when the track spans that frame, so the
-        frame holds the howl and not the program before it), when it is a clean peak there (PNPR ≥
-        ``min_pnpr_db`` over that frame's ±4…6 bins, a quarter of the short ones). Program partials a
-        bin or two away pull the short frame's estimate by up to a few tenths of a bin (0.5 % at
-        150 Hz); the long frame resolves them. Else, or before enough samples, ``kf`` is kept."""
-        n = self.n_long
-        start = end_sample - n
-        past0 = self._buf_start - self._past.size
-        if start < past0:
-            return kf
-        both = np.concatenate([self._past, self._buf]) if self._past.size else self._buf
-        seg = both[start - past0: end_sample - past0]
-        if seg.size < n:
-            return kf
-        p = np.abs(self._fft.rfft(seg * self._win_long)) ** 2
-        c = int(round(kf * REFINE_FACTOR))
-        if c - 9 < 1 or c + 9 >= p.size:
-            return kf
-        j = c - 2 + int(np.argmax(p[c - 2: c + 3]))
-        if not (p[j] > p[j - 1] and p[j] >= p[j + 1]):
-            return kf
-        kf_long = (j + float(_lp_delta(p[j - 1: j], p[j: j + 1], p[j + 1: j + 2])[0])) / REFINE_FACTOR
-        nb = max(p[j + d] for d in (-6, -5, -4, 4, 5, 6))
-        if abs(kf_long - kf) > 0.5 or 10.0 * np.log10(p[j] / max(nb, _TINY)) < self.cfg.min_pnpr_db:
-            return kf
-        return kf_long
-
-    def _growth_estimate(self, tr: _Track, n_window: int, slope_window: float) -> float:
-        """The growth rate reported for a howl: a Theil-Sen line (median of pairwise slopes; Sen 1968)
-        from the lowest level of the last ``growth_fit_s`` (where the howl came out of the program
-        or the noise) to now, over at least the decision window. Longer and robust: the first
-        window to pass the tests tends to be a steep one, and a few frames scatter."""
-        n_fit = max(n_window, int(round(self.cfg.growth_fit_s / self.dt)))
-        lv = tr.col('level', max(0, len(tr.rows) - n_fit))
-        fr = tr.frames[len(tr.frames) - len(lv):]
-        j = min(range(len(lv)), key=lv.__getitem__)
-        if len(lv) - j < n_window:
-            j = len(lv) - n_window
-        # Theil-Sen: the median of the pairwise slopes (robust to a few scattered frames)
-        f, y = fr[j:], lv[j:]
-        pairs = [(y[b] - y[a]) / (f[b] - f[a]) for a in range(len(f)) for b in range(a + 1, len(f)) if f[b] > f[a]]
-        return _median(pairs) / self.dt if pairs else slope_window
-
-    def _is_howl_product(self, freq_hz: float) -> bool:
-        """Is ``freq_hz`` a harmonic or a two-tone product of howls already reported
-        (folded about the Nyquist frequency)? A howl that reaches a limiter or clips
-        makes those; they are the same howl, not new ones."""
-        fh = [e.freq_hz for e in self.events if e.kind == "howl"]
-        if not fh:
-            return False
-        cand = []
-        for i, a in enumerate(fh):
-            cand += [h * a for h in range(2, 6)]
-            for b in fh[i + 1:]:
-                cand += [abs(2 * a - b), abs(2 * b - a), a + b, abs(a - b)]
-        tol = max(2.0 * self.bin_hz, 0.005 * freq_hz)
-        nyq = self.fs / 2.0
-        for f in cand:
-            f = f % self.fs
-            if f > nyq:
-                f = self.fs - f
-            if abs(f - freq_hz) <= tol:
-                return True
-        return False
-
     def _close(self, tr: _Track) -> None:
         """A track ended: was its end a ring-down?"""
         if tr.reported is not None:
@@ -775,86 +479,6 @@ class Detector(_CandidateSearch):
         """A main-lane ring-down, unless the low lane has reported it."""
         if self._same_event(ev.freq_hz, ev.time_s, "lane", "ringing") is None:
             self._report(ev)
-
-    def _ringdown(self, tr: _Track, live: bool = False) -> Event | None:
-        """Was the fall of this track a ring-down? ``live``: the track is still fading (tested on the
-        frames so far); else it has ended (the last frames near the floor it ended at are left out)."""
-        cfg = self.cfg
-        n = len(tr.frames)
-        min_frames = int(round(cfg.min_decay_s / self.dt))
-        if n < min_frames + 2:
-            return None
-        # cheap tests first: a ring-down is pure over most of the track
-        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
-            return None
-        if not cfg.ring_exact_partners and _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
-            return None
-        lv = np.asarray(tr.col('level'))
-        fr = np.asarray(tr.frames)
-        ipk = int(np.argmax(lv))
-        # skip the frames in which the window still straddles the transient
-        i0 = np.searchsorted(fr, fr[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
-        # stop where the level nears the noise floor at which the track ended
-        end_level = float(np.min(lv[i0:])) if i0 < n else 0.0
-        seg = np.arange(i0, n)
-        if seg.size and not live:
-            seg = seg[lv[seg] >= end_level + 3.0]
-        if seg.size < min_frames:
-            return None
-        if seg.size / (fr[seg[-1]] - fr[seg[0]] + 1) < cfg.min_ipmp:
-            return None
-        ts = fr[seg] * self.dt
-        if ts[-1] - ts[0] < cfg.min_decay_s:
-            return None
-        slope, icpt, res = _linfit(ts, lv[seg])
-        span = -slope * (ts[-1] - ts[0])
-        kf = np.asarray(tr.col('kf'))[seg]
-        fsd = float(np.std(kf) / np.mean(kf))
-        pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
-        decay = -slope
-        q = cfg.imsd_points
-        tq = np.linspace(ts[0], ts[-1], q)
-        imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
-        ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
-              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
-              and pn >= cfg.min_pnpr_db and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
-        if not ok:
-            return None
-        # a partner at the exact multiple in most frames that decays along with the peak (falls at
-        # >= comod_fraction x its rate: a plucked or struck note's partials fall together, the
-        # higher ones faster) and starts within min_phpr_comod_db of it (the fitted ratio at the
-        # start of the fall: a faster partial's ratio grows through the fall, so its median
-        # over a long fall passes 20 dB) makes it a note, not a loop mode
-        R, dev, med, r_slope = _partner_trends(np.asarray(tr.col('partners'))[seg], ts)
-        exact = np.median(dev, axis=0) <= self._ring_exact_tol_bins
-        along = exact & (r_slope >= -(1.0 - cfg.comod_fraction) * decay)
-        r_start = R.mean(axis=0) - r_slope * (ts.mean() - ts[0])
-        if np.any(along & (np.minimum(med, r_start) < max(cfg.min_phpr_db, cfg.min_phpr_comod_db))):
-            return None
-        if cfg.ring_exact_partners:
-            # PHPR over the exact partners only (other loop modes ringing at near-harmonic ratios
-            # are not partials)
-            ph = float(med[exact].min()) if exact.any() else 200.0
-        else:
-            ph = float(np.median(np.asarray(tr.col('phf'))[seg]))
-        if ph < cfg.min_phpr_db:
-            return None
-        nb_slope = _linfit(ts, np.asarray(tr.col('nb'))[seg])[0]
-        if (cfg.max_decay_ratio is not None and -nb_slope > cfg.min_decay_db_per_s
-                and decay > cfg.max_decay_ratio * (-nb_slope)):
-            return None
-        margin = None if self.loop_delay_s is None else margin_from_decay_db(decay, self.loop_delay_s)
-        t_end = fr[-1]
-        return Event(
-            time_s=(t_end * self.hop + self.n_win) / self.fs,
-            onset_s=(fr[0] * self.hop + self.n_win / 2) / self.fs,
-            freq_hz=float(np.median(kf)) * self.bin_hz, kind="ringing", level_db=float(lv[ipk]),
-            growth_db_per_s=float(slope), papr_db=float(np.median(np.asarray(tr.col('papr'))[seg])), pnpr_db=pn,
-            phpr_db=ph, ipmp=float(seg.size / (fr[seg[-1]] - fr[seg[0]] + 1)), imsd_db_per_s=float(imsd), fsd=fsd,
-            track_id=tr.tid, decay_db_per_s=float(decay), margin_db=margin, neighbour_slope_db_per_s=float(nb_slope),
-            window_s=float(ts[-1] - ts[0] + self.dt), live=live,
-        )
-
 
 def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None = None, *,
            loop_delay_s: float | None = None, block_samples: int | None = None) -> DetectionResult:

@@ -114,7 +114,8 @@ def listen(source, *, duration_s: float | None = None, log_path=None, on_update=
     ``update_interval_s`` of wall time. Returns the same report as ``howl scan`` plus the overflow count.
     """
     fs = float(source.sample_rate_hz)
-    det = Detector(fs, loop_delay_s=None if callable(loop_delay_s) else loop_delay_s)
+    det = Detector(fs, loop_delay_s=None if callable(loop_delay_s) else loop_delay_s,
+                   crossings_hz=getattr(loop_delay_s, "crossings_hz", None))
     log = JsonlLog(log_path) if log_path else None
     limit = None if duration_s is None else int(round(duration_s * fs))
     n = 0

@@ -550,7 +550,9 @@ def test_no_detection_on_more_programs(seed):
 #: about when the detector's shortest window (0.1 s of growth, 85 ms frames) can decide.
 #: A stable crossing this close to unity (dB) counts as a right place for a howl report (see below).
 NEAR_UNITY_DB = 0.5
-KNOWN_LATE = {(4, "speech", 3.0)}
+#: (4, "speech", 3.0) was late until issue 22's straightness tests: its first howl is now
+#: reported at 4430 Hz, on an unstable mode, before any mode dominates in the 3.3 s simulated
+KNOWN_LATE: set = set()
 CLOSED_LOOP_CASES = ([(s, p, 3.0) for s in range(5) for p in ("speech", "music")]
                      + [(0, "speech", 1.0), (3, "speech", 1.0),
                         # a 578 Hz howl beside a louder music partial: found by contrast of growth
@@ -764,3 +766,43 @@ def test_low_lane_decimator_matches_numpy_convolve_for_any_block_split(fs):
     assert y.size > 0.9 * ref.size
     assert np.max(np.abs(y - ref[: y.size])) < 1e-12
     assert np.array_equal(y, Decimator(fs, lane_factor(fs)).process(x)[: y.size])
+
+
+def test_with_the_loop_crossings_known_a_tone_growing_off_every_crossing_is_not_a_howl():
+    # An 880 Hz sine rising at a constant 20 dB/s carries a howl's exact signature: on one channel
+    # it is one. A loop can only howl where its phase comes round (a positive real-axis crossing,
+    # Nyquist), so with the loop's crossings known a tone 2 % from the nearest is not (derived).
+    fs = 16000
+    t = np.arange(5 * fs) / fs
+    x = 10 ** (np.minimum(-60 + 20 * t, -10) / 20) * np.sin(2 * np.pi * 880.0 * t)
+    x += 1e-4 * np.random.default_rng(3).standard_normal(t.size)
+    assert any(e.kind == "howl" for e in D.detect(x, fs).events)
+    for crossings, howl in (([862.0, 1500.0], False), ([], False), ([500.0, 880.4], True)):
+        det = D.Detector(fs, crossings_hz=crossings)
+        det.process(x)
+        det.finish()
+        assert any(e.kind == "howl" for e in det.events) == howl, (crossings, det.events)
+
+
+def test_with_the_loop_ir_the_sung_note_pumped_beside_a_mode_is_not_a_howl():
+    # The note of test_with_the_loop_ir_a_note_pumped_through_a_mode_is_told_from_a_howl, 1.2 % off
+    # the crossing: with the IR's crossings given to the detector it is no howl at all, while the
+    # real howl of low room 31 (+2 dB) still is.
+    from howl.loop.simulate import simulate_closed_loop
+
+    fs = 16000
+    h, cross_f, _ = low_room_loop(30)
+    y = simulate_closed_loop(h, sung_vowel_swell(fs, 131.0, 10.0, 0.006), fs, gain_db=-1.5)
+    det = D.Detector(fs, crossings_hz=D.LoopDelayFromIR(h, fs).crossings_hz)
+    det.process(y)
+    det.finish()
+    assert not [e for e in det.events if e.kind == "howl"], det.events
+    x = music_like(fs, 8, 31 + 10)
+    h, _, _ = low_room_loop(31)
+    g = np.full(x.size, -6.0)
+    g[2 * fs:] = 2.0
+    y = simulate_closed_loop(h, x, fs, gain_db=g)
+    det = D.Detector(fs, crossings_hz=D.LoopDelayFromIR(h, fs).crossings_hz)
+    det.process(y)
+    det.finish()
+    assert [e for e in det.events if e.kind == "howl"]
