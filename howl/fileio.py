@@ -183,6 +183,23 @@ def write_wav_atomic(target: str | os.PathLike, data: np.ndarray, sample_rate_hz
         sf.write(str(tmp), data, int(sample_rate_hz), subtype=subtype, format="WAV")
 
 
+def _audio_path(path: str | os.PathLike) -> tuple[Path, str]:
+    """The path of a WAV to read, checked: it exists and is not a folder (the first checks of every reader)."""
+    p = Path(path)
+    name = str(path)
+    if not p.exists():
+        raise InputError("file not found", file=name)
+    if p.is_dir():
+        raise InputError("is a folder, expected a WAV file", file=name)
+    return p, name
+
+
+def _not_audio(exc: Exception, name: str) -> InputError:
+    """soundfile's own error (LibsndfileError/RuntimeError) as one line naming the file."""
+    first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    return InputError(f"cannot read as audio ({first}); expected a WAV file", file=name)
+
+
 def read_wav(path: str | os.PathLike, *, channel: int | None = None, option: str = "--channel") -> tuple[np.ndarray, int]:
     """Read a WAV as float64, mono.
 
@@ -199,17 +216,11 @@ def read_wav(path: str | os.PathLike, *, channel: int | None = None, option: str
     """
     import soundfile as sf
 
-    p = Path(path)
-    name = str(path)
-    if not p.exists():
-        raise InputError("file not found", file=name)
-    if p.is_dir():
-        raise InputError("is a folder, expected a WAV file", file=name)
+    p, name = _audio_path(path)
     try:
         data, fs = sf.read(str(p), dtype="float64", always_2d=True)
     except Exception as exc:  # soundfile raises its own LibsndfileError/RuntimeError
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"cannot read as audio ({first}); expected a WAV file", file=name) from None
+        raise _not_audio(exc, name) from None
     n_ch = data.shape[1]
     check_wav_rate(int(fs), file=name)
     if data.shape[0] == 0:
@@ -304,17 +315,11 @@ def wav_blocks(path: str | os.PathLike, *, channels: list[int] | None = None, op
     """
     import soundfile as sf
 
-    p = Path(path)
-    name = str(path)
-    if not p.exists():
-        raise InputError("file not found", file=name)
-    if p.is_dir():
-        raise InputError("is a folder, expected a WAV file", file=name)
+    p, name = _audio_path(path)
     try:
         info = sf.info(str(p))
     except Exception as exc:  # soundfile raises its own LibsndfileError/RuntimeError
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"cannot read as audio ({first}); expected a WAV file", file=name) from None
+        raise _not_audio(exc, name) from None
     n_ch = info.channels
     if info.frames == 0:
         raise InputError("holds no samples; expected a non-empty WAV", file=name)
