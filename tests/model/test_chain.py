@@ -306,3 +306,10 @@ def test_a_speaker_response_file_replaces_the_preset_range(tmp_path):
     s = load_rig(p).speakers[0]
     assert s.usable_range is None and s.response_table[0] == (80.0, -10.0)
     assert speaker_response_db(s, np.array([80.0])) == pytest.approx([-10.0])
+
+
+def test_spectrum_table_without_a_file_is_refused(tmp_path):
+    p = _chapel(tmp_path, lambda s: s.replace('spectrum = "raised"', 'spectrum = "table"', 1))
+    with pytest.raises(InputError) as e:
+        load_rig(p)
+    assert e.value.key == "talkers[0].spectrum_file"
