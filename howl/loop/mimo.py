@@ -117,33 +117,45 @@ class _MatrixLoop:
         return Lm
 
 
-def _track_loci(lam: np.ndarray) -> np.ndarray:
-    """Order eigenvalues along frequency so each column follows one locus (nearest neighbour)."""
-    import itertools
+#: Frequency steps matched per block in :func:`_track_loci` (bounds its scratch memory: n²·8 bytes a step).
+_TRACK_BLOCK = 4096
 
+
+def _track_loci(lam: np.ndarray) -> np.ndarray:
+    """Order eigenvalues along frequency so each column follows one locus.
+
+    Between neighbouring frequency steps the eigenvalues are paired by the assignment of least
+    total distance Σ|λ_prev[a] − λ_now[b]| (a linear sum assignment problem, solved by
+    ``scipy.optimize.linear_sum_assignment``; the same pairing an exhaustive search over all n!
+    orders finds whenever its minimum is unique, in O(n³) instead of O(n!·n)). Where every
+    eigenvalue's nearest neighbour is a different one, that pairing already attains the lower bound
+    Σ_a min_b |…| and is the optimum, so the solver runs only on the few steps where nearest
+    neighbours collide. The step pairings are then composed along frequency by a prefix scan.
+    """
     F, n = lam.shape
-    perms = list(itertools.permutations(range(n)))
-    P = np.array(perms)
-    # best permutation of row q's raw order to match row q-1's raw order
-    cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
-    step = np.argmin(cost, axis=1)
-    if n == 2:  # the two orders form a group of two: the running order is the parity of the swaps
-        parity = np.concatenate([[0], np.cumsum(step != 0) % 2])
-        out = lam.copy()
-        sw = parity == 1
-        out[sw] = lam[sw][:, ::-1]
-        return out
-    index = {p: k for k, p in enumerate(perms)}
-    # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
-    table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
-    out = np.empty_like(lam)
-    out[0] = lam[0]
-    cur = 0  # permutation applied to row q-1 (identity)
-    for q in range(1, F):
-        # row q reordered by perms[step] matches raw row q-1; raw row q-1 was reordered by cur
-        cur = table[step[q - 1]][cur]
-        out[q] = lam[q][list(perms[cur])]
-    return out
+    if n < 2 or F < 2:
+        return lam.copy()
+    from scipy.optimize import linear_sum_assignment
+
+    ident = np.arange(n)
+    step = np.empty((F - 1, n), dtype=np.intp)  # step[q][a]: index in raw row q+1 of raw row q's entry a
+    for q0 in range(0, F - 1, _TRACK_BLOCK):
+        q1 = min(F - 1, q0 + _TRACK_BLOCK)
+        cost = np.abs(lam[q0 + 1 : q1 + 1, None, :] - lam[q0:q1, :, None])  # (block, a, b)
+        near = np.argmin(cost, axis=2)
+        for k in np.flatnonzero(np.any(np.sort(near, axis=1) != ident, axis=1)):
+            rows, cols = linear_sum_assignment(cost[k])
+            near[k, rows] = cols
+        step[q0:q1] = near
+    # order[q][e]: index in raw row q of locus e; order[q] = step[q-1][order[q-1]], order[0] = identity
+    order = np.empty((F, n), dtype=np.intp)
+    order[0] = ident
+    order[1:] = step
+    k = 1
+    while k < F:  # Hillis–Steele inclusive scan of the composition (log2 F passes)
+        order[k:] = np.take_along_axis(order[k:], order[:-k], axis=1)
+        k *= 2
+    return np.take_along_axis(lam, order, axis=1)
 
 
 def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
