@@ -10,6 +10,8 @@ References
 .. [1] A. G. J. MacFarlane and I. Postlethwaite, "The generalized Nyquist
    stability criterion and multivariable root loci", Int. J. Control 25(1),
    81–127, 1977.
+.. [2] C. A. Desoer and Y.-T. Wang, "On the generalized Nyquist stability
+   criterion", IEEE Trans. Automatic Control AC-25(2), 187–196, April 1980.
 """
 
 from __future__ import annotations
@@ -209,14 +211,15 @@ def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
 
 
 def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
-    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [1]_.
+    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [1]_, [2]_.
 
     L(f)[i, j] = Σ_spk H[spk, i](f)·mix[spk, j]. The loop y = x + k·L·y loses
     stability at the smallest broadband gain k with det(I − k·L(f)) = 0 for some
     f, i.e. k·λ(f) = 1 for an eigenvalue λ(f) that is real and positive. The
-    eigenvalue loci are followed on a zero-padded FFT grid (nearest-neighbour
-    matching from one frequency to the next), every crossing of the positive real
-    axis is bisected with exact DTFTs, and the worst one sets the margin.
+    eigenvalue loci are followed on a zero-padded FFT grid (from one frequency to the
+    next, the pairing of least total distance, :func:`_track_loci`: an assignment
+    solver, so any number of mics), every crossing of the positive real axis is
+    refined with exact DTFTs, and the worst one sets the margin.
     """
     a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
     fs = float(sample_rate_hz)
