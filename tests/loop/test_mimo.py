@@ -189,6 +189,28 @@ def test_sixteen_commuting_loci_give_the_closed_form_margin(seed):
     assert r.howl_freq_hz == pytest.approx(w * FS / (2 * np.pi), rel=1e-8)
 
 
+def test_more_mics_than_loudspeakers_give_the_closed_form_margin_of_the_loudspeaker_loop():
+    # 16 mics, 4 loudspeakers. derived: with sends M (4 × 16, full row rank) and IRs chosen as
+    # Hᵀ = M⁺·K (M⁺ the pseudo-inverse, so M·Hᵀ = K), Sylvester's identity det(I − k·Hᵀ·M) =
+    # det(I − k·M·Hᵀ) = det(I − k·K) gives the 16 × 16 loop L = Hᵀ·M the nonzero eigenvalues of the
+    # 4 × 4 K = z^-3·C1 + z^-7·C2 (commuting, closed-form loci as above), and twelve zeros.
+    n_spk, n_mic, d1, d2 = 4, 16, 3, 7
+    k_irs, _, mu1, mu2 = _commuting_loop(n_spk, 11, d1, d2)
+    rng = np.random.default_rng(12)
+    M = rng.uniform(0.2, 1.0, (n_spk, n_mic))
+    P = np.linalg.pinv(M)  # (16, 4)
+    irs = np.zeros((n_spk, n_mic, 32))
+    for d in (d1, d2):
+        K = k_irs[:, :, d].T  # K[s, t] (k_irs[t, s] = K[s, t] as built for mix = I)
+        irs[:, :, d] = (P @ K).T  # h[t, i] = (M⁺·K)[i, t]
+    lo, hi = 100.0, 3900.0
+    best, w = _largest_crossing(mu1, mu2, d1, d2, 2 * np.pi * lo / FS, 2 * np.pi * hi / FS)
+    r = mimo_margin(irs, M, FS, band_hz=(lo, hi))
+    assert r.gain_margin_db == pytest.approx(-20 * math.log10(best), abs=1e-7)
+    assert r.howl_freq_hz == pytest.approx(w * FS / (2 * np.pi), rel=1e-8)
+    assert r.eigenvector.shape == (n_mic,) and r.participation.sum() == pytest.approx(1.0)
+
+
 # ------------------------------------------------------------------ a 16-mic rig
 
 
