@@ -20,6 +20,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 
 import json  # noqa: E402
+import math  # noqa: E402
 import platform  # noqa: E402
 import statistics  # noqa: E402
 import time  # noqa: E402
@@ -77,8 +78,14 @@ def mimo_rows() -> list[dict]:
         wall = time.perf_counter() - t0
         peak_kb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
         system = json.loads(proc.stdout)["images"]["system"] if proc.returncode == 0 else None
+        # what the matching before issue 17 (every one of the n! orders at every step) would allocate
+        n_fft = max(1 << 14, 1 << int(np.ceil(np.log2(4 * irs.shape[2]))))
+        f = np.fft.rfftfreq(n_fft, 1 / 16000.0)
+        n_steps = int(np.count_nonzero((f >= 100.0) & (f <= 7200.0))) - 1
+        perm_gib = n_steps * math.factorial(irs.shape[1]) * irs.shape[1] * 16 / 2**30
         rows.append({
-            "rig": str(path.relative_to(REPO)), "n_mic": int(irs.shape[1]), "n_spk": int(irs.shape[0]),
+            "rig": str(path.relative_to(REPO)),
+            "permutation_matching_would_allocate_gib": perm_gib, "n_mic": int(irs.shape[1]), "n_spk": int(irs.shape[0]),
             "ir_samples": int(irs.shape[2]), "sample_rate_hz": 16000.0,
             "mimo_margin_median_s": statistics.median(times), "gain_margin_db": r.gain_margin_db,
             "howl_freq_hz": r.howl_freq_hz,
@@ -128,10 +135,12 @@ def main() -> None:
         print(f"{r['ir_length_s']:7.1f} {r['median_s']:11.3f} {r['min_s']:9.3f} {r['n_fft']:9d} {r['n_crossings']:10d}")
     print(f"2x2 loop of 2 s IRs (mimo_margin): median {mimo_row['median_s']:.3f} s (no target)")
     many = mimo_rows()
-    print(f"{'rig':<40} {'mics':>4} {'mimo_margin (s)':>16} {'plan --method images (s)':>25} {'peak MB':>8}")
+    print(f"{'rig':<40} {'mics':>4} {'mimo_margin (s)':>16} {'plan --method images (s)':>25} {'peak MB':>8} "
+          f"{'n! matching (GiB)':>18}")
     for r in many:
         peak = "—" if r["plan_images_peak_rss_mb"] is None else f"{r['plan_images_peak_rss_mb']:.0f}"
-        print(f"{r['rig']:<40} {r['n_mic']:>4} {r['mimo_margin_median_s']:16.2f} {r['plan_images_wall_s']:25.1f} {peak:>8}")
+        print(f"{r['rig']:<40} {r['n_mic']:>4} {r['mimo_margin_median_s']:16.2f} {r['plan_images_wall_s']:25.1f} {peak:>8} "
+              f"{r['permutation_matching_would_allocate_gib']:18.3g}")
     sixteen = next(r for r in many if r["n_mic"] == 16)
     ok16 = sixteen["plan_images_exit"] == 0 and sixteen["plan_images_wall_s"] < TARGET_MIMO_PLAN_S
     print(f"target: 16-mic plan --method images under {TARGET_MIMO_PLAN_S:g} s -> {'met' if ok16 else 'NOT met'}")
