@@ -259,16 +259,26 @@ def test_plan_with_images_runs_on_a_sixteen_mic_rig():
 # ------------------------------------------------------------------ memory errors
 
 
-@pytest.mark.parametrize("args", [["plan", "--method", "images"], ["plan"]])
-def test_a_memory_error_is_one_line_and_exit_2(monkeypatch, args):
+_NUMPY_LIKE = "Unable to allocate 140. GiB for an array with shape (40320, 29000, 8)\nand data type complex128"
+
+
+@pytest.mark.parametrize("where", ["plan_rig", "mimo_loci"])
+def test_a_memory_error_is_one_line_and_exit_2(monkeypatch, where):
     import howl.model.plan as plan_mod
     from howl.cli import app
 
     def boom(*_a, **_k):
-        raise MemoryError("Unable to allocate 140. GiB for an array with shape (40320, 29000, 8)\nand data type complex128")
+        raise MemoryError(_NUMPY_LIKE)
 
-    monkeypatch.setattr(plan_mod, "plan_rig", boom)
-    res = CliRunner().invoke(app, args)
+    if where == "plan_rig":  # the statistical plan
+        monkeypatch.setattr(plan_mod, "plan_rig", boom)
+        args = ["plan", "--json"]
+    else:  # deep in the generalized Nyquist margin, where issue 17's error came from
+        monkeypatch.setattr(mimo, "_track_loci", boom)
+        args = ["plan", str(REPO / "examples" / "council_delegates.toml"), "--method", "images"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = CliRunner().invoke(app, args)
     lines = [ln for ln in res.stderr.splitlines() if not ln.startswith("howl: warning:")]
     assert res.exit_code == 2, (res.exit_code, res.stderr, res.exception)
     assert len(lines) == 1 and lines[0].startswith("howl: error: "), res.stderr
