@@ -162,3 +162,87 @@ def test_modules_stay_a_size_a_reader_can_hold():
     big = {m: n for m, p in _all_modules().items() if (n := len(p.read_text(encoding="utf-8").splitlines())) > 650}
     grown = {m: n for m, n in big.items() if n > OVERSIZE.get(m, 650)}
     assert not grown, grown
+
+
+#: The function-length rule (DEVELOPERS.md, Layout): a function or method longer than this many lines
+#: (from its ``def`` line to its last line, docstring and nested functions included) must say why in
+#: its docstring, on a line starting with LONG_MARKER ("Long because the five stages share ...").
+MAX_FUNCTION_LINES = 80
+LONG_MARKER = "Long because"
+
+#: Functions past the limit with no reason given, each with its length when it was listed
+#: (qualified as module.Class.method or module.outer.inner): they may shrink, never grow. Shorten one
+#: (or give its reason) and strike it off: the list fails when a listed function is gone or short.
+LONG_FUNCTIONS = {
+    "howl.cli.ringout.ringout_report": 97,
+    "howl.cli.sheet.register": 89,
+    "howl.cli.sheet.register.sheet": 87,
+    "howl.listen.detect.Detector.__init__": 84,
+    "howl.loop._ringout_graphic.graphic_search": 91,
+    "howl.loop._ringout_search._choose_cuts": 109,
+    "howl.loop.ringout.ring_out": 132,
+    "howl.measure.audio.PortAudioBackend.play_record": 90,
+    "howl.model._rigfile._room_from_dict": 102,
+    "howl.model._rigfile._rig_from_dict": 181,
+    "howl.model.images.image_source_ir": 100,
+    "howl.model.images.plan_with_images": 109,
+    "howl.model.placement.statistical_margins": 155,
+    "howl.model.placement.margin_map": 109,
+    "howl.model.plan._plan_core": 170,
+    "howl.report._page._mic_table_blocks": 105,
+    "howl.report._page._cuts_blocks": 81,
+    "howl.report.sheet.build_sheet_data": 84,
+}
+
+
+def _functions_in(tree: ast.AST, mod: str) -> list[tuple[str, int, bool]]:
+    """(qualified name, length in lines, gives a reason?) of every function and method in a parsed module."""
+    out = []
+
+    def visit(node, prefix):
+        for child in ast.iter_child_nodes(node):
+            if isinstance(child, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                name = f"{prefix}.{child.name}"
+                doc = ast.get_docstring(child) or ""
+                reason = any(line.strip().startswith(LONG_MARKER) for line in doc.splitlines())
+                out.append((name, child.end_lineno - child.lineno + 1, reason))
+                visit(child, name)
+            elif isinstance(child, ast.ClassDef):
+                visit(child, f"{prefix}.{child.name}")
+            else:
+                visit(child, prefix)
+
+    visit(tree, mod)
+    return out
+
+
+def _long_without_reason() -> dict[str, int]:
+    found = []
+    for mod, path in _all_modules().items():
+        found += _functions_in(ast.parse(path.read_text(encoding="utf-8")), mod)
+    return {name: n for name, n, reason in found if n > MAX_FUNCTION_LINES and not reason}
+
+
+def test_functions_stay_short_or_say_why():
+    grown = {name: f"{n} lines (listed: {LONG_FUNCTIONS.get(name, MAX_FUNCTION_LINES)})"
+             for name, n in _long_without_reason().items() if n > LONG_FUNCTIONS.get(name, MAX_FUNCTION_LINES)}
+    assert not grown, (f"functions past {MAX_FUNCTION_LINES} lines with no '{LONG_MARKER} ...' line in their "
+                       f"docstring (shorten them, or give the reason): {grown}")
+
+
+def test_the_list_of_long_functions_stays_honest():
+    long = _long_without_reason()
+    stale = sorted(name for name in LONG_FUNCTIONS if name not in long)
+    assert not stale, f"listed in LONG_FUNCTIONS but gone, now short, or now giving a reason (strike them off): {stale}"
+
+
+def test_the_function_length_check_counts_lines_and_reads_the_reason():
+    # derived by construction: def line + docstring line(s) + 88 body lines
+    body = "\n".join(f"        x{i} = {i}" for i in range(88))
+    src = (f'class C:\n    def bare(self):\n        """Doc."""\n{body}\n\n'
+           f'    def told(self):\n        """Doc.\n\n        {LONG_MARKER} the table is one piece.\n'
+           f'        """\n{body}\n'
+           f'\n\ndef outer():\n    def inner():\n        return 1\n    return inner\n')
+    found = {name: (n, reason) for name, n, reason in _functions_in(ast.parse(src), "m")}
+    assert found == {"m.C.bare": (90, False), "m.C.told": (93, True),
+                     "m.outer": (4, False), "m.outer.inner": (2, False)}

@@ -6,9 +6,9 @@ imports them by name (``COMMANDS``), so ``python -X importtime -m howl ...``
 shows each one; a module that is not listed yet is still found and registered
 (and ``tests/cli/test_cli.py`` asks for it to be listed).
 
-This is the one place where a :class:`howl.errors.HowlError` becomes a
-one-line message on stderr and exit status 2. Start-up stays light: command
-modules import only typer and the standard library at module level; numpy,
+This is the one place where a :class:`howl.errors.HowlError` (or a ``MemoryError``,
+with what to reduce) becomes a one-line message on stderr and exit status 2. Start-up
+stays light: command modules import only typer and the standard library at module level; numpy,
 scipy, matplotlib and sounddevice are imported inside the command bodies.
 """
 
@@ -97,12 +97,33 @@ class _HowlGroup(TyperGroup):
         except HowlError as exc:
             typer.echo(f"howl: error: {exc}", err=True)
             raise typer.Exit(code=2) from None
+        except MemoryError as exc:  # numpy's allocation error is one; never a traceback
+            typer.echo(_memory_line(exc, ctx.invoked_subcommand), err=True)
+            raise typer.Exit(code=2) from None
         except KeyboardInterrupt as exc:
             signum = _signal_of(exc)
             with contextlib.suppress(OSError):  # after SIGHUP the terminal may be gone
                 typer.echo("howl: interrupted" if signum is None else f"howl: stopped by {signal.Signals(signum).name}",
                            err=True)
             raise typer.Exit(code=130 if signum is None else 128 + signum) from None
+
+
+#: What to reduce when a command runs out of memory (options it really has); others get the default.
+_MEMORY_HINTS = {
+    "plan": "fewer bands (a lower --fraction), fewer open mics, or --method statistical",
+    "map": "a coarser grid (a larger --step-m), a smaller --area, a lower --max-order or fewer bands (--fraction)",
+    "margin": "a shorter loop IR (--trim-s) or fewer IR files",
+    "ringout": "a shorter loop IR (--trim-s) or a lower --sample-rate-hz",
+    "simulate": "a shorter program or a shorter --tail-s",
+}
+
+
+def _memory_line(exc: MemoryError, command: str | None) -> str:
+    """A memory error as one line: what ran out, and what to reduce."""
+    what = " ".join(str(exc).split()) or "not enough memory"
+    hint = _MEMORY_HINTS.get(command or "", "a smaller input (fewer mics or bands, shorter files)")
+    where = f"'howl {command}' " if command else ""
+    return f"howl: error: {where}ran out of memory ({what}); reduce the work: {hint}"
 
 
 def _signal_of(exc: BaseException) -> int | None:

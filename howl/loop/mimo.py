@@ -10,6 +10,8 @@ References
 .. [1] A. G. J. MacFarlane and I. Postlethwaite, "The generalized Nyquist
    stability criterion and multivariable root loci", Int. J. Control 25(1),
    81–127, 1977.
+.. [2] C. A. Desoer and Y.-T. Wang, "On the generalized Nyquist stability
+   criterion", IEEE Trans. Automatic Control AC-25(2), 187–196, April 1980.
 """
 
 from __future__ import annotations
@@ -117,33 +119,45 @@ class _MatrixLoop:
         return Lm
 
 
-def _track_loci(lam: np.ndarray) -> np.ndarray:
-    """Order eigenvalues along frequency so each column follows one locus (nearest neighbour)."""
-    import itertools
+#: Frequency steps matched per block in :func:`_track_loci` (bounds its scratch memory: n²·8 bytes a step).
+_TRACK_BLOCK = 4096
 
+
+def _track_loci(lam: np.ndarray) -> np.ndarray:
+    """Order eigenvalues along frequency so each column follows one locus.
+
+    Between neighbouring frequency steps the eigenvalues are paired by the assignment of least
+    total distance Σ|λ_prev[a] − λ_now[b]| (a linear sum assignment problem, solved by
+    ``scipy.optimize.linear_sum_assignment``; the same pairing an exhaustive search over all n!
+    orders finds whenever its minimum is unique, in O(n³) instead of O(n!·n)). Where every
+    eigenvalue's nearest neighbour is a different one, that pairing already attains the lower bound
+    Σ_a min_b |…| and is the optimum, so the solver runs only on the few steps where nearest
+    neighbours collide. The step pairings are then composed along frequency by a prefix scan.
+    """
     F, n = lam.shape
-    perms = list(itertools.permutations(range(n)))
-    P = np.array(perms)
-    # best permutation of row q's raw order to match row q-1's raw order
-    cost = np.abs(lam[1:, :][:, P] - lam[:-1, None, :]).sum(axis=2)  # (F-1, n_perm)
-    step = np.argmin(cost, axis=1)
-    if n == 2:  # the two orders form a group of two: the running order is the parity of the swaps
-        parity = np.concatenate([[0], np.cumsum(step != 0) % 2])
-        out = lam.copy()
-        sw = parity == 1
-        out[sw] = lam[sw][:, ::-1]
-        return out
-    index = {p: k for k, p in enumerate(perms)}
-    # table[s][c]: the permutation π with π[k] = perms[s][perms[c][k]]
-    table = [[index[tuple(perms[s_][c] for c in perms[c_])] for c_ in range(len(perms))] for s_ in range(len(perms))]
-    out = np.empty_like(lam)
-    out[0] = lam[0]
-    cur = 0  # permutation applied to row q-1 (identity)
-    for q in range(1, F):
-        # row q reordered by perms[step] matches raw row q-1; raw row q-1 was reordered by cur
-        cur = table[step[q - 1]][cur]
-        out[q] = lam[q][list(perms[cur])]
-    return out
+    if n < 2 or F < 2:
+        return lam.copy()
+    from scipy.optimize import linear_sum_assignment
+
+    ident = np.arange(n)
+    step = np.empty((F - 1, n), dtype=np.intp)  # step[q][a]: index in raw row q+1 of raw row q's entry a
+    for q0 in range(0, F - 1, _TRACK_BLOCK):
+        q1 = min(F - 1, q0 + _TRACK_BLOCK)
+        cost = np.abs(lam[q0 + 1 : q1 + 1, None, :] - lam[q0:q1, :, None])  # (block, a, b)
+        near = np.argmin(cost, axis=2)
+        for k in np.flatnonzero(np.any(np.sort(near, axis=1) != ident, axis=1)):
+            rows, cols = linear_sum_assignment(cost[k])
+            near[k, rows] = cols
+        step[q0:q1] = near
+    # order[q][e]: index in raw row q of locus e; order[q] = step[q-1][order[q-1]], order[0] = identity
+    order = np.empty((F, n), dtype=np.intp)
+    order[0] = ident
+    order[1:] = step
+    k = 1
+    while k < F:  # Hillis–Steele inclusive scan of the composition (log2 F passes)
+        order[k:] = np.take_along_axis(order[k:], order[:-k], axis=1)
+        k *= 2
+    return np.take_along_axis(lam, order, axis=1)
 
 
 def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
@@ -196,42 +210,43 @@ def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
     return x, ev[np.arange(x.size), k]
 
 
-def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
-    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [1]_.
+def _loci_loop(a: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """The loop IRs whose eigenvalue loci are followed: the smaller of two equivalent loops.
 
-    L(f)[i, j] = Σ_spk H[spk, i](f)·mix[spk, j]. The loop y = x + k·L·y loses
-    stability at the smallest broadband gain k with det(I − k·L(f)) = 0 for some
-    f, i.e. k·λ(f) = 1 for an eigenvalue λ(f) that is real and positive. The
-    eigenvalue loci are followed on a zero-padded FFT grid (nearest-neighbour
-    matching from one frequency to the next), every crossing of the positive real
-    axis is bisected with exact DTFTs, and the worst one sets the margin.
+    With H(f) (n_spk × n_mic) and the sends M (n_spk × n_mic), the mics' loop is L = Hᵀ·M
+    (n_mic × n_mic) and the loudspeakers' loop is K = M·Hᵀ (n_spk × n_spk). Sylvester's
+    determinant identity, det(I − k·AB) = det(I − k·BA), makes det(I − k·L(f)) = det(I − k·K(f)) for
+    every k and f: the same crossings and margins, and L's other n_mic − n_spk eigenvalues are 0.
+    So a rig with more mics than loudspeakers is followed on K: k[s, t] = Σ_i M[s, i]·h[t, i].
     """
-    a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
-    fs = float(sample_rate_hz)
-    lo, hi = _band(band_hz, fs)
-    l = loop_matrix(a, m)
-    n_mic = l.shape[0]
-    n = l.shape[2]
-    n_fft = max(1 << 14, _next_pow2(oversample * n))
-    Hs = np.fft.rfft(l, n_fft, axis=2)  # (i, j, F)
+    if m.shape[0] < m.shape[1]:
+        return np.einsum("tik,si->stk", a, m)
+    return loop_matrix(a, m)
+
+
+def _eigen_loci(l: np.ndarray, fs: float, lo: float, hi: float, oversample: int):
+    """Eigenvalue loci of the loop IRs ``l`` (n × n × taps) on a zero-padded FFT grid in [lo, hi]: (f, λ (F, n))."""
+    n = l.shape[0]
+    n_fft = max(1 << 14, _next_pow2(oversample * l.shape[2]))
     f_all = np.fft.rfftfreq(n_fft, 1.0 / fs)
     sel = (f_all >= lo) & (f_all <= hi)
-    f = f_all[sel]
-    Lf = np.moveaxis(Hs[:, :, sel], 2, 0)  # (F, i, j)
-    if n_mic == 2:  # closed form: λ = tr/2 ± √((tr/2)² − det)
+    Lf = np.moveaxis(np.fft.rfft(l, n_fft, axis=2)[:, :, sel], 2, 0)  # (F, i, j)
+    if n == 2:  # closed form: λ = tr/2 ± √((tr/2)² − det)
         half = 0.5 * (Lf[:, 0, 0] + Lf[:, 1, 1])
         det = Lf[:, 0, 0] * Lf[:, 1, 1] - Lf[:, 0, 1] * Lf[:, 1, 0]
         root = np.sqrt(half * half - det)
         lam = np.stack([half + root, half - root], axis=1)
     else:
-        lam = np.linalg.eigvals(Lf)  # (F, n_mic), unordered
-    if n_mic > 1:
-        lam = _track_loci(lam)
-    rad = np.max(np.abs(lam), axis=1)
-    magnitude_margin_db = -db(float(np.max(rad)))
-    # coarse crossings of every locus
+        lam = np.linalg.eigvals(Lf)  # (F, n), unordered
+    return f_all[sel], (_track_loci(lam) if n > 1 else lam)
+
+
+def _real_axis_crossings(l: np.ndarray, fs: float, f: np.ndarray, lam: np.ndarray):
+    """Every positive real-axis point of the loci: exact grid points (DC, Nyquist), the largest
+    crossings refined with exact DTFTs (:func:`_refine_loci`), the rest interpolated. (f, λ) arrays."""
+    n = lam.shape[1]
     c_e, c_i, c_r = [], [], []
-    for e in range(n_mic):
+    for e in range(n):
         z = lam[:, e]
         s = np.sign(z.imag)
         iv = np.flatnonzero((s[:-1] * s[1:] < 0) & ((z.real[:-1] > 0) | (z.real[1:] > 0)))
@@ -240,33 +255,64 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
         c_i.append(iv)
         c_r.append(z.real[iv] + t * (z.real[iv + 1] - z.real[iv]))
     c_e, c_i, c_r = (np.concatenate(v) for v in (c_e, c_i, c_r))
-    # exact real points (DC, Nyquist)
-    ex_f = [float(f[i]) for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
-    ex_v = [lam[i, e] for e in range(n_mic) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
-    cr_f, cr_v = list(ex_f), list(ex_v)
+    exact = [(i, e) for e in range(n) for i in np.flatnonzero((lam[:, e].imag == 0.0) & (lam[:, e].real > 0))]
+    cr_f = [float(f[i]) for i, e in exact]
+    cr_v = [lam[i, e] for i, e in exact]
     if c_r.size:
         order = np.argsort(-c_r)
         best = c_r[order[0]]
-        n_ref = int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1
-        ev_at = _MatrixLoop(l, fs)
-        sel = order[: min(max(n_ref, 4), 64)]
-        ii = c_i[sel]
-        fz, zc = _refine_loci(ev_at, f[ii], f[ii + 1], lam[ii, c_e[sel]], lam[ii + 1, c_e[sel]])
+        n_ref = min(max(int(np.count_nonzero(c_r >= best * from_db(-1.0))) if best > 0 else 1, 4), 64)
+        ii, ee = c_i[order[:n_ref]], c_e[order[:n_ref]]
+        fz, zc = _refine_loci(_MatrixLoop(l, fs), f[ii], f[ii + 1], lam[ii, ee], lam[ii + 1, ee])
         # a locus mismatch between grid points can fake a sign change: keep true crossings only
         for fq, zq in zip(fz, zc):
             if zq.real > 0 and abs(zq.imag) <= 1e-6 * abs(zq):
                 cr_f.append(float(fq))
                 cr_v.append(complex(zq))
-        rest_j = order[min(max(n_ref, 4), 64) :]
-        rest_j = rest_j[c_r[rest_j] > 0]
-        if rest_j.size:
-            i = c_i[rest_j]
-            za_, zb_ = lam[i, c_e[rest_j]], lam[i + 1, c_e[rest_j]]
+        rest = order[n_ref:]
+        rest = rest[c_r[rest] > 0]
+        if rest.size:
+            i = c_i[rest]
+            za_, zb_ = lam[i, c_e[rest]], lam[i + 1, c_e[rest]]
             t = za_.imag / (za_.imag - zb_.imag)
             cr_f.extend((f[i] + t * (f[i + 1] - f[i])).tolist())
-            cr_v.extend(c_r[rest_j].astype(complex).tolist())
-    cr_f = np.asarray(cr_f, dtype=float)
-    cr_v = np.asarray(cr_v, dtype=complex)
+            cr_v.extend(c_r[rest].astype(complex).tolist())
+    return np.asarray(cr_f, dtype=float), np.asarray(cr_v, dtype=complex)
+
+
+def _howl_mode(Lm: np.ndarray, lam: complex):
+    """Right eigenvector (unit norm) of the mics' loop ``Lm`` for the eigenvalue nearest ``lam``, and
+    each mic's participation |w_i·v_i|/Σ|w·v| (w the left eigenvector)."""
+    ev, vr = np.linalg.eig(Lm)
+    idx = int(np.argmin(np.abs(ev - lam)))
+    v = vr[:, idx]
+    evl, vl = np.linalg.eig(Lm.T)  # left eigenvectors: w^T L = λ w^T
+    wl = vl[:, int(np.argmin(np.abs(evl - ev[idx])))]
+    part = np.abs(wl * v)
+    part = part / part.sum() if part.sum() > 0 else part
+    return v / np.linalg.norm(v), part
+
+
+def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int = 4) -> MimoMarginResult:
+    """Generalized Nyquist margin of a multi-mic, multi-speaker loop [1]_, [2]_.
+
+    L(f)[i, j] = Σ_spk H[spk, i](f)·mix[spk, j]. The loop y = x + k·L·y loses
+    stability at the smallest broadband gain k with det(I − k·L(f)) = 0 for some
+    f, i.e. k·λ(f) = 1 for an eigenvalue λ(f) that is real and positive. The
+    eigenvalue loci (of L, or of the smaller loudspeaker-side loop with the same
+    determinant, :func:`_loci_loop`) are followed on a zero-padded FFT grid (from one
+    frequency to the next, the pairing of least total distance, :func:`_track_loci`:
+    an assignment solver, so any number of mics), every crossing of the positive real
+    axis is refined with exact DTFTs, and the worst one sets the margin.
+    """
+    a, m = _check_mimo(irs, mix_lin, sample_rate_hz)
+    fs = float(sample_rate_hz)
+    lo, hi = _band(band_hz, fs)
+    n_mic = a.shape[1]
+    side = _loci_loop(a, m)
+    f, lam = _eigen_loci(side, fs, lo, hi, oversample)
+    magnitude_margin_db = -db(float(np.max(np.abs(lam))))
+    cr_f, cr_v = _real_axis_crossings(side, fs, f, lam)
     if cr_f.size == 0:
         return MimoMarginResult(
             gain_margin_db=float("inf"), howl_freq_hz=float("nan"), worst_mic_index=-1,
@@ -278,19 +324,12 @@ def mimo_margin(irs, mix_lin, sample_rate_hz, *, band_hz=None, oversample: int =
     magnitude_margin_db = min(magnitude_margin_db, float(-db(np.max(np.abs(cr_v)))))
     w = int(np.argmax(cr_v.real))
     fh = float(cr_f[w])
-    Lm = _MatrixLoop(l, fs)(fh)
-    ev, vr = np.linalg.eig(Lm)
-    idx = int(np.argmin(np.abs(ev - cr_v[w])))
-    v = vr[:, idx]
-    evl, vl = np.linalg.eig(Lm.T)  # left eigenvectors: w^T L = λ w^T
-    wl = vl[:, int(np.argmin(np.abs(evl - ev[idx])))]
-    part = np.abs(wl * v)
-    part = part / part.sum() if part.sum() > 0 else part
+    v, part = _howl_mode(_MatrixLoop(loop_matrix(a, m), fs)(fh), cr_v[w])
     return MimoMarginResult(
         gain_margin_db=float(-db(cr_v[w].real)),
         howl_freq_hz=fh,
         worst_mic_index=int(np.argmax(part)),
-        eigenvector=v / np.linalg.norm(v),
+        eigenvector=v,
         participation=part,
         magnitude_margin_db=magnitude_margin_db,
         crossings_freq_hz=cr_f,
