@@ -1,6 +1,7 @@
 """The rig and room model: rig and room files and their validation, materials, directivity,
 room acoustics (Sabine, Eyring, ISO 9613-1 air), statistical and image-source transfer,
-the plan (PAG, NAG, the loop matrix) and the mic placement map.
+the plan (PAG, NAG, the loop matrix), the mic placement map, and the signal chain per band
+(channel high-pass and EQ, mic and loudspeaker responses, talker spectra, speech band importance).
 
 The names below are the public API; each is imported from its module on first use.
 """
@@ -58,6 +59,13 @@ _NAMES = {
     "mix_matrix": "plan",
     "peak_factor_db": "plan",
     "perron_vectors": "plan",
+    "ChainPower": "chain",
+    "chain_power": "chain",
+    "channel_response": "chain",
+    "speaker_response_db": "chain",
+    "mic_response_db": "chain",
+    "talker_band_levels_db": "chain",
+    "speech_band_importance": "chain",
     "PlacementMap": "placement",
     "margin_map": "placement",
     "map_to_json": "placement",

@@ -2,7 +2,8 @@
 
 Import the public names from :mod:`howl.rig` (``load_room``, ``load_rig``,
 ``with_changes``, ``rig_to_dict``, ``bundled_rig_path``), not from here.
-Split out of ``rig.py`` to keep modules under ~800 lines.
+Split out of ``rig.py`` to keep modules short; the what-if edits are in ``_rigedit.py`` and the
+signal chain's keys (presets, high-pass, EQ, responses, talker spectra) in ``_chainfile.py``.
 """
 
 from __future__ import annotations
@@ -30,13 +31,12 @@ from howl.model.rig import (
 
 import math as _math
 import os as _os
-import re as _re
-import tomllib as _tomllib
 import warnings as _warnings
 from pathlib import Path as _Path
 from typing import Any as _Any
 
 from howl import validate as _v
+from howl.model import _chainfile as _c
 from howl.errors import HowlWarning as _HowlWarning
 from howl.errors import InputError as _InputError
 
@@ -50,10 +50,11 @@ RIG_KEYS = (
 )
 SPEAKER_KEYS = (
     "name", "position_m", "azimuth_deg", "elevation_deg", "coverage_h_deg", "coverage_v_deg",
-    "sensitivity_db_spl_1v_1m", "directivity_file", "role", "delay_ms",
+    "sensitivity_db_spl_1v_1m", "directivity_file", "role", "delay_ms", *_c.SPEAKER_CHAIN_KEYS,
 )
-MIC_KEYS = ("name", "position_m", "azimuth_deg", "elevation_deg", "pattern", "pattern_file", "sensitivity_dbv_pa", "open")
-TALKER_KEYS = ("name", "position_m", "mic", "level_db_spl_1m")
+MIC_KEYS = ("name", "position_m", "azimuth_deg", "elevation_deg", "pattern", "pattern_file", "sensitivity_dbv_pa", "open",
+            *_c.MIC_CHAIN_KEYS)
+TALKER_KEYS = ("name", "position_m", "mic", "level_db_spl_1m", *_c.TALKER_CHAIN_KEYS)
 LISTENER_KEYS = ("name", "position_m")
 MIX_KEYS = ("name", "kind", "speakers", "gains_db")
 SPEAKER_ROLES = ("main", "fill", "delay", "monitor")
@@ -425,6 +426,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     for i, s in enumerate(_list_of_tables(_require(data, "speakers", "", file, "[[speakers]] blocks"), "speakers", file)):
         k = f"speakers[{i}]"
         _known_keys(s, k, SPEAKER_KEYS, file=file)
+        s, preset = _c.apply_preset(s, "speakers", k, file)
         sname = _name(_require(s, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(s, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         az = _angle(s, "azimuth_deg", k, file, -360.0, 360.0, None)
@@ -445,7 +447,8 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
                            f"{k}.sensitivity_db_spl_1v_1m", 50.0, 140.0, unit="dB SPL", file=file)
         role = _v.choice(s.get("role", "main"), f"{k}.role", SPEAKER_ROLES, file=file)
         delay_s = _v.in_range(s.get("delay_ms", 0.0), f"{k}.delay_ms", 0.0, 2000.0, unit="ms", file=file) / 1000.0
-        speakers.append(Speaker(sname, pos, az, el, cov[0], cov[1], sens, dfile, role, delay_s))
+        speakers.append(Speaker(sname, pos, az, el, cov[0], cov[1], sens, dfile, role, delay_s, preset,
+                                **_c.speaker_chain(s, k, file, base_dir)))
     if not speakers:
         raise _InputError("must list at least one loudspeaker", file=file, key="speakers")
     _unique([s.name for s in speakers], "speakers", file)
@@ -455,6 +458,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     for i, m in enumerate(_list_of_tables(_require(data, "mics", "", file, "[[mics]] blocks"), "mics", file)):
         k = f"mics[{i}]"
         _known_keys(m, k, MIC_KEYS, file=file)
+        m, preset = _c.apply_preset(m, "mics", k, file)
         mname = _name(_require(m, "name", k, file, "a name"), f"{k}.name", file)
         pos = _position(_require(m, "position_m", k, file, "[x, y, z] in metres"), f"{k}.position_m", room, file)
         az = _angle(m, "azimuth_deg", k, file, -360.0, 360.0, None)
@@ -474,7 +478,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
         sens = _v.in_range(_require(m, "sensitivity_dbv_pa", k, file, "output in dBV for 1 Pa"),
                            f"{k}.sensitivity_dbv_pa", -90.0, 0.0, unit="dBV/Pa", file=file)
         is_open = _boolean(m.get("open", True), f"{k}.open", file)
-        mics.append(Mic(mname, pos, az, el, pattern, pfile, sens, is_open))
+        mics.append(Mic(mname, pos, az, el, pattern, pfile, sens, is_open, preset, **_c.mic_chain(m, k, file, base_dir)))
     if not mics:
         raise _InputError("must list at least one microphone", file=file, key="mics")
     _unique([m.name for m in mics], "mics", file)
@@ -510,7 +514,7 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
                 f"talker is {d:.3g} m from mic {mic!r}'s capsule; expected at least {MIN_TALKER_MIC_DISTANCE_M:g} m",
                 file=file, key=f"{k}.position_m",
             )
-        talkers.append(Talker(tname, pos, mic, level))
+        talkers.append(Talker(tname, pos, mic, level, **_c.talker_chain(t, k, file, base_dir)))
     _unique([t.name for t in talkers], "talkers", file)
 
     # listeners
@@ -614,145 +618,7 @@ def bundled_rig_path() -> _Path:
     return _Path(__file__).resolve().parents[1] / "data" / "examples" / "chapel_lectern.toml"
 
 
-# ------------------------------------------------------------------- what-if edits ----
-
-def rig_to_dict(rig: Rig) -> dict:
-    """The rig as the dict a rig file would hold (without room_file), for edits and re-validation."""
-    def pos(p):
-        return [float(c) for c in p]
-
-    def deg(rad):  # rounded so that a round trip never leaves the valid range (e.g. 90.00000000000001)
-        return round(_math.degrees(rad), 9)
-
-    out: dict = {"name": rig.name, "description": rig.description, "notes": list(rig.notes), "fsm_db": rig.fsm_db}
-    if rig.ead_m is not None:
-        out["ead_m"] = rig.ead_m
-    if rig.target_spl_db is not None:
-        out["target_spl_db"] = rig.target_spl_db
-    out["speakers"] = []
-    for s in rig.speakers:
-        d = {
-            "name": s.name, "position_m": pos(s.position_m), "azimuth_deg": deg(s.azimuth_rad),
-            "elevation_deg": deg(s.elevation_rad), "coverage_h_deg": list(s.coverage_h_deg),
-            "coverage_v_deg": list(s.coverage_v_deg), "sensitivity_db_spl_1v_1m": s.sensitivity_db_spl_1v_1m,
-            "role": s.role, "delay_ms": round(s.delay_s * 1000.0, 9),
-        }
-        if s.directivity_file:
-            d["directivity_file"] = s.directivity_file
-        out["speakers"].append(d)
-    out["mics"] = []
-    for m in rig.mics:
-        d = {
-            "name": m.name, "position_m": pos(m.position_m), "azimuth_deg": deg(m.azimuth_rad),
-            "elevation_deg": deg(m.elevation_rad), "pattern": m.pattern,
-            "sensitivity_dbv_pa": m.sensitivity_dbv_pa, "open": m.open,
-        }
-        if m.pattern_file:
-            d["pattern_file"] = m.pattern_file
-        out["mics"].append(d)
-    out["talkers"] = [
-        {"name": t.name, "position_m": pos(t.position_m), "mic": t.mic, "level_db_spl_1m": t.level_db_spl_1m}
-        for t in rig.talkers
-    ]
-    out["listeners"] = [{"name": x.name, "position_m": pos(x.position_m)} for x in rig.listeners]
-    out["mixes"] = [
-        {"name": x.name, "kind": x.kind, "speakers": list(x.speakers), "gains_db": dict(x.gains_db)}
-        for x in rig.mixes
-    ]
-    return out
-
-
-_BARE_WORD = _re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
-_SECTIONS = {"speakers": "loudspeaker", "mics": "mic", "talkers": "talker", "listeners": "listener", "mixes": "mix"}
-_SECTION_KEYS = {"speakers": SPEAKER_KEYS, "mics": MIC_KEYS, "talkers": TALKER_KEYS, "listeners": LISTENER_KEYS,
-                 "mixes": MIX_KEYS}
-_TOP_EDITABLE = ("fsm_db", "ead_m", "target_spl_db", "name", "description")
-
-
-def _parse_value(text: str, option: str, assignment: str) -> _Any:
-    try:
-        return _tomllib.loads(f"value = {text}")["value"]
-    except (_tomllib.TOMLDecodeError, ValueError, RecursionError):
-        pass
-    if _BARE_WORD.match(text) and text not in ("true", "false", "nan", "inf"):
-        return text  # a bare word: a name or a choice (pattern=supercardioid)
-    raise _InputError(f"value {text!r} is not a TOML value (a number, true/false, \"text\" or [list])",
-                      key=f"{option} {_printable(assignment)}")
-
-
 def _printable(text: _Any) -> str:
     """The assignment as the user typed it, with control characters escaped (keeps errors on one line)."""
     s = str(text)
     return s if s.isprintable() else s.encode("unicode_escape").decode("ascii")
-
-
-def with_changes(rig: Rig, assignments: list[str] | tuple[str, ...], *, option: str = "--what-if") -> Rig:
-    """Apply what-if edits such as ``mics.lectern.pattern=supercardioid`` and re-validate.
-
-    Each assignment is ``section.name.key=value`` (sections: speakers, mics, talkers, listeners,
-    mixes; ``mixes.<mix>.gains_db.<mic>=30`` sets one gain) or ``key=value`` for a top-level
-    key (``fsm_db=3``, ``ead_m=2``, ``target_spl_db=70``). Values are TOML values; a bare word
-    is taken as a string. The result is validated exactly like a rig file; any error is an
-    :class:`InputError` that names ``option`` and the assignment.
-    """
-    import copy
-
-    base_dir = _Path(rig.source_file).parent if rig.source_file else _Path.cwd()
-    data = rig_to_dict(rig)
-    current = rig
-    for assignment in assignments:
-        where = f"{option} {_printable(assignment)}"
-        if not isinstance(assignment, str) or "=" not in assignment:
-            raise _InputError("expected key=value, e.g. mics.lectern.pattern=supercardioid",
-                              key=f"{option} {_printable(assignment)}")
-        path_s, value_s = (part.strip() for part in assignment.split("=", 1))
-        value = _parse_value(value_s, option, assignment)
-        parts = path_s.split(".")
-        trial = copy.deepcopy(data)
-        if len(parts) == 1:
-            if parts[0] not in _TOP_EDITABLE:
-                hint = _v.closest(parts[0], list(_TOP_EDITABLE) + list(_SECTIONS))
-                tail = f" (did you mean {hint!r}?)" if hint else f"; editable: {', '.join(_TOP_EDITABLE)}"
-                raise _InputError(f"unknown key {parts[0]!r}{tail}", key=where)
-            trial[parts[0]] = value
-            if parts[0] == "ead_m":
-                trial.pop("target_spl_db", None)
-            elif parts[0] == "target_spl_db":
-                trial.pop("ead_m", None)
-        else:
-            section = parts[0]
-            if section not in _SECTIONS:
-                hint = _v.closest(section, list(_SECTIONS) + list(_TOP_EDITABLE))
-                tail = f" (did you mean {hint!r}?)" if hint else f"; sections: {', '.join(_SECTIONS)}"
-                raise _InputError(f"unknown section {section!r}{tail}", key=where)
-            if len(parts) < 3:
-                raise _InputError(f"expected {section}.<name>.<key>=value", key=where)
-            names = [item["name"] for item in trial[section]]
-            item_name = parts[1]
-            if item_name not in names:
-                raise _InputError(_unknown_name(_SECTIONS[section], item_name, names), key=where)
-            item = trial[section][names.index(item_name)]
-            key = parts[2]
-            if key not in _SECTION_KEYS[section]:
-                hint = _v.closest(key, _SECTION_KEYS[section])
-                tail = f" (did you mean {hint!r}?)" if hint else f"; valid keys: {', '.join(_SECTION_KEYS[section])}"
-                raise _InputError(f"unknown key {key!r}{tail}", key=where)
-            if section == "mixes" and key == "gains_db" and len(parts) == 4:
-                item["gains_db"][parts[3]] = value
-            elif len(parts) != 3:
-                raise _InputError(f"expected {section}.<name>.<key>=value", key=where)
-            else:
-                item[key] = value
-                if section == "mics" and key == "pattern" and value != "table":
-                    item.pop("pattern_file", None)
-                if section == "mics" and key == "pattern_file":
-                    item["pattern"] = "table"
-        try:
-            with _warnings.catch_warnings():
-                _warnings.simplefilter("ignore", _HowlWarning)  # the rig's own warnings were given at load time
-                current = _rig_from_dict(trial, file=rig.source_file, base_dir=base_dir, room=rig.room,
-                                         default_name=rig.name)
-        except _InputError as exc:
-            raise _InputError(exc.message, key=where) from None
-        data = trial
-    return current

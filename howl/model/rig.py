@@ -48,6 +48,9 @@ OCTAVE_BANDS_HZ: tuple[float, ...] = (125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.
 #: Mic pattern names understood by ``howl.directivity``.
 MIC_PATTERNS: tuple[str, ...] = ("omni", "subcardioid", "cardioid", "supercardioid", "hypercardioid", "figure8")
 
+#: Talker source spectra: ANSI S3.5-1997 speech at four vocal efforts, or flat (see howl.model.chain).
+TALKER_SPECTRA: tuple[str, ...] = ("normal", "raised", "loud", "shouted", "flat")
+
 #: Shoebox surface names, in this order.
 SHOEBOX_SURFACES: tuple[str, ...] = ("floor", "ceiling", "wall_x0", "wall_x1", "wall_y0", "wall_y1")
 
@@ -100,6 +103,47 @@ class Room:
 
 
 @dataclass(frozen=True)
+class HighPass:
+    """A channel high-pass: a Butterworth of ``order`` (1..4) with its −3 dB point at ``freq_hz``,
+    realised as cascaded RBJ cookbook biquads (and one first-order section for odd orders) at 48 kHz."""
+
+    freq_hz: float
+    order: int = 2
+
+
+#: EQ band kinds (RBJ cookbook filters): a cut/boost bell, shelves and pass filters.
+EQ_KINDS: tuple[str, ...] = ("peaking", "low_shelf", "high_shelf", "high_pass", "low_pass")
+
+
+@dataclass(frozen=True)
+class EqBand:
+    """One band of a channel EQ: an RBJ cookbook biquad of ``kind`` (see :data:`EQ_KINDS`).
+
+    ``gain_db`` applies to peaking and shelves (0 for the pass filters); ``q`` is the cookbook Q
+    (for shelves the Q form of the cookbook; 0.7071 is the shelf slope S = 1).
+    """
+
+    kind: str
+    freq_hz: float
+    gain_db: float = 0.0
+    q: float = 0.7071067811865476
+
+
+@dataclass(frozen=True)
+class UsableRange:
+    """A loudspeaker's usable range: its −10 dB points and the roll-off slopes beyond them.
+
+    Modelled as a high-pass and a low-pass of Butterworth shape with non-integer order
+    slope/6, each placed so that it is exactly −10 dB at its point (see ``howl.model.chain``).
+    """
+
+    low_hz: float
+    high_hz: float
+    low_slope_db_per_oct: float = 24.0
+    high_slope_db_per_oct: float = 12.0
+
+
+@dataclass(frozen=True)
 class Speaker:
     """A loudspeaker. Coverage angles are −6 dB beamwidths per octave band."""
 
@@ -113,6 +157,10 @@ class Speaker:
     directivity_file: str | None = None  # table or SOFA file, resolved to an absolute path
     role: str = "main"  # "main", "fill", "delay" or "monitor" (informational)
     delay_s: float = 0.0  # electronic delay in this loudspeaker's feed (delay lines), seconds
+    preset: str | None = None  # key in howl/data/presets.toml the file started from
+    usable_range: UsableRange | None = None  # None: flat (no roll-off modelled)
+    response_file: str | None = None  # CSV frequency_hz, level_db (absolute path), instead of usable_range
+    response_table: tuple[tuple[float, float], ...] | None = None  # its (frequency_hz, level_db) rows
 
 
 @dataclass(frozen=True)
@@ -127,6 +175,11 @@ class Mic:
     pattern_file: str | None = None
     sensitivity_dbv_pa: float = -54.0
     open: bool = True  # a muted mic does not take part in the loop
+    preset: str | None = None  # key in howl/data/presets.toml the file started from
+    high_pass: HighPass | None = None  # the desk channel's high-pass; None: off
+    eq: tuple[EqBand, ...] = ()  # the desk channel's EQ bands, in signal order
+    response_file: str | None = None  # capsule response CSV frequency_hz, level_db (absolute path)
+    response_table: tuple[tuple[float, float], ...] | None = None  # its (frequency_hz, level_db) rows
 
 
 @dataclass(frozen=True)
@@ -137,6 +190,9 @@ class Talker:
     position_m: tuple[float, float, float]
     mic: str  # the mic this talker uses
     level_db_spl_1m: float = 60.0  # on-axis level at 1 m (normal speech ≈ 60 dB(A), IEC 60268-16, from memory)
+    spectrum: str = "normal"  # one of TALKER_SPECTRA, or "table" with spectrum_file
+    spectrum_file: str | None = None  # CSV frequency_hz, level_db (absolute path)
+    spectrum_table: tuple[tuple[float, float], ...] | None = None  # its (frequency_hz, level_db) rows
 
 
 @dataclass(frozen=True)
@@ -200,7 +256,7 @@ class Rig:
 
 
 
-# The loaders live in howl/_rigfile.py (kept apart to keep this module short) and are part of
+# The loaders live in howl/model/_rigfile.py (what-if edits in _rigedit.py) (kept apart to keep this module short) and are part of
 # this module's public API: ``from howl.rig import load_rig`` works. They are looked up lazily
 # (PEP 562) so that the two modules can import each other in either order.
 _LOADER_NAMES = (
@@ -212,6 +268,10 @@ _LOADER_NAMES = (
 
 
 def __getattr__(name: str):
+    if name in ("with_changes", "rig_to_dict"):
+        from howl.model import _rigedit
+
+        return getattr(_rigedit, name)
     if name in _LOADER_NAMES:
         from howl.model import _rigfile
 
