@@ -35,8 +35,6 @@ acoustic gain plus that setting.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 _TINY = 1e-30
@@ -47,49 +45,6 @@ _STEPS = 40
 
 STABILITY = ("stable", "inside_fsm", "howls")
 REACH = ("reaches_target", "short")
-
-# ANSI S3.5-1997 Table 3, one-third-octave band-importance function (average speech), 160 Hz to 8 kHz
-# (from memory; check against the standard). The chain module ships the checked table.
-_SII_THIRD_HZ = (160, 200, 250, 315, 400, 500, 630, 800, 1000, 1250, 1600, 2000, 2500, 3150, 4000, 5000, 6300, 8000)
-_SII_THIRD_I = (0.0083, 0.0095, 0.0150, 0.0289, 0.0440, 0.0578, 0.0653, 0.0711, 0.0818, 0.0844, 0.0882, 0.0898,
-                0.0868, 0.0844, 0.0771, 0.0527, 0.0364, 0.0185)
-
-
-@dataclass(frozen=True)
-class FlatChain:
-    """Stand-in for the chain's ``ChainPower`` until rig files carry a chain: flat everything."""
-
-    mic_power: np.ndarray  # (M, F)
-    speaker_power: np.ndarray  # (S, F)
-    talker_level_db: np.ndarray  # (M, F), power-sums to 0 dB
-    importance: np.ndarray  # (F,), sums to 1
-
-
-def sii_importance(freq_hz, fraction: int) -> np.ndarray:
-    """Band importance at the plan's bands: the one-third-octave table as a density per octave, times the width.
-
-    Bands outside 160 Hz–8 kHz get the density of the nearest table band tapered to 0 an octave beyond it;
-    normalised to sum 1 over the given bands (uniform if none carries weight).
-    """
-    f = np.asarray(freq_hz, float)
-    x = np.log2(f / 1000.0)
-    tx = np.log2(np.asarray(_SII_THIRD_HZ, float) / 1000.0)
-    dens = np.asarray(_SII_THIRD_I) * 3.0  # per octave
-    tx = np.concatenate([[tx[0] - 1.0], tx, [tx[-1] + 1.0]])
-    dens = np.concatenate([[0.0], dens, [0.0]])
-    w = np.interp(x, tx, dens, left=0.0, right=0.0) / float(fraction)
-    s = w.sum()
-    return w / s if s > 0 else np.full(f.size, 1.0 / f.size)
-
-
-def flat_chain(rig, freq_hz, fraction: int) -> FlatChain:
-    """No high-pass, no EQ, flat transducers, a spectrally flat talker, the SII band importance."""
-    f = np.asarray(freq_hz, float)
-    n_f = f.size
-    m, s = len(rig.mics), len(rig.speakers)
-    return FlatChain(np.ones((m, n_f)), np.ones((s, n_f)), np.full((m, n_f), -10.0 * np.log10(n_f)),
-                     sii_importance(f, fraction))
-
 
 def speech_weights(talker_level_db, importance) -> np.ndarray:
     """(M, F) weights: talker band power × band importance, each row summing to 1 (uniform if all zero)."""

@@ -403,14 +403,11 @@ def plan_rig(
 
 
 def _chain(rig: Rig, freqs: np.ndarray, fraction: int):
-    """The signal chain's band powers (mic, loudspeaker), talker spectra and band importance.
+    """The signal chain's band powers (mic, loudspeaker), talker spectra and band importance: the one place
+    the chain enters the plan (:func:`howl.model.chain.chain_power`; tests replace it to try a chain)."""
+    from howl.model.chain import chain_power
 
-    The one hook where the chain enters the plan (replaced by ``howl.model.chain.chain_power`` once rig
-    files carry a chain); until then flat transducers, no high-pass or EQ, a flat talker.
-    """
-    from howl.model._plan_limits import flat_chain
-
-    return flat_chain(rig, freqs, fraction)
+    return chain_power(rig, freqs, fraction)
 
 
 # ======================================================================================= JSON ====
