@@ -108,14 +108,25 @@ def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, qua
     return np.where(e_lo >= 0.0, -np.inf, out)
 
 
-def rings_first(limits_db) -> int:
+def rings_first(limits_db):
     """Index of the band that rings first: the smallest band limit (the first such band on a tie).
 
-    The one rule plan, map and sheet share. It looks only at the band limits on the flat-fader basis,
-    so bands past the chain's roll-off (large limits) never win.
+    The one rule plan, map and sheet share (the sheet prints the plan's). It looks only at the band
+    limits on the flat-fader basis, so bands past the chain's roll-off (large limits) never win. For a
+    (P, F) array, one index per row.
     """
     lim = np.asarray(limits_db, float)
-    return int(np.argmin(np.where(np.isnan(lim), np.inf, lim)))
+    idx = np.argmin(np.where(np.isnan(lim), np.inf, lim), axis=-1)
+    return int(idx) if np.ndim(idx) == 0 else idx
+
+
+def fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, column: int, together_band_db=None) -> dict:
+    """One fader's figures from the (N, M, M) loop matrices of N bands (or points × bands, reshaped by the
+    caller): band limits for the mean, 90 % and 10 % worst peak. Where the fader alone cannot bring a band
+    to −FSM (−inf: the other open mics keep the loop past it) and ``together_band_db`` is given, the caller
+    falls back to the together basis (see :func:`howl.model._plan_core.plan_core`)."""
+    return {q: band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, quantile=i)
+            for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
 
 
 def stability_as_set(worst_peak_db: float, fsm_db: float) -> str:
