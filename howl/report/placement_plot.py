@@ -88,7 +88,7 @@ def map_figure(m: PlacementMap, rig: Rig):
     best = m.best.get("margin_db")
     ax.set_title(
         f"{m.rig_name}: where to put mic {m.mic!r} (capsule {m.height_m:g} m above the floor, talker {m.talker_mode})\n"
-        (f"best ★ {_fmt(best)} dB at ({b[0]:g}, {b[1]:g}) m · now {_fmt(cur)} dB" if m.best.get("better", True)
+        + (f"best ★ {_fmt(best)} dB at ({b[0]:g}, {b[1]:g}) m · now {_fmt(cur)} dB" if m.best.get("better", True)
          else f"no better position in the searched area · now {_fmt(cur)} dB (best ★ {_fmt(best)} dB)"),
         fontsize=9,
     )
