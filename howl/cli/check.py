@@ -79,12 +79,14 @@ def rig_summary(rig) -> dict:
             "humidity_pct": room.humidity_pct,
             "rt60_mid_s": float(np.mean(ra.rt60_eyring_s)),
         },
-        "speakers": [{"name": s.name, "role": s.role, "position_m": list(s.position_m)} for s in rig.speakers],
+        "speakers": [{"name": s.name, "role": s.role, "position_m": list(s.position_m)} | _speaker_chain(s)
+                     for s in rig.speakers],
         "mics": [{"name": m.name, "pattern": m.pattern, "open": m.open, "position_m": list(m.position_m)}
-                 for m in rig.mics],
+                 | _mic_chain(m) for m in rig.mics],
         "n_open_mics": sum(m.open for m in rig.mics),
         "talkers": [{"name": t.name, "mic": t.mic, "distance_to_mic_m": math.dist(t.position_m, rig.mic(t.mic).position_m),
-                     "level_db_spl_1m": t.level_db_spl_1m} for t in rig.talkers],
+                     "level_db_spl_1m": t.level_db_spl_1m, "spectrum": t.spectrum, "spectrum_file": t.spectrum_file}
+                    for t in rig.talkers],
         "listeners": [{"name": x.name, "position_m": list(x.position_m)} for x in rig.listeners],
         "farthest_listener": far,
         "mixes": [{"name": x.name, "kind": x.kind, "speakers": list(x.speakers), "gains_db": dict(x.gains_db)}
@@ -93,6 +95,65 @@ def rig_summary(rig) -> dict:
         "ead_m": rig.ead_m,
         "target_spl_db": rig.target_spl_db,
     }
+
+
+def _mic_chain(m) -> dict:
+    """The chain keys of one mic in `howl check --json` (preset, channel high-pass and EQ, response file)."""
+    hp = m.high_pass
+    return {
+        "preset": m.preset, "sensitivity_dbv_pa": m.sensitivity_dbv_pa,
+        "high_pass": None if hp is None else {"freq_hz": hp.freq_hz, "order": hp.order},
+        "eq": [{"kind": b.kind, "freq_hz": b.freq_hz, "gain_db": b.gain_db, "q": b.q} for b in m.eq],
+        "response_file": m.response_file,
+    }
+
+
+def _speaker_chain(s) -> dict:
+    """The chain keys of one loudspeaker in `howl check --json` (preset, usable range or response file)."""
+    r = s.usable_range
+    return {
+        "preset": s.preset, "sensitivity_db_spl_1v_1m": s.sensitivity_db_spl_1v_1m,
+        "usable_range": None if r is None else {
+            "low_hz": r.low_hz, "high_hz": r.high_hz, "low_slope_db_per_oct": r.low_slope_db_per_oct,
+            "high_slope_db_per_oct": r.high_slope_db_per_oct},
+        "response_file": s.response_file,
+    }
+
+
+_ORDINAL = {1: "1st", 2: "2nd", 3: "3rd", 4: "4th"}
+
+
+def chain_lines(s: dict) -> list[str]:
+    """What `howl check` says about the signal chain: each channel's high-pass and EQ, each loudspeaker's range."""
+    from pathlib import Path as _P
+
+    lines = []
+    for m in s["mics"]:
+        parts = [f"preset {m['preset']}" if m["preset"] else "no preset", f"{m['sensitivity_dbv_pa']:g} dBV/Pa"]
+        hp = m["high_pass"]
+        parts.append(f"high-pass {hp['freq_hz']:g} Hz {_ORDINAL[hp['order']]} order" if hp else "no high-pass")
+        for b in m["eq"]:
+            gain = "" if b["kind"] in ("high_pass", "low_pass") else f" {b['gain_db']:+g} dB"
+            parts.append(f"{b['kind'].replace('_', '-')} {b['freq_hz']:g} Hz{gain} Q {b['q']:.2g}")
+        if m["response_file"]:
+            parts.append(f"response {_P(m['response_file']).name}")
+        lines.append(f"  mic {m['name']}: " + ", ".join(parts))
+    for x in s["speakers"]:
+        parts = [f"preset {x['preset']}" if x["preset"] else "no preset", f"{x['sensitivity_db_spl_1v_1m']:g} dB SPL 1 V/1 m"]
+        r = x["usable_range"]
+        if r:
+            parts.append(f"−10 dB at {r['low_hz']:g} Hz and {r['high_hz']:g} Hz "
+                         f"({r['low_slope_db_per_oct']:g}/{r['high_slope_db_per_oct']:g} dB per octave beyond)")
+        elif x["response_file"]:
+            parts.append(f"response {_P(x['response_file']).name}")
+        else:
+            parts.append("full range (no usable_range or response_file given)")
+        lines.append(f"  loudspeaker {x['name']}: " + ", ".join(parts))
+    if s["talkers"]:
+        lines.append("  talker spectra: " + ", ".join(
+            f"{t['name']} {t['spectrum'] if t['spectrum'] != 'table' else _P(t['spectrum_file']).name}"
+            for t in s["talkers"]) + " (ANSI S3.5-1997 speech efforts, flat, or a table)")
+    return ["chain    each channel as the desk sets it, each loudspeaker's range:"] + lines
 
 
 def summary_lines(s: dict) -> list[str]:
@@ -126,5 +187,6 @@ def summary_lines(s: dict) -> list[str]:
     aim = (f"target {s['target_spl_db']:g} dB SPL at the farthest listener" if s["target_spl_db"] is not None
            else (f"EAD {s['ead_m']:g} m" if s["ead_m"] is not None else "no target level or EAD given"))
     lines.append(f"aim      FSM {s['fsm_db']:g} dB, {aim}")
+    lines += chain_lines(s)
     lines.append("ok: the rig and its room are valid")
     return lines

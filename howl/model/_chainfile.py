@@ -263,6 +263,9 @@ def talker_chain(t: dict, key: str, file: str | None, base_dir: Path) -> dict:
                              f"{t['spectrum']!r}", file=file, key=f"{key}.spectrum")
         path, rows = read_response_table(t["spectrum_file"], f"{key}.spectrum_file", file, base_dir)
         return {"spectrum": "table", "spectrum_file": path, "spectrum_table": rows}
+    if t.get("spectrum") == "table":
+        raise InputError("spectrum = 'table' needs spectrum_file (a CSV of frequency_hz, level_db)", file=file,
+                         key=f"{key}.spectrum_file")
     spectrum = v.choice(t.get("spectrum", "normal"), f"{key}.spectrum", TALKER_SPECTRA, file=file)
     return {"spectrum": spectrum}
 

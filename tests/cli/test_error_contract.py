@@ -243,6 +243,61 @@ def _check_no_open_mic(t):
     return ["check", _rig_copy(t, lambda s: s.replace("open = true", "open = false"))], []
 
 
+# ---- the signal chain's keys (issue 17): the example's lectern mic (mics[0]) and first column (speakers[0])
+_LECTERN_HP = "high_pass = { freq_hz = 120.0, order = 2 }"
+
+
+def _chain_edit(t, old, new):
+    def edit(s):
+        assert old in s, old  # the example rig still holds the line this case edits
+        return s.replace(old, new, 1)
+    return ["check", _rig_copy(t, edit)], []
+
+
+def _check_hp_above_lp(t):
+    return _chain_edit(t, _LECTERN_HP, _LECTERN_HP + '\neq = [{ kind = "low_pass", freq_hz = 100.0 }]')
+
+
+def _check_hp_order_zero(t):
+    return _chain_edit(t, _LECTERN_HP, "high_pass = { freq_hz = 120.0, order = 0 }")
+
+
+def _check_hp_order_negative(t):
+    return _chain_edit(t, _LECTERN_HP, "high_pass = { freq_hz = 120.0, order = -2 }")
+
+
+def _check_missing_response_file(t):
+    return _chain_edit(t, _LECTERN_HP, _LECTERN_HP + '\nresponse_file = "no_such_capsule.csv"')
+
+
+def _check_unknown_preset(t):
+    return _chain_edit(t, 'preset = "column-loudspeaker"', 'preset = "column-speaker"')
+
+
+def _check_malformed_table(t):
+    (t / "capsule.csv").write_text("frequency_hz, level_db\n100, -3\n1000, loud\n", encoding="utf-8")
+    return _chain_edit(t, _LECTERN_HP, _LECTERN_HP + '\nresponse_file = "capsule.csv"')
+
+
+def _check_table_not_increasing(t):
+    (t / "column.csv").write_text("100, -3\n1000, 0\n800, -1\n", encoding="utf-8")
+    return _chain_edit(t, 'usable_range = { low_hz = 110.0, high_hz = 15000.0 }   # this pair',
+                       'response_file = "column.csv"  # this pair')
+
+
+def _check_range_inverted(t):
+    return _chain_edit(t, "usable_range = { low_hz = 110.0, high_hz = 15000.0 }",
+                       "usable_range = { low_hz = 15000.0, high_hz = 110.0 }")
+
+
+def _check_unknown_spectrum(t):
+    return _chain_edit(t, 'spectrum = "raised"', 'spectrum = "whispered"')
+
+
+def _check_eq_unknown_kind(t):
+    return _chain_edit(t, _LECTERN_HP, _LECTERN_HP + '\neq = [{ kind = "bell", freq_hz = 2500.0, gain_db = -3.0 }]')
+
+
 CASES = [
     ("simulate -o PROGRAM", _sim_out_is_program, ["--out", "input"]),
     ("simulate -o IR", _sim_out_is_ir, ["--out", "input"]),
@@ -282,6 +337,20 @@ CASES = [
     ("check: listener on a loudspeaker", _check_listener_on_speaker, ["rig.toml", "listener", "loudspeaker"]),
     ("check: no open mic", _check_no_open_mic, ["rig.toml", "no open mic"]),
     ("check: a 5 MB rig", _check_huge_rig, ["rig.toml", "MB"]),
+    ("check: high-pass above low-pass", _check_hp_above_lp, ["rig.toml", "mics[0].high_pass", "low-pass", "120 Hz"]),
+    ("check: high-pass order 0", _check_hp_order_zero, ["rig.toml", "mics[0].high_pass.order", "got 0"]),
+    ("check: high-pass order -2", _check_hp_order_negative, ["rig.toml", "mics[0].high_pass.order", "got -2"]),
+    ("check: missing response file", _check_missing_response_file,
+     ["rig.toml", "mics[0].response_file", "not found", "no_such_capsule.csv"]),
+    ("check: unknown preset", _check_unknown_preset,
+     ["rig.toml", "speakers[0].preset", "column-speaker", "column-loudspeaker", "howl presets"]),
+    ("check: malformed response table", _check_malformed_table,
+     ["rig.toml", "mics[0].response_file", "capsule.csv", "line 3"]),
+    ("check: response table not increasing", _check_table_not_increasing,
+     ["rig.toml", "speakers[0].response_file", "column.csv", "line 3", "increase"]),
+    ("check: usable range inverted", _check_range_inverted, ["rig.toml", "speakers[0].usable_range.high_hz"]),
+    ("check: unknown talker spectrum", _check_unknown_spectrum, ["rig.toml", "talkers[0].spectrum", "whispered"]),
+    ("check: unknown EQ kind", _check_eq_unknown_kind, ["rig.toml", "mics[0].eq[0].kind", "bell", "peaking"]),
 ]
 
 # internal names that must never reach the user in place of the option they typed

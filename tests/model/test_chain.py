@@ -214,3 +214,102 @@ def test_chain_power_band_average_is_the_mean_over_the_band_not_the_centre():
     assert cp.mic_power[0, 0] > 1.2 * r8c / (1 + r8c)  # well above the centre value
     assert cp.mic_power[0, 1] == pytest.approx(1.0, abs=0.01)
     assert np.allclose(cp.mic_power[1:], 1.0)
+
+
+# ------------------------------------------------------------ presets and the rig keys ----
+import tomllib  # noqa: E402
+
+from howl.errors import InputError  # noqa: E402
+
+PRESETS = tomllib.loads((REPO / "howl" / "data" / "presets.toml").read_text(encoding="utf-8"))
+
+
+def _chapel(tmp_path, edit=lambda s: s) -> Path:
+    text = (REPO / "examples" / "chapel_lectern.toml").read_text(encoding="utf-8")
+    text = text.replace('room_file = "../rooms/', f'room_file = "{(REPO / "rooms").as_posix()}/')
+    p = tmp_path / "rig.toml"
+    p.write_text(edit(text), encoding="utf-8")
+    return p
+
+
+@pytest.mark.parametrize("name", sorted(PRESETS["mics"]))
+def test_every_mic_preset_loads_with_its_values(name):
+    rig = with_changes(load_rig(REPO / "examples" / "chapel_lectern.toml"), [f"mics.lectern.preset={name}"])
+    m = rig.mic("lectern")
+    assert m.preset == name and m.pattern == PRESETS["mics"][name]["pattern"]
+    assert m.sensitivity_dbv_pa == PRESETS["mics"][name]["sensitivity_dbv_pa"]
+    assert m.high_pass == HighPass(120.0, 2)  # the channel's own setting stays
+
+
+@pytest.mark.parametrize("name", sorted(PRESETS["speakers"]))
+def test_every_speaker_preset_loads_with_its_values(name):
+    rig = with_changes(load_rig(REPO / "examples" / "chapel_lectern.toml"), [f"speakers.column_north.preset={name}"])
+    s, p = rig.speaker("column_north"), PRESETS["speakers"][name]
+    assert s.preset == name and s.sensitivity_db_spl_1v_1m == p["sensitivity_db_spl_1v_1m"]
+    cov = p["coverage_h_deg"]
+    assert s.coverage_h_deg == (tuple(float(x) for x in cov) if isinstance(cov, list) else (float(cov),) * 7)
+    r = p["usable_range"]
+    assert (s.usable_range.low_hz, s.usable_range.high_hz) == (r["low_hz"], r["high_hz"])
+    # a preset set by --what-if brings all of its values (the wedges' role too); else the rig's "main" stays
+    assert s.role == p.get("role", "main")
+
+
+def test_the_rig_overrides_a_preset_key_by_key():
+    rig = load_rig(REPO / "examples" / "blackbox_vocals_wedges.toml")
+    vox = rig.mic("vox_a")
+    assert vox.preset == "handheld-cardioid-vocal-mic" and vox.pattern == "cardioid"
+    assert vox.sensitivity_dbv_pa == -54.5  # the rig's value, not the preset's −54
+    chapel = load_rig(REPO / "examples" / "chapel_lectern.toml")
+    r = chapel.speaker("column_north").usable_range  # rig gives low_hz/high_hz, the preset the slopes
+    col = PRESETS["speakers"]["column-loudspeaker"]["usable_range"]
+    assert (r.low_hz, r.high_hz) == (110.0, 15000.0)
+    assert (r.low_slope_db_per_oct, r.high_slope_db_per_oct) == (col["low_slope_db_per_oct"], col["high_slope_db_per_oct"])
+    wedge = with_changes(rig, ["mics.vox_a.pattern=supercardioid"]).mic("vox_a")
+    assert wedge.pattern == "supercardioid" and wedge.preset == "handheld-cardioid-vocal-mic"
+
+
+def test_unknown_preset_is_one_input_error_listing_the_known(tmp_path):
+    p = _chapel(tmp_path, lambda s: s.replace('preset = "lapel-omni"', 'preset = "lapel-cardioid"', 1))
+    with pytest.raises(InputError) as e:
+        load_rig(p)
+    assert e.value.key == "mics[2].preset" and "lapel-omni" in str(e.value) and "\n" not in str(e.value)
+
+
+def test_what_if_keeps_every_chain_key(tmp_path):
+    (tmp_path / "capsule.csv").write_text("frequency_hz,level_db\n50,-12\n1000,0\n5000,4\n15000,-6\n", encoding="utf-8")
+    (tmp_path / "voice.csv").write_text("100,-20\n10000,0\n", encoding="utf-8")
+    p = _chapel(tmp_path, lambda s: s.replace(
+        'spectrum = "normal"', 'spectrum_file = "voice.csv"', 1).replace(
+        "high_pass = { freq_hz = 120.0, order = 2 }", 'high_pass = { freq_hz = 120.0, order = 2 }\n'
+        'response_file = "capsule.csv"\neq = [{ kind = "peaking", freq_hz = 3150.0, gain_db = -4.0, q = 2.0 }]', 1))
+    rig = load_rig(p)
+    again = with_changes(rig, ["fsm_db=5"])
+    for a, b in zip(rig.mics + rig.speakers + rig.talkers, again.mics + again.speakers + again.talkers):
+        assert a == b
+    assert rig.mic("lectern").response_table[0] == (50.0, -12.0)
+    reader = [t for t in rig.talkers if t.name == "reader"][0]
+    assert reader.spectrum == "table" and reader.spectrum_table == ((100.0, -20.0), (10000.0, 0.0))
+    # derived: a table rising 20 dB over 20 third octaves rises 1 dB per third between its ends
+    lv = talker_band_levels_db(reader, band_centres_hz(3, 200, 5000), 3)
+    np.testing.assert_allclose(np.diff(lv), 1.0, atol=1e-9)
+    # the capsule table, 0 dB at 1 kHz (its stated sensitivity), +4 dB at 5 kHz
+    assert mic_response_db(rig.mic("lectern"), np.array([1000.0, 5000.0])) == pytest.approx([0.0, 4.0])
+    # a what-if back to a named spectrum drops the file
+    t2 = with_changes(rig, ["talkers.reader.spectrum=shouted"]).talkers[1]
+    assert t2.spectrum == "shouted" and t2.spectrum_file is None
+
+
+def test_a_speaker_response_file_replaces_the_preset_range(tmp_path):
+    (tmp_path / "column.csv").write_text("80,-10\n200,-1\n1000,0\n16000,-10\n", encoding="utf-8")
+    p = _chapel(tmp_path, lambda s: s.replace(
+        "usable_range = { low_hz = 110.0, high_hz = 15000.0 }   # this pair", 'response_file = "column.csv"  # this', 1))
+    s = load_rig(p).speakers[0]
+    assert s.usable_range is None and s.response_table[0] == (80.0, -10.0)
+    assert speaker_response_db(s, np.array([80.0])) == pytest.approx([-10.0])
+
+
+def test_spectrum_table_without_a_file_is_refused(tmp_path):
+    p = _chapel(tmp_path, lambda s: s.replace('spectrum = "raised"', 'spectrum = "table"', 1))
+    with pytest.raises(InputError) as e:
+        load_rig(p)
+    assert e.value.key == "talkers[0].spectrum_file"

@@ -216,3 +216,36 @@ def test_check_and_plan_agree_on_mutated_rigs(tmp_path_factory, data):
     else:
         err = c.output.strip().splitlines()
         assert len(err) == 1 and "rig.toml" in err[0] or "room.toml" in err[0], c.output
+
+
+# the signal chain's keys (issue 17), mutated the same way
+CHAIN_RIG = copy.deepcopy(RIG)
+CHAIN_RIG["speakers"][0] |= {"preset": "two-way-12in-point-source",
+                             "usable_range": {"low_hz": 60.0, "high_hz": 16000.0, "low_slope_db_per_oct": 24.0}}
+CHAIN_RIG["mics"][0] |= {"preset": "gooseneck-small-diaphragm-cardioid", "high_pass": {"freq_hz": 120.0, "order": 2},
+                         "eq": [{"kind": "peaking", "freq_hz": 2500.0, "gain_db": -3.0, "q": 2.0},
+                                {"kind": "low_pass", "freq_hz": 16000.0}]}
+CHAIN_RIG["talkers"][0] |= {"spectrum": "raised"}
+
+
+@seed(19006)
+@SETTINGS
+@given(data=st.data())
+def test_mutated_chain_keys_load_or_raise_input_error(tmp_path_factory, data):
+    folder = _folder(tmp_path_factory, "fuzz_chain")
+    (folder / "room.toml").write_text(dumps_toml(ROOM), encoding="utf-8")
+    (folder / "resp.csv").write_text("100,-3\n1000,0\n10000,-6\n", encoding="utf-8")
+    rig = copy.deepcopy(CHAIN_RIG)
+    if data.draw(st.booleans()):
+        rig["mics"][1]["response_file"] = data.draw(st.sampled_from(["resp.csv", "room.toml", "missing.csv", ""]))
+    rig = _mutate(rig, data)
+    p = folder / "rig.toml"
+    p.write_text(dumps_toml(rig), encoding="utf-8")
+    _check(load_rig, p)
+
+
+def test_the_unmutated_chain_rig_loads(tmp_path):
+    from test_rig import write_case
+
+    rig = load_rig(write_case(tmp_path, CHAIN_RIG))
+    assert rig.mics[0].high_pass.order == 2 and rig.speakers[0].usable_range.low_hz == 60.0
