@@ -81,13 +81,30 @@ def _rings(rig_path, edits=(), **kw):
     return r, [m.limiting_band_hz for m in r.mics]
 
 
+def _with_high_pass(rig, hp):
+    from dataclasses import replace
+
+    return replace(rig, mics=tuple(replace(m, high_pass=hp) if m.name.startswith("vox") else m for m in rig.mics))
+
+
 def test_a_150_hz_high_pass_moves_rings_first_off_the_bottom_band_and_back():
-    # issue 17's check: a 2nd-order 150 Hz high-pass on the vocal channels (rig keys of howl.model.chain)
-    r0, flat = _rings(BLACKBOX)
-    assert all(f == pytest.approx(r0.bands_hz[0]) for f in flat)  # the issue's finding: no high-pass rings at the bottom
-    r1, hp = _rings(BLACKBOX, [f"mics.vox_a.{_HP}", f"mics.vox_b.{_HP}"])
-    assert all(f > 120.0 for f in hp) and r1.rings_first_hz > 120.0  # off the bottom band (100 Hz)
-    _, back = _rings(BLACKBOX)  # the high-pass taken out again: the plan is the flat one, bottom band again
+    # issue 17's check: a 2nd-order 150 Hz high-pass on the vocal channels (howl.model.chain's HighPass)
+    from howl.model.rig import HighPass
+
+    def rings(rig):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            r = pl.plan_rig(rig)
+        return r, [m.limiting_band_hz for m in r.mics]
+
+    bare = _with_high_pass(load_rig(BLACKBOX), None)
+    r0, flat = rings(bare)
+    # the issue's finding: with no high-pass the low end rings first (the bottom bands, 100-125 Hz; the example's
+    # loudspeakers roll off below about 60 Hz, so not always the very bottom band any more)
+    assert all(f <= 126.0 for f in flat)
+    r1, hp = rings(_with_high_pass(bare, HighPass(150.0, 2)))
+    assert all(f > 150.0 for f in hp) and r1.rings_first_hz > 150.0  # moved up, above the cut-off
+    _, back = rings(_with_high_pass(bare, None))  # the high-pass taken out again
     assert back == flat
 
 
@@ -176,7 +193,7 @@ def test_eq_could_buy_is_the_band_headroom_past_the_flat_fader_limit():
     for m in obj["mics"]:
         buy = [v for v in m["eq_could_buy_band_db"] if v is not None]
         assert min(buy) == pytest.approx(0.0, abs=0.011)  # the band that rings first has nothing left
-        k = obj["bands_hz"].index(m["rings_first_hz"])
+        k = int(np.argmin(np.abs(np.asarray(obj["bands_hz"]) - m["rings_first_hz"])))
         assert m["eq_could_buy_band_db"][k] == pytest.approx(0.0, abs=0.011)
         assert m["limiting_band_hz"] == m["limiting_channel_band_hz"] == m["rings_first_hz"]
 
