@@ -110,6 +110,26 @@ def _nag(rig, fw, m):
     return target - (tlevel[:, None] + _pdb(unaided)), ead, note
 
 
+def _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs):
+    """Per active mic, per loudspeaker it feeds: the predicted worst-peak loop gain (dB) of that one pair alone
+    (the loop mic → its send to that loudspeaker → the room → the mic) at the stated settings, and its band:
+    what a measurement of that pair's loop should show (its phase-blind margin is minus this figure)."""
+    sp = np.asarray(chain.speaker_power, float)
+    mp = np.asarray(chain.mic_power, float)
+    out = []
+    for col, k in enumerate(act):
+        pairs = []
+        for s in np.flatnonzero(e[:, col] > 0):
+            g = e[s, col] ** 2 * mp[k] * sp[s]
+            d, r = tr.direct_power[s, k] * g, tr.reverberant_power[s, k] * g
+            wp = _pdb(d + r) + np.asarray(peak_fn(d / np.maximum(r, _TINY))[0], float)
+            b = int(np.argmax(wp))
+            pairs.append({"speaker": rig.speakers[s].name, "worst_peak_loop_gain_db": float(wp[b]),
+                          "band_hz": float(freqs[b])})
+        out.append(pairs)
+    return out
+
+
 def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics, chain):
     """The plan of ``rig`` on one basis; returns :class:`howl.model.plan.PlanResult`. Long (about 110 lines):
     one pass from loop matrices to per-mic figures, kept together so the order of the basis is readable."""
@@ -172,6 +192,7 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
     nag_w = lim.weighted_db(nag_band, weights)
     spk_pos = np.array([s.position_m for s in rig.speakers], float)
     mic_objs = [rig.mics[k] for k in act]
+    pair_peaks = _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs)
     out = []
     for col, mc in enumerate(mic_objs):
         bl = lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col)
@@ -208,6 +229,7 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
             eq_could_buy_band_db=eq_buy, eq_could_buy_db=float(weighted_db_finite(eq_buy, weights[col])),
             pag_together_db=float(ag_w[col] + together), davis_speaker=rig.speakers[si].name if si >= 0 else None,
             gains_db={mx.name: g for mx in rig.mixes for mn, g in mx.gains_db if mn == mc.name},
+            pairs=tuple(pair_peaks[col]),
         ))
     assumptions = list(ASSUMPTIONS)
     if ead_note:

@@ -263,6 +263,7 @@ class MicPlan:
     davis_speaker: str | None = None  # the loudspeaker whose D1 and D2 give the worst Davis PAG
     gains_db: dict = field(default_factory=dict)  # the rig's stated gain of this mic per mix
     pag_basis: str = "own_fader"  # "together" when the other mics alone keep the loop past -FSM
+    pairs: tuple = ()  # per fed loudspeaker: that pair's predicted worst-peak loop gain alone (dB) and its band
 
 
 @dataclass(frozen=True)
@@ -466,6 +467,8 @@ def plan_to_json(result: PlanResult) -> dict:
             "davis_loudspeaker": mp.davis_speaker,
             "gains_db": {k: _num(v) for k, v in mp.gains_db.items()},
             "pag_basis": mp.pag_basis,
+            "pairs": [{"speaker": q["speaker"], "worst_peak_loop_gain_db": _num(q["worst_peak_loop_gain_db"]),
+                       "band_hz": _num(q["band_hz"], 1)} for q in mp.pairs],
             "loop_gain_db": _arr(mp.loop_gain_db),
             "worst_peak_loop_gain_db": _arr(mp.worst_peak_loop_gain_db),
             "pag_band_db": _arr(mp.pag_band_db),

@@ -214,19 +214,21 @@ def _measured_table_blocks(data: SheetData) -> list[_Block]:
     if not data.measured:
         return []
     cols = [
-        ("loop", "MEASURED LOOP", 0.26),
-        ("gm", "PHASE-AWARE\nmargin dB", 0.15),
-        ("mm", "PHASE-BLIND\nmargin dB", 0.15),
-        ("hz", "HOWLS FIRST\nat", 0.14),
-        ("mark", "DON'T GO PAST", 0.15),
-        ("verdict", "VERDICT", 0.15),
+        ("loop", "MEASURED LOOP", 0.22),
+        ("gm", "PHASE-AWARE\nmargin dB", 0.13),
+        ("mm", "PHASE-BLIND\nmargin dB", 0.13),
+        ("plan", "PLANNED\nsame pair, blind", 0.13),
+        ("hz", "HOWLS FIRST\nat", 0.12),
+        ("mark", "DON'T GO PAST", 0.13),
+        ("verdict", "VERDICT", 0.14),
     ]
     head_h, row_h, title_h = 24.0, 26.0, 16.0
 
     def make(chunk, first):
         def draw(page: _Page, y: float) -> None:
             page.text(page.left, y + 11, f"MEASURED {data.measured_date}" + ("" if first else " (continued)"), size=10, weight="bold")
-            page.text(page.right, y + 11, "dB relative to the settings during the measurement", size=7, ha="right")
+            page.text(page.right, y + 11, "measured: dB at the settings during the measurement; PLANNED: at the rig's "
+                      "stated gains", size=7, ha="right")
             yh = y + title_h
             page.rect(page.left, yh, page.width, head_h, lw=0, fill=_LIGHT)
             x = page.left
@@ -244,6 +246,7 @@ def _measured_table_blocks(data: SheetData) -> list[_Block]:
                 page.text(xs["loop"][0] + 4, base, m.label, size=10, weight="bold", max_w=xs["loop"][1] - 6)
                 page.text(xs["gm"][0] + 4, base, _num(m.gain_margin_db), size=12, weight="bold", max_w=xs["gm"][1] - 6)
                 page.text(xs["mm"][0] + 4, base, _num(m.magnitude_margin_db), size=12, max_w=xs["mm"][1] - 6)
+                page.text(xs["plan"][0] + 4, base, _num(m.planned_magnitude_margin_db), size=12, max_w=xs["plan"][1] - 6)
                 page.text(xs["hz"][0] + 4, base, _hz(m.howl_freq_hz, exact=True), size=12, max_w=xs["hz"][1] - 6)
                 page.text(xs["mark"][0] + 4, base, f"{_num(m.max_channel_gain_db)} dB", size=14, weight="bold", max_w=xs["mark"][1] - 6)
                 _verdict(page, xs["verdict"][0] + 6, base, m.verdict, 11, xs["verdict"][1] - 6)

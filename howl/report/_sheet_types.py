@@ -48,6 +48,7 @@ class MeasuredLine:
     howl_freq_hz: float
     max_channel_gain_db: float  # the measured "don't go past" mark
     verdict: str
+    planned_magnitude_margin_db: float | None = None  # the plan's prediction for the same pair (phase-blind)
 
     @property
     def label(self) -> str:

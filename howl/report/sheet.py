@@ -667,6 +667,7 @@ def build_sheet_data(
                     howl_freq_hz=float(mr.howl_freq_hz),
                     max_channel_gain_db=measured_mark_db(gm, mm, fsm),
                     verdict=measured_verdict(gm, mm, fsm),
+                    planned_magnitude_margin_db=_planned_pair(plan_json, pair.speaker, pair.mic),
                 )
             )
             curves.append(_measured_curve(pair, mr, f"measured via {pair.speaker}"))
@@ -707,6 +708,16 @@ def build_sheet_data(
         rings_first_hz=_f((plan_json or {}).get("rings_first_hz")),
         what_if=tuple(str(w) for w in (plan_json or {}).get("what_if", ()) or ()),
     )
+
+
+def _planned_pair(plan_json: dict | None, speaker: str, mic: str) -> float | None:
+    """The plan's phase-blind margin of one loudspeaker → mic pair (minus its predicted worst peak), if planned."""
+    for m in (plan_json or {}).get("mics", []):
+        if m.get("name") == mic:
+            for q in m.get("pairs", []) or []:
+                if q.get("speaker") == speaker and _f(q.get("worst_peak_loop_gain_db")) is not None:
+                    return -float(q["worst_peak_loop_gain_db"])
+    return None
 
 
 def _settings(session: Session | None) -> tuple[tuple[str, float], ...]:

@@ -202,3 +202,22 @@ def test_what_if_rig_api_matches_the_cli():
     rig = with_changes(load_rig(BLACKBOX), ["mixes.mains.gains_db.vox_a=20"])
     assert dict(rig.mixes[0].gains_db)["vox_a"] == 20.0 or any(
         dict(mx.gains_db).get("vox_a") == 20.0 for mx in rig.mixes)
+
+
+def test_a_pairs_prediction_is_the_whole_loop_when_one_mic_feeds_one_loudspeaker():
+    # derived: with one mic and one loudspeaker the loop matrix is 1×1, so the pair's loop is the whole loop and
+    # its predicted worst peak equals the rig's; with two loudspeakers each pair is less than the whole (powers add)
+    room = Room("r", 20000.0, 5000.0, (Surface("average", 5000.0, "x", (0.3,) * 7),), (60.0, 40.0, 10.0))
+    spk = (Speaker("main", (12.0, 10.0, 3.0), math.pi, -0.2, (90.0,) * 7, (60.0,) * 7, 100.0),
+           Speaker("fill", (14.0, 14.0, 3.0), math.pi, -0.2, (90.0,) * 7, (60.0,) * 7, 100.0))
+    mic = Mic("m", (10.0, 10.0, 1.5), math.pi, 0.0, "cardioid", None, -54.0)
+    base = dict(talkers=(Talker("t", (9.5, 10.0, 1.5), "m", 60.0),), listeners=(Listener("back", (40.0, 10.0, 1.5)),),
+                ead_m=3.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = pl.plan_rig(Rig("1", room, spk[:1], (mic,), mixes=(Mix("mains", ("main",), (("m", 20.0),)),), **base))
+        two = pl.plan_rig(Rig("2", room, spk, (mic,), mixes=(Mix("mains", ("main", "fill"), (("m", 20.0),)),), **base))
+    assert one.mics[0].pairs[0]["worst_peak_loop_gain_db"] == pytest.approx(
+        float(np.max(one.worst_peak_spectral_radius_db)), abs=1e-9)
+    assert [q["speaker"] for q in two.mics[0].pairs] == ["main", "fill"]
+    assert all(q["worst_peak_loop_gain_db"] < float(np.max(two.worst_peak_spectral_radius_db)) for q in two.mics[0].pairs)

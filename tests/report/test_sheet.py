@@ -331,6 +331,22 @@ def test_a_measured_loop_is_printed_beside_the_planned_limit_labelled_by_its_pai
     assert "MEASURED 2026-11-30" in text
 
 
+@needs_poppler
+def test_each_measured_pair_has_the_plans_prediction_for_that_pair_beside_it(measured):
+    pdf, margins, sheet = measured
+    plan = _cli_json(["plan", str(bundled_rig_path()), "--json"])
+    words = _words(pdf)
+    aware = [w for w in words if w[4] == "PHASE-AWARE"]
+    rows = _table_rows(words, ["MEASURED", "PHASE-AWARE", "PHASE-BLIND", "PLANNED", "HOWLS"],
+                       ["column_north", "column_south"], below_y=aware[0][1] - 5.0)
+    for spk, mic in (("column_north", "lectern"), ("column_south", "ambo")):
+        m = next(x for x in plan["mics"] if x["name"] == mic)
+        pair = next(q for q in m["pairs"] if q["speaker"] == spk)
+        assert _close_to_print(_first_num(rows[spk]["PLANNED"]), -pair["worst_peak_loop_gain_db"]), rows[spk]
+        line = next(x for x in sheet["measured"] if x["speaker"] == spk)
+        assert line["planned_magnitude_margin_db"] == pytest.approx(-pair["worst_peak_loop_gain_db"], abs=0.011)
+
+
 # ----------------------------------------------------------------------------- the page itself
 
 
