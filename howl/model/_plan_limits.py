@@ -40,8 +40,6 @@ import numpy as np
 _TINY = 1e-30
 #: Search range of a fader limit, dB from the rig's setting (a desk's range and then some).
 LIMIT_RANGE_DB = (-150.0, 150.0)
-#: Bisection steps: 300 dB / 2^40 ≈ 3e-10 dB.
-_STEPS = 40
 
 STABILITY = ("stable", "inside_fsm", "howls")
 REACH = ("reaches_target", "short")
@@ -58,54 +56,72 @@ def weighted_db(band_db, weights) -> np.ndarray:
     return np.sum(np.asarray(band_db, float) * weights, axis=-1)
 
 
+def loop_k(p_dir, p_rev) -> tuple[np.ndarray, np.ndarray]:
+    """ρ(P) and the Perron-weighted direct-to-reverberant ratio K of each (…, M, M) loop matrix."""
+    from howl.model.plan import perron_vectors
+
+    rho, right, left = perron_vectors(p_dir + p_rev)
+    k = np.einsum("fi,fij,fj->f", left, p_dir, right) / np.maximum(np.einsum("fi,fij,fj->f", left, p_rev, right),
+                                                                     _TINY)
+    return rho, k
+
+
 def worst_peak_db(p_dir, p_rev, peak_fn, quantile: int = 0) -> np.ndarray:
     """Worst-peak loop gain of the whole loop matrix per band, dB: 10·log10 ρ(P) plus the peak factor.
 
     The ONE definition every limit uses. ``peak_fn(k)`` gives the peak factor (mean, 10 %, 90 %) for the
     Perron-weighted direct-to-reverberant ratio ``k`` of each band; ``quantile`` picks which (0, 1, 2).
     """
-    from howl.model.plan import perron_vectors
-
-    p = p_dir + p_rev
-    rho, right, left = perron_vectors(p)
-    k = np.einsum("fi,fij,fj->f", left, p_dir, right) / np.maximum(np.einsum("fi,fij,fj->f", left, p_rev, right),
-                                                                     _TINY)
+    rho, k = loop_k(p_dir, p_rev)
     return 10.0 * np.log10(np.maximum(rho, _TINY)) + peak_fn(k)[quantile]
 
 
-def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, quantile: int = 0) -> np.ndarray:
+#: Fixed-point steps for the peak factor's dependence on the fader (it converges in 2-4; see band_limits_db).
+_FIXED_POINT_STEPS = 8
+
+
+def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, quantile: int = 0, *, x0=None,
+                   rho=None) -> np.ndarray:
     """Per band (F,), the flat gain x (dB from the rig's setting) at which the worst peak reaches −FSM.
 
     ``column``: the mic whose fader moves (its column of P, in every mix it feeds), or None for all open
-    mics together. +inf where that fader cannot make the band reach −FSM within :data:`LIMIT_RANGE_DB`
-    (no path), −inf where the band is past −FSM even with that fader closed (the others ring on their own).
-    Vectorised bisection over the bands: the Perron root grows with every entry of P, so the worst peak
-    grows with x (the peak factor moves a little with the direct-to-reverberant ratio; bisection still
-    finds the crossing).
+    mics together (then P scales as a whole, K and the peak factor do not change: x = −FSM − worst peak).
+    One fader: for a target Perron root c the gain is exact, g = 1/L_i(P/c), L_i the Schur complement of
+    :func:`howl.model.plan.channel_loop_gain` (scaling column i by g scales L_i by g, and
+    det(I − P/c) = det(I − P_oo/c)·(1 − L_i) vanishes first where the Perron root of P/c reaches one);
+    c = 10^(−(FSM + peak factor)/10) depends on K at that gain, so a short fixed-point iteration settles it.
+    +inf where that fader has no path in the band, −inf where the band is past −FSM even with that fader
+    closed (the other open mics keep it there on their own). ``x0``: a starting guess (e.g. the mean
+    limit when asking for a quantile); ``rho``: ρ(P) per band if known. Converged to 1e-3 dB (the JSON
+    rounds to 0.01 dB).
     """
-    n_f = p_dir.shape[0]
+    from howl.model.plan import channel_loop_gain
 
-    def excess(x):  # worst peak + FSM at gain x (dB) per band
-        g = 10.0 ** (x / 10.0)
-        if column is None:
-            sd, sr = p_dir * g[:, None, None], p_rev * g[:, None, None]
-        else:
-            sd, sr = p_dir.copy(), p_rev.copy()
-            sd[:, :, column] *= g[:, None]
-            sr[:, :, column] *= g[:, None]
-        return worst_peak_db(sd, sr, peak_fn, quantile) + fsm_db
+    if column is None:
+        return -fsm_db - worst_peak_db(p_dir, p_rev, peak_fn, quantile)
+    p = p_dir + p_rev
+    x = np.zeros(p.shape[0]) if x0 is None else np.asarray(x0, float).copy()
+    if rho is None:
+        from howl.model.plan import spectral_radius
 
-    lo = np.full(n_f, LIMIT_RANGE_DB[0])
-    hi = np.full(n_f, LIMIT_RANGE_DB[1])
-    e_lo, e_hi = excess(lo), excess(hi)
-    for _ in range(_STEPS):
-        mid = 0.5 * (lo + hi)
-        up = excess(mid) >= 0.0
-        hi = np.where(up, mid, hi)
-        lo = np.where(up, lo, mid)
-    out = 0.5 * (lo + hi)
-    out = np.where(e_hi < 0.0, np.inf, out)
-    return np.where(e_lo >= 0.0, -np.inf, out)
+        rho = spectral_radius(p)
+    for _ in range(_FIXED_POINT_STEPS):
+        gk = 10.0 ** (np.clip(x, *LIMIT_RANGE_DB) / 10.0)
+        sd, sr = p_dir.copy(), p_rev.copy()
+        sd[:, :, column] *= gk[:, None]
+        sr[:, :, column] *= gk[:, None]
+        _, k = loop_k(sd, sr)
+        c = 10.0 ** (-(fsm_db + np.asarray(peak_fn(k)[quantile], float)) / 10.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lch = channel_loop_gain(p / c[:, None, None], rho / c)[:, column]
+            g = np.where(np.isinf(lch), 0.0, np.where(lch > 0, 1.0 / np.where(lch > 0, lch, 1.0), np.inf))
+            x_new = 10.0 * np.log10(g)
+        both = np.isfinite(x_new) & np.isfinite(x)
+        done = np.all(np.abs(np.where(both, x_new, 0.0) - np.where(both, x, 0.0)) < 1e-3)
+        x = x_new
+        if done:
+            break
+    return x
 
 
 def rings_first(limits_db):
@@ -120,13 +136,16 @@ def rings_first(limits_db):
     return int(idx) if np.ndim(idx) == 0 else idx
 
 
-def fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, column: int, together_band_db=None) -> dict:
-    """One fader's figures from the (N, M, M) loop matrices of N bands (or points × bands, reshaped by the
-    caller): band limits for the mean, 90 % and 10 % worst peak. Where the fader alone cannot bring a band
-    to −FSM (−inf: the other open mics keep the loop past it) and ``together_band_db`` is given, the caller
-    falls back to the together basis (see :func:`howl.model._plan_core.plan_core`)."""
-    return {q: band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, quantile=i)
-            for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
+def fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, column: int) -> dict:
+    """One fader's band limits (N bands, or points × bands reshaped by the caller) for the mean, 90 % and
+    10 % worst peak (the quantiles start from the mean's solution)."""
+    from howl.model.plan import spectral_radius
+
+    rho = spectral_radius(p_dir + p_rev)
+    mean = band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 0, rho=rho)
+    start = np.where(np.isfinite(mean), mean, 0.0)
+    return {"mean": mean, "q90": band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 2, x0=start, rho=rho),
+            "q10": band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 1, x0=start, rho=rho)}
 
 
 def stability_as_set(worst_peak_db: float, fsm_db: float) -> str:
