@@ -177,7 +177,8 @@ def _print_gains(con, obj: dict) -> None:
         mixes += [k for k in (m.get("gains_db") or {}) if k not in mixes]
     if not mixes:
         return
-    t = Table(title="Stated gains (dB, mic → mix)", pad_edge=False)
+    con.print("stated gains the limits are relative to (dB, mic → mix):")
+    t = Table(pad_edge=False)
     t.add_column("mic")
     for k in mixes:
         t.add_column(escape(k), justify="right", no_wrap=True)
