@@ -153,8 +153,8 @@ def _print(obj: dict, m) -> None:
     con = Console(highlight=False)
     b, c = obj["best"], obj["current"]
     ny, nx = m.margin_db.shape
-    con.print(f"[bold]{obj['rig']}[/bold]: mic {obj['mic']!r}, {nx} × {ny} positions at {obj['height_m']:g} m, "
-              f"{obj['method']} model, talker {obj['talker']}")
+    con.print(f"[bold]{obj['rig']}[/bold]: mic {obj['mic']!r}, {nx} × {ny} positions, capsule height "
+              f"{obj['height_m']:g} m above the floor, {obj['method']} model, talker {obj['talker']}")
 
     def line(name, p):
         lo, hi = p["margin_spread_db"]
@@ -164,10 +164,12 @@ def _print(obj: dict, m) -> None:
 
     con.print(line("best", b) + ("" if b.get("on_grid", True) else "  (the rig's own position)"))
     con.print(line("now", c))
-    if not b.get("on_grid", True):
-        con.print("the mic's present position is already the best of the candidates")
-    elif b["margin_db"] is not None and c["margin_db"] is not None:
-        con.print(f"moving there gains {b['margin_db'] - c['margin_db']:+.1f} dB of margin (PAG − NAG, worst-peak statistics)")
+    if not b.get("better", False):
+        con.print(f"no better position in the searched area (no candidate beats the rig's own position by more than "
+                  f"the model's resolution, {obj['resolution_db']:g} dB)")
+    else:
+        con.print(f"moving there gains {b['beats_rig_by_db']:+.1f} dB of margin (PAG − NAG with that fader at its "
+                  f"limit, as howl plan computes it)")
     for n in obj.get("notes", []):
         con.print(n)
     if "plot" in obj:

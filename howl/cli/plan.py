@@ -19,8 +19,8 @@ def register(app: typer.Typer) -> None:
     @app.command(
         "plan",
         help=(
-            "Predict gain before feedback for a rig: PAG, NAG and margin per mic, the limiting band, how far each "
-            "channel may rise, and the classic Davis figures beside them. With no RIG, runs on the bundled example."
+            "Predict gain before feedback for a rig: how far each fader and all open mics together may rise, the "
+            "band that rings first, PAG, NAG, stability and reach per mic, and the classic Davis figures beside them. With no RIG, runs on the bundled example."
         ),
     )
     def plan_cmd(
@@ -106,30 +106,42 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     )
     if obj["what_if"]:
         con.print("what if: " + escape(", ".join(obj["what_if"])))
-    t = Table(title="Gain before feedback per mic (dB)", show_lines=False, pad_edge=False)
-    for col, just in (("mic", "left"), ("PAG", "right"), ("10–90 %", "right"), ("NAG", "right"),
-                      ("margin", "right"), ("limit Hz", "right"), ("max ch.", "right"), ("verdict", "left"),
-                      ("Davis PAG/NAG", "right")):
+    con.print(
+        f"all open mics together may rise {_fmt(obj.get('headroom_together_db'))} dB before the worst-peak loop gain "
+        f"reaches −FSM (rings first at {_fmt(obj.get('rings_first_hz'), '.0f')} Hz). Single-fader limits do not add: "
+        f"raising several faders each by its own 'max ch.' goes past −FSM."
+    )
+    t = Table(title="Gain before feedback per mic (dB; flat fader, the channel as the rig sets it)", pad_edge=False)
+    for col, just in (("mic", "left"), ("max ch.", "right"), ("rings Hz", "right"),
+                      ("as set", "left"), ("PAG", "right"), ("10–90 %", "right"), ("NAG", "right"),
+                      ("reach", "left"), ("EQ +", "right"), ("Davis PAG/NAG", "right")):
         t.add_column(col, justify=just, no_wrap=True)
-    style = {"stable": "green", "marginal": "yellow", "will howl": "bold red"}
+    style = {"stable": "green", "inside_fsm": "yellow", "howls": "bold red", "reaches_target": "green", "short": "yellow"}
     for m in obj["mics"]:
         lo, hi = m["pag_spread_db"]
+        rch = "reaches" if m["reach"] == "reaches_target" else f"short {_fmt(m['short_by_db'], '.1f')}"
         t.add_row(
-            escape(m["name"]), _fmt(m["pag_db"]), f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), _fmt(m["margin_db"]),
-            f"{m['limiting_band_hz']:.0f}", _fmt(m["max_channel_gain_db"]),
-            f"[{style.get(m['verdict'], '')}]{m['verdict']}[/]",
-            f"{_fmt(m['davis_pag_db'])}/{_fmt(m['davis_nag_db'])}",
+            escape(m["name"]) + ("*" if m.get("pag_basis") == "together" else ""), _fmt(m["max_channel_gain_db"]), f"{m['rings_first_hz']:.0f}",
+            f"[{style.get(m['stability'], '')}]{m['stability'].replace('_', ' ')}[/]", _fmt(m["pag_db"]),
+            f"{_fmt(lo)}…{_fmt(hi)}", _fmt(m["nag_db"]), f"[{style.get(m['reach'], '')}]{rch}[/]",
+            _fmt(m["eq_could_buy_db"]), f"{_fmt(m['davis_pag_db'])}/{_fmt(m['davis_nag_db'])}",
         )
     con.print(t)
+    _print_gains(con, obj)
     if obj["muted_mics"]:
         con.print("muted (not in the loop): " + escape(", ".join(obj["muted_mics"])))
     if obj["unrouted_mics"]:
         con.print("open but in no mix: " + escape(", ".join(obj["unrouted_mics"])))
     con.print(
-        "PAG: gain the talker gets at the farthest listener when all open mics are raised together until the "
-        "worst-peak loop gain is −FSM. NAG: gain needed for the target level (EAD). margin = PAG − NAG. "
-        "max ch. gain: how far that mic's own gain may rise from the rig's settings, all else fixed. "
-        "Davis: distances only, omni, free field."
+        "max ch.: how far that one fader may rise in every mix it feeds (all else as set) before the whole loop's "
+        "worst-peak loop gain reaches −FSM; rings Hz: the band where it does. as set: stable (below −FSM), inside fsm "
+        "(between −FSM and unity), howls (at or past unity). PAG: the talker's gain at the farthest listener with "
+        "that fader at its limit; NAG: gain needed for the target (EAD); both speech-weighted over the bands. "
+        "reach: PAG against NAG. EQ +: what a perfect EQ could add beyond the flat fader (speech-weighted). "
+        "Davis: distances only, omni, free field, D1 and D2 from the worst single loudspeaker."
+        + (" *: the other open mics alone keep the loop past −FSM, so this fader has no limit of its own; its PAG is "
+           "for all open mics pulled together to their common limit." if any(m.get("pag_basis") == "together"
+                                                                               for m in obj["mics"]) else "")
     )
     if bands:
         bt = Table(title="Per band: worst-peak loop gain at the stated settings (dB)")
@@ -153,3 +165,24 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
         for line in images.get("lines", []):
             con.print(escape(str(line)))
     con.print(f"[dim]{_CAUTION}[/dim]")
+
+
+def _print_gains(con, obj: dict) -> None:
+    """The gains the limits are relative to: each mic's stated gain in each mix (dB)."""
+    from rich.markup import escape
+    from rich.table import Table
+
+    mixes: list[str] = []
+    for m in obj["mics"]:
+        mixes += [k for k in (m.get("gains_db") or {}) if k not in mixes]
+    if not mixes:
+        return
+    con.print("stated gains the limits are relative to (dB, mic → mix):")
+    t = Table(pad_edge=False)
+    t.add_column("mic")
+    for k in mixes:
+        t.add_column(escape(k), justify="right", no_wrap=True)
+    for m in obj["mics"]:
+        g = m.get("gains_db") or {}
+        t.add_row(escape(m["name"]), *[_fmt(g.get(k)) if k in g else "·" for k in mixes])
+    con.print(t)

@@ -35,6 +35,9 @@ def register(app: typer.Typer) -> None:
         no_plan: bool = typer.Option(False, "--no-plan", help="Leave the room-model plan out (measured numbers only)."),
         date: Optional[str] = typer.Option(None, "--date", metavar="YYYY-MM-DD", help="Date printed on the sheet (default: today)."),
         as_json: bool = typer.Option(False, "--json", help="Print the sheet's numbers as one JSON object."),
+        what_if: list[str] = typer.Option(
+            [], "--what-if", help="Try a change without editing the file, e.g. mixes.mains.gains_db.lectern=20 (repeatable)."
+        ),
         eq: Optional[str] = _desk.EQ,
         max_bands: Optional[int] = _desk.MAX_BANDS,
         max_depth_db: Optional[float] = _desk.MAX_DEPTH,
@@ -72,6 +75,10 @@ def register(app: typer.Typer) -> None:
             )
 
             rig = load_rig(rig_file if rig_file is not None else bundled_rig_path())
+            if what_if:
+                from howl.model.rig import with_changes
+
+                rig = with_changes(rig, list(what_if))
             desk = _desk.resolve(eq=eq, max_bands=max_bands, max_depth_db=max_depth_db, max_q=max_q,
                                  min_width_oct=min_width_oct, gain_step_db=gain_step_db, graphic_q=graphic_q,
                                  base=getattr(rig, "desk", None))
@@ -87,6 +94,8 @@ def register(app: typer.Typer) -> None:
             listen_cuts = read_cuts(cuts) if cuts is not None else None
             margin_maps = [read_margin_map(m, rig) for m in maps]
             plan_json, margins, ringouts = _compute(rig, session, no_plan, ringout, desk)
+            if plan_json is not None:
+                plan_json["what_if"] = list(what_if)
             data = build_sheet_data(
                 rig, plan_json=plan_json, session=session, margins=margins, ringouts=ringouts, listen_cuts=listen_cuts,
                 margin_maps=margin_maps, date=date, desk=desk,

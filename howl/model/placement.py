@@ -42,6 +42,10 @@ from howl.model.rig import Rig
 MIN_SPEAKER_DISTANCE_M = 0.3
 
 TALKER_MODES = ("follow", "fixed")
+#: A candidate must beat the rig's own position by more than this to be called better: the model's
+#: resolution. Its inputs (absorption and patterns typical and from memory, band averages, peak statistics)
+#: do not support finer differences; our choice, no source.
+RESOLUTION_DB = 1.0
 METHODS = ("statistical", "images")
 
 
@@ -156,6 +160,8 @@ def statistical_margins(
     """
     from howl.model import directivity as _dir
     from howl.bands import band_centres_hz, band_edges_hz
+    from howl.model import _plan_limits as lim
+    from howl.model import plan as _plan
     from howl.model.plan import DEFAULT_TARGET_SPL_DB, mix_matrix, peak_factor_db, perron_vectors
     from howl.model.room import room_acoustics
     from howl.model.transfer import TALKER_Q, effective_room_constant_m2, speaker_field_pa2, statistical_transfer
@@ -167,7 +173,8 @@ def statistical_margins(
         raise InputError(f"must be (P, 3) positions, got shape {pts.shape}", key="points_m")
     freqs = np.asarray(band_centres_hz(fraction, f_lo_hz, f_hi_hz), float)
     lo_e, hi_e = band_edges_hz(freqs, fraction)
-    bw = np.asarray(hi_e) - np.asarray(lo_e)
+    lo3, hi3 = band_edges_hz(freqs, 3)  # as the plan: peak statistics over at least a third of an octave
+    bw = np.maximum(np.asarray(hi_e) - np.asarray(lo_e), np.asarray(hi3) - np.asarray(lo3))
     ac = room_acoustics(rig.room, freqs)
     tr = statistical_transfer(rig, freqs, ac)
     e_all = mix_matrix(rig)
@@ -189,8 +196,12 @@ def statistical_margins(
     ree = _dir.pattern_ree(np.array([a_coef]), freqs)[0]  # (F,)
     temp = float(rig.room.temperature_c)
     fsm = float(rig.fsm_db)
-    t_dir0 = tr.direct_power[:, act, :]
-    t_rev0 = tr.reverberant_power[:, act, :]
+    chain = _plan._chain(rig, freqs, fraction)  # the plan's one hook: the channel as the rig sets it
+    sp = np.asarray(chain.speaker_power, float)  # (S, F)
+    mp = np.asarray(chain.mic_power, float)[act]  # (M, F); the candidate keeps its channel
+    weights = lim.speech_weights(np.asarray(chain.talker_level_db, float)[[k]], chain.importance)[0]
+    t_dir0 = tr.direct_power[:, act, :] * sp[:, None, :]
+    t_rev0 = tr.reverberant_power[:, act, :] * sp[:, None, :]
 
     t_old = _talker_position(rig, k)
     m_old = np.asarray(mic.position_m, float)
@@ -225,8 +236,8 @@ def statistical_margins(
             direct_p, reverb_p, _, u = speaker_field_pa2(rig.speakers, p, freqs, ac)
             cos_m = -np.einsum("spk,pk->sp", u, aim)
             gm = _dir.mic_pattern_gain(np.full(cos_m.shape, a_coef), cos_m, freqs, temperature_c=temp)
-            cand_dir = sens2 * direct_p * gm * gm  # (S, P, F)
-            cand_rev = sens2 * reverb_p[:, None, :] * ree[None, None, :]
+            cand_dir = sens2 * direct_p * gm * gm * sp[:, None, :]  # (S, P, F)
+            cand_rev = sens2 * reverb_p[:, None, :] * ree[None, None, :] * sp[:, None, :]
             # loop power matrices (P, F, M, M) with the candidate's row replaced
             np_ = p.shape[0]
             t_dir = np.broadcast_to(t_dir0[None], (np_,) + t_dir0.shape).copy()
@@ -234,24 +245,25 @@ def statistical_margins(
             t_dir[:, :, c, :] = np.moveaxis(cand_dir, 1, 0)
             t_rev[:, :, c, :] = np.moveaxis(cand_rev, 1, 0)
             e2 = e**2
-            p_dir = np.einsum("psif,sj->pfij", t_dir, e2)
-            p_rev = np.einsum("psif,sj->pfij", t_rev, e2)
-            pm = p_dir + p_rev
-            m_ = pm.shape[-1]
-            flat = pm.reshape(-1, m_, m_)
-            rho, right, left = perron_vectors(flat)
-            k_sys = np.einsum("qi,qij,qj->q", left, p_dir.reshape(-1, m_, m_), right) / np.maximum(
-                np.einsum("qi,qij,qj->q", left, p_rev.reshape(-1, m_, m_), right), 1e-30)
-            rho = rho.reshape(np_, -1)
-            k_sys = k_sys.reshape(np_, -1)
-            pf, pf_lo, pf_hi = peak_factor_db(bw[None, :], rt60[None, :], k_sys)
-            rho_db = 10.0 * np.log10(np.maximum(rho, 1e-30))
-            if band_loop_db is not None:
+            p_dir = np.einsum("psif,sj->pfij", t_dir, e2) * mp.T[None, :, :, None]
+            p_rev = np.einsum("psif,sj->pfij", t_rev, e2) * mp.T[None, :, :, None]
+            m_ = p_dir.shape[-1]
+            if band_loop_db is not None:  # images: the band's worst peak scales with this fader (exact alone)
                 rho_peak = np.asarray(band_loop_db(p), float)
-                rho_lo_peak = rho_hi_peak = rho_peak
+                q_lim = {q: -fsm - rho_peak for q in ("mean", "q90", "q10")}
             else:
-                rho_peak = rho_db + pf
-                rho_lo_peak, rho_hi_peak = rho_db + pf_hi, rho_db + pf_lo
+                nb = freqs.size
+
+                def peak_fn(kk, _n=np_):
+                    return peak_factor_db(np.tile(bw, _n), np.tile(rt60, _n), kk)
+
+                q_lim = lim.fader_limits(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, fsm, c)
+                q_lim = {q: v.reshape(np_, nb) for q, v in q_lim.items()}
+                if not np.all(np.isfinite(q_lim["mean"].min(axis=1))):  # the others alone past -FSM somewhere
+                    wp = {q: lim.worst_peak_db(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, i)
+                          .reshape(np_, nb) for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
+                    own = np.isfinite(q_lim["mean"].min(axis=1))[:, None]
+                    q_lim = {q: np.where(own, v, -fsm - wp[q]) for q, v in q_lim.items()}
             # forward path: talker → mic (on axis: the mic is aimed at the talker) → speakers → farthest listener
             g_t = _dir.mic_pattern_gain(np.full(np_, a_coef), np.ones(np_), freqs)  # (P, F)
             u2 = sens2 * (np.exp(-air[None, :] * ds[:, None]) / (ds * ds)[:, None] * g_t * g_t
@@ -260,7 +272,8 @@ def statistical_margins(
             li = np.argmax(d0_all, axis=1)
             d0 = d0_all[np.arange(np_), li]
             e2c = e2[:, c]  # (S,)
-            amp = u2 * np.einsum("s,spf->pf", e2c, spk_dir_l[:, li, :] + spk_rev_l[:, None, :])
+            amp = u2 * mp[c][None, :] * np.einsum("s,spf->pf", e2c,
+                                                   (spk_dir_l[:, li, :] + spk_rev_l[:, None, :]) * sp[:, None, :])
             unaided = np.exp(-air[None, :] * d0[:, None]) / (d0 * d0)[:, None] + t_rev_talk[None, :]
             pdb = lambda x: 10.0 * np.log10(np.maximum(x, 1e-30))  # noqa: E731
             ag_db = pdb(amp) - pdb(unaided)
@@ -270,13 +283,15 @@ def statistical_margins(
             else:
                 target = DEFAULT_TARGET_SPL_DB if rig.target_spl_db is None else float(rig.target_spl_db)
                 nag_band = target - (tlevel + pdb(unaided))
-            margin_band = ag_db - fsm - rho_peak - nag_band
-            fi = np.argmin(margin_band, axis=1)
+            fi = lim.rings_first(q_lim["mean"])  # one rule with the plan
             rows = np.arange(np_)
-            out["margin_db"][ok] = margin_band[rows, fi]
-            out["margin_lo_db"][ok] = (ag_db - fsm - rho_lo_peak - nag_band)[rows, fi]
-            out["margin_hi_db"][ok] = (ag_db - fsm - rho_hi_peak - nag_band)[rows, fi]
+            base = q_lim["mean"][rows, fi]
+            ag_w, nag_w = ag_db @ weights, nag_band @ weights
+            out["margin_db"][ok] = ag_w + base - nag_w
+            out["margin_lo_db"][ok] = ag_w + q_lim["q90"].min(axis=1) - nag_w
+            out["margin_hi_db"][ok] = ag_w + q_lim["q10"].min(axis=1) - nag_w
             out["limiting_band_hz"][ok] = freqs[fi]
+            margin_band = ag_db + base[:, None] - nag_band
             out["azimuth_rad"][ok] = az
             out["elevation_rad"][ok] = el
             out["margin_band_db"][ok] = margin_band
@@ -448,6 +463,9 @@ def margin_map(
                      f"{nm.gain_margin_db:+.1f} dB at the rig's settings, first howl near {nm.howl_freq_hz:.0f} Hz. "
                      + IMAGES_CAUTION)
     current = point(pts_all.shape[0] - 1)
+    gain = (best["margin_db"] - current["margin_db"]) if None not in (best["margin_db"], current["margin_db"]) else None
+    best["beats_rig_by_db"] = None if gain is None else round(gain, 2)
+    best["better"] = bool(gain is not None and best["on_grid"] and gain > RESOLUTION_DB)
     return PlacementMap(
         rig_name=rig.name, mic=mic_name, method=method, talker_mode=talker, height_m=z, x_m=xs, y_m=ys,
         margin_db=margin, azimuth_deg=np.degrees(grid(res["azimuth_rad"])),
@@ -472,6 +490,8 @@ def map_to_json(m: PlacementMap) -> dict:
         "height_m": m.height_m,
         "fraction": m.fraction,
         "best": m.best,
+        "resolution_db": RESOLUTION_DB,
+        "basis": "flat fader on the channel as the rig sets it: that mic's own fader at its limit (howl plan)",
         "current": m.current,
         "grid": {
             "x_m": [round(float(v), 3) for v in m.x_m],

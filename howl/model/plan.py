@@ -76,7 +76,7 @@ from howl.model import _peak_table as pt  # the peak-factor table, shipped as da
 from howl.model import directivity as _dir
 from howl.errors import HowlWarning, InputError
 from howl.model.rig import Mic, Rig
-from howl.model.transfer import TALKER_Q, BandTransfer, effective_room_constant_m2, speaker_field_pa2, statistical_transfer
+from howl.model.transfer import statistical_transfer
 
 EULER_GAMMA = 0.5772156649015329
 #: Peak-statistics quantiles for the spread (10 % and 90 %).
@@ -254,6 +254,16 @@ class MicPlan:
     ead_m: float
     distances_m: dict = field(default_factory=dict)  # ds, d0, d1, d2 of the Davis equation
     limiting_channel_band_hz: float | None = None
+    stability: str = "stable"  # the rig as set: stable, inside_fsm, howls
+    reach: str = "reaches_target"  # at this fader's limit: reaches_target or short
+    short_by_db: float = 0.0
+    eq_could_buy_band_db: np.ndarray | None = None  # per band: what a perfect EQ could add past the fader limit
+    eq_could_buy_db: float | None = None  # speech-weighted
+    pag_together_db: float | None = None  # PAG with all open mics raised together to their common limit
+    davis_speaker: str | None = None  # the loudspeaker whose D1 and D2 give the worst Davis PAG
+    gains_db: dict = field(default_factory=dict)  # the rig's stated gain of this mic per mix
+    pag_basis: str = "own_fader"  # "together" when the other mics alone keep the loop past -FSM
+    pairs: tuple = ()  # per fed loudspeaker: that pair's predicted worst-peak loop gain alone (dB) and its band
 
 
 @dataclass(frozen=True)
@@ -277,6 +287,9 @@ class PlanResult:
     muted_mics: tuple[str, ...]
     unrouted_mics: tuple[str, ...]
     assumptions: tuple[str, ...]
+    headroom_together_db: float | None = None  # how far all open mics may rise together (worst peak to -FSM)
+    rings_first_hz: float | None = None  # the band that rings first when all rise together
+    importance: np.ndarray | None = None  # speech band-importance weights used
 
 
 ASSUMPTIONS = (
@@ -288,13 +301,18 @@ ASSUMPTIONS = (
     "that model (not Molloy's relation)",
     "talker: omni (Q = 1), at the farthest distance from its mic if several; the listener is the one farthest "
     "from the talker",
-    "PAG: all open mics raised together (the desk's balance kept) until the worst-peak loop gain reaches -FSM; "
-    "quoted in the limiting band (smallest PAG - NAG)",
+    "one basis: every headline figure is for a flat fader on the channel as the rig sets it (high-pass, EQ, "
+    "capsule and loudspeaker responses in); max ch.: that one fader raised in every mix it feeds until the whole "
+    "loop's worst-peak loop gain reaches -FSM in some band (that band rings first); together: all open mics raised "
+    "at once; single-fader limits do not add",
+    "PAG: the talker's acoustic gain at the farthest listener with its own fader at its limit; PAG and NAG both "
+    "take the unaided talker (direct and reverberant) at that listener as reference (Handbook ch. 34 Form 2), "
+    "averaged over the bands in dB with weights talker band power x speech band importance (ANSI S3.5)",
     "peaks: Schroeder statistics (Rayleigh), Rician with the loop's direct-to-reverberant ratio, over at least a "
     "third of an octave around each band centre; below the Schroeder frequency the room is modal and the peak "
     "statistics are only indicative",
-    "verdict: stable if PAG - NAG >= 0 at the 90 % worst peak, will howl if even the 10 % peak exceeds unity "
-    "loop gain at the needed gain, marginal otherwise",
+    "stability (the rig as set): stable below -FSM, inside_fsm between -FSM and unity, howls at or past unity; "
+    "reach: reaches_target when PAG >= NAG, else short; verdict (deprecated) derives from the two",
 )
 
 
@@ -379,179 +397,18 @@ def plan_rig(
 
         acoustics = room_acoustics(rig.room, freqs)
     tr = statistical_transfer(rig, freqs, acoustics, ideal_mics=ideal_mics)
-    return _plan_core(rig, tr, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics)
+    from howl.model._plan_core import plan_core
+
+    return plan_core(rig, tr, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics,
+                     _chain(rig, freqs, fraction))
 
 
-def _plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics) -> PlanResult:
-    e_all = mix_matrix(rig)
-    routed = np.any(e_all > 0, axis=0)
-    muted = tuple(m.name for m in rig.mics if not m.open)
-    unrouted = tuple(m.name for k, m in enumerate(rig.mics) if m.open and not routed[k])
-    for name in unrouted:
-        warnings.warn(f"mic {name!r} is open but in no mix that reaches a loudspeaker; it is left out of the plan",
-                      HowlWarning, stacklevel=3)
-    act = np.flatnonzero(routed)
-    if act.size == 0:
-        raise InputError("no open mic reaches any loudspeaker through the mixes; nothing to plan", key="mixes")
-    e = e_all[:, act]
-    t_dir = tr.direct_power[:, act, :]
-    t_rev = tr.reverberant_power[:, act, :]
-    p_dir = loop_power_matrix(t_dir, e)
-    p_rev = loop_power_matrix(t_rev, e)
-    p = p_dir + p_rev
-    n_f, m, _ = p.shape
-    rt60 = np.asarray(tr.rt60_s, float)
-    if not np.all(np.isfinite(rt60)):
-        raise InputError("room acoustics gave no finite RT60; cannot apply peak statistics", key="room")
+def _chain(rig: Rig, freqs: np.ndarray, fraction: int):
+    """The signal chain's band powers (mic, loudspeaker), talker spectra and band importance: the one place
+    the chain enters the plan (:func:`howl.model.chain.chain_power`; tests replace it to try a chain)."""
+    from howl.model.chain import chain_power
 
-    # system: spectral radius and its Rician K (Perron-weighted direct/reverberant split)
-    rho, right, left = perron_vectors(p)
-    k_sys = np.einsum("fi,fij,fj->f", left, p_dir, right) / np.maximum(
-        np.einsum("fi,fij,fj->f", left, p_rev, right), _TINY)
-    # channels: Schur loop gain; K from the mic's own loop
-    lch = channel_loop_gain(p, rho)  # (F, M)
-    diag = np.arange(m)
-    k_ch = p_dir[:, diag, diag] / np.maximum(p_rev[:, diag, diag], _TINY)
-    if peak_statistics:
-        pf_sys, pf_sys_lo, pf_sys_hi = peak_factor_db(bw, rt60, k_sys)
-        pf_ch, _, _ = peak_factor_db(bw[:, None], rt60[:, None], k_ch)
-    else:
-        pf_sys = pf_sys_lo = pf_sys_hi = np.zeros(n_f)
-        pf_ch = np.zeros((n_f, m))
-    rho_db = _pdb(rho)
-    rho_peak_db = rho_db + pf_sys
-    finite_l = np.isfinite(lch)
-    lch_db = np.where(finite_l, _pdb(np.where(finite_l, lch, 1.0)), np.inf)
-    lch_peak_db = lch_db + pf_ch
-
-    # stated settings
-    stated_margin = float(-np.max(rho_peak_db))
-    if stated_margin < 0:
-        f_bad = float(freqs[int(np.argmax(rho_peak_db))])
-        warnings.warn(
-            f"at the rig's stated settings the worst-peak loop gain reaches {-stated_margin:+.1f} dB "
-            f"(near {f_bad:.0f} Hz): the rig as set would howl",
-            HowlWarning, stacklevel=3,
-        )
-
-    # forward path: talker → mic → mixes → loudspeakers → listener (vectorised over mics and bands)
-    rc = effective_room_constant_m2(acoustics)
-    air = np.asarray(acoustics.air_m_inv, float)
-    lst_pos = np.array([x.position_m for x in rig.listeners], float)
-    spk_dir_l, spk_rev, spk_r_l, _ = speaker_field_pa2(rig.speakers, lst_pos, freqs, acoustics, room_constant_m2=rc,
-                                                        point_names=[x.name for x in rig.listeners],
-                                                        point_kind="listener")
-    mic_objs = [rig.mics[k] for k in act]
-    sens2 = (10.0 ** (np.array([mc.sensitivity_dbv_pa for mc in mic_objs]) / 20.0)) ** 2
-    temp = float(getattr(rig.room, "temperature_c", 20.0))
-    ree = tr.mic_ree[act] if tr.mic_ree is not None else _dir.mics_ree(mic_objs, freqs, ideal=ideal_mics,
-                                                                        temperature_c=temp)  # (M, F)
-    nom = int(m)
-    mpos = np.array([mc.position_m for mc in mic_objs], float)
-    axes = np.array([_dir.aim_vector(mc.azimuth_rad, mc.elevation_rad) for mc in mic_objs], float)
-    talk = [_talker_for(rig, mc) for mc in mic_objs]
-    tnames = [t[0] for t in talk]
-    tpos = np.array([t[1] for t in talk], float)
-    tlevel = np.array([t[2] for t in talk], float)
-    ds = np.linalg.norm(tpos - mpos, axis=-1)
-    for k in np.flatnonzero(ds < 1e-3):
-        raise InputError(f"talker {tnames[k]!r} is at mic {mic_objs[k].name!r}'s capsule (0 m); expected a "
-                         f"distance > 0", key=f"talkers.{tnames[k]}.position_m")
-    d0_all = np.linalg.norm(lst_pos[None, :, :] - tpos[:, None, :], axis=-1)  # (M, L)
-    li = np.argmax(d0_all, axis=1)
-    d0 = d0_all[np.arange(m), li]
-    for k in range(m):
-        lname = rig.listeners[li[k]].name
-        if d0[k] < 1e-3:
-            raise InputError(f"listener {lname!r} is at talker {tnames[k]!r}'s position (0 m)",
-                             key=f"listeners.{lname}.position_m")
-        if ds[k] >= d0[k]:
-            warnings.warn(
-                f"talker {tnames[k]!r} is {ds[k]:.2f} m from mic {mic_objs[k].name!r} but only {d0[k]:.2f} m from "
-                f"the farthest listener {lname!r}: the listener hears the talker better than the mic does",
-                HowlWarning, stacklevel=3,
-            )
-    # mic output per unit talker p1² (talker omni, Q = 1)
-    cos_t = np.einsum("mk,mk->m", (tpos - mpos) / ds[:, None], axes)
-    g_t = _dir.mics_gain_cos(mic_objs, cos_t, freqs, ideal=ideal_mics, temperature_c=temp)  # (M, F)
-    t_rev = 16.0 * np.pi / (TALKER_Q * rc)  # (F,)
-    u2 = sens2[:, None] * (np.exp(-air[None, :] * ds[:, None]) / (ds * ds)[:, None] * g_t * g_t + t_rev * ree)
-    e2 = e**2  # (S, M)
-    amp = u2 * np.einsum("sm,smf->mf", e2, spk_dir_l[:, li, :] + spk_rev[:, None, :])
-    unaided = np.exp(-air[None, :] * d0[:, None]) / (d0 * d0)[:, None] + t_rev[None, :]
-    ag_db = _pdb(amp) - _pdb(unaided)  # (M, F)
-    ead_note = None
-    if rig.ead_m is not None:
-        ead = np.full(m, float(rig.ead_m))
-        wanted = np.exp(-air * rig.ead_m) / rig.ead_m**2 + t_rev  # the talker heard at EAD in the same room
-        nag_band = _pdb(wanted)[None, :] - _pdb(unaided)
-    else:
-        target = rig.target_spl_db
-        if target is None:
-            target = DEFAULT_TARGET_SPL_DB
-            ead_note = (f"the rig gives neither ead_m nor target_spl_db; assuming a target of "
-                        f"{DEFAULT_TARGET_SPL_DB:g} dB SPL at the farthest listener")
-        ead = 10.0 ** ((tlevel - target) / 20.0)
-        nag_band = target - (tlevel[:, None] + _pdb(unaided))
-    pag_band = ag_db - fsm - rho_peak_db[None, :]
-    margin_band = pag_band - nag_band
-    fi = np.argmin(margin_band, axis=1)
-    rows = np.arange(m)
-    pag_lo = ag_db[rows, fi] - fsm - (rho_db[fi] + pf_sys_hi[fi])
-    pag_hi = ag_db[rows, fi] - fsm - (rho_db[fi] + pf_sys_lo[fi])
-    nag = nag_band[rows, fi]
-    # Davis distances: nearest fed loudspeaker to the mic (D1) and to the listener (D2)
-    spk_pos = np.array([s.position_m for s in rig.speakers], float)
-    d_ms = np.linalg.norm(spk_pos[:, None, :] - mpos[None, :, :], axis=-1)  # (S, M)
-    fed = e > 0
-    d1 = np.where(fed, d_ms, np.inf).min(axis=0)
-    d2 = np.where(fed, spk_r_l[:, li], np.inf).min(axis=0)
-
-    out = []
-    for col, mc in enumerate(mic_objs):
-        lname = rig.listeners[li[col]].name
-        if d2[col] < 1e-3:
-            raise InputError(f"listener {lname!r} is at a loudspeaker (0 m)", key=f"listeners.{lname}.position_m")
-        lo_, hi_, n_ = float(pag_lo[col]), float(pag_hi[col]), float(nag[col])
-        if lo_ - n_ >= 0.0:
-            verdict = "stable"
-        elif hi_ - n_ + fsm < 0.0:
-            verdict = "will howl"
-        else:
-            verdict = "marginal"
-        lp = lch_peak_db[:, col]
-        if np.all(np.isfinite(lp)):
-            ci = int(np.argmax(lp))
-            max_ch = float(-fsm - lp[ci])
-        else:
-            ci = int(np.argmax(~np.isfinite(lp)))
-            max_ch = None
-        out.append(MicPlan(
-            name=mc.name, pag_db=float(pag_band[col, fi[col]]), nag_db=n_, margin_db=float(margin_band[col, fi[col]]),
-            limiting_band_hz=float(freqs[fi[col]]), max_channel_gain_db=max_ch, verdict=verdict,
-            pag_spread_db=(lo_, hi_), davis_pag_db=davis_pag_db(ds[col], d0[col], d1[col], d2[col], nom, fsm),
-            davis_nag_db=davis_nag_db(d0[col], ead[col]), margin_spread_db=(lo_ - n_, hi_ - n_),
-            loop_gain_db=lch_db[:, col].copy(), worst_peak_loop_gain_db=lp.copy(),
-            pag_band_db=pag_band[col], nag_band_db=nag_band[col], acoustic_gain_db=ag_db[col],
-            talker=tnames[col], listener=lname, ead_m=float(ead[col]),
-            distances_m={"ds": float(ds[col]), "d0": float(d0[col]), "d1": float(d1[col]), "d2": float(d2[col])},
-            limiting_channel_band_hz=float(freqs[ci]),
-        ))
-    assumptions = list(ASSUMPTIONS)
-    if ead_note:
-        warnings.warn(ead_note, HowlWarning, stacklevel=3)
-        assumptions.append(ead_note)
-    from howl.model.room import schroeder_frequency_hz
-
-    i1k = int(np.argmin(np.abs(np.log(freqs / 1000.0))))
-    fs_hz = float(schroeder_frequency_hz(float(rt60[i1k]), float(acoustics.volume_m3)))
-    return PlanResult(
-        rig_name=rig.name, rig_file=rig.source_file, fraction=int(fraction), fsm_db=fsm, bands_hz=freqs,
-        mics=tuple(out), spectral_radius_db=rho_db,
-        worst_peak_spectral_radius_db=rho_peak_db, peak_factor_db=np.asarray(pf_sys, float),
-        rt60_s=rt60, room_constant_m2=np.asarray(rc, float), schroeder_frequency_hz=fs_hz, nom=nom,
-        stated_margin_db=stated_margin, muted_mics=muted, unrouted_mics=unrouted, assumptions=tuple(assumptions),
-    )
+    return chain_power(rig, freqs, fraction)
 
 
 # ======================================================================================= JSON ====
@@ -600,6 +457,18 @@ def plan_to_json(result: PlanResult) -> dict:
             "ead_m": _num(mp.ead_m, 3),
             "distances_m": {k: _num(v, 3) for k, v in mp.distances_m.items()},
             "limiting_channel_band_hz": _num(mp.limiting_channel_band_hz, 1),
+            "rings_first_hz": _num(mp.limiting_band_hz, 1),
+            "stability": mp.stability,
+            "reach": mp.reach,
+            "short_by_db": _num(mp.short_by_db),
+            "eq_could_buy_db": _num(mp.eq_could_buy_db),
+            "eq_could_buy_band_db": _arr(mp.eq_could_buy_band_db) if mp.eq_could_buy_band_db is not None else None,
+            "pag_together_db": _num(mp.pag_together_db),
+            "davis_loudspeaker": mp.davis_speaker,
+            "gains_db": {k: _num(v) for k, v in mp.gains_db.items()},
+            "pag_basis": mp.pag_basis,
+            "pairs": [{"speaker": q["speaker"], "worst_peak_loop_gain_db": _num(q["worst_peak_loop_gain_db"]),
+                       "band_hz": _num(q["band_hz"], 1)} for q in mp.pairs],
             "loop_gain_db": _arr(mp.loop_gain_db),
             "worst_peak_loop_gain_db": _arr(mp.worst_peak_loop_gain_db),
             "pag_band_db": _arr(mp.pag_band_db),
@@ -621,6 +490,9 @@ def plan_to_json(result: PlanResult) -> dict:
         "worst_peak_spectral_radius_db": _arr(result.worst_peak_spectral_radius_db),
         "peak_factor_db": _arr(result.peak_factor_db),
         "stated_margin_db": _num(result.stated_margin_db),
+        "headroom_together_db": _num(result.headroom_together_db),
+        "rings_first_hz": _num(result.rings_first_hz, 1),
+        "band_importance": _arr(result.importance, 4) if result.importance is not None else None,
         "room": {
             "rt60_s": _arr(result.rt60_s, 3),
             "room_constant_m2": _arr(result.room_constant_m2, 1),

@@ -210,130 +210,25 @@ def _verdict(page: _Page, x: float, y: float, verdict: str | None, size: float, 
     page.fit(t, max_w - 4)
 
 
-def _mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = "a4") -> list[_Block]:
-    """The per-mic table, split into blocks of rows that fit a page."""
-    measured_by_mic: dict[str, list[MeasuredLine]] = {}
-    for m in data.measured:
-        measured_by_mic.setdefault(m.mic, []).append(m)
-    # columns: (key, title, width fraction)
-    cols = [
-        ("mic", "MIC", 0.23),
-        ("pag", "PAG\ndB", 0.085),
-        ("nag", "NAG\ndB", 0.085),
-        ("margin", "MARGIN dB\n(spread)", 0.14),
-        ("mark", "DON'T GO PAST\nchannel gain", 0.19),
-        ("ring", "RINGS\nFIRST", 0.115),
-        ("verdict", "VERDICT\nplan: at the gain needed", 0.155),
-    ]
-    head_h = 26.0
-    row_h = 36.0 * scale
-    rows = list(data.mics)
-
-    def draw_head(page: _Page, y: float) -> None:
-        x = page.left
-        page.rect(page.left, y, page.width, head_h, lw=0, fill=_LIGHT)
-        for key, title, frac in cols:
-            w = frac * page.width
-            for i, part in enumerate(title.split("\n")):
-                page.text(x + 4, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.5, weight="bold" if i == 0 else "normal",
-                          max_w=w - 5)
-            x += w
-        page.hline(page.left, page.right, y + head_h, lw=1.0)
-
-    def draw_row(page: _Page, y: float, m: MicLine, shade: bool) -> None:
-        big = 21.0 * scale
-        mid = 13.0 * scale
-        small = max(6.5, 7.0 * scale)
-        base = y + row_h * 0.52
-        sub = y + row_h * 0.84
-        if shade:
-            page.rect(page.left, y, page.width, row_h, lw=0, fill="0.95")
-        x = page.left
-        xs = {}
-        for key, _, frac in cols:
-            xs[key] = (x, frac * page.width)
-            x += frac * page.width
-        x0, w = xs["mic"]
-        page.text(x0 + 4, base, m.name, size=mid, weight="bold", max_w=w - 6)
-        pos = ", ".join(f"{v:.1f}" for v in m.position_m)
-        page.text(x0 + 4, sub, f"{m.pattern} at ({pos}) m", size=small, color=_BLACK, max_w=w - 6)
-        page.text(xs["pag"][0] + 4, base, _num(m.pag_db, sign=False), size=mid, max_w=xs["pag"][1] - 6)
-        page.text(xs["nag"][0] + 4, base, _num(m.nag_db, sign=False), size=mid, max_w=xs["nag"][1] - 6)
-        if m.davis_pag_db is not None:
-            page.text(xs["pag"][0] + 4, sub, f"Davis {_num(m.davis_pag_db, sign=False)}", size=small, max_w=xs["pag"][1] - 6)
-        if m.davis_nag_db is not None:
-            page.text(xs["nag"][0] + 4, sub, f"Davis {_num(m.davis_nag_db, sign=False)}", size=small, max_w=xs["nag"][1] - 6)
-        page.text(xs["margin"][0] + 4, base, _num(m.margin_db), size=mid, weight="bold", max_w=xs["margin"][1] - 6)
-        if m.margin_spread_db is not None:
-            lo, hi = m.margin_spread_db
-            page.text(xs["margin"][0] + 4, sub, f"({_num(lo)} to {_num(hi)})", size=small, max_w=xs["margin"][1] - 6)
-        mx, mw = xs["mark"]
-        meas = measured_by_mic.get(m.name, [])
-        plan_verdict = m.verdict if m.is_open else "muted"
-        if meas:
-            worst = min(meas, key=lambda t: t.max_channel_gain_db)
-            mark, mark_src = worst.max_channel_gain_db, f"measured; plan {_num(m.max_channel_gain_db)}"
-            ring = _hz(worst.howl_freq_hz, exact=True)
-            verdict = worst.verdict
-            verdict_src = "measured loop"
-        else:
-            mark, mark_src = m.max_channel_gain_db, "planned"
-            ring = _band_hz(m.limiting_band_hz)
-            verdict = plan_verdict
-            verdict_src = "planned" if m.verdict and m.verdict not in ("muted", "not routed") else ""
-        if mark is None:
-            page.text(mx + 4, base, "\u2013", size=mid, weight="bold")
-            mark_src = "mic muted in the rig" if not m.is_open or m.verdict in ("muted", None) else "no limit found"
-        else:
-            page.text(mx + 4, base + 2 * scale, f"{_num(mark)} dB", size=big, weight="bold", max_w=mw - 8)
-        page.text(mx + 4, sub + 1, mark_src, size=small, color=_BLACK, max_w=mw - 6)
-        page.text(xs["ring"][0] + 4, base, ring, size=mid, max_w=xs["ring"][1] - 6)
-        _verdict(page, xs["verdict"][0] + 6, base, verdict, mid, xs["verdict"][1] - 6)
-        if verdict_src and scale >= 0.9:  # small rows: the verdict box needs the room
-            page.text(xs["verdict"][0] + 4, sub + 1, verdict_src, size=small, max_w=xs["verdict"][1] - 6)
-        page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
-
-    blocks = []
-    title_h = 16.0
-
-    def make(chunk, first):
-        def draw(page: _Page, y: float) -> None:
-            page.text(page.left, y + 11, "PER MICROPHONE" + ("" if first else " (continued)"), size=10, weight="bold")
-            page.text(page.right, y + 11, "dB relative to the rig's stated settings", size=7, ha="right")
-            draw_head(page, y + title_h)
-            yy = y + title_h + head_h
-            for i, m in enumerate(chunk):
-                draw_row(page, yy, m, i % 2 == 1)
-                yy += row_h
-
-        return _Block(title_h + head_h + row_h * len(chunk) + 8.0, draw)
-
-    # chunks that fit page 1 beside the header and the cautions (about 120 and 190 pt),
-    # so a long list breaks across pages without leaving page 1 half empty
-    page_h = PAPER_PT[paper][1]
-    n_max = max(6, int((page_h - 2 * _MARGIN_PT - 12.0 - 120.0 - 190.0 - title_h - head_h - 8.0) // row_h))
-    for i in range(0, max(len(rows), 1), n_max):
-        blocks.append(make(rows[i : i + n_max], i == 0))
-    return blocks
-
-
 def _measured_table_blocks(data: SheetData) -> list[_Block]:
     if not data.measured:
         return []
     cols = [
-        ("loop", "MEASURED LOOP", 0.26),
-        ("gm", "PHASE-AWARE\nmargin dB", 0.15),
-        ("mm", "PHASE-BLIND\nmargin dB", 0.15),
-        ("hz", "HOWLS FIRST\nat", 0.14),
-        ("mark", "DON'T GO PAST", 0.15),
-        ("verdict", "VERDICT", 0.15),
+        ("loop", "MEASURED LOOP", 0.22),
+        ("gm", "PHASE-AWARE\nmargin dB", 0.13),
+        ("mm", "PHASE-BLIND\nmargin dB", 0.13),
+        ("plan", "PLANNED\nsame pair, blind", 0.13),
+        ("hz", "HOWLS FIRST\nat", 0.12),
+        ("mark", "DON'T GO PAST", 0.13),
+        ("verdict", "VERDICT", 0.14),
     ]
     head_h, row_h, title_h = 24.0, 26.0, 16.0
 
     def make(chunk, first):
         def draw(page: _Page, y: float) -> None:
             page.text(page.left, y + 11, f"MEASURED {data.measured_date}" + ("" if first else " (continued)"), size=10, weight="bold")
-            page.text(page.right, y + 11, "dB relative to the settings during the measurement", size=7, ha="right")
+            page.text(page.right, y + 11, "measured: dB at the settings during the measurement; PLANNED: at the rig's "
+                      "stated gains", size=7, ha="right")
             yh = y + title_h
             page.rect(page.left, yh, page.width, head_h, lw=0, fill=_LIGHT)
             x = page.left
@@ -351,6 +246,7 @@ def _measured_table_blocks(data: SheetData) -> list[_Block]:
                 page.text(xs["loop"][0] + 4, base, m.label, size=10, weight="bold", max_w=xs["loop"][1] - 6)
                 page.text(xs["gm"][0] + 4, base, _num(m.gain_margin_db), size=12, weight="bold", max_w=xs["gm"][1] - 6)
                 page.text(xs["mm"][0] + 4, base, _num(m.magnitude_margin_db), size=12, max_w=xs["mm"][1] - 6)
+                page.text(xs["plan"][0] + 4, base, _num(m.planned_magnitude_margin_db), size=12, max_w=xs["plan"][1] - 6)
                 page.text(xs["hz"][0] + 4, base, _hz(m.howl_freq_hz, exact=True), size=12, max_w=xs["hz"][1] - 6)
                 page.text(xs["mark"][0] + 4, base, f"{_num(m.max_channel_gain_db)} dB", size=14, weight="bold", max_w=xs["mark"][1] - 6)
                 _verdict(page, xs["verdict"][0] + 6, base, m.verdict, 11, xs["verdict"][1] - 6)
@@ -782,7 +678,9 @@ def _layout(data: SheetData, paper: str) -> list[_Page]:
 
     def flow(panel_h: float, map_h: float, notes_size: float) -> list[_Block]:
         blocks: list[_Block] = []
-        blocks += _mic_table_blocks(proto.width, data, scale, paper)
+        from howl.report._page_mics import mic_table_blocks
+
+        blocks += mic_table_blocks(proto.width, data, scale, paper)
         blocks += _measured_table_blocks(data)
         blocks += _plot_blocks(data, panel_h, map_h)
         blocks += _cuts_blocks(data, proto)

@@ -87,8 +87,9 @@ def map_figure(m: PlacementMap, rig: Rig):
     cur = m.current.get("margin_db")
     best = m.best.get("margin_db")
     ax.set_title(
-        f"{m.rig_name}: where to put mic {m.mic!r} (height {m.height_m:g} m, talker {m.talker_mode})\n"
-        f"best ★ {_fmt(best)} dB at ({b[0]:g}, {b[1]:g}) m · now {_fmt(cur)} dB",
+        f"{m.rig_name}: where to put mic {m.mic!r} (capsule {m.height_m:g} m above the floor, talker {m.talker_mode})\n"
+        + (f"best ★ {_fmt(best)} dB at ({b[0]:g}, {b[1]:g}) m · now {_fmt(cur)} dB" if m.best.get("better", True)
+         else f"no better position in the searched area · now {_fmt(cur)} dB (best ★ {_fmt(best)} dB)"),
         fontsize=9,
     )
     fig.text(0.01, 0.01, "squares: loudspeakers with aims · filled circle: the mic now · triangle: its talker · "

@@ -61,155 +61,9 @@ PAPER_PT: dict[str, tuple[float, float]] = {
 
 MINUS = "\u2212"  # typographic minus sign on the page
 
-# ----------------------------------------------------------------------------
-# Data model
-# ----------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class MicLine:
-    """One microphone as the planner sees it (numbers from ``plan_to_json``)."""
-
-    name: str
-    pattern: str
-    position_m: tuple[float, float, float]
-    is_open: bool
-    pag_db: float | None
-    nag_db: float | None
-    margin_db: float | None
-    margin_spread_db: tuple[float, float] | None  # (low, high) of the margin
-    max_channel_gain_db: float | None  # the planned "don't go past" mark
-    limiting_band_hz: float | None  # the band that rings first
-    verdict: str | None
-    davis_pag_db: float | None = None
-    davis_nag_db: float | None = None
-
-
-@dataclass(frozen=True)
-class MeasuredLine:
-    """One measured loop (speaker → mic) with its Nyquist analysis."""
-
-    speaker: str
-    mic: str
-    ir_file: str
-    gain_margin_db: float  # phase-aware (Nyquist)
-    magnitude_margin_db: float  # phase-blind
-    howl_freq_hz: float
-    max_channel_gain_db: float  # the measured "don't go past" mark
-    verdict: str
-
-    @property
-    def label(self) -> str:
-        return f"{self.speaker} \u2192 {self.mic}"
-
-
-@dataclass(frozen=True)
-class Curve:
-    """A loop-gain curve for one panel.
-
-    ``kind`` is ``"planned"`` (per-band worst-peak loop gain from the planner,
-    drawn as steps) or ``"measured"`` (|H| of a measured loop IR).
-    ``marks`` are (freq_hz, level_db, text) points to flag (worst crossings).
-    """
-
-    panel: str  # the mic the curve belongs to
-    label: str
-    kind: str
-    freq_hz: tuple[float, ...]
-    loop_gain_db: tuple[float, ...]
-    marks: tuple[tuple[float, float, str], ...] = ()
-
-
-@dataclass(frozen=True)
-class Cut:
-    """One cut in console terms; ``gain_db`` None is a full notch."""
-
-    freq_hz: float
-    gain_db: float | None
-    q: float
-    bandwidth_oct: float
-    band: str = ""  # a graphic EQ's slider label (ISO 266 centre, "1.25k"); "" for a parametric band
-
-
-@dataclass(frozen=True)
-class CutSet:
-    """The cuts for one loop and the stable gain they buy."""
-
-    loop: str
-    source: str  # "ring-out" or "listen"
-    cuts: tuple[Cut, ...]
-    added_stable_gain_db: float | None
-    margin_before_db: float | None
-    margin_after_db: float | None
-    stopped_because: str = ""
-    advice: tuple[str, ...] = ()
-    tonal_cost_db: float | None = None  # broadband (pink) power the cuts remove
-    tonal_cost_speech_db: float | None = None  # the same, speech-weighted
-    mark_after_db: float | None = None  # measured "don't go past" with the cuts in
-    desk: str = ""  # the desk's EQ the cuts were made for (howl.report.cutlist); "" = ideal EQ
-
-
-@dataclass(frozen=True)
-class MapItem:
-    kind: str  # "speaker" | "mic" | "listener" | "talker"
-    name: str
-    x_m: float
-    y_m: float
-    azimuth_rad: float | None = None
-
-
-@dataclass(frozen=True)
-class PlacementMap:
-    """Plan view (x along the length, y along the width)."""
-
-    outline_m: tuple[float, float] | None  # (length, width) of a shoebox room, else None
-    items: tuple[MapItem, ...]
-
-
-@dataclass(frozen=True)
-class MarginMap:
-    """A placement map of one mic (the JSON of ``howl map``): margin over a floor grid."""
-
-    mic: str
-    method: str
-    height_m: float
-    x_m: tuple[float, ...]
-    y_m: tuple[float, ...]
-    margin_db: tuple[tuple[float | None, ...], ...]  # (ny, nx), None where not evaluated
-    best_position_m: tuple[float, float, float] | None
-    best_margin_db: float | None
-    current_margin_db: float | None
-
-
-@dataclass(frozen=True)
-class SheetData:
-    """Everything the page shows, already computed."""
-
-    rig_name: str
-    room_name: str
-    date: str  # ISO date the sheet was made
-    fsm_db: float
-    basis: str  # "planned", "measured" or "planned+measured"
-    basis_words: str
-    measured_date: str | None
-    mics: tuple[MicLine, ...]
-    measured: tuple[MeasuredLine, ...] = ()
-    curves: tuple[Curve, ...] = ()
-    cut_sets: tuple[CutSet, ...] = ()
-    placement: PlacementMap | None = None
-    cautions: tuple[tuple[str, str], ...] = ()  # (heading, text)
-    notes: tuple[str, ...] = ()
-    rig_file: str | None = None
-    measured_settings_db: tuple[tuple[str, float], ...] = ()  # reference gains typed in at the measurement
-    margin_maps: tuple[MarginMap, ...] = ()
-
-    def to_json(self) -> dict:
-        """The sheet's numbers as a JSON-ready dict (``howl sheet --json``)."""
-        from howl.fileio import to_jsonable
-
-        d = to_jsonable(self)
-        d["measured"] = [dict(to_jsonable(m), label=m.label) for m in self.measured]
-        return d
+from howl.report._sheet_types import (  # noqa: E402,F401  the data model, re-exported
+    Curve, Cut, CutSet, MapItem, MarginMap, MeasuredLine, MicLine, PlacementMap, SheetData,
+)
 
 
 # ----------------------------------------------------------------------------
@@ -473,12 +327,17 @@ def _mic_lines(rig, plan_json: dict | None) -> tuple[list[MicLine], list[Curve]]
                 verdict=verdict,
                 davis_pag_db=_f(m.get("davis_pag_db")),
                 davis_nag_db=_f(m.get("davis_nag_db")),
+                gains_db=tuple((str(k), float(v)) for k, v in (m.get("gains_db") or {}).items() if _f(v) is not None),
+                stability=m.get("stability"), reach=m.get("reach"), short_by_db=_f(m.get("short_by_db")),
+                pag_basis=m.get("pag_basis"),
             )
         )
         cs = _plan_mic_curves(plan_json, m) if (plan_json is not None and m) else {}
         if "worst_peak" in cs:
             f, g = cs["worst_peak"]
-            k = max(range(len(g)), key=lambda i: g[i])
+            ring_hz = _f(m.get("rings_first_hz"))  # the plan's one rule; else the highest worst peak
+            k = (min(range(len(f)), key=lambda i: abs(f[i] - ring_hz)) if ring_hz is not None
+                 else max(range(len(g)), key=lambda i: g[i]))
             curves.append(Curve(mic.name, "planned, band worst peak", "planned", f, g, ((f[k], g[k], "rings first"),)))
         if "average" in cs:
             f, g = cs["average"]
@@ -722,12 +581,16 @@ def default_notes(data_basis: str, fsm_db: float, plan_json: dict | None, has_cu
     if "planned" in data_basis:
         method = (plan_json or {}).get("method", "statistical")
         notes.append(
-            f"Planned ({method} model of the room, per band): PAG = acoustic gain at the farthest listener "
-            f"with the loop gain's expected worst peak at -FSM ({_num(fsm_db, sign=False)} dB); NAG = gain needed, "
-            "from the equivalent acoustic distance; margin = PAG - NAG in the limiting band, spread = the "
-            "planner's low-high range; Davis = the classic distance-only free-field figures. DON'T GO PAST = "
-            "the channel-gain change, relative to the rig file's settings, that keeps the loop FSM below unity. "
-            "RINGS FIRST = the band whose worst peak reaches unity first."
+            f"Planned ({method} model of the room, per band), every figure for a flat fader on the channel as the "
+            "rig sets it (high-pass, EQ, transducer responses in). DON'T GO PAST = how far that one fader may rise "
+            "in every mix it feeds, from the STATED gains, before the whole loop's expected worst peak reaches "
+            f"-FSM ({_num(fsm_db, sign=False)} dB); RINGS FIRST = the band where it does; the limit of all open "
+            "mics together is printed above the table: single-fader limits do not add. AS SET = the rig at its "
+            "stated gains: STABLE (below -FSM), INSIDE FSM (between -FSM and unity), HOWLS (at or past unity). "
+            "PAG = the talker's gain at the farthest listener with that fader at its limit, NAG = gain needed "
+            "(EAD), both speech-weighted over the bands; REACH = PAG against NAG. Davis = the classic "
+            "distance-only free-field figures, D1 and D2 from the worst single loudspeaker. A measured loop "
+            "is printed beside the plan's figure, labelled with its pair; it never replaces it."
         )
         assumed = [str(a).rstrip(".") for a in (plan_json or {}).get("assumptions", []) or []]
         if assumed:
@@ -804,6 +667,7 @@ def build_sheet_data(
                     howl_freq_hz=float(mr.howl_freq_hz),
                     max_channel_gain_db=measured_mark_db(gm, mm, fsm),
                     verdict=measured_verdict(gm, mm, fsm),
+                    planned_magnitude_margin_db=_planned_pair(plan_json, pair.speaker, pair.mic),
                 )
             )
             curves.append(_measured_curve(pair, mr, f"measured via {pair.speaker}"))
@@ -840,7 +704,20 @@ def build_sheet_data(
         rig_file=rig.source_file,
         measured_settings_db=_settings(session),
         margin_maps=tuple(margin_maps),
+        headroom_together_db=_f((plan_json or {}).get("headroom_together_db")),
+        rings_first_hz=_f((plan_json or {}).get("rings_first_hz")),
+        what_if=tuple(str(w) for w in (plan_json or {}).get("what_if", ()) or ()),
     )
+
+
+def _planned_pair(plan_json: dict | None, speaker: str, mic: str) -> float | None:
+    """The plan's phase-blind margin of one loudspeaker → mic pair (minus its predicted worst peak), if planned."""
+    for m in (plan_json or {}).get("mics", []):
+        if m.get("name") == mic:
+            for q in m.get("pairs", []) or []:
+                if q.get("speaker") == speaker and _f(q.get("worst_peak_loop_gain_db")) is not None:
+                    return -float(q["worst_peak_loop_gain_db"])
+    return None
 
 
 def _settings(session: Session | None) -> tuple[tuple[str, float], ...]:

@@ -159,3 +159,41 @@ def test_map_command_refuses_an_unknown_mic_in_one_line():
     r = CliRunner().invoke(app, ["map", "--mic", "pulpit"])
     assert r.exit_code == 2
     assert "--mic" in r.stderr and "lectern" in r.stderr
+
+
+def test_a_map_names_no_better_position_unless_one_beats_the_rig_by_more_than_the_resolution():
+    from howl.model.placement import RESOLUTION_DB
+
+    rig = make_rig()
+    # a small area around the mic's own spot: the candidates differ from it by a fraction of a dB
+    near = margin_map(rig, "lectern", area_m=(2.4, 5.9, 2.6, 6.1), step_m=0.1)
+    assert near.best["beats_rig_by_db"] <= RESOLUTION_DB
+    assert near.best["better"] is False
+    # the whole floor: somewhere far from the loudspeakers beats it by more (moving toward a loudspeaker
+    # lowers the margin, checked above; the hall is 16 m long)
+    far = margin_map(rig, "lectern", step_m=1.0)
+    assert far.best["better"] is (far.best["beats_rig_by_db"] > RESOLUTION_DB)
+    r = CliRunner().invoke(app, ["map", "--mic", "lectern", "--area", "2.5", "2.5", "3.5", "3.5", "--step-m", "0.5"])
+    assert r.exit_code == 0, r.output
+    text = " ".join(r.output.split())
+    assert ("no better position in the searched area" in text) or ("moving there gains" in text)
+    assert "above the floor" in text  # the height cannot be read as a spacing
+
+
+def test_map_applies_what_if_like_plan():
+    # the map's figure at the mic's own position is the plan's margin of the same edited rig
+    from howl.model.rig import bundled_rig_path
+
+    edits = ["--what-if", "mics.lectern.high_pass={freq_hz=150,order=2}", "--what-if", "mixes.mains.gains_db.lectern=20"]
+    r = CliRunner().invoke(app, ["map", str(bundled_rig_path()), "--mic", "lectern", "--area", "1", "1", "6", "9",
+                                 "--step-m", "2", "--json", *edits])
+    assert r.exit_code == 0, r.output
+    m = json.loads(r.stdout)
+    p = CliRunner().invoke(app, ["plan", str(bundled_rig_path()), "--json", *edits])
+    plan = json.loads(p.stdout)
+    lect = next(x for x in plan["mics"] if x["name"] == "lectern")
+    assert m["what_if"] == plan["what_if"]
+    # the map aims the mic at its talker at every point, its own included; the rig file's aim differs by a few
+    # degrees, a few hundredths of a dB of pattern gain (derived from the file's angles)
+    assert m["current"]["margin_db"] == pytest.approx(lect["margin_db"], abs=0.1)
+    assert m["current"]["limiting_band_hz"] == pytest.approx(lect["rings_first_hz"], abs=0.1)

@@ -167,7 +167,8 @@ def _margin_json(ir: Path) -> dict:
     return _cli_json(["margin", str(ir), "--json"])
 
 
-PLAN_COLUMNS = ["MIC", "PAG", "NAG", "MARGIN", "DON'T", "RINGS", "VERDICT"]
+PLAN_COLUMNS = ["MIC", "STATED", "DON'T", "MEASURED", "RINGS", "AS", "PAG", "NAG", "REACH"]
+_AS_SET = {"stable": "STABLE", "inside_fsm": "INSIDE FSM", "howls": "HOWLS"}
 
 
 # ----------------------------------------------------------------------------- fixtures
@@ -199,26 +200,50 @@ def measured(tmp_path_factory):
 
 @needs_poppler
 def test_per_mic_numbers_on_the_page_equal_the_plan_json(planned):
-    pdf, plan, _ = planned
+    _check_rows_against_plan(*planned[:2])
+
+
+def _check_rows_against_plan(pdf, plan):
     mics = [m for m in plan["mics"]]
-    assert mics, "the bundled rig plans no mic"
-    rows = _table_rows(_words(pdf), PLAN_COLUMNS, [m["name"] for m in mics])
+    assert mics, "the rig plans no mic"
+    words = _words(pdf)
+    rows = _table_rows(words, PLAN_COLUMNS, [m["name"] for m in mics])
     for m in mics:
         row = rows[m["name"]]
+        # the stated gains the limits are relative to, per mix
+        stated = " ".join(row["STATED"])
+        for mix, g in m["gains_db"].items():
+            assert f"{mix} {g:+.1f}".replace("-", "\u2212") in stated, (mix, stated)
         assert _close_to_print(_first_num(row["PAG"]), m["pag_db"]), (m["name"], row["PAG"])
         assert _close_to_print(_first_num(row["NAG"]), m["nag_db"]), (m["name"], row["NAG"])
-        assert _close_to_print(_first_num(row["MARGIN"]), m["margin_db"]), (m["name"], row["MARGIN"])
-        nums = [_num(t) for t in row["MARGIN"] if _is_num(t)]
-        lo, hi = m["margin_spread_db"]
-        assert _close_to_print(nums[1], lo) and _close_to_print(nums[2], hi), (m["name"], row["MARGIN"])
         assert _close_to_print(_first_num(row["DON'T"]), m["max_channel_gain_db"]), (m["name"], row["DON'T"])
+        assert "planned," in row["DON'T"]
         # the ring band is printed by its nominal ISO 266 label: within 3 % of the exact centre
-        ring = m.get("limiting_channel_band_hz") or m["limiting_band_hz"]
-        assert _freq_hz(row["RINGS"]) == pytest.approx(ring, rel=0.03), (m["name"], row["RINGS"])
-        assert " ".join(row["VERDICT"]).upper().startswith(m["verdict"].upper() + " PLANNED"), row["VERDICT"]
+        assert _freq_hz(row["RINGS"]) == pytest.approx(m["rings_first_hz"], rel=0.03), (m["name"], row["RINGS"])
+        assert " ".join(row["AS"]).startswith(_AS_SET[m["stability"]]), row["AS"]
+        if m["reach"] == "short":
+            assert row["REACH"][0] == "SHORT" and _close_to_print(_first_num(row["REACH"]), m["short_by_db"])
+        else:
+            assert row["REACH"][0] == "REACHES"
         # classic Davis figures beside PAG and NAG
         assert _close_to_print(_num(row["PAG"][row["PAG"].index("Davis") + 1]), m["davis_pag_db"])
         assert _close_to_print(_num(row["NAG"][row["NAG"].index("Davis") + 1]), m["davis_nag_db"])
+    text = subprocess.run(["pdftotext", "-l", "1", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
+    together = re.search(r"ALL OPEN MICS TOGETHER: don't go past (\S+) dB", text)
+    assert together and _close_to_print(_num(together[1]), plan["headroom_together_db"]), text[:400]
+    assert "Single-fader limits do not add" in text
+
+
+@needs_poppler
+def test_sheet_with_what_if_prints_the_numbers_of_plan_with_the_same_what_if(tmp_path):
+    # a 150 Hz high-pass on the lectern and a lowered ambo: the sheet and `plan --json` read the same rig
+    edits = ["--what-if", "mics.lectern.high_pass={freq_hz=150,order=2}", "--what-if", "mixes.mains.gains_db.ambo=20"]
+    rig = str(bundled_rig_path())
+    out = tmp_path / "s.pdf"
+    sheet = _cli_json(["sheet", rig, "-o", str(out), "--json", *edits])
+    plan = _cli_json(["plan", rig, "--json", *edits])
+    assert sheet["what_if"] == plan["what_if"] == edits[1::2]
+    _check_rows_against_plan(out, plan)
 
 
 @needs_poppler
@@ -289,20 +314,37 @@ def test_pure_delay_loop_prints_its_textbook_margin(measured):
 
 
 @needs_poppler
-def test_measured_mark_governs_the_per_mic_table(measured):
+def test_a_measured_loop_is_printed_beside_the_planned_limit_labelled_by_its_pair(measured):
     pdf, margins, sheet = measured
     rows = _table_rows(_words(pdf), PLAN_COLUMNS, ["lectern", "ambo"])
     fsm = sheet["fsm_db"]
-    for mic in ("lectern", "ambo"):
+    plan = {m["name"]: m for m in sheet["mics"]}
+    for mic, spk in (("lectern", "column_north"), ("ambo", "column_south")):
         mj = margins[mic]
         mark = min(mj["gain_margin_db"] - fsm, mj["magnitude_margin_db"])
-        assert _close_to_print(_first_num(rows[mic]["DON'T"]), mark)
-        assert "measured;" in rows[mic]["DON'T"]
-    # the loop that is unstable as measured is called so
-    assert margins["ambo"]["gain_margin_db"] < 0
-    assert " ".join(rows["ambo"]["VERDICT"]).startswith("WILL HOWL measured loop"), rows["ambo"]["VERDICT"]
+        assert _close_to_print(_first_num(rows[mic]["MEASURED"]), mark)
+        assert spk in " ".join(rows[mic]["MEASURED"])
+        # the plan's whole-loop figure stays in its own column: one measured pair does not replace it
+        assert _close_to_print(_first_num(rows[mic]["DON'T"]), plan[mic]["max_channel_gain_db"])
+        assert "planned," in rows[mic]["DON'T"]
     text = subprocess.run(["pdftotext", "-l", "1", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
     assert "MEASURED 2026-11-30" in text
+
+
+@needs_poppler
+def test_each_measured_pair_has_the_plans_prediction_for_that_pair_beside_it(measured):
+    pdf, margins, sheet = measured
+    plan = _cli_json(["plan", str(bundled_rig_path()), "--json"])
+    words = _words(pdf)
+    aware = [w for w in words if w[4] == "PHASE-AWARE"]
+    rows = _table_rows(words, ["MEASURED", "PHASE-AWARE", "PHASE-BLIND", "PLANNED", "HOWLS"],
+                       ["column_north", "column_south"], below_y=aware[0][1] - 5.0)
+    for spk, mic in (("column_north", "lectern"), ("column_south", "ambo")):
+        m = next(x for x in plan["mics"] if x["name"] == mic)
+        pair = next(q for q in m["pairs"] if q["speaker"] == spk)
+        assert _close_to_print(_first_num(rows[spk]["PLANNED"]), -pair["worst_peak_loop_gain_db"]), rows[spk]
+        line = next(x for x in sheet["measured"] if x["speaker"] == spk)
+        assert line["planned_magnitude_margin_db"] == pytest.approx(-pair["worst_peak_loop_gain_db"], abs=0.011)
 
 
 # ----------------------------------------------------------------------------- the page itself
