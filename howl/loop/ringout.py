@@ -364,7 +364,7 @@ def ring_out(
         (its ``max_bands`` replaces ``max_notches``; a graphic EQ is searched slider by slider),
         and every figure is computed with the cuts as the desk sets them. ``None``: an ideal EQ.
     """
-    from howl.loop.nyquist import check_ir, nyquist_margin
+    from howl.loop.nyquist import LoopGrid, check_ir
 
     h = check_ir(ir, sample_rate_hz)
     fs = v.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
@@ -385,7 +385,8 @@ def ring_out(
     if not (isinstance(tonal_share, float) and tonal_share == math.inf):
         tonal_share = v.in_range(tonal_share, "tonal_share", 0.0, None)
 
-    before = nyquist_margin(h, fs, band_hz=band_hz)
+    grid0 = LoopGrid(h, fs, band_hz=band_hz)  # the exact margins share one FFT of the IR
+    before = grid0.margin()
     band = tuple(float(x) for x in before.band_hz)
     irs = [("nominal", h)]
     if robust:
@@ -412,7 +413,7 @@ def ring_out(
 
     # every figure exact: the Nyquist margin of the whole IR (of each perturbed loop in robust
     # mode, the worst of them) with the cuts so far, so the steps add up to the total
-    exact = _exact_margins(irs, fs, band, notches, before)
+    exact = _exact_margins(irs, fs, band, notches, before, grids={0: grid0})
     after = exact[-1][0]
     m_before, m_after = exact[0][1], exact[-1][1]
     robust_loops = []
@@ -457,20 +458,33 @@ def ring_out(
     )
 
 
-def _exact_margins(irs, fs: float, band, notches, before):
-    """For 0..len(notches) cuts: (the nominal MarginResult, the worst margin, each loop's margin)."""
-    from howl.loop.nyquist import nyquist_margin
+def _exact_margins(irs, fs: float, band, notches, before, grids=None):
+    """For 0..len(notches) cuts: (the nominal MarginResult, the worst margin, each loop's margin).
 
+    Each margin is :func:`howl.loop.nyquist_margin` of the whole IR with the cuts so far, on one
+    :class:`howl.loop.nyquist.LoopGrid` per IR (one FFT; each step adds one cut's response on
+    the grid to the cascade before it). ``grids``: those already made, by index in ``irs``.
+    """
+    from howl.loop.nyquist import LoopGrid
+
+    grids = dict(grids or {})
+    for j, (_, x) in enumerate(irs):
+        if j not in grids:
+            grids[j] = LoopGrid(x, fs, band_hz=band)
+    sos_all = cascade_sos(notches, fs) if notches else None
+    on_grid = [None] * len(irs)
     out = []
     for k in range(len(notches) + 1):
-        sos = cascade_sos(notches[:k], fs) if k else None
+        sos = sos_all[:k] if k else None
         per = []
         res0 = before
-        for j, (_, x) in enumerate(irs):
+        for j in range(len(irs)):
             if j == 0 and k == 0:
                 r = before
             else:
-                r = nyquist_margin(x, fs, band_hz=band, filters_sos=sos, n_risks=0 if k < len(notches) else 10)
+                if k:
+                    on_grid[j] = grids[j].cascade_on_grid(sos_all[k - 1 : k], on_grid[j])
+                r = grids[j].margin(filters_sos=sos, n_risks=0 if k < len(notches) else 10, filters_on_grid=on_grid[j])
             if j == 0:
                 res0 = r
             per.append(float(r.gain_margin_db))
