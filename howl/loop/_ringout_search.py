@@ -401,12 +401,22 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, lim: Limits,
                     mv = view.margin_at(c)
                     m_now.append(mv if mv[0] < view.ceiling_db else lp.margin(view.L * lp.cut(c)))
                 f_lim = min(m_now)[1]
+            # each move starts from where the earlier ones left the cut: the candidates of all four
+            # are judged in one array around the cut as it stands, and those of a move after an
+            # accepted step again around the moved cut (rows are bit for bit the one-move figures)
+            todo = {kind: [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
+                    for kind in range(4)}
+            flat = [n for kind in range(4) for n in todo[kind]]
+            ms_all = _margins(loops, others, flat) if flat else np.zeros(0)
+            judged = dict(zip(flat, ms_all))
             for kind in range(4):
-                # each move starts from where the earlier ones left the cut
                 cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
                 if not cands:
                     continue
-                ms = _margins(loops, others, cands)
+                if all(n in judged for n in cands):
+                    ms = [judged[n] for n in cands]
+                else:
+                    ms = _margins(loops, others, cands)
                 for cand, m in zip(cands, ms):
                     if cand == c:
                         continue
