@@ -25,6 +25,7 @@ from howl.loop._ringout_grid import (
     _cut_atten_db,
     _GridLoop,
     _min_gain_db,
+    _tan_f,
     _View,
     _view_margins,
     _worst_margin,
@@ -86,8 +87,11 @@ class _Planner:
         self.bw_arr = np.array(widths)
         self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in widths])
 
-    def _one_cut(self, f: np.ndarray, need: np.ndarray):
-        """The shallowest cut covering all of (f, need), drift included; None if none can."""
+    def _one_cut(self, f: np.ndarray, need: np.ndarray, tan_x: np.ndarray | None = None):
+        """The shallowest cut covering all of (f, need), drift included; None if none can.
+
+        ``tan_x``: :func:`_tan_f` of the points with their drift (f/d, f, f·d), when known.
+        """
         lf0, lf1 = math.log2(f[0]), math.log2(f[-1])
         span = lf1 - lf0
         ok = self.bw_arr >= 0.5 * span + 0.5 * self.drift
@@ -105,7 +109,8 @@ class _Planner:
         half = 2.0 ** (self.drift / 2.0)
         fx = np.concatenate([f / half, f, f * half])
         nx = np.concatenate([need, need, need])
-        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs).min(axis=1)
+        tx = None if tan_x is None else tan_x[None, :]
+        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs, tx).min(axis=1)
         g = np.where(g >= -self.gmax, g, -np.inf)
         k = int(np.argmax(g))  # shallowest; ties go to the narrowest (listed first)
         if not np.isfinite(g[k]):
@@ -117,6 +122,8 @@ class _Planner:
         need = need.copy()
         cuts = []
         cap = MAX_NOTCH_BANDWIDTH_OCT * 1.5
+        half = 2.0 ** (self.drift / 2.0)
+        t_lo, t_mid, t_hi = _tan_f(f / half, self.fs), _tan_f(f, self.fs), _tan_f(f * half, self.fs)
         while True:
             open_ = np.flatnonzero(need > 1e-6)
             if open_.size == 0:
@@ -128,7 +135,8 @@ class _Planner:
             lo, hi, sol = 0, cand.size - 1, None
             while lo <= hi:  # the widest run starting at a that one cut covers
                 mid = (lo + hi) // 2
-                r = self._one_cut(f[cand[: mid + 1]], need[cand[: mid + 1]])
+                run = cand[: mid + 1]
+                r = self._one_cut(f[run], need[run], np.concatenate([t_lo[run], t_mid[run], t_hi[run]]))
                 if r is not None:
                     sol, lo = r, mid + 1
                 else:
@@ -137,7 +145,7 @@ class _Planner:
                 return None
             g, fc, bw, q = sol
             cuts.append((fc, g, q))
-            need = need - _cut_atten_db(f, fc, g, q, self.fs)
+            need = need - _cut_atten_db(f, fc, g, q, self.fs, t_mid)
 
     def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.05):
         """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
