@@ -300,11 +300,12 @@ class _Score:
                  weighting: str = "pink"):
         self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
         self.f, self.w = tonal_grid(band, fs, weighting, 1200)
+        self._tan = _tan_f(self.f, fs)
         self._power: dict[Notch, np.ndarray] = {}
 
     def power(self, cuts) -> np.ndarray:
-        """|C(f)|² of the cascade on the tonal grid."""
-        p = np.ones(self.f.size)
+        """|C(f)|² of the cascade on the tonal grid (read only: it may be a cached array)."""
+        p = None  # (1·c is c bit for bit: the product starts from the first cut's power)
         for n in cuts:
             c = self._power.get(n)
             if c is None:
@@ -313,10 +314,10 @@ class _Score:
                 if n.gain_db is None:
                     c = np.abs(cascade_response([n], self.f, self.fs)) ** 2
                 else:  # the exact digital magnitude, in closed form
-                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs) / 10.0)
+                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs, self._tan) / 10.0)
                 self._power[n] = c
-            p = p * c
-        return p
+            p = c if p is None else p * c
+        return np.ones(self.f.size) if p is None else p
 
     def tonal_db(self, cuts, rest_power: np.ndarray | None = None) -> float:
         """Tonal cost of ``cuts`` (times the cascade whose power is ``rest_power``, if given)."""
