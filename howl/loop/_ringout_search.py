@@ -86,6 +86,7 @@ class _Planner:
         widths = plan_bandwidths_oct(min_bw_oct)
         self.bw_arr = np.array(widths)
         self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in widths])
+        self._sweeps: dict = {}  # cover's sweeps, by (points, needs)
 
     def _one_cut(self, f: np.ndarray, need: np.ndarray, tan_x: np.ndarray | None = None):
         """The shallowest cut covering all of (f, need), drift included; None if none can.
@@ -118,18 +119,39 @@ class _Planner:
         return float(g[k]), float(fc[k]), float(bb[k]), float(qq[k])
 
     def cover(self, f: np.ndarray, need: np.ndarray, budget: int):
-        """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget."""
-        need = need.copy()
-        cuts = []
+        """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget.
+
+        The greedy sweep does not depend on the budget, which only stops it: each sweep's state
+        is kept (per points and needs), so the same problem asked again with a larger budget (the
+        ring-out plans every budget 1..max on the same crossings) resumes where it stopped.
+        """
+        key = (f.tobytes(), need.tobytes())
+        st = self._sweeps.get(key)
+        if st is None:
+            half = 2.0 ** (self.drift / 2.0)
+            st = self._sweeps[key] = {
+                "need": need.copy(), "cuts": [], "end": None,
+                "tan": (_tan_f(f / half, self.fs), _tan_f(f, self.fs), _tan_f(f * half, self.fs)),
+            }
+        if st["end"] is None:
+            self._sweep(f, st, budget)
+        if st["end"] == "covered" and len(st["cuts"]) <= budget:
+            return list(st["cuts"])
+        return None
+
+    def _sweep(self, f: np.ndarray, st: dict, budget: int) -> None:
+        """Carry the greedy sweep of :meth:`cover` on until the points are covered (``end``
+        "covered"), a point cannot be (``end`` "stuck"), or ``budget`` cuts are placed."""
+        need, cuts = st["need"], st["cuts"]
+        t_lo, t_mid, t_hi = st["tan"]
         cap = MAX_NOTCH_BANDWIDTH_OCT * 1.5
-        half = 2.0 ** (self.drift / 2.0)
-        t_lo, t_mid, t_hi = _tan_f(f / half, self.fs), _tan_f(f, self.fs), _tan_f(f * half, self.fs)
         while True:
             open_ = np.flatnonzero(need > 1e-6)
             if open_.size == 0:
-                return cuts
+                st["end"] = "covered"
+                break
             if len(cuts) >= budget:
-                return None
+                break
             a = open_[0]
             cand = open_[f[open_] <= f[a] * 2.0**cap]
             lo, hi, sol = 0, cand.size - 1, None
@@ -142,10 +164,12 @@ class _Planner:
                 else:
                     hi = mid - 1
             if sol is None:
-                return None
+                st["end"] = "stuck"
+                break
             g, fc, bw, q = sol
             cuts.append((fc, g, q))
             need = need - _cut_atten_db(f, fc, g, q, self.fs, t_mid)
+        st["need"] = need
 
     def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.05):
         """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
