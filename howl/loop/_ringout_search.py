@@ -75,6 +75,10 @@ SPEECH_OCTAVES_HZ = (250.0, 500.0, 1000.0, 2000.0, 4000.0)
 SPEECH_LEVELS_DB = (72.5, 74.0, 68.0, 62.0, 57.0)
 
 
+#: Where the planner tries a cut's centre: the middle of the run, and a quarter of its span either side.
+_CENTRE_OFFSETS = np.array([0.0, -0.25, 0.25])
+
+
 class _Planner:
     """Greedy covering of crossings by at most R cuts, bisection on the level T."""
 
@@ -99,7 +103,7 @@ class _Planner:
         if not np.any(ok):
             return None
         bw, q = self.bw_arr[ok], self.q_arr[ok]
-        u = np.array([0.0, -0.25, 0.25])
+        u = _CENTRE_OFFSETS
         fc = (2.0 ** (0.5 * (lf0 + lf1) + u * span / 2.0))[None, :].repeat(bw.size, 0).ravel()
         qq = np.repeat(q, u.size)
         bb = np.repeat(bw, u.size)
@@ -107,8 +111,11 @@ class _Planner:
         if not np.any(good):
             return None
         fc, qq, bb = fc[good], qq[good], bb[good]
-        half = 2.0 ** (self.drift / 2.0)
-        fx = np.concatenate([f / half, f, f * half])
+        if tan_x is None:
+            half = 2.0 ** (self.drift / 2.0)
+            fx = np.concatenate([f / half, f, f * half])
+        else:  # (fx only feeds the tangents, already known)
+            fx = np.empty(3 * f.size)
         nx = np.concatenate([need, need, need])
         tx = None if tan_x is None else tan_x[None, :]
         g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs, tx).min(axis=1)
@@ -442,8 +449,12 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, lim: Limits,
             flat = [n for kind in range(4) for n in todo[kind]]
             ms_all = _margins(loops, others, flat) if flat else np.zeros(0)
             judged = dict(zip(flat, ms_all))
+            c_first = c
             for kind in range(4):
-                cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
+                if c == c_first:
+                    cands = todo[kind]
+                else:
+                    cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
                 if not cands:
                     continue
                 if all(n in judged for n in cands):
