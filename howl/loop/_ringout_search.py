@@ -518,7 +518,8 @@ def _on_desk(loops, cuts: list[Notch], score: _Score, desk, fs: float) -> tuple[
 
 def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting,
                  desk=None):
-    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops).
+    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops, the grid margin
+    without cuts, the naive ring-out of the desk it was compared with, or [] without a desk).
 
     With a parametric ``desk`` the plan, the simple ring-outs and the search stay within its
     depth and width, and the cuts are then set as the desk sets them (:func:`_on_desk`); a
@@ -527,6 +528,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
     would hand a dozen values to each other.)
     """
     m0_grid = _worst_margin(loops, [], fs)[0]
+    naive: list[Notch] = []  # the naive ring-out of the desk, when one was compared
     planned: list[Notch] = []
     planned_margin = float("nan")
     reason = None
@@ -540,7 +542,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
         from howl.loop._ringout_graphic import graphic_search
 
-        planned, planned_margin = graphic_search(loops, score, desk, budget, fs, band, target)
+        planned, planned_margin, naive = graphic_search(loops, score, desk, budget, fs, band, target)
         n = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n} slider(s)"
@@ -624,7 +626,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         else:
             reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
 
-    return planned, planned_margin, reason, m0_grid
+    return planned, planned_margin, reason, m0_grid, naive
 
 
 def _naive_cuts(loops, budget: int, fs: float, lim: Limits, desk) -> list[Notch]:
