@@ -252,9 +252,12 @@ class _View:
 
     def __init__(self, lp: _GridLoop, L: np.ndarray, ceiling_db: float):
         self.L, self.ceiling_db, self.fs = L, ceiling_db - 0.05, lp.fs
-        a = np.abs(L)
-        p = np.flatnonzero((np.maximum(a[:-1], a[1:]) >= 10.0 ** (-ceiling_db / 20.0)) & lp.adj)
-        mask = np.zeros(a.size, bool)
+        # |L|² against the level squared (no square roots): the 0.05 dB kept below the ceiling is
+        # far more than any rounding at the edge, and a view may hold extra points anyway
+        a2 = L.real * L.real
+        a2 += L.imag * L.imag
+        p = np.flatnonzero((np.maximum(a2[:-1], a2[1:]) >= 10.0 ** (-ceiling_db / 10.0)) & lp.adj)
+        mask = np.zeros(a2.size, bool)
         mask[p] = True
         mask[p + 1] = True
         idx = np.flatnonzero(mask)

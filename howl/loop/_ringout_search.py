@@ -214,12 +214,13 @@ def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float
             break
         t_db, cuts = planner.plan(pf, pv, budget)
         notches = _as_notches(cuts)
-        m, _, _ = _worst_margin(loops, notches, fs)
+        now = [lp.H * lp.cascade(notches) for lp in loops]  # each loop with this cascade in it
+        m = min(lp.margin(L)[0] for lp, L in zip(loops, now))  # (as _worst_margin)
         if m > best[1]:
             best = (notches, m, -t_db)
         new = False
-        for lp in loops:  # crossings of the loop with this cascade in it, above the level
-            fc, rc = lp.crossings(lp.H * lp.cascade(notches))
+        for lp, L in zip(loops, now):  # crossings of the loop with this cascade in it, above the level
+            fc, rc = lp.crossings(L)
             bad = 20.0 * np.log10(rc) > t_db + 0.05
             if np.any(bad):
                 new = True
