@@ -166,6 +166,7 @@ def timing(repeats: int = 5) -> dict:
         "median_cpu_s": float(np.median(cpu)),
         "target_s": 1.0,
         "blas_threads": os.environ.get("OPENBLAS_NUM_THREADS"),
+        "load_average_1min": os.getloadavg()[0],  # CPU time grows with the machine's load (shared cores)
         "of_which_two_nyquist_margin_calls_s": t_margin,
         "of_which_exact_step_margins_cpu_s": cpu_exact,
         "n_notches": len(res.notches),
