@@ -366,6 +366,10 @@ def nyquist_margin(
     return grid.margin(gain_db=gain_db, filters_sos=filters_sos, n_risks=n_risks, tie_db=tie_db)
 
 
+#: Points per chunk when :class:`LoopGrid` grows a cascade (the section's temporaries stay in cache).
+_CHUNK = 8192
+
+
 class LoopGrid:
     """A loop IR's spectrum on :func:`nyquist_margin`'s search grid, computed once.
 
@@ -407,16 +411,25 @@ class LoopGrid:
         out = start
         if sos is None:
             return np.ones(self.f.shape, complex) if out is None else out
+        n = self.f.size
         if self._trig is None:
             self._trig = grid_trig(self.f, self.fs)
-            self._work = [np.empty(self.f.shape) for _ in range(7)]
-            self._c = np.empty(self.f.shape, complex)
+            self._work = [np.empty(min(n, _CHUNK)) for _ in range(7)]
+            self._c = np.empty(min(n, _CHUNK), complex)
         for j in range(sos.shape[0]):
-            c = section_response_into(sos[j], self._trig, self._work, self._c)
-            if out is None:
-                out = c.copy()
-            else:
-                np.multiply(out, c, out=out)
+            new = out is None
+            if new:
+                out = np.empty(n, complex)
+            # in chunks that stay in the cache: the same operations on each point, so the same bits
+            for a in range(0, n, _CHUNK):
+                b = min(n, a + _CHUNK)
+                m = b - a
+                c = section_response_into(sos[j], tuple(t[a:b] for t in self._trig), [w[:m] for w in self._work],
+                                          self._c[:m])
+                if new:
+                    out[a:b] = c
+                else:
+                    np.multiply(out[a:b], c, out=out[a:b])
         return out
 
     def margin(self, *, gain_db=0.0, filters_sos=None, n_risks: int = 10, tie_db: float = TIE_DB,
