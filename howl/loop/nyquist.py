@@ -258,10 +258,17 @@ class _Loop:
         H = H * self.g
         dH = dH * self.g * (2.0 * np.pi / self.fs)
         if self.sos is not None:
-            c0 = _sos_response(self.sos, f, self.fs)
+            from howl.loop.notch import SOS_CACHE_MIN_POINTS
+
             df = 1e-6 * self.fs
-            cp = _sos_response(self.sos, f + df, self.fs)
-            cm = _sos_response(self.sos, np.abs(f - df), self.fs)
+            m = f.size
+            if 3 * m < SOS_CACHE_MIN_POINTS:  # one call for the three (the same arithmetic per point)
+                c3 = _sos_response(self.sos, np.concatenate([f, f + df, np.abs(f - df)]), self.fs)
+                c0, cp, cm = c3[:m], c3[m : 2 * m], c3[2 * m :]
+            else:
+                c0 = _sos_response(self.sos, f, self.fs)
+                cp = _sos_response(self.sos, f + df, self.fs)
+                cm = _sos_response(self.sos, np.abs(f - df), self.fs)
             dc = (cp - cm) / (2 * df)
             dH = dH * c0 + H * dc
             H = H * c0
