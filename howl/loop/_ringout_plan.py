@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from howl.loop._ringout_grid import _cut_atten_db, _GridLoop, _min_gain_db, _tan_f, _worst_margin
+from howl.loop._ringout_grid import _cut_atten_db, _GridLoop, _tan_f, _worst_margin
 from howl.loop.notch import MAX_NOTCH_BANDWIDTH_OCT, Notch, cascade_response, q_from_bandwidth_oct
 
 #: Deepest peaking cut the planner uses (dB). Deeper cuts cost tone for little
@@ -58,35 +58,38 @@ class _Planner:
     def _one_cut(self, f: np.ndarray, need: np.ndarray, tan_x: np.ndarray | None = None):
         """The shallowest cut covering all of (f, need), drift included; None if none can.
 
-        ``tan_x``: :func:`_tan_f` of the points with their drift (f/d, f, f·d), when known.
+        ``tan_x``: :func:`_tan_f` of the points with their drift (f/d, f, f·d), when known. The
+        candidates are every allowed width at each of three centres; what depends only on the
+        centre (the warped frequencies of :func:`_min_gain_db`) is computed once per centre, the
+        rest per candidate with the same operations, so the choice is :func:`_min_gain_db`'s.
         """
         lf0, lf1 = math.log2(f[0]), math.log2(f[-1])
         span = lf1 - lf0
-        ok = self.bw_arr >= 0.5 * span + 0.5 * self.drift
-        if not np.any(ok):
+        k0 = int(np.searchsorted(self.bw_arr, 0.5 * span + 0.5 * self.drift, side="left"))  # widths >= it
+        if k0 >= self.bw_arr.size:
             return None
-        bw, q = self.bw_arr[ok], self.q_arr[ok]
-        u = _CENTRE_OFFSETS
-        fc = (2.0 ** (0.5 * (lf0 + lf1) + u * span / 2.0))[None, :].repeat(bw.size, 0).ravel()
-        qq = np.repeat(q, u.size)
-        bb = np.repeat(bw, u.size)
-        good = fc < 0.49 * self.fs
-        if not np.any(good):
+        bw, q = self.bw_arr[k0:], self.q_arr[k0:]
+        fc3 = 2.0 ** (0.5 * (lf0 + lf1) + _CENTRE_OFFSETS * span / 2.0)
+        fcg = fc3[fc3 < 0.49 * self.fs]
+        if fcg.size == 0:
             return None
-        fc, qq, bb = fc[good], qq[good], bb[good]
         if tan_x is None:
             half = 2.0 ** (self.drift / 2.0)
-            fx = np.concatenate([f / half, f, f * half])
-        else:  # (fx only feeds the tangents, already known)
-            fx = np.empty(3 * f.size)
-        nx = np.concatenate([need, need, need])
-        tx = None if tan_x is None else tan_x[None, :]
-        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs, tx).min(axis=1)
+            tan_x = _tan_f(np.concatenate([f / half, f, f * half]), self.fs)
+        a2 = 10.0 ** (-np.maximum(np.concatenate([need, need, need]), 0.0) / 10.0)
+        # the closed form of _min_gain_db: w per centre, then per (width, centre) candidate
+        w = tan_x[None, :] / np.tan(np.pi * fcg[:, None] / self.fs)
+        x = (1.0 - w * w) ** 2
+        xa, xb = -x * (1.0 - a2), (x * (1.0 - a2)) ** 2
+        y = (w[None, :, :] / q[:, None, None]) ** 2
+        big = (xa + np.sqrt(xb + 4.0 * a2 * y * y)) / (2.0 * y)
+        g = (20.0 * np.log10(np.maximum(big, 1e-300))).min(axis=2).ravel()  # width-major, as listed
         g = np.where(g >= -self.gmax, g, -np.inf)
         k = int(np.argmax(g))  # shallowest; ties go to the narrowest (listed first)
         if not np.isfinite(g[k]):
             return None
-        return float(g[k]), float(fc[k]), float(bb[k]), float(qq[k])
+        i, j = divmod(k, fcg.size)
+        return float(g[k]), float(fcg[j]), float(bw[i]), float(q[i])
 
     def cover(self, f: np.ndarray, need: np.ndarray, budget: int):
         """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget.
