@@ -51,13 +51,16 @@ plans the cuts together, as a covering problem over the crossings:
 
 Every margin reported is exact (:func:`howl.loop.nyquist_margin` on the whole IR
 with the cuts so far passed as ``filters_sos``), before, after each step and
-after the last, so the steps add up to the total.
+after the last, so the steps add up to the total. They share one FFT of the IR
+(:class:`howl.loop.nyquist.LoopGrid`, the routine ``nyquist_margin`` itself runs),
+each step adding one cut's response to the cascade on its grid.
 
 Within a desk's EQ (``desk``, :mod:`howl.loop.desk`) the plan, the simple
 ring-outs and the search keep to its depth and width, the cuts are then set as
 the desk sets them (gain steps), and a graphic EQ is searched slider by slider
 (:mod:`howl.loop._ringout_graphic`); the naive ring-out of the same desk is
-never beaten on margin by the score's tie-break.
+never beaten on margin by the score's tie-break: after the exact step margins it
+is judged exactly too, and taken if it buys more within the tonal share.
 
 References
 ----------
