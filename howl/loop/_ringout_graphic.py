@@ -20,8 +20,8 @@ from howl.loop.notch import Notch
 GRAPHIC_PULLS = (1, 2, 4, 8, 16)
 
 
-def graphic_search(loops, score, desk, budget: int, fs: float, band, target) -> tuple[list[Notch], float]:
-    """Which sliders of a graphic EQ to pull, and by how much: (cuts, grid margin).
+def graphic_search(loops, score, desk, budget: int, fs: float, band, target) -> tuple[list[Notch], float, list[Notch]]:
+    """Which sliders of a graphic EQ to pull, and by how much: (cuts, grid margin, the naive cuts).
 
     Greedy on the score: at each round every slider is tried pulled 1, 2, 4, 8 or 16 steps further
     (within the range, and at most ``budget`` sliders moved), each judged exactly on the planning
@@ -109,8 +109,8 @@ def graphic_search(loops, score, desk, budget: int, fs: float, band, target) -> 
         if m_n > m and score.within_share(cuts_of(naive), m_n):
             g, m = naive, m_n
     if not cuts_of(g):
-        return [], m0
-    return cuts_of(g), m
+        return [], m0, cuts_of(naive)
+    return cuts_of(g), m, cuts_of(naive)
 
 
 def _cuts_on(view, notches) -> np.ndarray:

@@ -190,28 +190,36 @@ class _GridLoop:
 
 
 
-def _warped(f: np.ndarray, fc: float, fs: float) -> np.ndarray:
-    """tan(πf/fs)/tan(πfc/fs): where the digital RBJ cut equals its analog prototype [2]_."""
-    return np.tan(np.pi * np.minimum(f, 0.4999 * fs) / fs) / np.tan(np.pi * np.asarray(fc) / fs)
+def _tan_f(f: np.ndarray, fs: float) -> np.ndarray:
+    """tan(πf/fs) (f capped just below fs/2): the numerator of :func:`_warped`, to compute once."""
+    return np.tan(np.pi * np.minimum(f, 0.4999 * fs) / fs)
 
 
-def _cut_atten_db(f: np.ndarray, fc: float, gain_db: float, q: float, fs: float) -> np.ndarray:
+def _warped(f: np.ndarray, fc: float, fs: float, tan_f: np.ndarray | None = None) -> np.ndarray:
+    """tan(πf/fs)/tan(πfc/fs): where the digital RBJ cut equals its analog prototype [2]_
+    (``tan_f``: :func:`_tan_f` of ``f``, when already known)."""
+    return (_tan_f(f, fs) if tan_f is None else tan_f) / np.tan(np.pi * np.asarray(fc) / fs)
+
+
+def _cut_atten_db(f: np.ndarray, fc: float, gain_db: float, q: float, fs: float,
+                  tan_f: np.ndarray | None = None) -> np.ndarray:
     """Attenuation (dB, ≥ 0) of the digital RBJ peaking cut at f (exact, via the prototype)."""
-    w = _warped(f, fc, fs)
+    w = _warped(f, fc, fs, tan_f)
     a2 = 10.0 ** (gain_db / 20.0)  # A² with A = 10^(gain/40)
     x = (1.0 - w * w) ** 2
     y = (w / q) ** 2
     return -10.0 * np.log10((x + y * a2) / (x + y / a2))
 
 
-def _min_gain_db(f: np.ndarray, need_db: np.ndarray, fc: float, q: float, fs: float) -> np.ndarray:
+def _min_gain_db(f: np.ndarray, need_db: np.ndarray, fc: float, q: float, fs: float,
+                 tan_f: np.ndarray | None = None) -> np.ndarray:
     """Smallest-magnitude peaking gain (dB < 0) that attenuates f by ``need_db``.
 
     The prototype's |H|² at w is (x + y·A²)/(x + y/A²) with x = (1−w²)²,
     y = (w/Q)² [2]_; setting it to the target a² gives a quadratic in A²:
     A² = [−x(1−a²) + sqrt(x²(1−a²)² + 4a²y²)] / (2y).
     """
-    w = _warped(f, fc, fs)
+    w = _warped(f, fc, fs, tan_f)
     x = (1.0 - w * w) ** 2
     y = (w / q) ** 2
     a2 = 10.0 ** (-np.maximum(need_db, 0.0) / 10.0)
@@ -232,7 +240,7 @@ def _worst_margin(loops: list[_GridLoop], notches: list[Notch], fs: float) -> tu
 #: The search judges a candidate cut on the points where the loop without it stands within this
 #: many dB of the current limit (a cut never raises |L|); a candidate that lifts the margin past
 #: that is judged again on the whole planning grid.
-POLISH_VIEW_DB = 4.0
+POLISH_VIEW_DB = 2.0
 
 
 class _View:
@@ -244,9 +252,12 @@ class _View:
 
     def __init__(self, lp: _GridLoop, L: np.ndarray, ceiling_db: float):
         self.L, self.ceiling_db, self.fs = L, ceiling_db - 0.05, lp.fs
-        a = np.abs(L)
-        p = np.flatnonzero((np.maximum(a[:-1], a[1:]) >= 10.0 ** (-ceiling_db / 20.0)) & lp.adj)
-        mask = np.zeros(a.size, bool)
+        # |L|² against the level squared (no square roots): the 0.05 dB kept below the ceiling is
+        # far more than any rounding at the edge, and a view may hold extra points anyway
+        a2 = L.real * L.real
+        a2 += L.imag * L.imag
+        p = np.flatnonzero((np.maximum(a2[:-1], a2[1:]) >= 10.0 ** (-ceiling_db / 10.0)) & lp.adj)
+        mask = np.zeros(a2.size, bool)
         mask[p] = True
         mask[p + 1] = True
         idx = np.flatnonzero(mask)

@@ -1,4 +1,5 @@
-"""The ring-out's search: covering plans, simple ring-outs, the score and the pattern search.
+"""The ring-out's search: simple ring-outs, the score and the pattern search over the covering plans
+(:mod:`howl.loop._ringout_plan`).
 
 Private to :mod:`howl.ringout` (see its docstring for the method); the tonal costs
 (:func:`tonal_cost_db`, :func:`tonal_grid`) are re-exported there.
@@ -20,14 +21,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from howl.loop._ringout_grid import (
-    POLISH_VIEW_DB,
-    _cut_atten_db,
-    _GridLoop,
-    _min_gain_db,
-    _View,
-    _view_margins,
-    _worst_margin,
+from howl.loop._ringout_grid import POLISH_VIEW_DB, _cut_atten_db, _tan_f, _View, _view_margins, _worst_margin
+from howl.loop._ringout_plan import (  # noqa: F401  (the planner's names re-exported)
+    PLAN_BANDWIDTHS_OCT,
+    PLAN_MAX_DEPTH_DB,
+    PLAN_ROUNDS,
+    _Planner,
+    _plan_cuts,
+    plan_bandwidths_oct,
 )
 from howl.loop.notch import (
     MAX_NOTCH_BANDWIDTH_OCT,
@@ -37,16 +38,10 @@ from howl.loop.notch import (
     q_from_bandwidth_oct,
 )
 
-#: Deepest peaking cut the planner uses (dB). Deeper cuts cost tone for little
-#: extra margin in a reverberant loop (common practice, no source).
-PLAN_MAX_DEPTH_DB = 18.0
-
 #: A cascade may cost at most this share of the gain it buys in broadband (pink) tonal cost;
 #: beyond it the cuts mostly turn the whole loop down, which the fader does too (our own rule).
 MAX_TONAL_SHARE = 0.5
 
-#: Bandwidths (octaves) the planner tries for each cut, up to the 1/3-octave cap.
-PLAN_BANDWIDTHS_OCT = (1 / 24, 1 / 16, 1 / 12, 1 / 9, 1 / 7, 1 / 6, 1 / 5, 1 / 4, 1 / 3)
 
 @dataclass(frozen=True)
 class Limits:
@@ -57,138 +52,10 @@ class Limits:
     max_bw_oct: float = MAX_NOTCH_BANDWIDTH_OCT
 
 
-def plan_bandwidths_oct(min_bw_oct: float) -> tuple[float, ...]:
-    """The planner's widths no narrower than ``min_bw_oct`` (which leads when it is not one of them)."""
-    if min_bw_oct <= PLAN_BANDWIDTHS_OCT[0] * (1 + 1e-12):
-        return PLAN_BANDWIDTHS_OCT
-    keep = tuple(bw for bw in PLAN_BANDWIDTHS_OCT if bw > min_bw_oct * (1 + 1e-9))
-    return (float(min_bw_oct),) + keep
-
-
-#: Rounds of "insert the cascade, find the crossings again, re-plan".
-PLAN_ROUNDS = 5
-
 #: Male speech octave-band levels at 1 m, normal effort [2]_ (dB), for the
 #: speech-weighted tonal cost.
 SPEECH_OCTAVES_HZ = (250.0, 500.0, 1000.0, 2000.0, 4000.0)
 SPEECH_LEVELS_DB = (72.5, 74.0, 68.0, 62.0, 57.0)
-
-
-class _Planner:
-    """Greedy covering of crossings by at most R cuts, bisection on the level T."""
-
-    def __init__(self, fs: float, drift_oct: float, max_depth_db: float = PLAN_MAX_DEPTH_DB,
-                 min_bw_oct: float = PLAN_BANDWIDTHS_OCT[0]):
-        self.fs = fs
-        self.drift = drift_oct
-        self.gmax = max_depth_db
-        widths = plan_bandwidths_oct(min_bw_oct)
-        self.bw_arr = np.array(widths)
-        self.q_arr = np.array([q_from_bandwidth_oct(bw) for bw in widths])
-
-    def _one_cut(self, f: np.ndarray, need: np.ndarray):
-        """The shallowest cut covering all of (f, need), drift included; None if none can."""
-        lf0, lf1 = math.log2(f[0]), math.log2(f[-1])
-        span = lf1 - lf0
-        ok = self.bw_arr >= 0.5 * span + 0.5 * self.drift
-        if not np.any(ok):
-            return None
-        bw, q = self.bw_arr[ok], self.q_arr[ok]
-        u = np.array([0.0, -0.25, 0.25])
-        fc = (2.0 ** (0.5 * (lf0 + lf1) + u * span / 2.0))[None, :].repeat(bw.size, 0).ravel()
-        qq = np.repeat(q, u.size)
-        bb = np.repeat(bw, u.size)
-        good = fc < 0.49 * self.fs
-        if not np.any(good):
-            return None
-        fc, qq, bb = fc[good], qq[good], bb[good]
-        half = 2.0 ** (self.drift / 2.0)
-        fx = np.concatenate([f / half, f, f * half])
-        nx = np.concatenate([need, need, need])
-        g = _min_gain_db(fx[None, :], nx[None, :], fc[:, None], qq[:, None], self.fs).min(axis=1)
-        g = np.where(g >= -self.gmax, g, -np.inf)
-        k = int(np.argmax(g))  # shallowest; ties go to the narrowest (listed first)
-        if not np.isfinite(g[k]):
-            return None
-        return float(g[k]), float(fc[k]), float(bb[k]), float(qq[k])
-
-    def cover(self, f: np.ndarray, need: np.ndarray, budget: int):
-        """Cuts (fc, gain_db, q) bringing every point down by its need, or None beyond budget."""
-        need = need.copy()
-        cuts = []
-        cap = MAX_NOTCH_BANDWIDTH_OCT * 1.5
-        while True:
-            open_ = np.flatnonzero(need > 1e-6)
-            if open_.size == 0:
-                return cuts
-            if len(cuts) >= budget:
-                return None
-            a = open_[0]
-            cand = open_[f[open_] <= f[a] * 2.0**cap]
-            lo, hi, sol = 0, cand.size - 1, None
-            while lo <= hi:  # the widest run starting at a that one cut covers
-                mid = (lo + hi) // 2
-                r = self._one_cut(f[cand[: mid + 1]], need[cand[: mid + 1]])
-                if r is not None:
-                    sol, lo = r, mid + 1
-                else:
-                    hi = mid - 1
-            if sol is None:
-                return None
-            g, fc, bw, q = sol
-            cuts.append((fc, g, q))
-            need = need - _cut_atten_db(f, fc, g, q, self.fs)
-
-    def plan(self, f: np.ndarray, value: np.ndarray, budget: int, tol_db: float = 0.05):
-        """Lowest level T (dB re 1) that ``budget`` cuts reach over the points; (T_db, cuts)."""
-        o = np.argsort(f)
-        f, vdb = f[o], 20.0 * np.log10(value[o])
-        top = float(vdb.max())
-        lo, hi = top - self.gmax, top
-        best = (top, [])
-        while hi - lo > tol_db:
-            t = 0.5 * (lo + hi)
-            off = vdb > t
-            cuts = self.cover(f[off], vdb[off] - t, budget)
-            if cuts is None:
-                lo = t
-            else:
-                hi, best = t, (t, cuts)
-        return best
-
-
-def _as_notches(cuts) -> list[Notch]:
-    return [Notch(float(fc), float(min(g, -0.01)), float(q)) for fc, g, q in cuts]
-
-
-def _plan_cuts(loops: list[_GridLoop], budget: int, planner: _Planner, fs: float):
-    """Plan, insert, find the moved crossings, re-plan; keep the best cascade: (cuts, margin, −level)."""
-    pts_f, pts_v = [], []
-    for lp in loops:
-        fc, rc = lp.crossings(lp.H)
-        pts_f.append(fc)
-        pts_v.append(rc)
-    best = ([], _worst_margin(loops, [], fs)[0], float("nan"))
-    for _ in range(PLAN_ROUNDS):
-        pf, pv = np.concatenate(pts_f), np.concatenate(pts_v)
-        if pf.size == 0:
-            break
-        t_db, cuts = planner.plan(pf, pv, budget)
-        notches = _as_notches(cuts)
-        m, _, _ = _worst_margin(loops, notches, fs)
-        if m > best[1]:
-            best = (notches, m, -t_db)
-        new = False
-        for lp in loops:  # crossings of the loop with this cascade in it, above the level
-            fc, rc = lp.crossings(lp.H * lp.cascade(notches))
-            bad = 20.0 * np.log10(rc) > t_db + 0.05
-            if np.any(bad):
-                new = True
-                pts_f.append(fc[bad])
-                pts_v.append(rc[bad] / np.abs(cascade_response(notches, fc[bad], fs)))
-        if not new:
-            break
-    return best
 
 
 def tonal_cost_db(notches, band_hz, sample_rate_hz, *, weighting: str = "pink") -> float:
@@ -292,11 +159,12 @@ class _Score:
                  weighting: str = "pink"):
         self.loops, self.fs, self.m0, self.share = loops, fs, m0_db, share
         self.f, self.w = tonal_grid(band, fs, weighting, 1200)
+        self._tan = _tan_f(self.f, fs)
         self._power: dict[Notch, np.ndarray] = {}
 
     def power(self, cuts) -> np.ndarray:
-        """|C(f)|² of the cascade on the tonal grid."""
-        p = np.ones(self.f.size)
+        """|C(f)|² of the cascade on the tonal grid (read only: it may be a cached array)."""
+        p = None  # (1·c is c bit for bit: the product starts from the first cut's power)
         for n in cuts:
             c = self._power.get(n)
             if c is None:
@@ -305,10 +173,10 @@ class _Score:
                 if n.gain_db is None:
                     c = np.abs(cascade_response([n], self.f, self.fs)) ** 2
                 else:  # the exact digital magnitude, in closed form
-                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs) / 10.0)
+                    c = 10.0 ** (-_cut_atten_db(self.f, n.freq_hz, n.gain_db, n.q, self.fs, self._tan) / 10.0)
                 self._power[n] = c
-            p = p * c
-        return p
+            p = c if p is None else p * c
+        return np.ones(self.f.size) if p is None else p
 
     def tonal_db(self, cuts, rest_power: np.ndarray | None = None) -> float:
         """Tonal cost of ``cuts`` (times the cascade whose power is ``rest_power``, if given)."""
@@ -401,12 +269,26 @@ def _polish(loops, cuts: list[Notch], score: _Score, passes: int, lim: Limits,
                     mv = view.margin_at(c)
                     m_now.append(mv if mv[0] < view.ceiling_db else lp.margin(view.L * lp.cut(c)))
                 f_lim = min(m_now)[1]
+            # each move starts from where the earlier ones left the cut: the candidates of all four
+            # are judged in one array around the cut as it stands, and those of a move after an
+            # accepted step again around the moved cut (rows are bit for bit the one-move figures)
+            todo = {kind: [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
+                    for kind in range(4)}
+            flat = [n for kind in range(4) for n in todo[kind]]
+            ms_all = _margins(loops, others, flat) if flat else np.zeros(0)
+            judged = dict(zip(flat, ms_all))
+            c_first = c
             for kind in range(4):
-                # each move starts from where the earlier ones left the cut
-                cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
+                if c == c_first:
+                    cands = todo[kind]
+                else:
+                    cands = [n for n in _moves(kind, c, scale, f_lim, lim) if n != c and n.freq_hz < 0.49 * score.fs]
                 if not cands:
                     continue
-                ms = _margins(loops, others, cands)
+                if all(n in judged for n in cands):
+                    ms = [judged[n] for n in cands]
+                else:
+                    ms = _margins(loops, others, cands)
                 for cand, m in zip(cands, ms):
                     if cand == c:
                         continue
@@ -464,7 +346,8 @@ def _on_desk(loops, cuts: list[Notch], score: _Score, desk, fs: float) -> tuple[
 
 def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting,
                  desk=None):
-    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops).
+    """The cuts to insert: (cuts, planned grid margin, why the ring-out stops, the grid margin
+    without cuts, the naive ring-out of the desk it was compared with, or [] without a desk).
 
     With a parametric ``desk`` the plan, the simple ring-outs and the search stay within its
     depth and width, and the cuts are then set as the desk sets them (:func:`_on_desk`); a
@@ -473,6 +356,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
     would hand a dozen values to each other.)
     """
     m0_grid = _worst_margin(loops, [], fs)[0]
+    naive: list[Notch] = []  # the naive ring-out of the desk, when one was compared
     planned: list[Notch] = []
     planned_margin = float("nan")
     reason = None
@@ -486,7 +370,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
         from howl.loop._ringout_graphic import graphic_search
 
-        planned, planned_margin = graphic_search(loops, score, desk, budget, fs, band, target)
+        planned, planned_margin, naive = graphic_search(loops, score, desk, budget, fs, band, target)
         n = len(planned)
         if target is not None and planned_margin >= target:
             reason = f"target margin met ({planned_margin:.2f} dB >= {target:g} dB) with {n} slider(s)"
@@ -570,7 +454,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         else:
             reason = f"no placement of more than {n_used} cut(s) lowers the limiting crossings further"
 
-    return planned, planned_margin, reason, m0_grid
+    return planned, planned_margin, reason, m0_grid, naive
 
 
 def _naive_cuts(loops, budget: int, fs: float, lim: Limits, desk) -> list[Notch]:

@@ -20,7 +20,8 @@ suggestions, which then behave as they always did. :func:`desk_from_table` reads
 
 :meth:`Desk.fit` turns any cut into the nearest one the desk can make (the width is
 only ever widened, the depth only ever made shallower to fit the range, and then
-rounded to the nearest step). A graphic slider is modelled as an RBJ peaking section at
+rounded to the nearest step; a parametric band's centre to 0.1 Hz and its Q to 0.001,
+as the cut list writes them, so every figure is that of the cuts typed into the desk). A graphic slider is modelled as an RBJ peaking section at
 the nominal centre: a constant-Q approximation of a real graphic, whose neighbouring
 sliders interact in ways that differ from one design to the next.
 
@@ -38,6 +39,12 @@ import math
 from dataclasses import dataclass, replace
 
 from howl import validate as v
+
+#: Decimals a parametric band's centre (Hz) and Q are set to, as the cut list writes them.
+FREQ_DECIMALS = 1
+Q_DECIMALS = 3
+#: Decimals of a gain on a desk with no gain step (dB), as the cut list writes it.
+GAIN_DECIMALS = 2
 from howl.errors import InputError
 from howl.loop.notch import Notch, bandwidth_oct_from_q, q_from_bandwidth_oct
 
@@ -103,7 +110,7 @@ class Desk:
                 g += step
             if g > -step / 2:
                 g = -step
-        return float(min(g, -0.01)) if not step else float(g)
+        return float(min(round(g, GAIN_DECIMALS), -0.01)) if not step else float(g)
 
     def fit(self, notch: Notch, sample_rate_hz: float | None = None) -> Notch:
         """The nearest cut the desk can make: a graphic's nearest slider, a parametric band no
@@ -116,9 +123,15 @@ class Desk:
             fc = min(centres, key=lambda c: abs(math.log2(notch.freq_hz / c)))
             return Notch(fc, self.round_gain(g), float(self.graphic_q))
         q = notch.q if self.max_q is None else min(notch.q, float(self.max_q))
+        # the centre and Q as the cut list writes them (0.1 Hz, 0.001): the figures howl reports
+        # are those of the cuts a technician types in (a Q never rounded past the desk's highest)
+        fc = max(round(notch.freq_hz, FREQ_DECIMALS), 10.0 ** -FREQ_DECIMALS)
+        q_r = round(q, Q_DECIMALS)
+        if self.max_q is not None and q_r > float(self.max_q):
+            q_r = math.floor(float(self.max_q) * 10**Q_DECIMALS) / 10**Q_DECIMALS
         if notch.gain_db is None and self.max_depth_db is None and self.gain_step_db is None:
-            return replace(notch, q=q)  # no depth limit: a full notch stays one
-        return Notch(notch.freq_hz, self.round_gain(g), q)
+            return replace(notch, freq_hz=fc, q=q_r)  # no depth limit: a full notch stays one
+        return Notch(fc, self.round_gain(g), q_r)
 
     def allows(self, notch: Notch, tol: float = 1e-6) -> bool:
         """True when the desk can make ``notch`` exactly."""

@@ -231,11 +231,11 @@ class MarginResult:
 class _Loop:
     """L(f) = g·H(f)·C(f) evaluated exactly at any frequencies (vectorised)."""
 
-    def __init__(self, h, fs, g, sos):
+    def __init__(self, h, fs, g, sos, dtft=None):
         self.fs = fs
         self.g = g
         self.sos = sos
-        self.dtft = _FastDTFT(h)
+        self.dtft = _FastDTFT(h) if dtft is None else dtft
 
     def _real_points(self, f, v):
         edge = (f == 0.0) | (f == self.fs / 2.0)
@@ -258,10 +258,17 @@ class _Loop:
         H = H * self.g
         dH = dH * self.g * (2.0 * np.pi / self.fs)
         if self.sos is not None:
-            c0 = _sos_response(self.sos, f, self.fs)
+            from howl.loop.notch import SOS_CACHE_MIN_POINTS
+
             df = 1e-6 * self.fs
-            cp = _sos_response(self.sos, f + df, self.fs)
-            cm = _sos_response(self.sos, np.abs(f - df), self.fs)
+            m = f.size
+            if 3 * m < SOS_CACHE_MIN_POINTS:  # one call for the three (the same arithmetic per point)
+                c3 = _sos_response(self.sos, np.concatenate([f, f + df, np.abs(f - df)]), self.fs)
+                c0, cp, cm = c3[:m], c3[m : 2 * m], c3[2 * m :]
+            else:
+                c0 = _sos_response(self.sos, f, self.fs)
+                cp = _sos_response(self.sos, f + df, self.fs)
+                cm = _sos_response(self.sos, np.abs(f - df), self.fs)
             dc = (cp - cm) / (2 * df)
             dH = dH * c0 + H * dc
             H = H * c0
@@ -348,6 +355,9 @@ def nyquist_margin(
     frequency, so the frequency is exact to ~1e-10 relative and the margin to the
     rounding of the sum. Crossings farther down keep their grid-interpolated values.
 
+    Many margins of one IR (a cascade growing cut by cut) share the FFT through
+    :class:`LoopGrid`, which this function uses: the figures are the same.
+
     Parameters
     ----------
     ir : loop IR at the reference settings (1-D).
@@ -359,43 +369,141 @@ def nyquist_margin(
     oversample : grid zero-padding factor.
     tie_db : crossings within this of the worst are all listed as howl frequencies.
     """
-    h = check_ir(ir, sample_rate_hz)
-    fs = float(sample_rate_hz)
-    gdb = V.number(gain_db, "gain_db", unit="dB")
-    n_risks = V.integer(n_risks, "n_risks", 0)
-    oversample = V.integer(oversample, "oversample", 1)
-    lo, hi = _band(band_hz, fs)
-    sos = _sos(filters_sos)
-    g = from_db(gdb)
-    L = _Loop(h, fs, g, sos)
-    n_fft, f, Lg, dc_gain = _loop_grid(h, fs, g, sos, L, lo, hi, oversample)
-    re, im = Lg.real, Lg.imag
-    mag2 = re * re + im * im
-    cand_f, cand_r, cand_lo = _crossings(L, f, re, im, n_risks, 1e-12 * fs)
-    fpk, mpk = _magnitude_peak(L, f, mag2)
-    magnitude_margin_db = -db(mpk)
-    cand_f, cand_r, cand_lo, margins, howl_freqs, ring, tau_g = _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db)
-    gain_margin_db = float(margins[0]) if margins.size else float("inf")
-    howl_freq_hz = float(cand_f[0]) if margins.size else float("nan")
-    risks = lobe_risks(f, mag2, margins, cand_f, cand_lo, n_risks, len(howl_freqs), howl_freq_hz)
-    o = np.argsort(cand_f)
-    return MarginResult(
-        gain_margin_db=gain_margin_db,
-        magnitude_margin_db=float(magnitude_margin_db),
-        howl_freq_hz=howl_freq_hz,
-        howl_freqs_hz=howl_freqs,
-        risks=risks,
-        crossings_freq_hz=cand_f[o],
-        crossings_value=cand_r[o],
-        sample_rate_hz=fs,
-        band_hz=(lo, hi),
-        gain_db=gdb,
-        magnitude_peak_freq_hz=float(fpk),
-        ring_decay_db_per_s=ring,
-        group_delay_s=tau_g,
-        n_fft=n_fft,
-        dc_gain=dc_gain,
-    )
+    grid = LoopGrid(ir, sample_rate_hz, band_hz=band_hz, oversample=oversample)
+    return grid.margin(gain_db=gain_db, filters_sos=filters_sos, n_risks=n_risks, tie_db=tie_db)
+
+
+#: Points per chunk when :class:`LoopGrid` grows a cascade (the section's temporaries stay in cache).
+_CHUNK = 8192
+
+
+class LoopGrid:
+    """A loop IR's spectrum on :func:`nyquist_margin`'s search grid, computed once.
+
+    ``margin(...)`` is :func:`nyquist_margin` of that IR; ``cascade_on_grid(sos, start)``
+    multiplies the response of further SOS sections on the grid onto ``start`` (a cascade
+    already on it), bit for bit what the filters' response on the grid is, so the margin after
+    each step of a growing cascade costs one section's response and the crossings, not an FFT
+    and the whole cascade again.
+    """
+
+    def __init__(self, ir, sample_rate_hz, *, band_hz=None, oversample: int = DEFAULT_OVERSAMPLE):
+        self.h = check_ir(ir, sample_rate_hz)
+        self.fs = float(sample_rate_hz)
+        oversample = V.integer(oversample, "oversample", 1)
+        self.band_hz = _band(band_hz, self.fs)
+        lo, hi = self.band_hz
+        self.n_fft = max(MIN_N_FFT, _next_pow2(oversample * self.h.size))
+        df = self.fs / self.n_fft
+        i0 = int(math.ceil(lo / df - 1e-9))
+        i1 = min(int(math.floor(hi / df + 1e-9)), self.n_fft // 2) + 1
+        H_all = np.fft.rfft(self.h, self.n_fft)
+        self.dc = float(H_all[0].real)
+        self.f = np.arange(i0, i1) * df  # the FFT bins inside the band (edges added per margin)
+        self.H = H_all[i0:i1]
+        self.dtft = _FastDTFT(self.h)
+        self._trig = None
+
+    def cascade_on_grid(self, filters_sos, start=None) -> np.ndarray:
+        """``start`` (default 1) times the response of the sections of ``filters_sos`` on the grid.
+
+        ``start`` (a cascade already on this grid, e.g. the last result) is multiplied in place
+        and returned: pass a copy to keep it. Each section's response is computed in place
+        (:func:`howl.loop.notch.section_response_into`, the same bits as the filters' response
+        :func:`nyquist_margin` takes on the grid, section by section).
+        """
+        from howl.loop.notch import grid_trig, section_response_into
+
+        sos = _sos(filters_sos)
+        out = start
+        if sos is None:
+            return np.ones(self.f.shape, complex) if out is None else out
+        n = self.f.size
+        if self._trig is None:
+            self._trig = grid_trig(self.f, self.fs)
+            self._work = [np.empty(min(n, _CHUNK)) for _ in range(7)]
+            self._c = np.empty(min(n, _CHUNK), complex)
+        for j in range(sos.shape[0]):
+            new = out is None
+            if new:
+                out = np.empty(n, complex)
+            # in chunks that stay in the cache: the same operations on each point, so the same bits
+            for a in range(0, n, _CHUNK):
+                b = min(n, a + _CHUNK)
+                m = b - a
+                c = section_response_into(sos[j], tuple(t[a:b] for t in self._trig), [w[:m] for w in self._work],
+                                          self._c[:m])
+                if new:
+                    out[a:b] = c
+                else:
+                    np.multiply(out[a:b], c, out=out[a:b])
+        return out
+
+    def margin(self, *, gain_db=0.0, filters_sos=None, n_risks: int = 10, tie_db: float = TIE_DB,
+               filters_on_grid=None) -> MarginResult:
+        """:func:`nyquist_margin` of this IR; ``filters_on_grid``: the response of ``filters_sos``
+        on the grid, from :meth:`cascade_on_grid` (computed here when not given)."""
+        fs = self.fs
+        gdb = V.number(gain_db, "gain_db", unit="dB")
+        n_risks = V.integer(n_risks, "n_risks", 0)
+        lo, hi = self.band_hz
+        sos = _sos(filters_sos)
+        g = from_db(gdb)
+        L = _Loop(self.h, fs, g, sos, dtft=self.dtft)
+        f, Lg = self._loop_grid(g, sos, L, filters_on_grid)
+        re, im = Lg.real, Lg.imag
+        mag2 = re * re
+        mag2 += im * im
+        cand_f, cand_r, cand_lo = _crossings(L, f, re, im, n_risks, 1e-12 * fs)
+        fpk, mpk = _magnitude_peak(L, f, mag2)
+        magnitude_margin_db = -db(mpk)
+        cand_f, cand_r, cand_lo, margins, howl_freqs, ring, tau_g = _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db)
+        gain_margin_db = float(margins[0]) if margins.size else float("inf")
+        howl_freq_hz = float(cand_f[0]) if margins.size else float("nan")
+        risks = lobe_risks(f, mag2, margins, cand_f, cand_lo, n_risks, len(howl_freqs), howl_freq_hz) if n_risks else ()
+        o = np.argsort(cand_f)
+        return MarginResult(
+            gain_margin_db=gain_margin_db,
+            magnitude_margin_db=float(magnitude_margin_db),
+            howl_freq_hz=howl_freq_hz,
+            howl_freqs_hz=howl_freqs,
+            risks=risks,
+            crossings_freq_hz=cand_f[o],
+            crossings_value=cand_r[o],
+            sample_rate_hz=fs,
+            band_hz=(lo, hi),
+            gain_db=gdb,
+            magnitude_peak_freq_hz=float(fpk),
+            ring_decay_db_per_s=ring,
+            group_delay_s=tau_g,
+            n_fft=self.n_fft,
+            dc_gain=self.dc * g,
+        )
+
+    def _loop_grid(self, g, sos, L, filters_on_grid):
+        """(f, L on f): L on the zero-padded FFT grid inside the band, band edges exact."""
+        lo, hi = self.band_hz
+        f = self.f
+        Lg = self.H if g == 1.0 else self.H * g  # (×1 changes no bit; skipped)
+        if sos is not None and f.size:
+            c = _sos_response(sos, f, self.fs) if filters_on_grid is None else np.asarray(filters_on_grid)
+            if c.shape != f.shape:
+                raise InputError(f"must hold the filters' response on the grid ({f.size} points), got shape "
+                                 f"{c.shape}", key="filters_on_grid")
+            Lg = Lg * c
+        if Lg is self.H:
+            Lg = Lg.copy()
+        # band edges evaluated exactly (L includes the filters)
+        if f.size == 0 or f[0] > lo:
+            f = np.concatenate([[lo], f])
+            Lg = np.concatenate([L(lo), Lg])
+        if f[-1] < hi:
+            f = np.concatenate([f, [hi]])
+            Lg = np.concatenate([Lg, L(hi)])
+        for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
+            if f[e] == 0.0 or f[e] == self.fs / 2.0:
+                Lg[e] = Lg[e].real
+        return f, Lg
 
 
 def _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db):
@@ -412,31 +520,6 @@ def _worst_crossing(L, cand_f, cand_r, cand_lo, tie_db):
     v, dv = L.with_deriv(float(cand_f[0]))
     dln = complex(dv[0] / v[0]) / (2.0 * np.pi)  # d ln L / dω, ω in rad/s
     return cand_f, cand_r, cand_lo, margins, howl_freqs, ring_decay_rate_db_per_s(float(margins[0]), dln), float(-dln.imag)
-
-
-def _loop_grid(h, fs, g, sos, L, lo, hi, oversample):
-    """(n_fft, f, L on f, DC gain): L on the zero-padded FFT grid inside [lo, hi], band edges exact."""
-    n_fft = max(MIN_N_FFT, _next_pow2(oversample * h.size))
-    df = fs / n_fft
-    i0 = int(math.ceil(lo / df - 1e-9))
-    i1 = min(int(math.floor(hi / df + 1e-9)), n_fft // 2) + 1
-    H_all = np.fft.rfft(h, n_fft)
-    dc_gain = float(H_all[0].real) * g
-    f = np.arange(i0, i1) * df
-    Lg = H_all[i0:i1] * g
-    if sos is not None and f.size:
-        Lg = Lg * _sos_response(sos, f, fs)
-    # band edges evaluated exactly (L includes the filters)
-    if f.size == 0 or f[0] > lo:
-        f = np.concatenate([[lo], f])
-        Lg = np.concatenate([L(lo), Lg])
-    if f[-1] < hi:
-        f = np.concatenate([f, [hi]])
-        Lg = np.concatenate([Lg, L(hi)])
-    for e in (0, -1):  # a real IR has a real transfer at DC and Nyquist
-        if f[e] == 0.0 or f[e] == fs / 2.0:
-            Lg[e] = Lg[e].real
-    return n_fft, f, Lg, dc_gain
 
 
 def _crossings(L, f, re, im, n_risks, tol_hz):

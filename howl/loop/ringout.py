@@ -51,13 +51,16 @@ plans the cuts together, as a covering problem over the crossings:
 
 Every margin reported is exact (:func:`howl.loop.nyquist_margin` on the whole IR
 with the cuts so far passed as ``filters_sos``), before, after each step and
-after the last, so the steps add up to the total.
+after the last, so the steps add up to the total. They share one FFT of the IR
+(:class:`howl.loop.nyquist.LoopGrid`, the routine ``nyquist_margin`` itself runs),
+each step adding one cut's response to the cascade on its grid.
 
 Within a desk's EQ (``desk``, :mod:`howl.loop.desk`) the plan, the simple
 ring-outs and the search keep to its depth and width, the cuts are then set as
 the desk sets them (gain steps), and a graphic EQ is searched slider by slider
 (:mod:`howl.loop._ringout_graphic`); the naive ring-out of the same desk is
-never beaten on margin by the score's tie-break.
+never beaten on margin by the score's tie-break: after the exact step margins it
+is judged exactly too, and taken if it buys more within the tonal share.
 
 References
 ----------
@@ -87,7 +90,7 @@ from fractions import Fraction
 import numpy as np
 
 from howl import validate as v
-from howl.loop._ringout_grid import PLAN_CAP_DB, PLAN_TAIL_DB, _GridLoop, planning_ir
+from howl.loop._ringout_grid import PLAN_CAP_DB, PLAN_TAIL_DB, _GridLoop, _worst_margin, planning_ir
 from howl.loop._ringout_search import (
     MAX_TONAL_SHARE,
     PLAN_MAX_DEPTH_DB,
@@ -364,7 +367,7 @@ def ring_out(
         (its ``max_bands`` replaces ``max_notches``; a graphic EQ is searched slider by slider),
         and every figure is computed with the cuts as the desk sets them. ``None``: an ideal EQ.
     """
-    from howl.loop.nyquist import check_ir, nyquist_margin
+    from howl.loop.nyquist import LoopGrid, check_ir
 
     h = check_ir(ir, sample_rate_hz)
     fs = v.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
@@ -385,7 +388,8 @@ def ring_out(
     if not (isinstance(tonal_share, float) and tonal_share == math.inf):
         tonal_share = v.in_range(tonal_share, "tonal_share", 0.0, None)
 
-    before = nyquist_margin(h, fs, band_hz=band_hz)
+    grid0 = LoopGrid(h, fs, band_hz=band_hz)  # the exact margins share one FFT of the IR
+    before = grid0.margin()
     band = tuple(float(x) for x in before.band_hz)
     irs = [("nominal", h)]
     if robust:
@@ -393,26 +397,25 @@ def ring_out(
     loops = [_GridLoop(name, x, fs, band, PLAN_CAP_DB) for name, x in irs]
     kw = dict(budget=budget, target=target, min_gain=min_gain, fs=fs, drift=drift, band=band, polish=polish,
               tonal_share=tonal_share, tonal_weighting=tonal_weighting, desk=desk)
-    planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
+    planned, planned_margin, reason, m0_grid, naive = _choose_cuts(loops, **kw)
     if planned and any(lp.saturated(planned_margin) for lp in loops):
         # the plan reached the grid's cap: plan again on every point of the band
         loops = [_GridLoop(name, x, fs, band, math.inf) for name, x in irs]
-        planned, planned_margin, reason, m0_grid = _choose_cuts(loops, **kw)
+        planned, planned_margin, reason, m0_grid, naive = _choose_cuts(loops, **kw)
 
-    steps_raw = _order_as_ringout(loops, planned, fs, m0_grid) if planned else []
-    n_keep = len(steps_raw)
-    if target is not None:
-        for k, s in enumerate(steps_raw):
-            if s[2] >= target:
-                n_keep = k + 1
-                reason = f"target margin met ({s[2]:.2f} dB >= {target:g} dB) after {n_keep} cut(s)"
-                break
-    steps_raw = steps_raw[:n_keep]
-    notches = tuple(s[0] for s in steps_raw)
-
-    # every figure exact: the Nyquist margin of the whole IR (of each perturbed loop in robust
-    # mode, the worst of them) with the cuts so far, so the steps add up to the total
-    exact = _exact_margins(irs, fs, band, notches, before)
+    grids = {0: grid0}  # each loop's exact-margin grid (one FFT per IR)
+    steps_raw, notches, exact, reason = _finish(loops, irs, grids, planned, reason, target, fs, band, m0_grid, before)
+    if desk is not None and naive and list(naive) != list(notches) and (target is None or exact[-1][1] < target):
+        # the naive ring-out of the same desk, judged exactly: the plan never loses margin to it
+        sos_n = cascade_sos(naive, fs)
+        m_n = min(grids[j].margin(filters_sos=sos_n, n_risks=0, filters_on_grid=grids[j].cascade_on_grid(sos_n))
+                  .gain_margin_db for j in range(len(irs)))
+        tonal_n = tonal_cost_db(naive, band, fs, weighting=tonal_weighting)
+        if m_n > exact[-1][1] + 1e-9 and tonal_n <= tonal_share * (m_n - exact[0][1]) + 1e-9:
+            steps_raw, notches, exact, _ = _finish(loops, irs, grids, list(naive), reason, None, fs, band, m0_grid, before)
+            planned_margin = _worst_margin(loops, list(notches), fs)[0]
+            reason = (f"the naive ring-out of this desk ({len(notches)} cut(s) at the limit in turn, as deep as it "
+                      "allows) buys more here, exactly, than the search's plan")
     after = exact[-1][0]
     m_before, m_after = exact[0][1], exact[-1][1]
     robust_loops = []
@@ -457,20 +460,52 @@ def ring_out(
     )
 
 
-def _exact_margins(irs, fs: float, band, notches, before):
-    """For 0..len(notches) cuts: (the nominal MarginResult, the worst margin, each loop's margin)."""
-    from howl.loop.nyquist import nyquist_margin
+def _finish(loops, irs, grids, planned, reason, target, fs, band, m0_grid, before):
+    """The planned cuts inserted as a ring-out, cut to the target, with every margin exact:
+    (steps, cuts, exact margins per step (:func:`_exact_margins`), why it stopped)."""
+    steps_raw = _order_as_ringout(loops, planned, fs, m0_grid) if planned else []
+    n_keep = len(steps_raw)
+    if target is not None:
+        for k, s in enumerate(steps_raw):
+            if s[2] >= target:
+                n_keep = k + 1
+                reason = f"target margin met ({s[2]:.2f} dB >= {target:g} dB) after {n_keep} cut(s)"
+                break
+    steps_raw = steps_raw[:n_keep]
+    notches = tuple(s[0] for s in steps_raw)
+    # every figure exact: the Nyquist margin of the whole IR (of each perturbed loop in robust
+    # mode, the worst of them) with the cuts so far, so the steps add up to the total
+    exact = _exact_margins(irs, fs, band, notches, before, grids=grids)
+    return steps_raw, notches, exact, reason
 
+
+def _exact_margins(irs, fs: float, band, notches, before, grids=None):
+    """For 0..len(notches) cuts: (the nominal MarginResult, the worst margin, each loop's margin).
+
+    Each margin is :func:`howl.loop.nyquist_margin` of the whole IR with the cuts so far, on one
+    :class:`howl.loop.nyquist.LoopGrid` per IR (one FFT; each step adds one cut's response on
+    the grid to the cascade before it). ``grids``: those already made, by index in ``irs``.
+    """
+    from howl.loop.nyquist import LoopGrid
+
+    grids = {} if grids is None else grids  # (filled in for the caller)
+    for j, (_, x) in enumerate(irs):
+        if j not in grids:
+            grids[j] = LoopGrid(x, fs, band_hz=band)
+    sos_all = cascade_sos(notches, fs) if notches else None
+    on_grid = [None] * len(irs)
     out = []
     for k in range(len(notches) + 1):
-        sos = cascade_sos(notches[:k], fs) if k else None
+        sos = sos_all[:k] if k else None
         per = []
         res0 = before
-        for j, (_, x) in enumerate(irs):
+        for j in range(len(irs)):
             if j == 0 and k == 0:
                 r = before
             else:
-                r = nyquist_margin(x, fs, band_hz=band, filters_sos=sos, n_risks=0 if k < len(notches) else 10)
+                if k:
+                    on_grid[j] = grids[j].cascade_on_grid(sos_all[k - 1 : k], on_grid[j])
+                r = grids[j].margin(filters_sos=sos, n_risks=0 if k < len(notches) else 10, filters_on_grid=on_grid[j])
             if j == 0:
                 res0 = r
             per.append(float(r.gain_margin_db))

@@ -165,6 +165,23 @@ def test_cascade_response_equals_scipy_sosfreqz_at_arbitrary_frequencies():
     np.testing.assert_array_equal(cascade_response([], f, FS), np.ones(f.size))
 
 
+def test_cascade_grown_section_by_section_on_a_long_grid_equals_scipy_sosfreqz():
+    # the exact step margins of the ring-out grow the cascade on nyquist_margin's grid one section
+    # at a time, in place (nyquist.LoopGrid.cascade_on_grid); reference: scipy.signal.sosfreqz
+    from howl.loop.nyquist import LoopGrid
+
+    rng = np.random.default_rng(3)
+    grid = LoopGrid(rng.standard_normal(4096) * np.exp(-np.arange(4096) / 800.0), FS, band_hz=(50.0, 20000.0))
+    cuts = [Notch(440.0, -6.0, 8.0), Notch(1234.5, None, 20.0), Notch(7000.0, -15.0, 4.5)]
+    sos = cascade_sos(cuts, FS)
+    c = None
+    for k in range(len(cuts)):
+        c = grid.cascade_on_grid(sos[k : k + 1], c)
+        ref = sig.sosfreqz(sos[: k + 1], worN=grid.f, fs=FS)[1]
+        np.testing.assert_allclose(c, ref, rtol=0, atol=1e-12)
+    assert grid.f.size >= 8192  # a long grid, where the responses are grown in place
+
+
 def test_bad_cuts_are_refused_with_the_field_named():
     with pytest.raises(InputError, match="gain_db"):
         Notch(1000.0, 3.0, 5.0)
