@@ -82,6 +82,8 @@ class TrackSettings:
     ridge: float = 1e-3              #: diagonal loading of F's normal equations (× r_uu(0))
     decay_prior: bool = True         #: regularise F's taps by an exponentially decaying prior
     prior_scale: float = 4.0         #: the prior's variance × this (less shrinkage toward zero)
+    tonal_db: float | None = 8.0     #: bridge bins of held tones this far above the local median (None: off)
+    tonal_width_hz: float = 40.0     #: half-width of the local median for the tonal test
     cg_iters: int = 40               #: conjugate-gradient iterations per estimate (warm-started)
 
 
@@ -160,7 +162,38 @@ class LoopTracker:
         if self._R.n_eff_samples == 0 or self._G.n_eff == 0:
             return None
         g_ir = causal_ir(self._G.estimate(), self._G.n_fft, self.n_g, max(1, self.n_g // 8))
-        return np.convolve(g_ir, self._f_ir)[: self.n_loop]
+        ir = np.convolve(g_ir, self._f_ir)[: self.n_loop]
+        return self._in_band(ir)
+
+    def tonal_mask(self) -> np.ndarray:
+        """Bins of F's Welch grid where the prewhitened mic holds a line ``tonal_db`` above its
+        local median (±``tonal_width_hz``): held notes the short- and long-term predictors leave.
+        There the source is not white and the closed-loop estimate is biased toward L = 1."""
+        from scipy.ndimage import maximum_filter1d, median_filter
+
+        s = self.settings
+        F = self._F
+        half = max(2, int(s.tonal_width_hz / (self.fs / F.n_fft)))
+        med = median_filter(F.syy, size=2 * half + 1, mode="nearest")
+        mask = F.syy > 10 ** (s.tonal_db / 10) * med
+        return maximum_filter1d(mask.astype(np.uint8), size=5) > 0
+
+    def _in_band(self, ir: np.ndarray) -> np.ndarray:
+        """L̂ kept to the analysis band (outside it the program says nothing: faded to zero over a
+        sixth of an octave) with its tonal bins replaced by a linear interpolation of their neighbours."""
+        nf = self._F.n_fft
+        H = np.fft.rfft(ir, nf)
+        f = np.fft.rfftfreq(nf, 1.0 / self.fs)
+        if self.settings.tonal_db is not None and self._F.n_eff:
+            mask = self.tonal_mask()
+            if mask.any() and not mask.all():
+                k = np.arange(H.size)
+                good = ~mask
+                H = np.interp(k, k[good], H.real[good]) + 1j * np.interp(k, k[good], H.imag[good])
+        lo, hi = self.band_hz
+        w = np.clip(np.log2(np.maximum(f, 1e-9) / (lo * 2 ** (-1 / 6))) * 6, 0, 1)
+        w = w * np.clip(np.log2(hi * 2 ** (1 / 6) / np.maximum(f, 1e-9)) * 6, 0, 1)
+        return np.fft.irfft(H * np.sin(0.5 * np.pi * w) ** 2, nf)[: self.n_loop]
 
     def _solve_f(self) -> None:
         """Update the causal FIR estimate of F from the normal equations (warm-started PCG)."""
