@@ -40,32 +40,8 @@ sys.path[:0] = [str(HERE.parent / "listen"), str(HERE.parent), str(HERE)]
 import track_cases as C  # noqa: E402
 from _machine import machine_info  # noqa: E402
 
-from howl.listen._pem import Spectra, causal_ir  # noqa: E402
 from howl.listen.track import LoopTracker, TrackSettings  # noqa: E402
 from howl.loop.nyquist import nyquist_margin  # noqa: E402
-
-
-def plain_margins(u, m, fs, settings=TrackSettings(), every_s=1.0):
-    """The biased open-loop formula in closed loop: margins once a second."""
-    n_loop = int(settings.loop_length_s * fs)
-    nf = 1 << int(np.ceil(np.log2(2 * n_loop)))
-    S = Spectra(nf, nf // 2, settings.f_memory_s, fs)
-    ng = 1 << int(np.ceil(np.log2(2 * settings.g_length_s * fs)))
-    Sg = Spectra(ng, ng // 4, settings.g_memory_s, fs)
-    out = []
-    step = int(every_s * fs)
-    for i in range(0, u.size, step):
-        S.process(u[i:i + step], m[i:i + step])
-        Sg.process(m[i:i + step], u[i:i + step])
-        if S.n_eff == 0 or Sg.n_eff == 0:
-            out.append(None)
-            continue
-        g = causal_ir(Sg.estimate(), ng, int(settings.g_length_s * fs), 8)
-        L = np.fft.rfft(g, nf) * S.estimate()
-        ir = causal_ir(L, nf, n_loop, n_loop // 8)
-        r = nyquist_margin(ir, fs, band_hz=(50.0, 0.45 * fs), n_risks=0)
-        out.append(r.gain_margin_db if np.isfinite(r.gain_margin_db) else None)
-    return out
 
 
 def _at(est, t):
@@ -81,7 +57,7 @@ def evaluate(case, quick=False):
     row.update(truth_db=truth, truth_freq_hz=before.howl_freq_hz, est10_db=e10["gain_margin_db"],
                err10_db=None if e10["gain_margin_db"] is None else e10["gain_margin_db"] - truth,
                unc10_db=e10["uncertainty_db"], status10=e10["status"], est10_freq_hz=e10["howl_freq_hz"])
-    pl = plain_margins(u, m, C.FS)
+    pl = C.plain_margins(u, m, C.FS)
     row["plain10_db"] = pl[9]
     row["plain_err10_db"] = None if pl[9] is None else pl[9] - truth
     cover = [(abs(e["gain_margin_db"] - truth) <= e["uncertainty_db"], e["status"]) for e in est
