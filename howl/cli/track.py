@@ -129,6 +129,27 @@ def _run(source, label, kw, json_out, view, warn_db, web=None):
     return run
 
 
+def _validate(recording, device, send_channel, mic_channel, duration, warn_db, loop_length_ms, record) -> None:
+    from howl import validate as v
+    from howl.errors import InputError
+
+    if (recording is None) == (device is None):
+        raise InputError("give a recording (REC.wav) or --device, one of them", key="--device")
+    if send_channel is None or mic_channel is None:
+        raise InputError("must be given (the send and the mic are two channels)",
+                         key="--send-channel" if send_channel is None else "--mic-channel")
+    v.integer(send_channel, "--send-channel", 1, 1024)
+    v.integer(mic_channel, "--mic-channel", 1, 1024)
+    if send_channel == mic_channel:
+        raise InputError(f"must differ from --send-channel, got {mic_channel} for both", key="--mic-channel")
+    if duration is not None:
+        v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
+    v.in_range(warn_db, "--warn-db", -20.0, 40.0, unit="dB")
+    v.in_range(loop_length_ms, "--loop-length-ms", 20.0, 4000.0, unit="ms")
+    if recording is not None and record is not None:
+        raise InputError("records a live input; a recording is already a recording", key="--record")
+
+
 def register(app: typer.Typer) -> None:
     @app.command("track")
     def track_cmd(
@@ -149,26 +170,10 @@ def register(app: typer.Typer) -> None:
         share: bool = typer.Option(False, "--share", help="With --view web: serve on the LAN address behind a key."),
     ) -> None:
         """Track the loop's gain margin from the program: the send and the mic, no test signal."""
-        from howl import validate as v
         from howl.cli._common import emit_json
-        from howl.errors import InputError
         from howl.listen._track_live import CAUTIONS
 
-        if (recording is None) == (device is None):
-            raise InputError("give a recording (REC.wav) or --device, one of them", key="--device")
-        if send_channel is None or mic_channel is None:
-            raise InputError("must be given (the send and the mic are two channels)",
-                             key="--send-channel" if send_channel is None else "--mic-channel")
-        v.integer(send_channel, "--send-channel", 1, 1024)
-        v.integer(mic_channel, "--mic-channel", 1, 1024)
-        if send_channel == mic_channel:
-            raise InputError(f"must differ from --send-channel, got {mic_channel} for both", key="--mic-channel")
-        if duration is not None:
-            v.in_range(duration, "--duration", 0.0, 24 * 3600.0, unit="s", lo_open=True)
-        v.in_range(warn_db, "--warn-db", -20.0, 40.0, unit="dB")
-        v.in_range(loop_length_ms, "--loop-length-ms", 20.0, 4000.0, unit="ms")
-        if recording is not None and record is not None:
-            raise InputError("records a live input; a recording is already a recording", key="--record")
+        _validate(recording, device, send_channel, mic_channel, duration, warn_db, loop_length_ms, record)
         _check_outputs(log, record, save_loop, [recording])
         from howl.cli import _webview
 
@@ -197,7 +202,14 @@ def register(app: typer.Typer) -> None:
             lg = JsonlLog(log) if log is not None else None
             kw = dict(settings=settings, duration_s=duration, log=lg, recorder=rec_w,
                       channels=(send_channel, mic_channel))
-            run = _run(src, label, kw, json_out, view != "web", warn_db, web=(port, share) if web else None)
+            try:
+                run = _run(src, label, kw, json_out, view != "web", warn_db, web=(port, share) if web else None)
+            except KeyboardInterrupt:  # stopped before the tracking loop ran (it handles its own interrupts)
+                if not json_out:
+                    raise
+                from howl.listen._track_live import TrackRun
+
+                run = TrackRun(sample_rate_hz=float(src.sample_rate_hz), interrupted=True)
         finally:
             for closer in (rec_w, lg, src):
                 if closer is not None:

@@ -98,3 +98,26 @@ def test_a_silent_send_and_a_send_equal_to_the_mic_warn(tmp_path):
     assert res.exit_code == 0
     assert "same signal" in res.stderr
     assert any(e["kind"] == "send_equals_mic" for e in json.loads(res.stdout)["events"])
+
+
+def test_the_web_view_gets_every_estimate_in_its_margin_panel(tmp_path, monkeypatch):
+    # the page's /state is LiveState.snapshot(); read it when the run ends, before the server stops
+    from howl.cli import _webview
+
+    seen = {}
+    stop = _webview.WebView.stop
+
+    def _stop(self):
+        seen["state"] = self.state.snapshot()
+        stop(self)
+
+    monkeypatch.setattr(_webview.WebView, "stop", _stop)
+    path = _rec(tmp_path)
+    res = runner.invoke(app, ["track", str(path), "--send-channel", "3", "--mic-channel", "1", "--json",
+                              "--view", "web", "--warn-db", "4"])
+    assert res.exit_code == 0, res.output
+    rep = json.loads(res.stdout)
+    panel = seen["state"]["margin"]
+    assert panel["now"]["gain_margin_db"] == pytest.approx(rep["estimates"][-1]["gain_margin_db"], abs=0.01)
+    assert panel["warn_db"] == 4.0
+    assert len(panel["history"]) == len(rep["estimates"])
