@@ -57,21 +57,23 @@ class Prewhitener:
         self.frame, self.order = int(frame), int(order)
         self.pitch_lags = None if pitch_lags is None else (int(pitch_lags[0]), int(pitch_lags[1]))
         self._win = np.hanning(self.frame)
-        self._hist = np.zeros((2, self.order))
+        self._hist = np.zeros((3, self.order))
         hi = 0 if self.pitch_lags is None else self.pitch_lags[1]
         # residual history of each pitch stage (a cascade: each finds the strongest period left)
-        self._rhists = [np.zeros((2, hi)) for _ in range(pitch_stages if self.pitch_lags else 0)]
-        self._buf = np.zeros((2, 0))
+        self._rhists = [np.zeros((3, hi)) for _ in range(pitch_stages if self.pitch_lags else 0)]
+        self._buf = np.zeros((3, 0))
 
-    def process(self, u: np.ndarray, m: np.ndarray) -> np.ndarray:
-        """Append samples; return the prewhitened (2, n) pairs for every completed frame."""
-        self._buf = np.concatenate([self._buf, np.vstack([u, m])], axis=1)
+    def process(self, u: np.ndarray, m: np.ndarray, ref: np.ndarray | None = None) -> np.ndarray:
+        """Append samples; return the prewhitened (2, n) pairs for every completed frame. The
+        predictors are estimated on ``ref`` (default: the mic): the feedback-compensated mic
+        m − F̂∗u in the prediction-error method, so the loop's own resonances are not whitened away."""
+        self._buf = np.concatenate([self._buf, np.vstack([u, m, m if ref is None else ref])], axis=1)
         n_frames = self._buf.shape[1] // self.frame
         out = np.empty((2, n_frames * self.frame))
         p, F = self.order, self.frame
         for k in range(n_frames):
             seg = self._buf[:, k * F:(k + 1) * F]
-            xw = seg[1] * self._win
+            xw = seg[2] * self._win
             r = np.array([np.dot(xw[: F - i], xw[i:]) for i in range(p + 1)])
             r[0] *= 1.0 + 1e-4
             a = levinson(r, p) if r[0] > 0 else np.r_[1.0, np.zeros(p)]
@@ -80,22 +82,22 @@ class Prewhitener:
             self._hist = seg[:, F - p:]
             for j in range(len(self._rhists)):
                 res = self._long_term(res, j)
-            out[:, k * F:(k + 1) * F] = res
+            out[:, k * F:(k + 1) * F] = res[:2]
         self._buf = self._buf[:, n_frames * F:]
         return out
 
     def _long_term(self, res: np.ndarray, stage: int) -> np.ndarray:
-        """Pitch predictor ``stage`` on one frame of residuals (2, F)."""
+        """Pitch predictor ``stage`` on one frame of residuals (3, F); the lag and gain from row 2."""
         lo, hi = self.pitch_lags
         F = res.shape[1]
         ext = np.concatenate([self._rhists[stage], res], axis=1)  # ext[:, hi + t] = res[:, t]
         self._rhists[stage] = ext[:, -hi:]
-        y = res[1]
+        y = res[2]
         # c(T) = Σ_t y[t]·ext[hi + t − T], energies of the lagged segments
-        full = np.correlate(ext[1], y, mode="valid")  # full[j] = Σ_t y[t] ext[j + t], j = 0..hi
+        full = np.correlate(ext[2], y, mode="valid")  # full[j] = Σ_t y[t] ext[j + t], j = 0..hi
         lags = np.arange(lo, hi + 1)
         c = full[hi - lags]
-        e2 = np.cumsum(np.r_[0.0, ext[1] ** 2])
+        e2 = np.cumsum(np.r_[0.0, ext[2] ** 2])
         e = e2[hi - lags + F] - e2[hi - lags]
         score = np.where(c > 0, c * c / np.maximum(e, 1e-300), 0.0)
         j = int(np.argmax(score))

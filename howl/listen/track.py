@@ -85,6 +85,7 @@ class TrackSettings:
     prior_scale: float = 1.0         #: the prior's variance × this (less shrinkage toward zero)
     tonal_db: float | None = 8.0     #: bridge bins of held tones this far above the local median (None: off)
     tonal_width_hz: float = 40.0     #: half-width of the local median for the tonal test
+    compensate: bool = False         #: estimate the predictors on the feedback-compensated mic m − F̂∗u (worse on TUNING)
     cg_iters: int = 40               #: conjugate-gradient iterations per estimate (warm-started)
 
 
@@ -104,6 +105,7 @@ class LoopTracker:
         self._F = Spectra(nf, nf // 2, s.f_memory_s, fs)  # for the residual and the variance
         self._R = Correlations(self.n_loop, s.f_memory_s, fs)  # the normal equations of F
         self._f_ir = None
+        self._u_hist = np.zeros(self.n_loop)
         self.n_g = int(round(s.g_length_s * fs))
         ng = _next_pow2(2 * self.n_g)
         self._G = Spectra(ng, ng // 4, s.g_memory_s, fs)
@@ -148,7 +150,14 @@ class LoopTracker:
 
     def _feed(self, u, m) -> None:
         self.n_samples += u.size
-        w = self._pw.process(u, m)
+        ref = None
+        if self.settings.compensate and self._f_ir is not None:
+            from scipy.signal import fftconvolve
+
+            x = np.concatenate([self._u_hist, u])
+            ref = m - fftconvolve(x, self._f_ir)[self.n_loop: self.n_loop + u.size]
+        self._u_hist = np.concatenate([self._u_hist, u])[-self.n_loop:]
+        w = self._pw.process(u, m, ref)
         if w.shape[1]:
             self._F.process(w[0], w[1], floor=self._floor)
             used = self._R.process(w[0], w[1], floor=self._floor)
