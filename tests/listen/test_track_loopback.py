@@ -51,7 +51,8 @@ def test_track_reports_the_margin_of_a_loop_played_through_the_jack_loopback(tmp
 
     tracker = subprocess.Popen(
         [sys.executable, "-m", "howl", "track", "--device", "loopback, JACK", "--send-channel", "1",
-         "--mic-channel", "2", "--duration", "15", "--json"],
+         "--mic-channel", "2", "--duration", "15", "--json", "--record", str(tmp_path / "raw.wav"),
+         "--log", str(tmp_path / "track.jsonl")],
         env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         deadline = time.monotonic() + 30
@@ -83,3 +84,18 @@ def test_track_reports_the_margin_of_a_loop_played_through_the_jack_loopback(tmp
     # between two framings of this case), hence 1 dB and not bit-exactness
     assert abs(live["gain_margin_db"] - offline["gain_margin_db"]) <= 1.0
     assert abs(live["gain_margin_db"] - truth) <= live["uncertainty_db"]
+    # --record kept the raw send and mic as they came: the played file is inside it, sample for sample
+    # (aligned by cross-correlation; the dummy driver's xruns on a loaded machine garble some periods
+    # before they reach PortAudio, hence "most blocks" and not all: derived from jackd's XRun log here)
+    import soundfile as sf
+    from scipy.signal import correlate
+
+    raw, fs_raw = sf.read(str(tmp_path / "raw.wav"), dtype="float32")
+    src = np.stack([u, m], axis=1).astype(np.float32)
+    assert fs_raw == FS and raw.shape[1] == 2
+    k = int(np.argmax(np.abs(correlate(raw[:, 1], src[:FS, 1], mode="valid", method="fft"))))
+    n = min(raw.shape[0] - k, src.shape[0]) // 1024
+    same = [np.array_equal(raw[k + 1024 * b: k + 1024 * (b + 1)], src[1024 * b: 1024 * (b + 1)]) for b in range(n)]
+    assert n > 0.9 * src.shape[0] // 1024 and np.mean(same) > 0.5, (n, np.mean(same))
+    logged = [json.loads(x) for x in (tmp_path / "track.jsonl").read_text().splitlines()]
+    assert [x["estimate"]["time_s"] for x in logged if "estimate" in x] == [e["time_s"] for e in rep["estimates"]]
