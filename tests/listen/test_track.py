@@ -119,3 +119,32 @@ def test_the_truth_lies_inside_the_reported_range_in_nine_estimates_out_of_ten()
                    for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0]
     print(f"coverage {np.mean(inside):.3f} over {len(inside)} estimates")
     assert np.mean(inside) >= 0.9
+
+
+def test_ctrl_c_keeps_what_was_estimated_and_marks_the_run_interrupted(tmp_path):
+    from howl.listen._track_live import run_track
+    from howl.listen.live import JsonlLog
+
+    fs = 8000
+    rng = np.random.default_rng(3)
+
+    class Source:  # two seconds of a loop, then Ctrl-C
+        sample_rate_hz, overflows, n = fs, 2, 0
+
+        def read(self, timeout_s=0.1):
+            if self.n >= 2 * fs:
+                raise KeyboardInterrupt
+            self.n += 800
+            u = 0.01 * rng.standard_normal(800)
+            return np.stack([u, 0.2 * u + 0.01 * rng.standard_normal(800)], axis=1)
+
+        def close(self):
+            pass
+
+    log = JsonlLog(tmp_path / "t.jsonl")
+    run = run_track(Source(), log=log)
+    log.close()
+    assert run.interrupted and run.n_samples == 2 * fs
+    assert [e["time_s"] for e in run.estimates] == [1.0, 2.0]
+    assert any(e["kind"] == "overflow" for e in run.events)  # overflows are counted and reported
+    assert len((tmp_path / "t.jsonl").read_text().splitlines()) == len(run.estimates) + len(run.events)
