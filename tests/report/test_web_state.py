@@ -136,3 +136,20 @@ def test_the_tap_passes_blocks_through_and_keeps_the_newest_samples():
         got.append(b)
     assert np.array_equal(np.concatenate(got), x) and tap.exhausted and tap.n_read == 10_000
     assert np.array_equal(tap.recent(), x[-4096:])
+
+
+def test_a_late_reader_gets_every_kept_update_in_order_and_the_skipped_ones_are_counted():
+    from howl.report.web.state import BACKLOG
+
+    st = LiveState()
+    for i in range(BACKLOG + 10):
+        st.update(_snap())
+    st.end()
+    # derived: seq 0 is the initial state; updates 1..BACKLOG+10, the end BACKLOG+11; the newest
+    # BACKLOG are kept, so a reader at 0 misses the 11 oldest updates (1..11)
+    got, skipped = st.updates_after(0, timeout_s=0.0)
+    assert [u[0] for u in got] == list(range(12, BACKLOG + 12)) and skipped == 11
+    assert [u[2] for u in got][-2:] == [False, True] and json.loads(got[-1][1])["ended"] is True
+    got, skipped = st.updates_after(BACKLOG + 5, timeout_s=0.0)
+    assert [u[0] for u in got] == list(range(BACKLOG + 6, BACKLOG + 12)) and skipped == 0
+    assert st.updates_after(BACKLOG + 11, timeout_s=0.0) == ([], 0)
