@@ -25,39 +25,57 @@ def _margin_text(rec: dict) -> str:
     return f"{approx}{m:.1f} dB from howling" if m > 0 else f"{approx}{-m:.1f} dB past"
 
 
+def _hz(freq_hz: float) -> str:
+    """A frequency as a tech reads it: "523.4 Hz", "2.346 kHz"."""
+    return f"{freq_hz / 1000:.3f} kHz" if freq_hz >= 1000 else f"{freq_hz:.1f} Hz"
+
+
+def _clock(t_s: float) -> str:
+    m = int(t_s // 60)
+    return f"{m}:{t_s - 60 * m:04.1f}"
+
+
+def _depth(gain_db) -> str:
+    return "full notch" if gain_db is None else f"{gain_db:.1f} dB"
+
+
 def _view(snap, device_label: str, fs: float):
+    """The terminal view: the same words as the page (howl.report.web): states a tech uses, cuts in
+    desk terms (centre, depth, Q and width), no detector-internal figures."""
     from rich.console import Group
     from rich.table import Table
     from rich.text import Text
 
-    head = Text(f"howl listen  {device_label}  {fs:g} Hz  {snap.elapsed_s:7.1f} s  "
-                f"input {snap.level_dbfs:6.1f} dBFS  overflows {snap.overflows}   (Ctrl-C stops)")
-    cand = Table(title="ringing candidates", expand=False)
-    for col in ("freq_hz", "level_db", "trend_db/s", "age_s", "PNPR", "PHPR", "state"):
+    from howl.report.web.state import STATE_WORDS, trend_words
+
+    head = Text(f"howl listen  {device_label}  {fs:g} Hz  clock {_clock(snap.elapsed_s)}  "
+                f"input {snap.level_dbfs:6.1f} dBFS  dropped blocks {snap.overflows}   (Ctrl-C stops)")
+    cand = Table(title="peaks being followed", expand=False)
+    for col in ("frequency", "level dBFS", "trend", "for", "above nearby", "state"):
         cand.add_column(col, justify="right")
     for c in snap.candidates:
-        cand.add_row(f"{c.freq_hz:.1f}", f"{c.level_db:.1f}", f"{c.trend_db_per_s:+.1f}", f"{c.age_s:.1f}",
-                     f"{c.pnpr_db:.0f}", f"{c.phpr_db:.0f}", c.state)
-    ev = Table(title="events (newest last)", expand=False)
-    for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "margin", "suggested cut"):
+        cand.add_row(_hz(c.freq_hz), f"{c.level_db:.1f}",
+                     f"{trend_words(c.trend_db_per_s)} {c.trend_db_per_s:+.1f} dB/s", f"{c.age_s:.1f} s",
+                     f"{c.pnpr_db:.0f} dB", STATE_WORDS.get(c.state, c.state))
+    ev = Table(title="what happened (newest last)", expand=False)
+    for col in ("clock", "what", "frequency", "level dBFS", "trend", "how close", "cut for the desk"):
         ev.add_column(col, justify="right")
     off_any = False
     for r in snap.events[-6:]:
         n = r["notch"]
-        cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
         c = r.get("loop_ir_crossing")
         off = c is not None and not c["on_crossing"]
         off_any |= off
-        ev.add_row(f"{r['time_s']:.1f}", r["kind"] + (" *" if off else ""), f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
-                   f"{r['growth_db_per_s']:+.1f}", _margin_text(r), f"{cut} Q {n['q']:.1f}")
+        ev.add_row(_clock(r["time_s"]), STATE_WORDS.get(r["kind"], r["kind"]) + (" *" if off else ""),
+                   _hz(r["freq_hz"]), f"{r['level_db']:.1f}", f"{r['growth_db_per_s']:+.1f} dB/s", _margin_text(r),
+                   f"{_hz(n['freq_hz'])} {_depth(n['gain_db'])} Q {n['q']:.1f}")
     if off_any:
         ev.caption = "* not on a crossing of the loop IR: more likely program pumped through the loop"
-    notches = Table(title="running notch list", expand=False)
-    for col in ("freq_hz", "cut", "Q", "width_oct"):
+    notches = Table(title="cut list for the desk", expand=False)
+    for col in ("centre", "depth", "Q", "width"):
         notches.add_column(col, justify="right")
     for n in snap.notches:
-        notches.add_row(f"{n.freq_hz:.1f}", "full notch" if n.gain_db is None else f"{n.gain_db:.1f} dB",
-                        f"{n.q:.1f}", f"{n.bandwidth_oct:.3f}")
+        notches.add_row(_hz(n.freq_hz), _depth(n.gain_db), f"{n.q:.1f}", f"{n.bandwidth_oct:.2f} oct")
     parts = [head, cand, ev, notches]
     parts += [Text(f"advice: {a}") for a in snap.advice]
     return Group(*parts)

@@ -153,3 +153,22 @@ def test_a_late_reader_gets_every_kept_update_in_order_and_the_skipped_ones_are_
     got, skipped = st.updates_after(BACKLOG + 5, timeout_s=0.0)
     assert [u[0] for u in got] == list(range(BACKLOG + 6, BACKLOG + 12)) and skipped == 0
     assert st.updates_after(BACKLOG + 11, timeout_s=0.0) == ([], 0)
+
+
+def test_the_terminal_view_speaks_the_pages_words_and_no_detector_jargon():
+    """`howl listen`'s terminal view (issue 24): states a tech uses (howling, ringing, watch, program),
+    cuts in desk terms (centre, depth, Q, width), no PNPR/PHPR columns."""
+    from rich.console import Console
+
+    from howl.cli.listen import _view
+
+    snap = Snapshot(elapsed_s=72.5, level_dbfs=-20.0, candidates=(_cand("howl", 12.0, 2345.6), _cand("watch", 0.0, 800.0)),
+                    events=(_event(1, 2345.6),), notches=(Notch(2345.6, -6.0, 20.0),), advice=(), overflows=3)
+    con = Console(width=160, record=True)
+    con.print(_view(snap, "desk", FS))
+    text = con.export_text()
+    assert "PNPR" not in text and "PHPR" not in text and "pnpr" not in text.lower()
+    for word in ("howling", "watch", "rising", "centre", "depth", "width", "dropped blocks 3", "clock 1:12.5"):
+        assert word in text, word
+    # 2345.6 Hz in kHz to the page's 3 decimals; the cut's depth and Q as given
+    assert "2.346 kHz" in text and "-6.0 dB" in text and "Q 20.0" in text
