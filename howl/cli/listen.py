@@ -91,13 +91,19 @@ def _run(device, in_channel, kw, json_out, web=None):
     label = str(device)
     try:
         Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
-        src = LiveInput(device, in_channel)
+        send = None if web is None else web[2]
+        if send is None:
+            src = LiveInput(device, in_channel)
+        else:  # [send, mic] blocks for the tracker beside the detector (LiveInput with a channel list)
+            src = LiveInput(device, [send, in_channel], channel_options=["--send-channel", "--in-channel"])
         label = src.device.label
-        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
+        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz"
+                   + ("" if send is None else f"; the send on channel {send} for the loop margin"), err=True)
         if web is not None:
             from howl.cli import _webview
 
-            res = _webview.run_listen(src, label=label, port=web[0], share=web[1], err=json_out, **kw)
+            res = _webview.run_listen(src, label=label, port=web[0], share=web[1], err=json_out,
+                                      send=send is not None, warn_db=web[3], **kw)
         elif json_out or not sys.stdout.isatty():
             res = listen(src, **kw)
         else:
@@ -176,6 +182,11 @@ def register(app: typer.Typer) -> None:
         port: int = typer.Option(None, "--port", help="With --view web: the page's port (default: a free one)."),
         share: bool = typer.Option(False, "--share", help="With --view web: serve on the LAN address for a tablet, "
                                    "behind a key in the link (printed with a QR code)."),
+        send_channel: int = typer.Option(None, "--send-channel", help="With --view web: the input channel carrying "
+                                         "the console's send to the loudspeaker; the loop margin is tracked from it "
+                                         "and the mic and shown on the same page."),
+        warn_db: float = typer.Option(3.0, "--warn-db", help="With --send-channel: warn when the loop margin "
+                                      "falls below this (dB)."),
     ) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
@@ -200,14 +211,17 @@ def register(app: typer.Typer) -> None:
                              desk_from=desk_from)
         from howl.cli import _webview
 
-        web = _webview.check_options(view, port, share)
+        web = _webview.check_options(view, port, share, send_channel, in_channel)
+        if warn_db != 3.0 and send_channel is None:
+            raise InputError("needs --send-channel (the margin is tracked from the send)", key="--warn-db")
+        v.in_range(warn_db, "--warn-db", 0.0, 40.0, unit="dB")
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
-        res, label = _run(device, in_channel, kw, json_out, web=(port, share) if web else None)
+        res, label = _run(device, in_channel, kw, json_out, web=(port, share, send_channel, warn_db) if web else None)
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)
@@ -220,6 +234,12 @@ def register(app: typer.Typer) -> None:
             typer.echo(f"  cut {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f}  from {n['n_events']} event(s)")
         for a in rep["advice"]:
             typer.echo(f"  advice: {a}")
+        lm = rep.get("loop_margin")
+        if lm and lm["estimates"]:
+            e = lm["estimates"][-1]
+            m = "no crossing" if e["gain_margin_db"] is None else f"{e['gain_margin_db']:.1f} dB"
+            f = "" if e["howl_freq_hz"] is None else f", first howl near {e['howl_freq_hz']:.0f} Hz"
+            typer.echo(f"  loop margin at the end: {m} ± {e['uncertainty_db']:.1f} dB{f} ({e['status']})")
         if res.overflows:
             typer.echo(f"  warning: {res.overflows} input overflow(s): audio was lost; results may miss events",
                        err=True)
