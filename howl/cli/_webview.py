@@ -18,6 +18,10 @@ VIEWS = ("terminal", "web")
 #: (checked after each audio block, so ~0.064 s at 1024 frames and 48 kHz: ~15 updates/s, with
 #: room for a loaded machine).
 UPDATE_INTERVAL_S = 0.06
+#: The caution added to the page when the loop margin is tracked beside the detector.
+MARGIN_CAUTION = ("The loop margin is an estimate from the program, with its ± : it can be wrong, and a loop can "
+                  "start to howl within a fraction of a second. Hearing protection and local rules on sound levels "
+                  "come first; follow licensed practice.")
 
 
 def check_options(view: str, port: int | None, share: bool, send_channel: int | None = None,
@@ -174,7 +178,7 @@ def run_listen(src, *, label: str, port: int | None, share: bool, err: bool, sen
 
     command = "listen + track" if send else "listen"
     with WebView(command=command, label=label, sample_rate_hz=src.sample_rate_hz, port=port, share=share,
-                 err=err, cautions=CAUTIONS, margin_warn_db=warn_db) as view:
+                 err=err, cautions=CAUTIONS + ((MARGIN_CAUTION,) if send else ()), margin_warn_db=warn_db) as view:
         pair = view.track_send(src) if send else None
         res = listen(view.tap_source(pair or src), on_update=view.on_listen_update,
                      update_interval_s=UPDATE_INTERVAL_S, **listen_kw)
