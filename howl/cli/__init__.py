@@ -144,13 +144,13 @@ def _root(
 
 
 #: The command modules, imported by name below (plain imports, so ``-X importtime`` sees them).
-COMMANDS = ("check", "room", "plan", "map", "margin", "simulate", "ringout", "devices", "measure", "scan", "listen", "sheet")
+COMMANDS = ("check", "room", "plan", "map", "margin", "simulate", "ringout", "devices", "measure", "scan", "listen", "track", "sheet")
 
 
 def _load_commands() -> None:
-    from howl.cli import check, devices, listen, map, margin, measure, plan, ringout, room, scan, sheet, simulate
+    from howl.cli import check, devices, listen, map, margin, measure, plan, ringout, room, scan, sheet, simulate, track
 
-    mods = {m.__name__.rpartition(".")[2]: m for m in (check, devices, listen, map, margin, measure, plan, ringout, room, scan, sheet, simulate)}
+    mods = {m.__name__.rpartition(".")[2]: m for m in (check, devices, listen, map, margin, measure, plan, ringout, room, scan, sheet, simulate, track)}
     for info in pkgutil.iter_modules(__path__):  # a command module not in COMMANDS yet
         if not info.name.startswith("_") and info.name not in mods:
             mods[info.name] = importlib.import_module(f"{__name__}.{info.name}")

@@ -186,3 +186,13 @@ def run_listen(src, *, label: str, port: int | None, share: bool, err: bool, sen
             pair.finish()
             res.report["loop_margin"] = {"warn_db": float(warn_db), "estimates": pair.estimates}
         return res
+
+
+def run_track(src, *, label: str, port: int | None, share: bool, err: bool, warn_db: float, cautions=(), **track_kw):
+    """``run_track(...)`` with the page (its margin panel fed each estimate), stopped when the audio
+    ends or on Ctrl-C."""
+    from howl.listen._track_live import run_track as _run
+
+    with WebView(command="track", label=label, sample_rate_hz=src.sample_rate_hz, port=port, share=share,
+                 err=err, cautions=cautions, margin_warn_db=warn_db) as view:
+        return _run(src, on_estimate=view.add_margin, warn_db=warn_db, **track_kw)

@@ -53,13 +53,14 @@ class Prewhitener:
     cascade with their own history, so the output is continuous across frames.
     """
 
-    def __init__(self, frame: int, order: int, pitch_lags: tuple | None = None):
+    def __init__(self, frame: int, order: int, pitch_lags: tuple | None = None, pitch_stages: int = 1):
         self.frame, self.order = int(frame), int(order)
         self.pitch_lags = None if pitch_lags is None else (int(pitch_lags[0]), int(pitch_lags[1]))
         self._win = np.hanning(self.frame)
         self._hist = np.zeros((2, self.order))
         hi = 0 if self.pitch_lags is None else self.pitch_lags[1]
-        self._rhist = np.zeros((2, hi))  # short-term residual history for the pitch predictor
+        # residual history of each pitch stage (a cascade: each finds the strongest period left)
+        self._rhists = [np.zeros((2, hi)) for _ in range(pitch_stages if self.pitch_lags else 0)]
         self._buf = np.zeros((2, 0))
 
     def process(self, u: np.ndarray, m: np.ndarray) -> np.ndarray:
@@ -77,16 +78,18 @@ class Prewhitener:
             ext = np.concatenate([self._hist, seg], axis=1)
             res = lfilter(a, [1.0], ext, axis=1)[:, p:]
             self._hist = seg[:, F - p:]
-            out[:, k * F:(k + 1) * F] = self._long_term(res) if self.pitch_lags else res
+            for j in range(len(self._rhists)):
+                res = self._long_term(res, j)
+            out[:, k * F:(k + 1) * F] = res
         self._buf = self._buf[:, n_frames * F:]
         return out
 
-    def _long_term(self, res: np.ndarray) -> np.ndarray:
-        """The pitch predictor on one frame of short-term residuals (2, F)."""
+    def _long_term(self, res: np.ndarray, stage: int) -> np.ndarray:
+        """Pitch predictor ``stage`` on one frame of residuals (2, F)."""
         lo, hi = self.pitch_lags
         F = res.shape[1]
-        ext = np.concatenate([self._rhist, res], axis=1)  # ext[:, hi + t] = res[:, t]
-        self._rhist = ext[:, -hi:]
+        ext = np.concatenate([self._rhists[stage], res], axis=1)  # ext[:, hi + t] = res[:, t]
+        self._rhists[stage] = ext[:, -hi:]
         y = res[1]
         # c(T) = Σ_t y[t]·ext[hi + t − T], energies of the lagged segments
         full = np.correlate(ext[1], y, mode="valid")  # full[j] = Σ_t y[t] ext[j + t], j = 0..hi
@@ -264,9 +267,10 @@ def solve_toeplitz_pcg(r: np.ndarray, b: np.ndarray, x0: np.ndarray | None = Non
 
 
 def decay_prior(f: np.ndarray, noise_var: float, sample_rate_hz: float, *, smooth_s: float = 0.005,
-                default_rt60_s: float = 0.5) -> np.ndarray:
-    """Prior variance of each tap of F: flat up to the strongest arrival, then an exponential decay
-    fitted to the smoothed squared estimate down to where it meets the estimate's own noise
+                default_rt60_s: float = 0.5, skip_s: float = 0.02) -> np.ndarray:
+    """Prior variance of each tap of F: flat up to the strongest arrival, then the larger of the
+    smoothed squared estimate and an exponential decay fitted to it from ``skip_s`` after the
+    strongest arrival down to where it meets the estimate's own noise
     (the exponentially decaying kernel of regularised FIR identification: T. Chen, H. Ohlsson,
     L. Ljung, "On the estimation of transfer functions, regularizations and Gaussian processes —
     Revisited", Automatica 48(8):1525–1535, 2012; hyperparameters by a fit, not by marginal
@@ -277,16 +281,19 @@ def decay_prior(f: np.ndarray, noise_var: float, sample_rate_hz: float, *, smoot
     k0 = int(np.argmax(e))
     peak = float(e[k0])
     floor = max(noise_var, 1e-30)
-    b = 6.91 * 2 / (default_rt60_s * sample_rate_hz)  # ln(1e6)/ (RT60·fs): energy decay per sample
-    above = np.nonzero(e[k0:] < 3 * floor)[0]
-    k1 = k0 + (int(above[0]) if above.size else n - k0)
-    if k1 - k0 > 4 * w and peak > 3 * floor:
-        k = np.arange(k0, k1)
-        slope = np.polyfit(k - k0, np.log(np.maximum(e[k0:k1], 1e-300)), 1)[0]
+    b = 6.91 * 2 / (default_rt60_s * sample_rate_hz)  # ln(1e6)/(RT60·fs): energy decay per sample
+    a = np.log(max(peak, 1e-300))
+    ks = k0 + int(skip_s * sample_rate_hz)  # the fit starts after the direct sound and first reflections
+    above = np.nonzero(e[ks:] < 3 * floor)[0] if ks < n else np.zeros(0, int)
+    k1 = ks + (int(above[0]) if above.size else n - ks)
+    if k1 - ks > 4 * w and float(e[ks]) > 3 * floor:
+        k = np.arange(ks, k1)
+        slope, icpt = np.polyfit(k - k0, np.log(np.maximum(e[ks:k1], 1e-300)), 1)
         if slope < 0:
-            b = -slope
+            b, a = -slope, icpt
     k = np.arange(n)
-    return np.where(k <= k0, peak, peak * np.exp(-b * (k - k0)))
+    tail = np.exp(np.minimum(a - b * (k - k0), np.log(max(peak, 1e-300))))
+    return np.where(k <= k0, peak, np.maximum(tail, np.minimum(e, peak)))
 
 
 def solve_regularised(r: np.ndarray, b: np.ndarray, prior: np.ndarray, noise_var: float,

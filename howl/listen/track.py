@@ -32,7 +32,7 @@ Stable interface (the web view and ``howl track`` rely on it)::
     for send_block, mic_block in blocks:
         for est in tr.process(send_block, mic_block):   # 1-D float arrays of equal length
             ...   # est: {time_s, gain_margin_db, howl_freq_hz, magnitude_margin_db,
-                  #       uncertainty_db, status, coherence, program_s}
+                  #       uncertainty_db, status, coherence, relative_error, program_s}
     tr.finish()      # the estimate at the end (a list of 0 or 1 dict)
     tr.loop_ir()     # the current L̂ as a loop IR (numpy array) or None
 
@@ -68,20 +68,23 @@ class TrackSettings:
     lpc_frame_s: float = 0.02        #: prewhitening frame
     lpc_order: int = 20              #: prewhitening predictor order
     pitch_hz: tuple | None = (60.0, 500.0)  #: range of the long-term (pitch) predictor (None: off)
+    pitch_stages: int = 2            #: long-term predictors in cascade (one per voice it can remove)
     f_memory_s: float = 30.0         #: F's forgetting time constant
     g_memory_s: float = 0.4          #: G's forgetting time constant
     g_length_s: float = 0.04         #: longest console response (delay + EQ ring) that G holds
     min_program_s: float = 4.0       #: program (in F's memory) before an estimate is trusted
     silence_dbfs: float = -90.0      #: frames of the prewhitened send below this power are skipped
     band_hz: tuple = (50.0, None)    #: analysis band (None: 0.45 × the sample rate)
-    coverage_k: float = 2.0          #: uncertainty = this × the random error (tuned for ≥ 90 % coverage)
+    coverage_k: float = 3.5          #: uncertainty = 20·log10(1 + this × the relative random error) (tuned: ≥ 90 % coverage)
     floor_db: float = 0.3            #: uncertainty floor (IR truncation and model error)
-    max_ok_db: float = 3.0           #: beyond this uncertainty the status says not enough program
+    max_ok_db: float = 6.0           #: beyond this uncertainty the status says not enough program
     widen_db_per_s: float = 1.0      #: growth of the uncertainty per second without program
     min_coherence: float = 0.05      #: below this coherence at the crossing: not enough program
     ridge: float = 1e-3              #: diagonal loading of F's normal equations (× r_uu(0))
     decay_prior: bool = True         #: regularise F's taps by an exponentially decaying prior
-    prior_scale: float = 4.0         #: the prior's variance × this (less shrinkage toward zero)
+    prior_scale: float = 1.0         #: the prior's variance × this (less shrinkage toward zero)
+    tonal_db: float | None = 8.0     #: bridge bins of held tones this far above the local median (None: off)
+    tonal_width_hz: float = 40.0     #: half-width of the local median for the tonal test
     cg_iters: int = 40               #: conjugate-gradient iterations per estimate (warm-started)
 
 
@@ -96,7 +99,7 @@ class LoopTracker:
         fs = self.fs
         self.n_loop = int(round(s.loop_length_s * fs))
         lags = None if s.pitch_hz is None else (int(fs / s.pitch_hz[1]), int(math.ceil(fs / s.pitch_hz[0])))
-        self._pw = Prewhitener(max(8, int(round(s.lpc_frame_s * fs))), s.lpc_order, lags)
+        self._pw = Prewhitener(max(8, int(round(s.lpc_frame_s * fs))), s.lpc_order, lags, s.pitch_stages)
         nf = _next_pow2(2 * self.n_loop)
         self._F = Spectra(nf, nf // 2, s.f_memory_s, fs)  # for the residual and the variance
         self._R = Correlations(self.n_loop, s.f_memory_s, fs)  # the normal equations of F
@@ -160,7 +163,38 @@ class LoopTracker:
         if self._R.n_eff_samples == 0 or self._G.n_eff == 0:
             return None
         g_ir = causal_ir(self._G.estimate(), self._G.n_fft, self.n_g, max(1, self.n_g // 8))
-        return np.convolve(g_ir, self._f_ir)[: self.n_loop]
+        ir = np.convolve(g_ir, self._f_ir)[: self.n_loop]
+        return self._in_band(ir)
+
+    def tonal_mask(self) -> np.ndarray:
+        """Bins of F's Welch grid where the prewhitened mic holds a line ``tonal_db`` above its
+        local median (±``tonal_width_hz``): held notes the short- and long-term predictors leave.
+        There the source is not white and the closed-loop estimate is biased toward L = 1."""
+        from scipy.ndimage import maximum_filter1d, median_filter
+
+        s = self.settings
+        F = self._F
+        half = max(2, int(s.tonal_width_hz / (self.fs / F.n_fft)))
+        med = median_filter(F.syy, size=2 * half + 1, mode="nearest")
+        mask = F.syy > 10 ** (s.tonal_db / 10) * med
+        return maximum_filter1d(mask.astype(np.uint8), size=5) > 0
+
+    def _in_band(self, ir: np.ndarray) -> np.ndarray:
+        """L̂ kept to the analysis band (outside it the program says nothing: faded to zero over a
+        sixth of an octave) with its tonal bins replaced by a linear interpolation of their neighbours."""
+        nf = self._F.n_fft
+        H = np.fft.rfft(ir, nf)
+        f = np.fft.rfftfreq(nf, 1.0 / self.fs)
+        if self.settings.tonal_db is not None and self._F.n_eff:
+            mask = self.tonal_mask()
+            if mask.any() and not mask.all():
+                k = np.arange(H.size)
+                good = ~mask
+                H = np.interp(k, k[good], H.real[good]) + 1j * np.interp(k, k[good], H.imag[good])
+        lo, hi = self.band_hz
+        w = np.clip(np.log2(np.maximum(f, 1e-9) / (lo * 2 ** (-1 / 6))) * 6, 0, 1)
+        w = w * np.clip(np.log2(hi * 2 ** (1 / 6) / np.maximum(f, 1e-9)) * 6, 0, 1)
+        return np.fft.irfft(H * np.sin(0.5 * np.pi * w) ** 2, nf)[: self.n_loop]
 
     def _solve_f(self) -> None:
         """Update the causal FIR estimate of F from the normal equations (warm-started PCG)."""
@@ -182,7 +216,8 @@ class LoopTracker:
         s = self.settings
         t = self.n_samples / self.fs
         est = {"time_s": round(t, 6), "gain_margin_db": None, "howl_freq_hz": None, "magnitude_margin_db": None,
-               "uncertainty_db": None, "status": NOT_ENOUGH, "coherence": None, "program_s": round(self._program_s, 3)}
+               "uncertainty_db": None, "status": NOT_ENOUGH, "coherence": None, "relative_error": None,
+               "program_s": round(self._program_s, 3)}
         self._solve_f()
         ir = self.loop_ir()
         if ir is None or not np.any(ir):
@@ -200,7 +235,7 @@ class LoopTracker:
         est.update(gain_margin_db=float(r.gain_margin_db) if math.isfinite(r.gain_margin_db) else None,
                    howl_freq_hz=float(r.howl_freq_hz) if math.isfinite(r.gain_margin_db) else None,
                    magnitude_margin_db=float(r.magnitude_margin_db), uncertainty_db=round(unc, 3),
-                   status=OK if enough else NOT_ENOUGH, coherence=round(coh, 4))
+                   status=OK if enough else NOT_ENOUGH, coherence=round(coh, 4), relative_error=round(eps, 5))
         self.latest = est
         return est
 

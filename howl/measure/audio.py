@@ -431,7 +431,7 @@ def open_backend() -> AudioBackend:
 
 
 class LiveInput:
-    """A callback input stream of one channel for live listening.
+    """A callback input stream of one channel (or several: ``channel`` a list) for live listening.
 
     Blocks go into a queue that :meth:`read` drains. Every PortAudio input status
     flag is counted (``overflows`` for ``input_overflow``, ``flags`` for all), never
@@ -439,23 +439,32 @@ class LiveInput:
     that is neither active nor stopped, or no callback for ``stall_timeout_s``, means
     the server or device went away (:class:`AudioServerGone`); ``stop``/``close``
     are then skipped because they hang on PortAudio 19.6's JACK host API.
-    The sample rate defaults to the device's own.
+    The sample rate defaults to the device's own. With a list of channels, :meth:`read` returns
+    (frames, len(channels)) blocks in that order; ``channel_options`` names the option of each
+    (for the error on a channel the device lacks).
     """
 
-    def __init__(self, device: str | int | None, channel: int = 1, *, sample_rate_hz: float | None = None,
-                 block_frames: int = 1024, stall_timeout_s: float = 3.0, max_queue_blocks: int = 1000):
+    def __init__(self, device: str | int | None, channel: int | Sequence[int] = 1, *, sample_rate_hz: float | None = None,
+                 block_frames: int = 1024, stall_timeout_s: float = 3.0, max_queue_blocks: int = 1000,
+                 channel_options: Sequence[str] | None = None):
         import queue
+
+        multi = not isinstance(channel, (int, np.integer))
+        chans = [int(c) for c in channel] if multi else [int(channel)]
+        opts = list(channel_options) if channel_options else ["--in-channel"] * len(chans)
 
         self._backend = PortAudioBackend(stall_timeout_s=stall_timeout_s)
         sd = self._backend._sd
         try:
             dev = self._backend.resolve(device, "input", "--device")
-            _check_channels([channel], dev, "input", "--in-channel")
+            for ch, opt in zip(chans, opts):
+                _check_channels([ch], dev, "input", opt)
         except InputError as exc:
             self._backend.close()
-            raise InputError(exc.message, key=exc.key if exc.key == "--in-channel" else "--device") from None
+            raise InputError(exc.message, key=exc.key if exc.key in opts else "--device") from None
         self.device = dev
-        self.channel = int(channel)
+        self.channel = chans if multi else chans[0]
+        cols = [c - 1 for c in chans] if multi else chans[0] - 1
         self.sample_rate_hz = float(sample_rate_hz or dev.default_sample_rate_hz)
         self.overflows = 0
         self.flags: set[str] = set()
@@ -473,13 +482,13 @@ class LiveInput:
                     self.overflows += 1
             self._last = time.monotonic()
             try:
-                self._q.put_nowait(indata[:, self.channel - 1].copy())
+                self._q.put_nowait(indata[:, cols].copy())
             except queue.Full:  # the reader fell behind: count it as an overflow too
                 self.dropped_blocks += 1
                 self.overflows += 1
 
         try:
-            self._stream = sd.InputStream(samplerate=self.sample_rate_hz, device=dev.index, channels=self.channel,
+            self._stream = sd.InputStream(samplerate=self.sample_rate_hz, device=dev.index, channels=max(chans),
                                           dtype="float32", blocksize=int(block_frames), latency="high",
                                           callback=callback)
             self._stream.start()
@@ -489,7 +498,8 @@ class LiveInput:
         self._last = time.monotonic()
 
     def read(self, timeout_s: float = 0.1) -> np.ndarray | None:
-        """The next block (float32, 1-D), or None if none arrived within ``timeout_s``."""
+        """The next block (float32, 1-D; (frames, k) for a list of channels), or None if none arrived
+        within ``timeout_s``."""
         import queue
 
         try:

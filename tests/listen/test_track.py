@@ -8,6 +8,7 @@ HELD-OUT cases only (the settings were tuned on the TUNING cases).
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -49,14 +50,65 @@ def test_silence_says_not_enough_program_and_widens():
     assert all(e["gain_margin_db"] is None for e in est)
 
 
-@pytest.mark.xfail(reason="accuracy work in progress on this branch", strict=False)
-@pytest.mark.parametrize("case", C.HELDOUT[:2], ids=lambda c: f"room{c.room}-{c.kind}")
-def test_margin_after_ten_seconds_of_program_is_within_a_db_of_the_truth(case):
-    u, m, before, _after, _f, _g = C.render(case, 11.0)
+def _at(est, t):
+    return min(est, key=lambda e: abs(e["time_s"] - t))
+
+
+@functools.lru_cache(maxsize=None)
+def _run(i: int, **render_kw):
+    case = C.HELDOUT[i]
+    u, m, before, after, _f, _g = C.render(case, render_kw.pop("dur_s", 11.0), **render_kw)
     est, _tr = C.run_tracker(u, m, C.FS)
-    last = [e for e in est if e["time_s"] >= 10.0][0]
+    return est, before, after, u, m
+
+
+def test_the_closed_loop_method_beats_the_plain_cross_spectral_estimate():
+    # held-out case 0: a 5.0 dB margin (truth: nyquist_margin of the true G·F)
+    est, before, _a, u, m = _run(0)
+    truth = before.gain_margin_db
+    plain = C.plain_margins(u, m, C.FS)[9]
+    ours = _at(est, 10.0)["gain_margin_db"]
+    print("truth", truth, "plain", plain, "ours", ours)
+    # the open-loop formula in closed loop is pulled to L = 1 (a margin near 0 dB; Ljung 1999, sec. 13.4)
+    assert plain < truth - 3.0
+    assert abs(ours - truth) < abs(plain - truth) - 2.0
+
+
+@pytest.mark.parametrize("i", [0, 1])
+def test_margin_after_ten_seconds_of_program_is_within_a_db_of_the_truth(i):
+    est, before, *_ = _run(i)
+    e = _at(est, 10.0)
     truth = before.gain_margin_db  # howl.loop.nyquist_margin of the true G·F (the reference)
-    print(case, truth, last)
-    assert last["status"] == "ok"
-    assert abs(last["gain_margin_db"] - truth) <= 1.0
-    assert math.isfinite(last["uncertainty_db"])
+    print(C.HELDOUT[i], truth, e)
+    assert e["status"] == "ok"
+    assert abs(e["gain_margin_db"] - truth) <= 1.0
+    assert abs(e["gain_margin_db"] - truth) <= e["uncertainty_db"]
+
+
+@pytest.mark.parametrize("step_db", [3.0, -3.0])
+def test_a_fader_step_shows_within_three_seconds(step_db):
+    est, before, after, *_ = _run(0, dur_s=13.0, step_at_s=10.0, step_db=step_db)
+    e10, e13 = _at(est, 10.0), _at(est, 13.0)
+    # the truth moves by the step exactly (a fader scales the whole loop): derived from L = g·G·F
+    assert after.gain_margin_db - before.gain_margin_db == pytest.approx(-step_db, abs=1e-9)
+    assert (e13["gain_margin_db"] - e10["gain_margin_db"]) == pytest.approx(-step_db, abs=1.0)
+    assert abs(e13["gain_margin_db"] - after.gain_margin_db) <= 1.0
+
+
+def test_a_notch_at_the_worst_crossing_raises_the_margin_by_the_right_amount():
+    est0, before, *_ = _run(0)
+    est1, with_notch, *_ = _run(0, notch=(before.howl_freq_hz, 8.0))  # scipy.signal.iirnotch, Q 8
+    rise_true = with_notch.gain_margin_db - before.gain_margin_db
+    rise_est = _at(est1, 10.0)["gain_margin_db"] - _at(est0, 10.0)["gain_margin_db"]
+    print("rise true", rise_true, "estimated", rise_est)
+    assert rise_est == pytest.approx(rise_true, abs=1.0)
+
+
+def test_the_truth_lies_inside_the_reported_range_in_nine_estimates_out_of_ten():
+    inside = []
+    for i in range(len(C.HELDOUT)):
+        est, before, *_ = _run(i)
+        inside += [abs(e["gain_margin_db"] - before.gain_margin_db) <= e["uncertainty_db"]
+                   for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0]
+    print(f"coverage {np.mean(inside):.3f} over {len(inside)} estimates")
+    assert np.mean(inside) >= 0.9

@@ -140,3 +140,32 @@ def run_tracker(u, m, fs, settings=None, block=1024):
         out += tr.process(u[i:i + block], m[i:i + block])
     out += tr.finish()
     return out, tr
+
+
+def plain_margins(u, m, fs, settings=None, every_s=1.0):
+    """The biased open-loop formula in closed loop, margins once a second: L̂ = (S_mu/S_mm)·(S_um/S_uu)
+    from Welch spectra of the raw signals with the tracker's forgetting (no prewhitening)."""
+    from howl.listen._pem import Spectra, causal_ir
+    from howl.listen.track import TrackSettings
+    from howl.loop.nyquist import nyquist_margin
+
+    settings = settings or TrackSettings()
+    n_loop = int(settings.loop_length_s * fs)
+    nf = 1 << int(np.ceil(np.log2(2 * n_loop)))
+    S = Spectra(nf, nf // 2, settings.f_memory_s, fs)
+    ng = 1 << int(np.ceil(np.log2(2 * settings.g_length_s * fs)))
+    Sg = Spectra(ng, ng // 4, settings.g_memory_s, fs)
+    out = []
+    step = int(every_s * fs)
+    for i in range(0, u.size, step):
+        S.process(u[i:i + step], m[i:i + step])
+        Sg.process(m[i:i + step], u[i:i + step])
+        if S.n_eff == 0 or Sg.n_eff == 0:
+            out.append(None)
+            continue
+        g = causal_ir(Sg.estimate(), ng, int(settings.g_length_s * fs), 8)
+        L = np.fft.rfft(g, nf) * S.estimate()
+        ir = causal_ir(L, nf, n_loop, n_loop // 8)
+        r = nyquist_margin(ir, fs, band_hz=(50.0, 0.45 * fs), n_risks=0)
+        out.append(r.gain_margin_db if np.isfinite(r.gain_margin_db) else None)
+    return out
