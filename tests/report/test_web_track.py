@@ -19,7 +19,7 @@ G_DB = 20 * np.log10(0.7)
 TRUE_MARGIN_DB = -20 * np.log10(0.56)
 
 
-def send_and_mic(seed: int = 5, dur_s: float = DUR_S, howl_hz: float | None = None):
+def send_and_mic(seed: int = 5, dur_s: float = DUR_S, howl_hz: float | None = None, fs: int = FS):
     """(frames, 2) [send, mic]: program-like noise (white through a 1st-order low-pass, our own)
     at the mic through the closed loop above (howl.loop.simulate, sample-accurate), the send u = G*m;
     optionally a tone added to the mic that grows at 30 dB/s from 6 s (a howl, for the detector)."""
@@ -28,17 +28,17 @@ def send_and_mic(seed: int = 5, dur_s: float = DUR_S, howl_hz: float | None = No
     from howl.loop.simulate import simulate_closed_loop
 
     rng = np.random.default_rng(seed)
-    n = int(dur_s * FS)
-    a = np.exp(-2 * np.pi * 1500 / FS)
+    n = int(dur_s * fs)
+    a = np.exp(-2 * np.pi * 1500 / fs)
     x = lfilter([1 - a], [1, -a], rng.standard_normal(n))
     x *= 10 ** (-30 / 20) / np.sqrt(np.mean(x ** 2))
-    f_ir = np.zeros(int(0.013 * FS))
-    f_ir[int(0.005 * FS)], f_ir[int(0.012 * FS)] = 0.5, 0.3
-    g_ir = np.zeros(int(0.002 * FS) + 1)
+    f_ir = np.zeros(int(0.013 * fs))
+    f_ir[int(0.005 * fs)], f_ir[int(0.012 * fs)] = 0.5, 0.3
+    g_ir = np.zeros(int(0.002 * fs) + 1)
     g_ir[-1] = 1.0
-    m = simulate_closed_loop(np.convolve(g_ir, f_ir), x, FS, gain_db=G_DB, limiter_dbfs=None)
+    m = simulate_closed_loop(np.convolve(g_ir, f_ir), x, fs, gain_db=G_DB, limiter_dbfs=None)
     if howl_hz is not None:
-        t = np.arange(n) / FS
+        t = np.arange(n) / fs
         lv = np.where(t < 6.0, -200.0, np.minimum(-60.0 + 30.0 * (t - 6.0), -12.0))
         m = m + 10 ** (lv / 20) * np.sin(2 * np.pi * howl_hz * t)
     u = lfilter(g_ir, [1.0], m) * 10 ** (G_DB / 20)
@@ -167,3 +167,61 @@ def test_in_a_browser_the_margin_shown_equals_the_jsons(tmp_path):
     assert shown["margin-freq"] == (f"{f / 1000:.3f} kHz" if 1000 <= f < 10000 else f"{f:.1f} Hz"), shown
     assert state["margin"]["warn_db"] == 3.0 and len(state["margin"]["history"]) == len(pair.estimates)
     assert (tmp_path / "listen_and_track.png").stat().st_size > 10_000
+
+
+def test_listen_with_a_send_channel_through_the_jack_loopback(tmp_path):
+    """For real: a two-channel file [send, mic] (the closed loop above at 48 kHz with a howl at the
+    mic) is played into the JACK loopback while `python -m howl listen --device 'loopback, JACK'
+    --in-channel 2 --send-channel 1 --view web --json` runs in another process (LiveInput with two
+    channels). The howl comes out at its frequency, and the margin estimates come once a second.
+    Needs jackd with its loopback ports (JACK_DEFAULT_SERVER); skips without, fails under CI
+    (HOWL_REQUIRE_AUDIO_LOOPBACK), as tests/listen/test_listen_loopback.py."""
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "listen"))
+    from conftest import require_or_skip
+    from test_listen_loopback import PLAYER, _env, _loopback_available
+
+    from howl.fileio import write_wav_atomic
+
+    env = _env()
+    ok, why = _loopback_available(env)
+    require_or_skip(ok, why)
+    fs = 48000
+    y2 = send_and_mic(howl_hz=2345.6, dur_s=10.0, fs=fs)
+    wav = tmp_path / "send_mic.wav"
+    write_wav_atomic(wav, y2.astype(np.float32), fs)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "howl", "listen", "--device", "loopback, JACK", "--in-channel", "2", "--send-channel",
+         "1", "--view", "web", "--duration", "12", "--json"],
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 30
+        seen = []
+        while time.monotonic() < deadline:
+            line = proc.stderr.readline()
+            if not line:
+                break
+            seen.append(line)
+            if line.startswith("live page:"):
+                break
+        assert any(s.startswith("live page: http://127.0.0.1:") for s in seen), "".join(seen)
+        player = subprocess.run([sys.executable, "-c", PLAYER, str(wav)], env=env, capture_output=True, text=True,
+                                timeout=60)
+        assert player.returncode == 0, player.stderr
+        out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 0, "".join(seen) + err
+    rep = json.loads(out)
+    howls = [e for e in rep["events"] if e["kind"] == "howl"]
+    assert howls and abs(howls[0]["freq_hz"] / 2345.6 - 1) < 1e-3, rep["events"]
+    est = rep["loop_margin"]["estimates"]
+    # one a second of audio (issue 23): 12 s of capture
+    assert [round(e["time_s"]) for e in est] == list(range(1, 13))
+    assert isinstance(rep["overflows"], int)
