@@ -287,3 +287,27 @@ def test_ctrl_c_stops_the_listen_loop_and_the_page_cleanly(monkeypatch):
     assert res.exit_code == 0, res.output
     assert "stopped (Ctrl-C)" in res.stdout and "live page: http://127.0.0.1:" in res.stdout
     assert _listening_addresses(seen["port"]) == set()
+
+
+def test_a_client_that_stops_reading_cannot_hold_the_server_at_the_end():
+    """A tablet that connected and then stalled (it never reads): the stream gives up after its write
+    timeout, so stop() returns and the port closes (the audio side never waits for a client)."""
+    from howl.report.web.server import STREAM_WRITE_TIMEOUT_S
+
+    state = LiveState(label="x" * 200_000)  # 200 kB updates: the socket's buffers fill within a few
+    srv = LiveServer(state).start()
+    port = srv.address[1]
+    s = socket.create_connection(("127.0.0.1", port), timeout=10)
+    s.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)
+    s.sendall(b"GET /stream HTTP/1.1\r\nHost: x\r\n\r\n")
+    from howl.listen.live import Snapshot
+
+    for i in range(100):  # 20 MB offered to a client that reads nothing
+        state.update(Snapshot(float(i), -30.0, (), (), (), (), 0))
+    done = threading.Event()
+    threading.Thread(target=lambda: (srv.stop(), done.set()), daemon=True).start()
+    # derived: the stream's write gives up after STREAM_WRITE_TIMEOUT_S; stop() waits that plus 1 s
+    assert done.wait(timeout=4 * STREAM_WRITE_TIMEOUT_S + 10)
+    assert _listening_addresses(port) == set()
+    assert srv._srv.open_streams.wait_zero(0.0)  # the stalled stream was let go, not left blocked
+    s.close()
