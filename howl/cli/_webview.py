@@ -124,11 +124,19 @@ class WebView:
 
 class SendTracker:
     """A (frames, 2) [send, mic] source as the detector's mono source: :meth:`read` returns the mic
-    column and hands both columns to a :class:`howl.listen.track.LoopTracker` on the way (same
-    thread, so no block is lost or reordered); each estimate goes to ``on_estimate`` and is kept in
-    ``estimates``. Call :meth:`finish` when the loop ends (the estimate at the end)."""
+    column and queues both columns for a :class:`howl.listen.track.LoopTracker` that runs in its own
+    thread, so its once-a-second estimate (~0.1 s of work at 48 kHz) does not hold up the detector
+    and the page. Blocks reach the tracker in order, none dropped: the queue holds up to
+    ``MAX_QUEUE_BLOCKS`` (~40 s at 1024 frames and 48 kHz) and then makes the reader wait. Each
+    estimate goes to ``on_estimate`` (from the tracker's thread) and is kept in ``estimates``. Call
+    :meth:`finish` when the loop ends: the tracker catches up, then gives the estimate at the end."""
+
+    MAX_QUEUE_BLOCKS = 2000
 
     def __init__(self, source, on_estimate, settings=None):
+        import queue
+        import threading
+
         from howl.listen.track import LoopTracker
 
         self.source = source
@@ -136,6 +144,10 @@ class SendTracker:
         self.tracker = LoopTracker(self.sample_rate_hz, settings=settings)
         self.on_estimate = on_estimate
         self.estimates: list[dict] = []
+        self.error: BaseException | None = None
+        self._q: queue.Queue = queue.Queue(maxsize=self.MAX_QUEUE_BLOCKS)
+        self._thread = threading.Thread(target=self._work, name="howl-track", daemon=True)
+        self._thread.start()
 
     @property
     def overflows(self) -> int:
@@ -152,11 +164,26 @@ class SendTracker:
         if b is None:
             return None
         b = np.asarray(b, dtype=float).reshape(-1, 2)
-        self._take(self.tracker.process(b[:, 0], b[:, 1]))
+        if self.error is None:
+            self._q.put(b)
         return b[:, 1]
 
+    def _work(self) -> None:
+        try:
+            while (b := self._q.get()) is not None:
+                self._take(self.tracker.process(b[:, 0], b[:, 1]))
+            self._take(self.tracker.finish())
+        except BaseException as exc:  # kept for finish() to raise in the caller's thread
+            self.error = exc
+            while self._q.get() is not None:  # drain so the reader never blocks on a full queue
+                pass
+
     def finish(self) -> None:
-        self._take(self.tracker.finish())
+        """Wait for the tracker to take every queued block and give its last estimate."""
+        self._q.put(None)
+        self._thread.join()
+        if self.error is not None:
+            raise self.error
 
     def _take(self, estimates) -> None:
         for e in estimates:
@@ -180,10 +207,13 @@ def run_listen(src, *, label: str, port: int | None, share: bool, err: bool, sen
     with WebView(command=command, label=label, sample_rate_hz=src.sample_rate_hz, port=port, share=share,
                  err=err, cautions=CAUTIONS + ((MARGIN_CAUTION,) if send else ()), margin_warn_db=warn_db) as view:
         pair = view.track_send(src) if send else None
-        res = listen(view.tap_source(pair or src), on_update=view.on_listen_update,
-                     update_interval_s=UPDATE_INTERVAL_S, **listen_kw)
+        try:
+            res = listen(view.tap_source(pair or src), on_update=view.on_listen_update,
+                         update_interval_s=UPDATE_INTERVAL_S, **listen_kw)
+        finally:
+            if pair is not None:
+                pair.finish()  # the tracker takes every block read, then its last estimate reaches the page
         if pair is not None:
-            pair.finish()
             res.report["loop_margin"] = {"warn_db": float(warn_db), "estimates": pair.estimates}
         return res
 
