@@ -145,6 +145,7 @@ class SendTracker:
         self.on_estimate = on_estimate
         self.estimates: list[dict] = []
         self.error: BaseException | None = None
+        self.thread_cpu_s = 0.0
         self._q: queue.Queue = queue.Queue(maxsize=self.MAX_QUEUE_BLOCKS)
         self._thread = threading.Thread(target=self._work, name="howl-track", daemon=True)
         self._thread.start()
@@ -169,6 +170,8 @@ class SendTracker:
         return b[:, 1]
 
     def _work(self) -> None:
+        import time
+
         try:
             while (b := self._q.get()) is not None:
                 self._take(self.tracker.process(b[:, 0], b[:, 1]))
@@ -177,6 +180,8 @@ class SendTracker:
             self.error = exc
             while self._q.get() is not None:  # drain so the reader never blocks on a full queue
                 pass
+        finally:
+            self.thread_cpu_s = time.thread_time()  # the tracker's CPU (this thread's), for the benchmark
 
     def finish(self) -> None:
         """Wait for the tracker to take every queued block and give its last estimate."""

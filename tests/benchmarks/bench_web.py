@@ -149,8 +149,11 @@ def run_with_page(y: np.ndarray) -> dict:
             def audio():
                 a0 = time.thread_time()
                 src = _source(y)
-                listen(view.tap_source(src if y.ndim == 1 else view.track_send(src)), on_update=on_update,
-                       update_interval_s=UPDATE_INTERVAL_S)
+                pair = None if y.ndim == 1 else view.track_send(src)
+                listen(view.tap_source(pair or src), on_update=on_update, update_interval_s=UPDATE_INTERVAL_S)
+                if pair is not None:
+                    pair.finish()
+                acc["tracker_cpu_s"] = 0.0 if pair is None else pair.thread_cpu_s
                 acc["audio_thread_cpu_s"] = time.thread_time() - a0
 
             th = threading.Thread(target=audio)
@@ -158,7 +161,7 @@ def run_with_page(y: np.ndarray) -> dict:
             th.join()
             wall, cpu = time.monotonic() - t0, time.process_time() - c0
             # the server's threads: what the process spent outside the audio thread and this one
-            server_cpu = cpu - acc["audio_thread_cpu_s"] - (time.thread_time() - m0)
+            server_cpu = cpu - acc["audio_thread_cpu_s"] - acc["tracker_cpu_s"] - (time.thread_time() - m0)
             browser_cpu = _tree_cpu_s(browser_pid) - b0
             time.sleep(0.5)
             lags = driver.execute_script("return window.howlLags")
@@ -169,6 +172,7 @@ def run_with_page(y: np.ndarray) -> dict:
     pub = np.array([row[2] for row in lags], float)
     return {"wall_s": wall, "cpu_s": cpu, "browser_cpu_s": browser_cpu, "n_updates": int(ms.size),
             "view_update_cpu_s": acc["update_cpu_s"], "server_threads_cpu_s": server_cpu,
+            "tracker_thread_cpu_s": acc["tracker_cpu_s"],
             "updates_per_s": ms.size / wall,
             "delay_median_ms": float(np.median(ms)), "delay_p95_ms": float(np.percentile(ms, 95)),
             "delay_max_ms": float(ms.max()), "n_late": int(np.sum(ms > 1000 * LATE_S)),
