@@ -25,39 +25,57 @@ def _margin_text(rec: dict) -> str:
     return f"{approx}{m:.1f} dB from howling" if m > 0 else f"{approx}{-m:.1f} dB past"
 
 
+def _hz(freq_hz: float) -> str:
+    """A frequency as a tech reads it: "523.4 Hz", "2.346 kHz"."""
+    return f"{freq_hz / 1000:.3f} kHz" if freq_hz >= 1000 else f"{freq_hz:.1f} Hz"
+
+
+def _clock(t_s: float) -> str:
+    m = int(t_s // 60)
+    return f"{m}:{t_s - 60 * m:04.1f}"
+
+
+def _depth(gain_db) -> str:
+    return "full notch" if gain_db is None else f"{gain_db:.1f} dB"
+
+
 def _view(snap, device_label: str, fs: float):
+    """The terminal view: the same words as the page (howl.report.web): states a tech uses, cuts in
+    desk terms (centre, depth, Q and width), no detector-internal figures."""
     from rich.console import Group
     from rich.table import Table
     from rich.text import Text
 
-    head = Text(f"howl listen  {device_label}  {fs:g} Hz  {snap.elapsed_s:7.1f} s  "
-                f"input {snap.level_dbfs:6.1f} dBFS  overflows {snap.overflows}   (Ctrl-C stops)")
-    cand = Table(title="ringing candidates", expand=False)
-    for col in ("freq_hz", "level_db", "trend_db/s", "age_s", "PNPR", "PHPR", "state"):
+    from howl.report.web.state import STATE_WORDS, trend_words
+
+    head = Text(f"howl listen  {device_label}  {fs:g} Hz  clock {_clock(snap.elapsed_s)}  "
+                f"input {snap.level_dbfs:6.1f} dBFS  dropped blocks {snap.overflows}   (Ctrl-C stops)")
+    cand = Table(title="peaks being followed", expand=False)
+    for col in ("frequency", "level dBFS", "trend", "for", "above nearby", "state"):
         cand.add_column(col, justify="right")
     for c in snap.candidates:
-        cand.add_row(f"{c.freq_hz:.1f}", f"{c.level_db:.1f}", f"{c.trend_db_per_s:+.1f}", f"{c.age_s:.1f}",
-                     f"{c.pnpr_db:.0f}", f"{c.phpr_db:.0f}", c.state)
-    ev = Table(title="events (newest last)", expand=False)
-    for col in ("time_s", "kind", "freq_hz", "level_db", "trend_db/s", "margin", "suggested cut"):
+        cand.add_row(_hz(c.freq_hz), f"{c.level_db:.1f}",
+                     f"{trend_words(c.trend_db_per_s)} {c.trend_db_per_s:+.1f} dB/s", f"{c.age_s:.1f} s",
+                     f"{c.pnpr_db:.0f} dB", STATE_WORDS.get(c.state, c.state))
+    ev = Table(title="what happened (newest last)", expand=False)
+    for col in ("clock", "what", "frequency", "level dBFS", "trend", "how close", "cut for the desk"):
         ev.add_column(col, justify="right")
     off_any = False
     for r in snap.events[-6:]:
         n = r["notch"]
-        cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
         c = r.get("loop_ir_crossing")
         off = c is not None and not c["on_crossing"]
         off_any |= off
-        ev.add_row(f"{r['time_s']:.1f}", r["kind"] + (" *" if off else ""), f"{r['freq_hz']:.1f}", f"{r['level_db']:.1f}",
-                   f"{r['growth_db_per_s']:+.1f}", _margin_text(r), f"{cut} Q {n['q']:.1f}")
+        ev.add_row(_clock(r["time_s"]), STATE_WORDS.get(r["kind"], r["kind"]) + (" *" if off else ""),
+                   _hz(r["freq_hz"]), f"{r['level_db']:.1f}", f"{r['growth_db_per_s']:+.1f} dB/s", _margin_text(r),
+                   f"{_hz(n['freq_hz'])} {_depth(n['gain_db'])} Q {n['q']:.1f}")
     if off_any:
         ev.caption = "* not on a crossing of the loop IR: more likely program pumped through the loop"
-    notches = Table(title="running notch list", expand=False)
-    for col in ("freq_hz", "cut", "Q", "width_oct"):
+    notches = Table(title="cut list for the desk", expand=False)
+    for col in ("centre", "depth", "Q", "width"):
         notches.add_column(col, justify="right")
     for n in snap.notches:
-        notches.add_row(f"{n.freq_hz:.1f}", "full notch" if n.gain_db is None else f"{n.gain_db:.1f} dB",
-                        f"{n.q:.1f}", f"{n.bandwidth_oct:.3f}")
+        notches.add_row(_hz(n.freq_hz), _depth(n.gain_db), f"{n.q:.1f}", f"{n.bandwidth_oct:.2f} oct")
     parts = [head, cand, ev, notches]
     parts += [Text(f"advice: {a}") for a in snap.advice]
     return Group(*parts)
@@ -73,13 +91,19 @@ def _run(device, in_channel, kw, json_out, web=None):
     label = str(device)
     try:
         Detector(48000.0)  # warm up (imports, FFT plans) before the stream starts: no GIL stall in the callback
-        src = LiveInput(device, in_channel)
+        send = None if web is None else web[2]
+        if send is None:
+            src = LiveInput(device, in_channel)
+        else:  # [send, mic] blocks for the tracker beside the detector (LiveInput with a channel list)
+            src = LiveInput(device, [send, in_channel], channel_options=["--send-channel", "--in-channel"])
         label = src.device.label
-        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz", err=True)
+        typer.echo(f"listening on {label!r} channel {in_channel} at {src.sample_rate_hz:g} Hz"
+                   + ("" if send is None else f"; the send on channel {send} for the loop margin"), err=True)
         if web is not None:
             from howl.cli import _webview
 
-            res = _webview.run_listen(src, label=label, port=web[0], share=web[1], err=json_out, **kw)
+            res = _webview.run_listen(src, label=label, port=web[0], share=web[1], err=json_out,
+                                      send=send is not None, warn_db=web[3], **kw)
         elif json_out or not sys.stdout.isatty():
             res = listen(src, **kw)
         else:
@@ -158,6 +182,11 @@ def register(app: typer.Typer) -> None:
         port: int = typer.Option(None, "--port", help="With --view web: the page's port (default: a free one)."),
         share: bool = typer.Option(False, "--share", help="With --view web: serve on the LAN address for a tablet, "
                                    "behind a key in the link (printed with a QR code)."),
+        send_channel: int = typer.Option(None, "--send-channel", help="With --view web: the input channel carrying "
+                                         "the console's send to the loudspeaker; the loop margin is tracked from it "
+                                         "and the mic and shown on the same page."),
+        warn_db: float = typer.Option(3.0, "--warn-db", help="With --send-channel: warn when the loop margin "
+                                      "falls below this (dB)."),
     ) -> None:
         """Listen to a live input for ringing and howls; show candidates, suggested cuts and a running notch list."""
         from howl import validate as v
@@ -182,14 +211,17 @@ def register(app: typer.Typer) -> None:
                              desk_from=desk_from)
         from howl.cli import _webview
 
-        web = _webview.check_options(view, port, share)
+        web = _webview.check_options(view, port, share, send_channel, in_channel)
+        if warn_db != 3.0 and send_channel is None:
+            raise InputError("needs --send-channel (the margin is tracked from the send)", key="--warn-db")
+        v.in_range(warn_db, "--warn-db", 0.0, 40.0, unit="dB")
         # start-up cautions: stderr under --json (stdout carries exactly one JSON object)
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
         kw = dict(duration_s=duration, log_path=log, loop_delay_s=tau, max_notches=max_notches,
                   temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
-        res, label = _run(device, in_channel, kw, json_out, web=(port, share) if web else None)
+        res, label = _run(device, in_channel, kw, json_out, web=(port, share, send_channel, warn_db) if web else None)
         rep = {"device": label, "in_channel": in_channel, **res.report}
         if json_out:
             emit_json(rep)
@@ -202,6 +234,12 @@ def register(app: typer.Typer) -> None:
             typer.echo(f"  cut {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f}  from {n['n_events']} event(s)")
         for a in rep["advice"]:
             typer.echo(f"  advice: {a}")
+        lm = rep.get("loop_margin")
+        if lm and lm["estimates"]:
+            e = lm["estimates"][-1]
+            m = "no crossing" if e["gain_margin_db"] is None else f"{e['gain_margin_db']:.1f} dB"
+            f = "" if e["howl_freq_hz"] is None else f", first howl near {e['howl_freq_hz']:.0f} Hz"
+            typer.echo(f"  loop margin at the end: {m} ± {e['uncertainty_db']:.1f} dB{f} ({e['status']})")
         if res.overflows:
             typer.echo(f"  warning: {res.overflows} input overflow(s): audio was lost; results may miss events",
                        err=True)

@@ -11,8 +11,13 @@ CPU share of the view: the process's CPU time (time.process_time, all threads) o
 run with the page and without any view, divided by the wall time; and the browser's own CPU
 (Chromium's processes, /proc) per wall second. BLAS threads pinned to 1.
 
-Run by hand: ``python tests/benchmarks/bench_web.py [--seconds 60]``; prints a table and writes
-tests/benchmarks/results/bench_web.json.
+With ``--send``: ``listen --send-channel``'s path, the loop tracker beside the detector in the same
+thread (howl.cli._webview.SendTracker) on a two-channel closed loop of our own
+(tests/report/test_web_track.send_and_mic at 48 kHz); "without the page" is then the detector and
+the tracker without any view.
+
+Run by hand: ``python tests/benchmarks/bench_web.py [--seconds 60] [--send]``; prints a table and
+writes tests/benchmarks/results/bench_web.json (bench_web_send.json with ``--send``).
 """
 
 from __future__ import annotations
@@ -80,11 +85,41 @@ def recording(seconds: float) -> np.ndarray:
     return np.tile(x, int(np.ceil(seconds * FS / x.size)))[: int(seconds * FS)]
 
 
+class PairSource:
+    """A (frames, 2) [send, mic] recording in 1024-frame blocks at real speed (as LiveInput with two
+    channels delivers it)."""
+
+    def __init__(self, y2: np.ndarray):
+        from howl.listen.live import ArraySource
+
+        self._i = ArraySource(np.arange(y2.shape[0], dtype=float), FS, realtime=True)
+        self.y2, self.sample_rate_hz, self.overflows = y2, float(FS), 0
+
+    @property
+    def exhausted(self) -> bool:
+        return self._i.exhausted
+
+    def read(self, timeout_s: float = 0.1):
+        idx = self._i.read(timeout_s)
+        return None if idx is None else self.y2[idx.astype(int)]
+
+    def close(self) -> None:
+        pass
+
+
+def _source(y: np.ndarray):
+    from howl.listen.live import ArraySource
+
+    return ArraySource(y, FS, realtime=True) if y.ndim == 1 else PairSource(y)
+
+
 def run_without_view(y: np.ndarray) -> dict:
-    from howl.listen.live import ArraySource, listen
+    from howl.cli._webview import SendTracker
+    from howl.listen.live import listen
 
     t0, c0 = time.monotonic(), time.process_time()
-    listen(ArraySource(y, FS, realtime=True))
+    src = _source(y)
+    listen(src if y.ndim == 1 else SendTracker(src, lambda e: None))
     return {"wall_s": time.monotonic() - t0, "cpu_s": time.process_time() - c0}
 
 
@@ -92,7 +127,7 @@ def run_with_page(y: np.ndarray) -> dict:
     from _browser import chromium
 
     from howl.cli._webview import UPDATE_INTERVAL_S, WebView
-    from howl.listen.live import CAUTIONS, ArraySource, listen
+    from howl.listen.live import CAUTIONS, listen
 
     view = WebView(command="listen", label="bench", sample_rate_hz=FS, cautions=CAUTIONS).start()
     with tempfile.TemporaryDirectory() as prof:
@@ -113,8 +148,12 @@ def run_with_page(y: np.ndarray) -> dict:
 
             def audio():
                 a0 = time.thread_time()
-                listen(view.tap_source(ArraySource(y, FS, realtime=True)), on_update=on_update,
-                       update_interval_s=UPDATE_INTERVAL_S)
+                src = _source(y)
+                pair = None if y.ndim == 1 else view.track_send(src)
+                listen(view.tap_source(pair or src), on_update=on_update, update_interval_s=UPDATE_INTERVAL_S)
+                if pair is not None:
+                    pair.finish()
+                acc["tracker_cpu_s"] = 0.0 if pair is None else pair.thread_cpu_s
                 acc["audio_thread_cpu_s"] = time.thread_time() - a0
 
             th = threading.Thread(target=audio)
@@ -122,7 +161,7 @@ def run_with_page(y: np.ndarray) -> dict:
             th.join()
             wall, cpu = time.monotonic() - t0, time.process_time() - c0
             # the server's threads: what the process spent outside the audio thread and this one
-            server_cpu = cpu - acc["audio_thread_cpu_s"] - (time.thread_time() - m0)
+            server_cpu = cpu - acc["audio_thread_cpu_s"] - acc["tracker_cpu_s"] - (time.thread_time() - m0)
             browser_cpu = _tree_cpu_s(browser_pid) - b0
             time.sleep(0.5)
             lags = driver.execute_script("return window.howlLags")
@@ -133,6 +172,7 @@ def run_with_page(y: np.ndarray) -> dict:
     pub = np.array([row[2] for row in lags], float)
     return {"wall_s": wall, "cpu_s": cpu, "browser_cpu_s": browser_cpu, "n_updates": int(ms.size),
             "view_update_cpu_s": acc["update_cpu_s"], "server_threads_cpu_s": server_cpu,
+            "tracker_thread_cpu_s": acc["tracker_cpu_s"],
             "updates_per_s": ms.size / wall,
             "delay_median_ms": float(np.median(ms)), "delay_p95_ms": float(np.percentile(ms, 95)),
             "delay_max_ms": float(ms.max()), "n_late": int(np.sum(ms > 1000 * LATE_S)),
@@ -142,25 +182,32 @@ def run_with_page(y: np.ndarray) -> dict:
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--seconds", type=float, default=60.0, help="audio fed at real speed in each run")
+    ap.add_argument("--send", action="store_true", help="the tracker beside the detector (listen --send-channel)")
     args = ap.parse_args()
-    y = recording(args.seconds)
+    if args.send:
+        from test_web_track import send_and_mic
+
+        y = send_and_mic(dur_s=args.seconds, fs=FS, howl_hz=1000.0)
+    else:
+        y = recording(args.seconds)
     base = run_without_view(y)
     page = run_with_page(y)
     share_view = (page["view_update_cpu_s"] + page["server_threads_cpu_s"]) / page["wall_s"]
     share_diff = (page["cpu_s"] - base["cpu_s"]) / page["wall_s"]
-    print(f"{args.seconds:.0f} s of 48 kHz audio at real speed, 1024-frame blocks; CPU: {cpu_model()}, "
+    print(f"{args.seconds:.0f} s of 48 kHz audio at real speed, 1024-frame blocks"
+          f"{' (detector and loop tracker)' if args.send else ''}; CPU: {cpu_model()}, "
           f"{os.cpu_count()} cores, load {os.getloadavg()[0]:.1f}")
     print(f"updates on the page: {page['n_updates']} ({page['updates_per_s']:.1f}/s)")
     print(f"block → page: median {page['delay_median_ms']:.1f} ms, p95 {page['delay_p95_ms']:.1f} ms, "
           f"max {page['delay_max_ms']:.1f} ms, {page['n_late']} later than {LATE_S} s; of which from the update's "
           f"publication to the page: median {page['publish_to_page_median_ms']:.1f} ms, "
           f"p95 {page['publish_to_page_p95_ms']:.1f} ms")
-    print(f"CPU of one core: listen alone {100 * base['cpu_s'] / base['wall_s']:.1f} %, with the page "
+    print(f"CPU of one core: without the page {100 * base['cpu_s'] / base['wall_s']:.1f} %, with the page "
           f"{100 * page['cpu_s'] / page['wall_s']:.1f} % (difference {100 * share_diff:.1f} %); the view's own "
           f"threads and calls {100 * share_view:.1f} % (updates {page['view_update_cpu_s']:.2f} s, server "
           f"{page['server_threads_cpu_s']:.2f} s of CPU); "
           f"Chromium drawing it {100 * page['browser_cpu_s'] / page['wall_s']:.1f} %")
-    out = {"benchmark": "web", "audio_s": args.seconds, "sample_rate_hz": FS, "block_frames": 1024,
+    out = {"benchmark": "web" + (" --send" if args.send else ""), "audio_s": args.seconds, "sample_rate_hz": FS, "block_frames": 1024,
            "late_threshold_s": LATE_S, "without_view": base, "with_page": page,
            "view_cpu_share_of_one_core": share_view,
            "cpu_share_difference_with_and_without_page": share_diff,
@@ -169,7 +216,8 @@ def main() -> None:
            "cpu_model": cpu_model(), "cpu_count": os.cpu_count(), "python": platform.python_version(),
            "machine": platform.machine(), "load_average": os.getloadavg()}
     (HERE / "results").mkdir(exist_ok=True)
-    (HERE / "results" / "bench_web.json").write_text(json.dumps(out, indent=2), encoding="utf-8")
+    name = "bench_web_send.json" if args.send else "bench_web.json"
+    (HERE / "results" / name).write_text(json.dumps(out, indent=2), encoding="utf-8")
 
 
 if __name__ == "__main__":

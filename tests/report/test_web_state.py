@@ -136,3 +136,39 @@ def test_the_tap_passes_blocks_through_and_keeps_the_newest_samples():
         got.append(b)
     assert np.array_equal(np.concatenate(got), x) and tap.exhausted and tap.n_read == 10_000
     assert np.array_equal(tap.recent(), x[-4096:])
+
+
+def test_a_late_reader_gets_every_kept_update_in_order_and_the_skipped_ones_are_counted():
+    from howl.report.web.state import BACKLOG
+
+    st = LiveState()
+    for i in range(BACKLOG + 10):
+        st.update(_snap())
+    st.end()
+    # derived: seq 0 is the initial state; updates 1..BACKLOG+10, the end BACKLOG+11; the newest
+    # BACKLOG are kept, so a reader at 0 misses the 11 oldest updates (1..11)
+    got, skipped = st.updates_after(0, timeout_s=0.0)
+    assert [u[0] for u in got] == list(range(12, BACKLOG + 12)) and skipped == 11
+    assert [u[2] for u in got][-2:] == [False, True] and json.loads(got[-1][1])["ended"] is True
+    got, skipped = st.updates_after(BACKLOG + 5, timeout_s=0.0)
+    assert [u[0] for u in got] == list(range(BACKLOG + 6, BACKLOG + 12)) and skipped == 0
+    assert st.updates_after(BACKLOG + 11, timeout_s=0.0) == ([], 0)
+
+
+def test_the_terminal_view_speaks_the_pages_words_and_no_detector_jargon():
+    """`howl listen`'s terminal view (issue 24): states a tech uses (howling, ringing, watch, program),
+    cuts in desk terms (centre, depth, Q, width), no PNPR/PHPR columns."""
+    from rich.console import Console
+
+    from howl.cli.listen import _view
+
+    snap = Snapshot(elapsed_s=72.5, level_dbfs=-20.0, candidates=(_cand("howl", 12.0, 2345.6), _cand("watch", 0.0, 800.0)),
+                    events=(_event(1, 2345.6),), notches=(Notch(2345.6, -6.0, 20.0),), advice=(), overflows=3)
+    con = Console(width=160, record=True)
+    con.print(_view(snap, "desk", FS))
+    text = con.export_text()
+    assert "PNPR" not in text and "PHPR" not in text and "pnpr" not in text.lower()
+    for word in ("howling", "watch", "rising", "centre", "depth", "width", "dropped blocks 3", "clock 1:12.5"):
+        assert word in text, word
+    # 2345.6 Hz in kHz to the page's 3 decimals; the cut's depth and Q as given
+    assert "2.346 kHz" in text and "-6.0 dB" in text and "Q 20.0" in text

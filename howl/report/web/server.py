@@ -20,6 +20,9 @@ from urllib.parse import parse_qs, urlsplit
 
 #: Seconds between keep-alive comments on an idle event stream (so a dead client is noticed).
 KEEPALIVE_S = 5.0
+#: A stream whose client takes longer than this to accept a write is closed (so a dead or stalled
+#: tablet cannot hold the program at exit); ``stop`` waits at most this long for the streams.
+STREAM_WRITE_TIMEOUT_S = 5.0
 _ASSETS = {"/view.js": ("view.js", "text/javascript; charset=utf-8"),
            "/view.css": ("view.css", "text/css; charset=utf-8")}
 _HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff", "Referrer-Policy": "no-referrer",
@@ -102,35 +105,54 @@ class _Handler(BaseHTTPRequestHandler):
             self.wfile.write(body)
 
     def _stream(self):
-        """Server-sent events: every new state as one ``data:`` line; ends when the audio ends or
-        the server stops."""
-        self.send_response(200)
-        self.send_header("Content-Type", "text/event-stream")
-        for k, v in _HEADERS.items():
-            self.send_header(k, v)
-        self.send_header("Connection", "close")
-        self.end_headers()
-        self.close_connection = True
-        state, stopping = self.server.state, self.server.stopping
-        seq = -1
+        """Server-sent events: the newest state, then every later update in order (each as one
+        ``data:`` line with its ``id``), then ``event: end`` once the update that says the audio
+        ended has gone out. A browser that reconnects sends ``Last-Event-ID`` and gets the updates
+        after it. The stream is counted open from before its headers go out, so :meth:`LiveServer.stop`
+        waits for it to send its last update and the end."""
+        state = self.server.state
         self.server.open_streams.acquire()
         try:
-            while not stopping.is_set():
-                new_seq, text = state.wait_newer(seq, KEEPALIVE_S)
-                if new_seq == seq:
+            self.connection.settimeout(STREAM_WRITE_TIMEOUT_S)  # a client that stops reading is let go
+            seq, text, ended = state.latest()
+            resume = _last_event_id(self.headers.get("Last-Event-ID"))
+            self.send_response(200)
+            self.send_header("Content-Type", "text/event-stream")
+            for k, v in _HEADERS.items():
+                self.send_header(k, v)
+            self.send_header("Connection", "close")
+            self.end_headers()
+            self.close_connection = True
+            if resume is not None and 0 <= resume < seq:
+                updates, skipped = state.updates_after(resume, 0.0)
+            else:
+                updates, skipped = [(seq, text, ended)], 0
+            while True:
+                if skipped:
+                    self.wfile.write(b": %d updates skipped (this client fell behind)\n\n" % skipped)
+                if not updates:
                     self.wfile.write(b": idle\n\n")
-                else:
-                    seq = new_seq
+                for seq, text, ended in updates:
                     self.wfile.write(b"id: %d\ndata: %s\n\n" % (seq, text.encode()))
-                self.wfile.flush()
-                if state.ended:
+                if ended:
                     self.wfile.write(b"event: end\ndata: {}\n\n")
-                    self.wfile.flush()
+                self.wfile.flush()
+                if ended or self.server.stopping.is_set():
                     break
+                updates, skipped = state.updates_after(seq, KEEPALIVE_S)
+                if updates:
+                    ended = updates[-1][2]
         except (BrokenPipeError, ConnectionResetError, TimeoutError):
             pass
         finally:
             self.server.open_streams.release()
+
+
+def _last_event_id(text):
+    try:
+        return int(text) if text is not None else None
+    except ValueError:
+        return None
 
 
 class _OpenCount:
@@ -198,11 +220,14 @@ class LiveServer:
         return self
 
     def stop(self) -> None:
-        """End every stream (one last update goes out), stop accepting, close the socket."""
-        self.state.end()
-        self._srv.open_streams.wait_zero(1.0)  # each stream sends its last update and the end
+        """End every stream (every update still unsent, the last one, then the end go out), stop
+        accepting, close the socket. Waits for the open streams (at most about
+        ``STREAM_WRITE_TIMEOUT_S``: a client that stopped reading is let go)."""
+        self.state.end()  # from here the state publishes nothing more: the streams can finish
+        if self._thread is not None:
+            self._srv.shutdown()  # no new connection is taken after this returns
+        self._srv.open_streams.wait_zero(STREAM_WRITE_TIMEOUT_S + 1.0)
         self._srv.stopping.set()
-        self._srv.shutdown()
         self._srv.server_close()
         if self._thread is not None:
             self._thread.join(timeout=5)

@@ -3,8 +3,13 @@
 The audio side calls :meth:`LiveState.update` with the listen loop's snapshot (and the mic
 spectrum from :class:`BlockTap`) and :meth:`LiveState.add_margin` with each loop-margin
 estimate; the server's threads read :meth:`LiveState.payload` (one JSON text per update,
-serialised once for every client) and wait for the next one with :meth:`LiveState.wait_newer`.
+serialised once for every client) and wait for the next ones with :meth:`LiveState.wait_newer`.
 Nothing here writes back into the audio path: the page is read-only.
+
+Every update is numbered (``seq``) and the newest :data:`BACKLOG` of them are kept, so a stream
+that reads late still gets every update in order, then the last one (``ended``: the audio stopped),
+whatever the timing between the audio thread and the reader; only a reader more than
+:data:`BACKLOG` updates behind skips the oldest it missed (it is told how many).
 """
 
 from __future__ import annotations
@@ -25,6 +30,9 @@ TREND_RISE_DB_PER_S = 3.0
 #: How many events and margin estimates the page keeps (memory stays flat over a long show).
 MAX_EVENTS = 40
 MAX_MARGIN_POINTS = 3000
+#: How many recent updates (JSON texts) are kept for streams that read late: ~8 s at 15 updates/s;
+#: bounded so memory stays flat (a client further behind skips the oldest, counted).
+BACKLOG = 128
 #: The page's spectrum: 1/24-octave bands (max of the FFT bins in each), 40 Hz to 20 kHz.
 SPECTRUM_FRACTION = 24
 SPECTRUM_LO_HZ = 40.0
@@ -143,6 +151,7 @@ class LiveState:
                         "spectrum": {"freq_hz": [], "level_db": []}, "candidates": [], "events": [],
                         "n_events": 0, "cuts": [], "advice": []}
         self._payload = self._render()
+        self._backlog: deque = deque([(self.seq, self._payload, False)], maxlen=BACKLOG)
 
     # ---------------------------------------------------------------- writers
     def update(self, snap, spectrum=None, block_wall_s=None) -> None:
@@ -162,6 +171,8 @@ class LiveState:
         else:
             d["spectrum"] = self._listen["spectrum"]
         with self._cond:
+            if self.ended:  # the update that says "ended" stays the last one
+                return
             self._listen = d
             self._publish()
 
@@ -174,6 +185,8 @@ class LiveState:
             raise ValueError(f"margin estimate lacks {missing}")
         e = {k: (_num(estimate[k], 3) if k != "status" else str(estimate[k])) for k in need}
         with self._cond:
+            if self.ended:
+                return
             self._margins.append(e)
             t_new = e["time_s"] if e["time_s"] is not None else 0.0
             while self._margins and (self._margins[0]["time_s"] or 0.0) < t_new - self.margin_history_s:
@@ -181,8 +194,11 @@ class LiveState:
             self._publish()
 
     def end(self) -> None:
-        """The audio stopped: clients get one last update and their streams close."""
+        """The audio stopped: clients get one last update (``ended`` true) and their streams close.
+        Idempotent: a second call publishes nothing (the last update stays the last)."""
         with self._cond:
+            if self.ended:
+                return
             self.ended = True
             self._publish()
 
@@ -191,19 +207,40 @@ class LiveState:
         with self._cond:
             return self.seq, self._payload
 
+    def latest(self) -> tuple[int, str, bool]:
+        """The newest update as (seq, JSON text, ended), read at one moment."""
+        with self._cond:
+            return self.seq, self._payload, self.ended
+
     def snapshot(self) -> dict:
         return json.loads(self.payload()[1])
 
     def wait_newer(self, seq: int, timeout_s: float) -> tuple[int, str]:
-        """Block until an update newer than ``seq`` (or ``timeout_s``); returns (seq, JSON text)."""
+        """Block until an update newer than ``seq`` (or ``timeout_s``); returns (seq, JSON text) of
+        the newest one (the same ``seq`` and text again after a timeout)."""
         with self._cond:
             self._cond.wait_for(lambda: self.seq > seq or self.ended, timeout=timeout_s)
             return self.seq, self._payload
+
+    def updates_after(self, seq: int, timeout_s: float) -> tuple[list[tuple[int, str, bool]], int]:
+        """Every kept update newer than ``seq``, oldest first, as (seq, JSON text, ended), waiting up to
+        ``timeout_s`` for one (an empty list after the timeout); and how many newer ones were no
+        longer kept (0 unless the reader fell more than :data:`BACKLOG` updates behind).
+
+        The list and the ``ended`` flag come from one moment under the lock: the update that carries
+        ``ended`` is the last the state ever publishes, so a reader that stops after sending it has
+        sent everything."""
+        with self._cond:
+            self._cond.wait_for(lambda: self.seq > seq, timeout=timeout_s)
+            new = [u for u in self._backlog if u[0] > seq]
+            skipped = (new[0][0] if new else self.seq + 1) - seq - 1
+            return new, max(0, skipped)
 
     # ---------------------------------------------------------------- internals
     def _publish(self) -> None:
         self.seq += 1
         self._payload = self._render()
+        self._backlog.append((self.seq, self._payload, self.ended))
         self._cond.notify_all()
 
     def _render(self) -> str:

@@ -43,7 +43,7 @@
     g.setTransform(k, 0, 0, k, 0, 0);
     return [g, r.width, r.height];
   }
-  const PAD = { l: 40, r: 8, t: 8, b: 20 };
+  const PAD = { l: 44, r: 8, t: 8, b: 22 };
   function xOfHz(f, w) {
     return PAD.l + (w - PAD.l - PAD.r) * Math.log(f / F_LO) / Math.log(F_HI / F_LO);
   }
@@ -55,7 +55,7 @@
   function drawSpectrum(s) {
     const [g, w, h] = sizeCanvas($("spec"));
     g.clearRect(0, 0, w, h);
-    g.font = "11px system-ui, sans-serif";
+    g.font = "13px system-ui, sans-serif";
     g.strokeStyle = "#2a2f37"; g.fillStyle = "#8c929b"; g.lineWidth = 1;
     for (let d = DB_HI; d >= DB_LO; d -= 10) {
       const y = yOfDb(d, h);
@@ -142,26 +142,39 @@
     if (!m) return;
     const now = m.now;
     $("margin-now").textContent = fmtDb(now.gain_margin_db, true);
+    // a figure the tracker is unsure of is drawn faded, with its status in words beside it
+    const unsure = /not enough/.test(now.status);
     $("margin-now").parentElement.classList.toggle("low", m.below_warning);
+    $("margin-now").parentElement.classList.toggle("unsure", unsure);
+    $("margin-status").classList.toggle("unsure", unsure);
     $("margin-pm").textContent = now.uncertainty_db == null ? "" : "± " + now.uncertainty_db.toFixed(1);
     $("margin-freq").textContent = fmtHz(now.howl_freq_hz);
     $("margin-mag").textContent = fmtDb(now.magnitude_margin_db, true) + " dB";
-    $("margin-status").textContent = now.status;
+    $("margin-status").textContent = now.status === "ok" ? "tracking" : now.status;
     const [g, w, h] = sizeCanvas($("margin-plot"));
     g.clearRect(0, 0, w, h);
     const hist = m.history.filter((p) => p[1] != null);
-    const tEnd = now.time_s, span = m.history_s;
-    let lo = m.warn_db - 3, hi = m.warn_db + 6;
-    for (const p of hist) { lo = Math.min(lo, p[1] - (p[2] || 0)); hi = Math.max(hi, p[1] + (p[2] || 0)); }
-    lo = Math.floor(lo / 3) * 3; hi = Math.ceil(hi / 3) * 3;
+    // the time axis grows by whole minutes up to the history kept (the first minutes are not squashed)
+    const tEnd = now.time_s, tFirst = m.history.length ? m.history[0][0] : tEnd;
+    const span = Math.min(m.history_s, Math.max(60, 60 * Math.ceil((tEnd - tFirst) / 60)));
+    // the level axis holds the margins and the warning; a wide ± band is clipped at the edges
+    let lo = m.warn_db - 3, hi = m.warn_db + 9;
+    for (const p of hist) { lo = Math.min(lo, p[1] - 1); hi = Math.max(hi, p[1] + 1); }
+    lo = Math.max(lo, -12); hi = Math.min(hi, 30);
+    const step = (hi - lo) > 24 ? 6 : 3;
+    lo = Math.floor(lo / step) * step; hi = Math.ceil(hi / step) * step;
     const X = (t) => PAD.l + (w - PAD.l - PAD.r) * (1 - (tEnd - t) / span);
-    const Y = (d) => PAD.t + (h - PAD.t - PAD.b) * (hi - d) / (hi - lo);
-    g.font = "11px system-ui, sans-serif"; g.fillStyle = "#8c929b"; g.strokeStyle = "#2a2f37"; g.lineWidth = 1;
-    for (let d = lo; d <= hi; d += 3) {
+    const Y = (d) => PAD.t + (h - PAD.t - PAD.b) * (hi - Math.min(hi, Math.max(lo, d))) / (hi - lo);
+    g.font = "13px system-ui, sans-serif"; g.fillStyle = "#8c929b"; g.strokeStyle = "#2a2f37"; g.lineWidth = 1;
+    for (let d = lo; d <= hi; d += step) {
       g.beginPath(); g.moveTo(PAD.l, Y(d)); g.lineTo(w - PAD.r, Y(d)); g.stroke();
       g.fillText(String(d).replace("-", "−"), 6, Y(d) + 4);
     }
-    for (let k = 0; k <= span; k += 60) g.fillText(k ? "−" + k / 60 + " min" : "now", X(tEnd - k) - 14, h - 5);
+    const tick = span > 120 ? 60 : 30;
+    for (let k = 0; k <= span; k += tick) {
+      const lab = k ? "−" + (k % 60 ? (k / 60).toFixed(1) : k / 60) + " min" : "now";
+      g.fillText(lab, Math.min(X(tEnd - k) - 14, w - PAD.r - g.measureText(lab).width), h - 5);
+    }
     if (hist.length) {
       g.fillStyle = "rgba(127,214,164,0.2)";
       g.beginPath();
