@@ -79,10 +79,9 @@ def test_track_reports_the_margin_of_a_loop_played_through_the_jack_loopback(tmp
     assert isinstance(rep["overflows"], int)
     live = [e for e in rep["estimates"] if e["status"] == "ok"][-1]
     print("truth", truth, "offline", offline, "live", live)
-    # the capture starts at an arbitrary sample, so the 20 ms prediction frames and the correlation
-    # blocks fall elsewhere than on the file: a scatter of a few tenths of a dB (derived: 0.53 dB seen
-    # between two framings of this case), hence 1 dB and not bit-exactness
-    assert abs(live["gain_margin_db"] - offline["gain_margin_db"]) <= 1.0
+    # the live figure is checked against the truth (inside its ±); its agreement with the offline run
+    # is checked below on what was actually captured (the recording), since the dummy driver's xruns on
+    # a loaded machine garble some periods and the capture starts at an arbitrary sample
     assert abs(live["gain_margin_db"] - truth) <= live["uncertainty_db"]
     # --record kept the raw send and mic as they came: the played file is inside it, sample for sample
     # (aligned by cross-correlation; the dummy driver's xruns on a loaded machine garble some periods
@@ -97,5 +96,14 @@ def test_track_reports_the_margin_of_a_loop_played_through_the_jack_loopback(tmp
     n = min(raw.shape[0] - k, src.shape[0]) // 1024
     same = [np.array_equal(raw[k + 1024 * b: k + 1024 * (b + 1)], src[1024 * b: 1024 * (b + 1)]) for b in range(n)]
     assert n > 0.9 * src.shape[0] // 1024 and np.mean(same) > 0.5, (n, np.mean(same))
+    # the same tracker offline on the recording gives the live estimates: same samples, same framing
+    # (the live loop only cuts them into other blocks); float32 in both
+    offline_raw = run_track(BlockSource(iter([raw.T.astype(np.float64)]), FS)).estimates
+    by_time = {e["time_s"]: e for e in offline_raw}
+    common = [e for e in rep["estimates"] if e["time_s"] in by_time and e["gain_margin_db"] is not None]
+    assert common, (rep["estimates"], offline_raw)
+    worst = max(abs(e["gain_margin_db"] - by_time[e["time_s"]]["gain_margin_db"]) for e in common)
+    assert worst <= 0.1, worst
+    print("offline on the source", offline["gain_margin_db"], "live", live["gain_margin_db"])
     logged = [json.loads(x) for x in (tmp_path / "track.jsonl").read_text().splitlines()]
     assert [x["estimate"]["time_s"] for x in logged if "estimate" in x] == [e["time_s"] for e in rep["estimates"]]
