@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import bisect
 from dataclasses import dataclass
+from operator import itemgetter
 
 import numpy as np
 
@@ -112,10 +113,26 @@ class _Track:
             self.peak = row[1]
 
     def col(self, name: str, start: int = 0) -> list:
-        k = self.FIELDS[name]
-        return [r[k] for r in self.rows[start:]]
+        rows = self.rows
+        return list(map(_GETTERS[name], rows[start:] if start else rows))
 
 
+
+
+_GETTERS = {name: itemgetter(k) for name, k in _Track.FIELDS.items()}
+
+
+def _median_long(values: list[float]) -> float:
+    """:func:`_median` of a long list, the same value (the same one or two middle elements,
+    averaged the same way), by a partial sort (np.partition) instead of a full sort."""
+    n = len(values)
+    if n < 64:
+        return _median(values)
+    a = np.fromiter(values, float, n)
+    if n % 2:
+        return float(np.partition(a, n // 2)[n // 2])
+    p = np.partition(a, (n // 2 - 1, n // 2))
+    return 0.5 * (float(p[n // 2 - 1]) + float(p[n // 2]))
 
 
 class _Decisions:
@@ -230,8 +247,12 @@ class _Decisions:
         tr.hot = last[1] - back[1] >= cfg.hot_rise_db
         # quick rejections (no window test can pass): the newest frame is far from pure, or the
         # frequency moved by more than a few times the allowed spread (a glide) since the look-back
-        pure_now = max(last[3], last[8]) if last[0] <= self.k_contrast_hi else last[3]
-        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * self._fsd_limit(cfg.max_fsd, last[0]) * last[0]:
+        kl = last[0]
+        pure_now = max(last[3], last[8]) if kl <= self.k_contrast_hi else last[3]
+        # _fsd_limit(max_fsd, kl), inlined (called for every evaluation)
+        mx = cfg.max_fsd
+        lim = max(mx, cfg.fsd_floor_bins * mx / (mx * max(kl, 1.0)))
+        if pure_now < cfg.min_pnpr_db - 6.0 or abs(kl - back[0]) > 6.0 * lim * kl:
             if span >= self._tiers[0].frames:
                 tr.state = "program"
             return
@@ -409,9 +430,9 @@ class _Decisions:
         if n < min_frames + 2:
             return None
         # cheap tests first: a ring-down is pure over most of the track
-        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
+        if _median_long(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
             return None
-        if not cfg.ring_exact_partners and _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
+        if not cfg.ring_exact_partners and _median_long(tr.col('phf')) < cfg.min_phpr_db - 6.0:
             return None
         lv = np.asarray(tr.col('level'))
         fr = np.asarray(tr.frames)
