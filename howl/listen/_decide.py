@@ -389,15 +389,19 @@ class _Decisions:
         return s_a > 0 and s_b < r * s_a
 
     def _off_crossings(self, freq_hz: float) -> bool:
-        """With the loop's crossings known (a measured loop IR): is ``freq_hz`` farther than
-        ``max_crossing_offset_pct`` from every one? The loop can only howl at a crossing (where its
-        phase comes round to a whole number of turns), so a component growing elsewhere is program."""
+        """With the loop's crossings known (a measured loop IR): is ``freq_hz`` far from every one,
+        farther than ``max_crossing_offset_pct`` of it and than half the IR's resolution
+        (``crossing_resolution_hz``: 1 / the IR's length; the IR places a crossing to ± half of it)?
+        The loop can only howl at a crossing (where its phase comes round to a whole number of
+        turns; past unity at the closed loop's mode, within 1 % of it: docs/scan.md), so a
+        component growing elsewhere is program."""
         c = self.crossings_hz
         if c is None or self.cfg.max_crossing_offset_pct is None:
             return False
         if c.size == 0:
             return True
-        return float(np.min(np.abs(c / freq_hz - 1.0))) * 100.0 > self.cfg.max_crossing_offset_pct
+        far_pct = np.abs(c / freq_hz - 1.0) * 100.0 > self.cfg.max_crossing_offset_pct
+        return bool(np.all(far_pct & (np.abs(c - freq_hz) > 0.5 * self.crossing_resolution_hz)))
 
     def _is_howl_product(self, freq_hz: float) -> bool:
         """Is ``freq_hz`` a harmonic or a two-tone product of howls already reported
@@ -429,16 +433,21 @@ class _Decisions:
         min_frames = int(round(cfg.min_decay_s / self.dt))
         if n < min_frames + 2:
             return None
-        # cheap tests first: a ring-down is pure over most of the track
+        # cheap tests first (each one only rejects, so their order does not change the result):
+        # enough frames after the peak (the segment test below, before any array) ...
+        lvl = tr.col('level')
+        ipk = max(range(n), key=lvl.__getitem__)  # the first maximum, as np.argmax
+        # skip the frames in which the window still straddles the transient
+        i0 = bisect.bisect_left(tr.frames, tr.frames[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
+        if n - i0 < min_frames:
+            return None
+        # ... and a ring-down is pure over most of the track
         if _median_long(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
             return None
         if not cfg.ring_exact_partners and _median_long(tr.col('phf')) < cfg.min_phpr_db - 6.0:
             return None
-        lv = np.asarray(tr.col('level'))
+        lv = np.asarray(lvl)
         fr = np.asarray(tr.frames)
-        ipk = int(np.argmax(lv))
-        # skip the frames in which the window still straddles the transient
-        i0 = np.searchsorted(fr, fr[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
         # stop where the level nears the noise floor at which the track ended
         end_level = float(np.min(lv[i0:])) if i0 < n else 0.0
         seg = np.arange(i0, n)

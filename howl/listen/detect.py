@@ -169,16 +169,22 @@ class Detector(_CandidateSearch, _Decisions):
     loop_delay_s: the loop delay τ when known (measured loop IR, or passed in);
         enables ``margin_db`` on events.
     crossings_hz: the positive real-axis crossings of a measured loop IR (Hz), when known: a
-        component farther than ``max_crossing_offset_pct`` from every one is not a howl.
+        component farther than ``max_crossing_offset_pct`` from every one, and than half of
+        ``crossing_resolution_hz``, is not a howl (it may be shown as ``watch``).
+    crossing_resolution_hz: the IR's frequency resolution, 1 / its length (s): it places a
+        crossing to ± half of it (None: the percentage alone);
+        :attr:`howl.listen.detect.LoopDelayFromIR.crossing_resolution_hz`.
     """
 
     def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None,
-                 crossings_hz=None):
+                 crossings_hz=None, crossing_resolution_hz: float | None = None):
         self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 2000.0, 768000.0, unit="Hz")
         self.cfg = (config or DetectorConfig()).validated()
         self.loop_delay_s = None if loop_delay_s is None else v.positive(loop_delay_s, "loop_delay_s", unit="s")
         # the loop's positive real-axis crossings (Hz), when a loop IR is known: a howl can only be on one
         self.crossings_hz = None if crossings_hz is None else np.asarray(crossings_hz, float).ravel()
+        self.crossing_resolution_hz = (0.0 if crossing_resolution_hz is None else
+                                       v.in_range(crossing_resolution_hz, "crossing_resolution_hz", 0.0, None, unit="Hz"))
         from howl.listen import _fft  # scipy's pocketfft without importing scipy.fft (start-up, issue 21)
 
         self._fft = _fft
@@ -255,7 +261,8 @@ class Detector(_CandidateSearch, _Decisions):
         if lane_hz is not None and lane_factor(self.fs) >= 2:
             self._dec = Decimator(self.fs, lane_factor(self.fs))
             self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz),
-                                  loop_delay_s=self.loop_delay_s, crossings_hz=self.crossings_hz)
+                                  loop_delay_s=self.loop_delay_s, crossings_hz=self.crossings_hz,
+                                  crossing_resolution_hz=self.crossing_resolution_hz)
 
     # ------------------------------------------------------------------ public
 
@@ -501,10 +508,13 @@ class Detector(_CandidateSearch, _Decisions):
             self._report(ev)
 
 def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None = None, *,
-           loop_delay_s: float | None = None, block_samples: int | None = None) -> DetectionResult:
-    """Run the detector over a whole signal (optionally in blocks, as a live input would)."""
+           loop_delay_s: float | None = None, block_samples: int | None = None, crossings_hz=None,
+           crossing_resolution_hz: float | None = None) -> DetectionResult:
+    """Run the detector over a whole signal (optionally in blocks, as a live input would);
+    ``crossings_hz``, ``crossing_resolution_hz``: a loop IR's crossings, as for :class:`Detector`."""
     x = v.finite_array(x, "signal", ndim=1)
-    det = Detector(sample_rate_hz, config, loop_delay_s=loop_delay_s)
+    det = Detector(sample_rate_hz, config, loop_delay_s=loop_delay_s, crossings_hz=crossings_hz,
+                   crossing_resolution_hz=crossing_resolution_hz)
     if block_samples is None:
         det.process(x)
     else:
