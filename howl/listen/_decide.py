@@ -79,7 +79,7 @@ class _Track:
     ``first`` is the track's first frame all the same."""
 
     __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval", "hot", "peak",
-                 "last_ring", "seen", "first", "cap")
+                 "last_ring", "seen", "first", "cap", "peak_at")
     FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "partners": 7, "pnpr1": 8, "kf1": 9}
 
     def __init__(self, tid: int, cap: int = 1 << 62):
@@ -95,6 +95,7 @@ class _Track:
         self.last_eval = -1
         self.hot = False  # rising lately: evaluated every frame
         self.peak = -np.inf  # highest level so far (dB)
+        self.peak_at = -1  # the first frame that reached it
         self.last_ring = -1  # frame of the last live ring-down test
         self.seen = -1  # the last frame in which the track got a peak
 
@@ -111,6 +112,7 @@ class _Track:
         self.seen = t
         if row[1] > self.peak:
             self.peak = row[1]
+            self.peak_at = t
 
     def col(self, name: str, start: int = 0) -> list:
         rows = self.rows
@@ -435,10 +437,14 @@ class _Decisions:
             return None
         # cheap tests first (each one only rejects, so their order does not change the result):
         # enough frames after the peak (the segment test below, before any array) ...
-        lvl = tr.col('level')
-        ipk = max(range(n), key=lvl.__getitem__)  # the first maximum, as np.argmax
+        frames = tr.frames
+        if tr.peak_at >= frames[0]:  # the track's highest level is still in its history: its first frame
+            ipk = bisect.bisect_left(frames, tr.peak_at)
+        else:
+            lvl = tr.col('level')
+            ipk = max(range(n), key=lvl.__getitem__)  # the first maximum, as np.argmax
         # skip the frames in which the window still straddles the transient
-        i0 = bisect.bisect_left(tr.frames, tr.frames[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
+        i0 = bisect.bisect_left(frames, frames[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
         if n - i0 < min_frames:
             return None
         # ... and a ring-down is pure over most of the track
@@ -446,8 +452,8 @@ class _Decisions:
             return None
         if not cfg.ring_exact_partners and _median_long(tr.col('phf')) < cfg.min_phpr_db - 6.0:
             return None
-        lv = np.asarray(lvl)
-        fr = np.asarray(tr.frames)
+        lv = np.asarray(tr.col('level'))
+        fr = np.asarray(frames)
         # stop where the level nears the noise floor at which the track ended
         end_level = float(np.min(lv[i0:])) if i0 < n else 0.0
         seg = np.arange(i0, n)
@@ -462,17 +468,22 @@ class _Decisions:
             return None
         slope, icpt, res = _linfit(ts, lv[seg])
         span = -slope * (ts[-1] - ts[0])
+        decay = -slope
+        # the tests of a ring-down, each computed only when the ones before pass (the same
+        # result as computing all and testing them together: each value depends on the data only)
+        if not (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db):
+            return None
         kf = np.asarray(tr.col('kf'))[seg]
         fsd = float(np.std(kf) / np.mean(kf))
+        if not fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd):
+            return None
         pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
-        decay = -slope
+        if not pn >= cfg.min_pnpr_db:
+            return None
         q = cfg.imsd_points
         tq = np.linspace(ts[0], ts[-1], q)
         imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
-        ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
-              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
-              and pn >= cfg.min_pnpr_db and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
-        if not ok:
+        if not imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay):
             return None
         # a partner at the exact multiple in most frames that decays along with the peak (falls at
         # >= comod_fraction x its rate: a plucked or struck note's partials fall together, the

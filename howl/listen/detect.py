@@ -460,6 +460,7 @@ class Detector(_CandidateSearch, _Decisions):
                 best.seen = t
                 if row[1] > best.peak:
                     best.peak = row[1]
+                    best.peak_at = t
             if born:
                 tracks.extend(born)
         else:
