@@ -124,13 +124,15 @@ class _Track:
 _GETTERS = {name: itemgetter(k) for name, k in _Track.FIELDS.items()}
 
 
-def _median_long(values: list[float]) -> float:
-    """:func:`_median` of a long list, the same value (the same one or two middle elements,
-    averaged the same way), by a partial sort (np.partition) instead of a full sort."""
-    n = len(values)
+def _median_col(tr: "_Track", name: str) -> float:
+    """:func:`_median` of a whole column of a track, the same value (the same one or two middle
+    elements, averaged the same way); on a long track by a partial sort (np.partition) of the
+    column read straight into an array, instead of a list and a full sort."""
+    rows = tr.rows
+    n = len(rows)
     if n < 64:
-        return _median(values)
-    a = np.fromiter(values, float, n)
+        return _median(tr.col(name))
+    a = np.fromiter(map(_GETTERS[name], rows), float, n)
     if n % 2:
         return float(np.partition(a, n // 2)[n // 2])
     p = np.partition(a, (n // 2 - 1, n // 2))
@@ -261,8 +263,22 @@ class _Decisions:
         res = None
         # fast growth is decided on shorter windows (a loop well past unity must not wait);
         # the shorter the window, the stricter the tests (fewer frames to judge by)
+        # the first two tests of _window_test (presence, and the quick gate on the rise), inlined:
+        # most windows end there, and the call costs more than the tests
+        frames = tr.frames
+        n_fr = len(frames)
+        level_now = last[1]
+        held = span >= self.persist_frames
+        dt = self.dt
         for tier in self._tiers:
             if span >= tier.frames:
+                W = tier.frames
+                i0 = bisect.bisect_left(frames, t - W + 1)
+                if (n_fr - i0) / W < tier.min_ipmp:
+                    continue
+                if (level_now - rows[i0][1] < 0.3 * tier.min_growth_db_per_s * (W - 1) * dt
+                        and not (tier.full and held)):
+                    continue
                 res = self._window_test(tr, t, tier)
                 if res is not None:
                     break
@@ -447,10 +463,10 @@ class _Decisions:
         i0 = bisect.bisect_left(frames, frames[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
         if n - i0 < min_frames:
             return None
-        # ... and a ring-down is pure over most of the track
-        if _median_long(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
+        # ... and a ring-down is pure over most of the track (PHPR first: it rejects most)
+        if not cfg.ring_exact_partners and _median_col(tr, 'phf') < cfg.min_phpr_db - 6.0:
             return None
-        if not cfg.ring_exact_partners and _median_long(tr.col('phf')) < cfg.min_phpr_db - 6.0:
+        if _median_col(tr, 'pnpr') < cfg.min_pnpr_db - 6.0:
             return None
         lv = np.asarray(tr.col('level'))
         fr = np.asarray(frames)
