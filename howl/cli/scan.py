@@ -99,7 +99,8 @@ def register(app: typer.Typer) -> None:
             # with a loop IR, a component far from all of its crossings is not a howl
             events, fs, duration_s = scan_wav(recording, channel=channel,
                                               loop_delay_s=None if callable(tau) else tau,
-                                              crossings_hz=getattr(tau, "crossings_hz", None))
+                                              crossings_hz=getattr(tau, "crossings_hz", None),
+                                              crossing_resolution_hz=getattr(tau, "crossing_resolution_hz", None))
             rep = report(events, fs, duration_s, loop_delay_s=tau, max_notches=max_notches,
                          temperature_c=temperature_c, swing_c=swing_c, **({} if desk is None else {"desk": desk}))
         rep = {"file": str(recording), "channel": channel, **rep, "caution": CAUTION}

@@ -29,9 +29,14 @@ class _CandidateSearch:
     def _features(self, power: np.ndarray, mean_p: np.ndarray, rows: np.ndarray, k: np.ndarray) -> list[tuple]:
         """Feature rows (see :class:`_Track`) of the peaks at bins ``k`` of frames ``rows``."""
         nmax = self.n_bins - 1
-        pm1 = power[rows, k - 1].astype(np.float64)
-        p0 = power[rows, k].astype(np.float64)
-        pp1 = power[rows, k + 1].astype(np.float64)
+        # gathers through the flat spectrum (one index array; the same values as power[rows, k])
+        flat = power.reshape(-1)
+        nb = power.shape[1]
+        base = rows * nb
+        at = base + k
+        pm1 = flat[at - 1].astype(np.float64)
+        p0 = flat[at].astype(np.float64)
+        pp1 = flat[at + 1].astype(np.float64)
         la, lb, lc = (0.5 * np.log(p + _TINY) for p in (pm1, p0, pp1))
         den = la - 2.0 * lb + lc
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -43,10 +48,12 @@ class _CandidateSearch:
         level_db = 20.0 * np.log10(np.exp(peak_ln) * self._amp_norm + _TINY)
         papr = 10.0 * np.log10(peak_p / mean_p[rows])
         offs = np.concatenate([-self._pnpr_off, self._pnpr_off])
-        nb_pow = power[rows[:, None], np.clip(k[:, None] + offs[None, :], 0, nmax)].astype(np.float64)
-        pnpr = 10.0 * np.log10(peak_p / (nb_pow.max(axis=1) + _TINY))
+        nb_pow = flat[base[:, None] + np.clip(k[:, None] + offs[None, :], 0, nmax)].astype(np.float64)
         m = self._pnpr_off.size
-        nb_lo, nb_hi = nb_pow[:, :m].max(axis=1), nb_pow[:, m:].max(axis=1)
+        # the max of a few columns as elementwise maxima (exact; a reduction over a short axis is slow)
+        nb_lo = np.maximum(np.maximum(nb_pow[:, 0], nb_pow[:, 1]), nb_pow[:, 2]) if m == 3 else nb_pow[:, :m].max(axis=1)
+        nb_hi = np.maximum(np.maximum(nb_pow[:, 3], nb_pow[:, 4]), nb_pow[:, 5]) if m == 3 else nb_pow[:, m:].max(axis=1)
+        pnpr = 10.0 * np.log10(peak_p / (np.maximum(nb_lo, nb_hi) + _TINY))
         pnpr1 = 10.0 * np.log10(peak_p / (np.minimum(nb_lo, nb_hi) + _TINY))
         # frequency from the quieter side only: bin k and its neighbour away from a louder partial,
         # on the Gaussian's known log-parabola (curvature 1/s², s = 8/(2π) bins): a partial 4–6 bins
@@ -59,27 +66,33 @@ class _CandidateSearch:
         hk = np.rint(kf[:, None] * self._harm[None, :]).astype(np.int64)  # (n, H)
         inside = (hk >= 3) & (hk <= nmax - 3)
         hk = np.clip(hk, 2, nmax - 2)
+        n, H = hk.shape
         w5 = np.arange(-2, 3)
-        jw = hk[:, :, None] + w5[None, None, :]  # (n, H, 5) partner bins
-        ln_near = np.log(power[rows[:, None, None], jw] + np.float32(1e-30))
+        ln_near = np.log(flat[(base[:, None] + hk)[:, :, None] + w5] + np.float32(1e-30))  # (n, H, 5)
         # at low bins the windows of the multiples near 1 (3/4 … 5/6) reach the peak's own main
-        # lobe: those bins (within 3 of the peak, where the Gaussian is above −25 dB) are not partners
-        own = np.abs(jw - k[:, None, None]) <= 3
-        if own.any():
-            ln_near = np.where(own, np.float32(np.log(1e-30)), ln_near)
-            inside &= ~own.all(axis=2)
-        jmax = ln_near.argmax(axis=2)
+        # lobe: those bins (within 3 of the peak, where the Gaussian is above −25 dB) are not partners.
+        # Only a peak below bin 40 can have one (|h − 1|·k ≤ 5 at h = 5/6 needs k ≤ 30)
+        low = np.flatnonzero(k < 40)
+        if low.size:
+            own = np.abs((hk[low] - k[low, None])[:, :, None] + w5) <= 3
+            if own.any():
+                ln_near[low] = np.where(own, np.float32(np.log(1e-30)), ln_near[low])
+                inside[low] &= ~own.all(axis=2)
+        L = ln_near.reshape(n * H, 5)
+        jmax = L.argmax(axis=1)
         jc = np.clip(jmax, 1, 3)
-        trio = np.take_along_axis(ln_near, jc[:, :, None] + np.arange(-1, 2)[None, None, :], axis=2)
-        ln_hp = np.take_along_axis(ln_near, jmax[:, :, None], axis=2)[:, :, 0]
+        r = np.arange(n * H)
+        t0, t1, t2 = L[r, jc - 1], L[r, jc], L[r, jc + 1]
+        ln_hp = L[r, jmax].reshape(n, H)
+        jmax, jc = jmax.reshape(n, H), jc.reshape(n, H)
         ratio = np.where(inside, _DB_PER_NEPER_POWER * (2.0 * peak_ln[:, None] - ln_hp), np.inf)
         phpr = ratio[:, self._basic].min(axis=1)
         phf = ratio.min(axis=1)
         # is the partner at the exact multiple? (partials of one sound are; another howl is not). A
         # partner whose largest bin is at the edge of the ±2-bin search is a peak outside it: not exact
-        den = trio[:, :, 0] - 2.0 * trio[:, :, 1] + trio[:, :, 2]
+        den = (t0 - 2.0 * t1 + t2).reshape(n, H)
         with np.errstate(divide="ignore", invalid="ignore"):
-            d = np.where(den < 0, 0.5 * (trio[:, :, 0] - trio[:, :, 2]) / den, 0.0)
+            d = np.where(den < 0, 0.5 * (t0 - t2).reshape(n, H) / den, 0.0)
         kf_p = hk + jc - 2 + np.clip(d, -0.5, 0.5)
         dev = np.where(jmax == jc, np.abs(kf_p - kf[:, None] * self._harm[None, :]), np.inf)
         # one array per row: the peak-to-partner ratios (dB), then each partner's distance (bins)

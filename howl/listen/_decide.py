@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import bisect
 from dataclasses import dataclass
+from operator import itemgetter
 
 import numpy as np
 
@@ -78,7 +79,7 @@ class _Track:
     ``first`` is the track's first frame all the same."""
 
     __slots__ = ("tid", "frames", "rows", "last_kf", "gap", "reported", "state", "last_eval", "hot", "peak",
-                 "last_ring", "seen", "first", "cap")
+                 "last_ring", "seen", "first", "cap", "peak_at")
     FIELDS = {"kf": 0, "level": 1, "papr": 2, "pnpr": 3, "phpr": 4, "nb": 5, "phf": 6, "partners": 7, "pnpr1": 8, "kf1": 9}
 
     def __init__(self, tid: int, cap: int = 1 << 62):
@@ -94,6 +95,7 @@ class _Track:
         self.last_eval = -1
         self.hot = False  # rising lately: evaluated every frame
         self.peak = -np.inf  # highest level so far (dB)
+        self.peak_at = -1  # the first frame that reached it
         self.last_ring = -1  # frame of the last live ring-down test
         self.seen = -1  # the last frame in which the track got a peak
 
@@ -110,12 +112,31 @@ class _Track:
         self.seen = t
         if row[1] > self.peak:
             self.peak = row[1]
+            self.peak_at = t
 
     def col(self, name: str, start: int = 0) -> list:
-        k = self.FIELDS[name]
-        return [r[k] for r in self.rows[start:]]
+        rows = self.rows
+        return list(map(_GETTERS[name], rows[start:] if start else rows))
 
 
+
+
+_GETTERS = {name: itemgetter(k) for name, k in _Track.FIELDS.items()}
+
+
+def _median_col(tr: "_Track", name: str) -> float:
+    """:func:`_median` of a whole column of a track, the same value (the same one or two middle
+    elements, averaged the same way); on a long track by a partial sort (np.partition) of the
+    column read straight into an array, instead of a list and a full sort."""
+    rows = tr.rows
+    n = len(rows)
+    if n < 64:
+        return _median(tr.col(name))
+    a = np.fromiter(map(_GETTERS[name], rows), float, n)
+    if n % 2:
+        return float(np.partition(a, n // 2)[n // 2])
+    p = np.partition(a, (n // 2 - 1, n // 2))
+    return 0.5 * (float(p[n // 2 - 1]) + float(p[n // 2]))
 
 
 class _Decisions:
@@ -230,16 +251,34 @@ class _Decisions:
         tr.hot = last[1] - back[1] >= cfg.hot_rise_db
         # quick rejections (no window test can pass): the newest frame is far from pure, or the
         # frequency moved by more than a few times the allowed spread (a glide) since the look-back
-        pure_now = max(last[3], last[8]) if last[0] <= self.k_contrast_hi else last[3]
-        if pure_now < cfg.min_pnpr_db - 6.0 or abs(last[0] - back[0]) > 6.0 * self._fsd_limit(cfg.max_fsd, last[0]) * last[0]:
+        kl = last[0]
+        pure_now = max(last[3], last[8]) if kl <= self.k_contrast_hi else last[3]
+        # _fsd_limit(max_fsd, kl), inlined (called for every evaluation)
+        mx = cfg.max_fsd
+        lim = max(mx, cfg.fsd_floor_bins * mx / (mx * max(kl, 1.0)))
+        if pure_now < cfg.min_pnpr_db - 6.0 or abs(kl - back[0]) > 6.0 * lim * kl:
             if span >= self._tiers[0].frames:
                 tr.state = "program"
             return
         res = None
         # fast growth is decided on shorter windows (a loop well past unity must not wait);
         # the shorter the window, the stricter the tests (fewer frames to judge by)
+        # the first two tests of _window_test (presence, and the quick gate on the rise), inlined:
+        # most windows end there, and the call costs more than the tests
+        frames = tr.frames
+        n_fr = len(frames)
+        level_now = last[1]
+        held = span >= self.persist_frames
+        dt = self.dt
         for tier in self._tiers:
             if span >= tier.frames:
+                W = tier.frames
+                i0 = bisect.bisect_left(frames, t - W + 1)
+                if (n_fr - i0) / W < tier.min_ipmp:
+                    continue
+                if (level_now - rows[i0][1] < 0.3 * tier.min_growth_db_per_s * (W - 1) * dt
+                        and not (tier.full and held)):
+                    continue
                 res = self._window_test(tr, t, tier)
                 if res is not None:
                     break
@@ -368,15 +407,19 @@ class _Decisions:
         return s_a > 0 and s_b < r * s_a
 
     def _off_crossings(self, freq_hz: float) -> bool:
-        """With the loop's crossings known (a measured loop IR): is ``freq_hz`` farther than
-        ``max_crossing_offset_pct`` from every one? The loop can only howl at a crossing (where its
-        phase comes round to a whole number of turns), so a component growing elsewhere is program."""
+        """With the loop's crossings known (a measured loop IR): is ``freq_hz`` far from every one,
+        farther than ``max_crossing_offset_pct`` of it and than half the IR's resolution
+        (``crossing_resolution_hz``: 1 / the IR's length; the IR places a crossing to ± half of it)?
+        The loop can only howl at a crossing (where its phase comes round to a whole number of
+        turns; past unity at the closed loop's mode, within 1 % of it: docs/scan.md), so a
+        component growing elsewhere is program."""
         c = self.crossings_hz
         if c is None or self.cfg.max_crossing_offset_pct is None:
             return False
         if c.size == 0:
             return True
-        return float(np.min(np.abs(c / freq_hz - 1.0))) * 100.0 > self.cfg.max_crossing_offset_pct
+        far_pct = np.abs(c / freq_hz - 1.0) * 100.0 > self.cfg.max_crossing_offset_pct
+        return bool(np.all(far_pct & (np.abs(c - freq_hz) > 0.5 * self.crossing_resolution_hz)))
 
     def _is_howl_product(self, freq_hz: float) -> bool:
         """Is ``freq_hz`` a harmonic or a two-tone product of howls already reported
@@ -408,16 +451,25 @@ class _Decisions:
         min_frames = int(round(cfg.min_decay_s / self.dt))
         if n < min_frames + 2:
             return None
-        # cheap tests first: a ring-down is pure over most of the track
-        if _median(tr.col('pnpr')) < cfg.min_pnpr_db - 6.0:
+        # cheap tests first (each one only rejects, so their order does not change the result):
+        # enough frames after the peak (the segment test below, before any array) ...
+        frames = tr.frames
+        if tr.peak_at >= frames[0]:  # the track's highest level is still in its history: its first frame
+            ipk = bisect.bisect_left(frames, tr.peak_at)
+        else:
+            lvl = tr.col('level')
+            ipk = max(range(n), key=lvl.__getitem__)  # the first maximum, as np.argmax
+        # skip the frames in which the window still straddles the transient
+        i0 = bisect.bisect_left(frames, frames[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
+        if n - i0 < min_frames:
             return None
-        if not cfg.ring_exact_partners and _median(tr.col('phf')) < cfg.min_phpr_db - 6.0:
+        # ... and a ring-down is pure over most of the track (PHPR first: it rejects most)
+        if not cfg.ring_exact_partners and _median_col(tr, 'phf') < cfg.min_phpr_db - 6.0:
+            return None
+        if _median_col(tr, 'pnpr') < cfg.min_pnpr_db - 6.0:
             return None
         lv = np.asarray(tr.col('level'))
-        fr = np.asarray(tr.frames)
-        ipk = int(np.argmax(lv))
-        # skip the frames in which the window still straddles the transient
-        i0 = np.searchsorted(fr, fr[ipk] + int(np.ceil(0.5 * self.n_win / self.hop)))
+        fr = np.asarray(frames)
         # stop where the level nears the noise floor at which the track ended
         end_level = float(np.min(lv[i0:])) if i0 < n else 0.0
         seg = np.arange(i0, n)
@@ -432,17 +484,22 @@ class _Decisions:
             return None
         slope, icpt, res = _linfit(ts, lv[seg])
         span = -slope * (ts[-1] - ts[0])
+        decay = -slope
+        # the tests of a ring-down, each computed only when the ones before pass (the same
+        # result as computing all and testing them together: each value depends on the data only)
+        if not (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db):
+            return None
         kf = np.asarray(tr.col('kf'))[seg]
         fsd = float(np.std(kf) / np.mean(kf))
+        if not fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd):
+            return None
         pn = float(np.median(np.asarray(tr.col('pnpr'))[seg]))
-        decay = -slope
+        if not pn >= cfg.min_pnpr_db:
+            return None
         q = cfg.imsd_points
         tq = np.linspace(ts[0], ts[-1], q)
         imsd = imsd_db_per_s(np.interp(tq, ts, lv[seg]), (ts[-1] - ts[0]) / (q - 1))
-        ok = (cfg.min_decay_db_per_s <= decay <= cfg.max_decay_db_per_s and span >= cfg.min_decay_span_db
-              and fsd <= (cfg.max_fsd if cfg.ring_max_fsd is None else cfg.ring_max_fsd)
-              and pn >= cfg.min_pnpr_db and imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay))
-        if not ok:
+        if not imsd <= max(cfg.max_imsd_db_per_s, 0.3 * decay):
             return None
         # a partner at the exact multiple in most frames that decays along with the peak (falls at
         # >= comod_fraction x its rate: a plucked or struck note's partials fall together, the

@@ -15,6 +15,18 @@ DEFAULT_LOOP_DELAY_S = 0.020
 #: rooms a howl 3 dB past unity (146 dB/s) was reported 0.85 % off, while a sung note pumped
 #: through a mode 1.5 dB from unity was reported 1.2 % off it (tests/benchmarks/bench_detect.py).
 ON_CROSSING_PCT = 1.0
+
+
+def on_crossing(freq_hz: float, crossing_hz: float, resolution_hz: float = 0.0,
+                pct: float = ON_CROSSING_PCT) -> bool:
+    """Is a component at ``freq_hz`` on the loop crossing at ``crossing_hz``? Within ``pct`` % of
+    it (a howl past unity grows at the closed loop's mode, off the crossing: up to 0.85 % at 3 dB
+    past unity in the simulated rooms), or within half the IR's resolution (``resolution_hz``:
+    1 / the IR's length; the IR places a crossing to ±half of it), whichever is wider. "Far from
+    every crossing" is the negation for all of them."""
+    return abs(freq_hz / crossing_hz - 1.0) * 100.0 <= pct or abs(freq_hz - crossing_hz) <= 0.5 * resolution_hz
+
+
 #: Headroom a suggested cut aims for beyond "just stops it" (3 dB: the lower end of
 #: the usual 3–6 dB feedback stability margin, common practice, no source).
 TARGET_MARGIN_DB = 3.0
@@ -35,6 +47,14 @@ class LoopDelayFromIR:
         # the crossings now, not at the first event (listen must not stall its input then)
         r = nyquist_margin(self.ir, self.sample_rate_hz)
         self._crossings = (np.asarray(r.crossings_freq_hz, float), np.asarray(r.crossings_value, float))
+
+    @property
+    def crossing_resolution_hz(self) -> float:
+        """The IR's frequency resolution (Hz), 1 / its length: an IR of length T cannot tell
+        features closer than 1/T apart (its spectrum is the true loop's convolved with the
+        truncation's sinc), so it places a crossing only to ±1/(2T), and a component within
+        that of a crossing is on it, whatever the percentage (:func:`on_crossing`)."""
+        return self.sample_rate_hz / max(self.ir.size, 1)
 
     @property
     def crossings_hz(self) -> np.ndarray:
@@ -188,8 +208,9 @@ def event_record(e, *, loop_delay_s=None, target_margin_db: float = TARGET_MARGI
         near = loop_delay_s.nearest_crossing(e.freq_hz) if hasattr(loop_delay_s, "nearest_crossing") else None
         if near is not None:
             off_pct = 100.0 * abs(e.freq_hz / near[0] - 1.0)
+            res = getattr(loop_delay_s, "crossing_resolution_hz", 0.0)
             d["loop_ir_crossing"] = {"freq_hz": near[0], "margin_db": near[1], "offset_pct": off_pct,
-                                     "on_crossing": off_pct <= ON_CROSSING_PCT}
+                                     "on_crossing": on_crossing(e.freq_hz, near[0], res)}
         if tau is not None:
             d["margin_db"] = margin_used
         else:

@@ -54,7 +54,7 @@ class ClipWatch:
 
 
 def scan_wav(path: str | os.PathLike, *, channel: int | None = None, config=None, loop_delay_s=None,
-             crossings_hz=None, block_frames: int = BLOCK_FRAMES):
+             crossings_hz=None, crossing_resolution_hz=None, block_frames: int = BLOCK_FRAMES):
     """Run the detector over a WAV file block by block. Returns (events, sample_rate_hz, duration_s).
     ``crossings_hz``: a loop IR's crossings (a howl can only be on one), or None. Warns
     (:class:`howl.errors.HowlWarning`) when the recording is clipped."""
@@ -68,7 +68,8 @@ def scan_wav(path: str | os.PathLike, *, channel: int | None = None, config=None
     fs, _, blocks = wav_blocks(path, channels=None if channel is None else [channel], blocksize=block_frames)
     if fs < 4000:
         raise v.fail("sample rate", ">= 4000 Hz", fs, "Hz", file=str(path))
-    det = Detector(fs, config, loop_delay_s=loop_delay_s, crossings_hz=crossings_hz)
+    det = Detector(fs, config, loop_delay_s=loop_delay_s, crossings_hz=crossings_hz,
+                   crossing_resolution_hz=crossing_resolution_hz)
     clip = ClipWatch()
     for b in blocks:
         x = b[0]

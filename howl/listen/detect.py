@@ -169,20 +169,26 @@ class Detector(_CandidateSearch, _Decisions):
     loop_delay_s: the loop delay τ when known (measured loop IR, or passed in);
         enables ``margin_db`` on events.
     crossings_hz: the positive real-axis crossings of a measured loop IR (Hz), when known: a
-        component farther than ``max_crossing_offset_pct`` from every one is not a howl.
+        component farther than ``max_crossing_offset_pct`` from every one, and than half of
+        ``crossing_resolution_hz``, is not a howl (it may be shown as ``watch``).
+    crossing_resolution_hz: the IR's frequency resolution, 1 / its length (s): it places a
+        crossing to ± half of it (None: the percentage alone);
+        :attr:`howl.listen.detect.LoopDelayFromIR.crossing_resolution_hz`.
     """
 
     def __init__(self, sample_rate_hz: float, config: DetectorConfig | None = None, *, loop_delay_s: float | None = None,
-                 crossings_hz=None):
+                 crossings_hz=None, crossing_resolution_hz: float | None = None):
         self.fs = v.in_range(sample_rate_hz, "sample_rate_hz", 2000.0, 768000.0, unit="Hz")
         self.cfg = (config or DetectorConfig()).validated()
         self.loop_delay_s = None if loop_delay_s is None else v.positive(loop_delay_s, "loop_delay_s", unit="s")
         # the loop's positive real-axis crossings (Hz), when a loop IR is known: a howl can only be on one
         self.crossings_hz = None if crossings_hz is None else np.asarray(crossings_hz, float).ravel()
-        import scipy.fft as sfft
+        self.crossing_resolution_hz = (0.0 if crossing_resolution_hz is None else
+                                       v.in_range(crossing_resolution_hz, "crossing_resolution_hz", 0.0, None, unit="Hz"))
+        from howl.listen import _fft  # scipy's pocketfft without importing scipy.fft (start-up, issue 21)
 
-        self._fft = sfft
-        n = sfft.next_fast_len(int(round(self.cfg.window_s * self.fs)), real=True)
+        self._fft = _fft
+        n = _fft.next_fast_len(int(round(self.cfg.window_s * self.fs)))
         self.n_win = int(n)
         self.hop = max(1, int(round(self.cfg.hop_s * self.fs)))
         self.dt = self.hop / self.fs
@@ -255,7 +261,8 @@ class Detector(_CandidateSearch, _Decisions):
         if lane_hz is not None and lane_factor(self.fs) >= 2:
             self._dec = Decimator(self.fs, lane_factor(self.fs))
             self._lane = Detector(self.fs / self._dec.factor, lane_config(self.cfg, lane_hz),
-                                  loop_delay_s=self.loop_delay_s, crossings_hz=self.crossings_hz)
+                                  loop_delay_s=self.loop_delay_s, crossings_hz=self.crossings_hz,
+                                  crossing_resolution_hz=self.crossing_resolution_hz)
 
     # ------------------------------------------------------------------ public
 
@@ -371,7 +378,7 @@ class Detector(_CandidateSearch, _Decisions):
         seg = self._buf[start0: start0 + (n_f - 1) * self.hop + self.n_win]
         # float32 FFT: 2x faster; its ~-140 dB rounding floor is far below any decision
         frames = sliding_window_view(seg.astype(np.float32), self.n_win)[:: self.hop][:n_f]
-        spec = self._fft.rfft(frames * self._win32, axis=1, overwrite_x=True)
+        spec = self._fft.rfft(frames * self._win32)
         # |X|² in place on the interleaved (re, im) float32 pairs: the same float32 operations as
         # re² + im², without the temporaries
         ri = spec.view(np.float32)
@@ -407,48 +414,68 @@ class Detector(_CandidateSearch, _Decisions):
         self._frame += n_f
 
     def _step(self, t, rows) -> None:
+        """One frame: link this frame's candidate rows to the tracks, then test the tracks due.
+
+        Written for speed (issue 21): this runs for every frame and every track, so the link and
+        the bookkeeping of :meth:`_Track.add` are inlined, and the tracks not due for a test are
+        passed over with a few comparisons."""
         cfg = self.cfg
         tol = cfg.track_tol_bins
         # tracks kept sorted by their last frequency (nearly sorted already: the sort is cheap), so
         # each candidate looks only at its neighbours; a track matched in this frame has seen == t
         tracks = self._tracks
-        tracks.sort(key=_LAST_KF)
-        lasts = [tr.last_kf for tr in tracks]
-        n_tr = len(tracks)
-        bl = bisect.bisect_left
-        born = []
-        for row in rows:
-            kj = row[0]
-            best = None
-            bd = tol
-            i = bl(lasts, kj - tol)
-            while i < n_tr and lasts[i] <= kj + tol:
-                d = abs(lasts[i] - kj)
-                if d <= bd and tracks[i].seen != t:
-                    bd, best = d, tracks[i]
-                i += 1
-            if best is None:
-                if n_tr + len(born) >= cfg.max_tracks:
-                    continue
-                best = _Track(self._next_tid, self._hist_cap)
-                self._next_tid += 1
-                born.append(best)
-            best.add(t, row)
-        if born:
-            tracks.extend(born)
-        alive = []
+        if rows:
+            tracks.sort(key=_LAST_KF)
+            lasts = [tr.last_kf for tr in tracks]
+            n_tr = len(tracks)
+            bl = bisect.bisect_left
+            born = []
+            for row in rows:
+                kj = row[0]
+                best = None
+                bd = tol
+                i = bl(lasts, kj - tol)
+                while i < n_tr and lasts[i] <= kj + tol:
+                    d = abs(lasts[i] - kj)
+                    if d <= bd and tracks[i].seen != t:
+                        bd, best = d, tracks[i]
+                    i += 1
+                if best is None:
+                    if n_tr + len(born) >= cfg.max_tracks:
+                        continue
+                    best = _Track(self._next_tid, self._hist_cap)
+                    self._next_tid += 1
+                    born.append(best)
+                # _Track.add, inlined
+                fr = best.frames
+                if not fr:
+                    best.first = t
+                elif len(fr) >= 2 * best.cap:
+                    del fr[: best.cap]
+                    del best.rows[: best.cap]
+                fr.append(t)
+                best.rows.append(row)
+                best.last_kf = kj
+                best.gap = 0
+                best.seen = t
+                if row[1] > best.peak:
+                    best.peak = row[1]
+                    best.peak_at = t
+            if born:
+                tracks.extend(born)
+        else:
+            tracks.sort(key=_LAST_KF)
         every = cfg.eval_every_frames
         span_db = cfg.min_decay_span_db
         max_gap = cfg.max_gap_frames
+        closed = False
         for tr in tracks:
             if tr.seen != t:
                 tr.gap += 1
                 if tr.gap > max_gap:
                     self._close(tr)
-                else:
-                    alive.append(tr)
+                    closed = True
                 continue
-            alive.append(tr)
             if tr.reported is not None:
                 continue
             if t - tr.last_eval >= (1 if tr.hot else every):
@@ -464,7 +491,8 @@ class Detector(_CandidateSearch, _Decisions):
                     tr.reported = "ringing"
                     tr.state = "ringing"
                     self._report_ringing(ev)
-        self._tracks = alive
+        if closed:
+            self._tracks = [tr for tr in tracks if tr.gap <= max_gap]
 
     def _close(self, tr: _Track) -> None:
         """A track ended: was its end a ring-down?"""
@@ -481,10 +509,13 @@ class Detector(_CandidateSearch, _Decisions):
             self._report(ev)
 
 def detect(x: np.ndarray, sample_rate_hz: float, config: DetectorConfig | None = None, *,
-           loop_delay_s: float | None = None, block_samples: int | None = None) -> DetectionResult:
-    """Run the detector over a whole signal (optionally in blocks, as a live input would)."""
+           loop_delay_s: float | None = None, block_samples: int | None = None, crossings_hz=None,
+           crossing_resolution_hz: float | None = None) -> DetectionResult:
+    """Run the detector over a whole signal (optionally in blocks, as a live input would);
+    ``crossings_hz``, ``crossing_resolution_hz``: a loop IR's crossings, as for :class:`Detector`."""
     x = v.finite_array(x, "signal", ndim=1)
-    det = Detector(sample_rate_hz, config, loop_delay_s=loop_delay_s)
+    det = Detector(sample_rate_hz, config, loop_delay_s=loop_delay_s, crossings_hz=crossings_hz,
+                   crossing_resolution_hz=crossing_resolution_hz)
     if block_samples is None:
         det.process(x)
     else:

@@ -115,7 +115,8 @@ def listen(source, *, duration_s: float | None = None, log_path=None, on_update=
     """
     fs = float(source.sample_rate_hz)
     det = Detector(fs, loop_delay_s=None if callable(loop_delay_s) else loop_delay_s,
-                   crossings_hz=getattr(loop_delay_s, "crossings_hz", None))
+                   crossings_hz=getattr(loop_delay_s, "crossings_hz", None),
+                   crossing_resolution_hz=getattr(loop_delay_s, "crossing_resolution_hz", None))
     log = JsonlLog(log_path) if log_path else None
     limit = None if duration_s is None else int(round(duration_s * fs))
     n = 0

@@ -42,6 +42,13 @@ they run with ``--legacy`` only. By default the benchmark runs 1 and then:
    ``--every N`` keeps one case in N of each list (a reduced run: ``--every 4`` takes a few
    minutes on a shared 2-core machine); the results go to
    tests/benchmarks/results/bench_detect_corpus[_everyN].json, with the machine's CPU and cores.
+
+``--loop-known`` runs the held-out split's cases through a loop (stable and howl) without and with
+the loop IR given to the detector (issue 22 item 4; about 10 minutes of CPU) and writes
+tests/benchmarks/results/bench_detect_corpus_loop.json.
+
+``--rtf-only`` runs section 1 alone (a few minutes) and writes
+tests/benchmarks/results/bench_detect_rtf.json (with the machine and its load average).
 """
 
 from __future__ import annotations
@@ -426,7 +433,48 @@ def corpus(every: int, label: str = "") -> dict:
     return out
 
 
+def loop_known(split: str = "heldout") -> dict:
+    """Issue 22 item 4: the cases through a loop (stable and howl) of a split, without and with
+    the loop IR given to the detector (crossings from howl.loop.nyquist, the IR's resolution;
+    detect_corpus.loop_known): false howls through stable loops, howls found, and any howl found
+    without the loop that the loop rule lost."""
+    import detect_corpus as C
+
+    out = {"machine": machine(), "split": split, "rows": []}
+    t0 = time.process_time()
+    for c in C.cases(split):
+        if c.kind == "dry":
+            continue
+        a, b = C.evaluate(c), C.evaluate(c, with_loop=True)
+        out["rows"].append({"case": c.name, "kind": c.kind, "without": a, "with": b})
+    rows = out["rows"]
+    st = [r for r in rows if r["kind"] == "stable"]
+    hw = [r for r in rows if r["kind"] == "howl"]
+    out["summary"] = {
+        "stable_cases": len(st), "howl_cases": len(hw),
+        "false_howls_stable_without": sum(r["without"]["n_howl_events"] for r in st),
+        "false_howls_stable_with": sum(r["with"]["n_howl_events"] for r in st),
+        "found_without": sum(bool(r["without"]["found"]) for r in hw),
+        "found_with": sum(bool(r["with"]["found"]) for r in hw),
+        "found_before_dominance_without": sum(bool(r["without"].get("before_dominance")) for r in hw),
+        "found_before_dominance_with": sum(bool(r["with"].get("before_dominance")) for r in hw),
+        "off_mode_howls_without": sum(r["without"]["n_off_mode_howls"] for r in hw),
+        "off_mode_howls_with": sum(r["with"]["n_off_mode_howls"] for r in hw),
+        "howls_lost": [r["case"] for r in hw if r["without"]["found"] and not r["with"]["found"]],
+        "cpu_s": time.process_time() - t0,
+    }
+    for k, v in out["summary"].items():
+        print(f"  {k:<36} {v}")
+    return out
+
+
 def main() -> None:
+    if "--loop-known" in sys.argv:  # issue 22 item 4 alone: the held-out loops with and without the IR
+        out = loop_known()
+        path = HERE / "results" / "bench_detect_corpus_loop.json"
+        path.write_text(json.dumps(out, indent=1), encoding="utf-8")
+        print(f"\nwrote {path}")
+        return
     quick = "--quick" in sys.argv
     every = int(sys.argv[sys.argv.index("--every") + 1]) if "--every" in sys.argv else 1
     label = sys.argv[sys.argv.index("--label") + 1] if "--label" in sys.argv else ""
@@ -439,6 +487,13 @@ def main() -> None:
                   f"{'ok' if row['meets_target'] else 'MISSED':<26}{row['cpu_s_min_lane_off']:8.3f}")
     else:
         r = None
+    if "--rtf-only" in sys.argv:  # the CPU probe alone (a few minutes), to its own results file
+        from _machine import machine_info
+
+        path = HERE / "results" / "bench_detect_rtf.json"
+        path.write_text(json.dumps({**machine_info(), "rtf_48k": r}, indent=1) + "\n", encoding="utf-8")
+        print(f"\nwrote {path}")
+        return
     if "--legacy" not in sys.argv:
         out = corpus(every, label)
         out["rtf_48k"] = r

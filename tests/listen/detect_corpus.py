@@ -379,13 +379,26 @@ def probes(fs: int = FS) -> dict[str, np.ndarray]:
 FREQ_TOL = 0.002
 
 
-def evaluate(case: Case, config=None, fs: int = FS) -> dict:
-    """Run the detector on one case and score it (see the module docstring)."""
+def loop_known(case: Case, fs: int = FS) -> dict:
+    """The detector's loop arguments when the case's loop IR is known (as `howl scan --loop-ir`
+    gives them: crossings from howl.loop.nyquist, the IR's resolution 1 / its length); {} for a
+    dry case (no loop)."""
+    if case.room is None:
+        return {}
+    from howl.listen.detect import LoopDelayFromIR
+
+    ir = LoopDelayFromIR(room(case.split, case.room, fs)[0], fs)
+    return {"crossings_hz": ir.crossings_hz, "crossing_resolution_hz": ir.crossing_resolution_hz}
+
+
+def evaluate(case: Case, config=None, fs: int = FS, *, with_loop: bool = False) -> dict:
+    """Run the detector on one case and score it (see the module docstring). ``with_loop``: the
+    detector is given the case's loop IR (:func:`loop_known`)."""
     from howl.listen.detect import detect
     from test_detect import closed_loop_modes, t_dominates
 
     y, x = case.signal(fs)
-    ev = detect(y, fs, config).events
+    ev = detect(y, fs, config, **(loop_known(case, fs) if with_loop else {})).events
     howls = [e for e in ev if e.kind == "howl"]
     row = {"case": case.name, "kind": case.kind, "family": case.family, "audio_s": y.size / fs,
            "n_howl_events": len(howls), "n_ringing_events": sum(e.kind == "ringing" for e in ev),

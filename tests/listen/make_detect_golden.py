@@ -45,6 +45,18 @@ def golden_signals():
         g[2 * fs:] = over
         out.append((f"room_loop(1) {prog} +{over} dB, 16 kHz", simulate_closed_loop(h, p, fs, gain_db=g), fs))
     out.append(("held note 220 Hz crescendo 10 dB/s, 16 kHz", held_note_crescendo(fs, 220.0, 10.0), fs))
+    # added before the array tracking of issue 21: held-out corpus cases that reach the low lane,
+    # the slowing-swell and steady-tone tests, a stable loop and howls through a room (detect_corpus.py)
+    import detect_corpus as C
+
+    for case in (C.Case("heldout", "dry", "organ", 0), C.Case("heldout", "dry", "pure", 1),
+                 C.Case("heldout", "dry", "choir", 3), C.Case("heldout", "dry", "strings", 4),
+                 C.Case("heldout", "stable", "band", 103, room=3, margin_db=2.5),
+                 C.Case("heldout", "howl", "speech", 202, room=2, over_db=1.0),
+                 C.Case("heldout", "howl", "piano", 205, room=5, over_db=3.0)):
+        out.append((f"corpus {case.name}, 16 kHz", case.signal(C.FS)[0], C.FS))
+    for name, x in C.probes().items():
+        out.append((f"probe {name}, 16 kHz", x, C.FS))
     return out
 
 

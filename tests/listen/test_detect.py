@@ -806,3 +806,26 @@ def test_with_the_loop_ir_the_sung_note_pumped_beside_a_mode_is_not_a_howl():
     det.process(y)
     det.finish()
     assert [e for e in det.events if e.kind == "howl"]
+
+
+def test_far_from_every_crossing_is_wider_than_the_loop_irs_resolution():
+    # "Far" = more than 1 % from every crossing AND more than half the IR's resolution 1/T
+    # (derived: an IR T seconds long cannot tell features closer than 1/T apart, so it places a
+    # crossing to ±1/(2T)). The 880 Hz tone at 20 dB/s with its nearest crossing at 862 Hz (18 Hz,
+    # 2 % off): far for a 0.25 s IR (±2 Hz), on the crossing for a 1/64 s IR (±32 Hz).
+    from howl.listen._report import on_crossing
+
+    fs = 16000
+    t = np.arange(5 * fs) / fs
+    x = 10 ** (np.minimum(-60 + 20 * t, -10) / 20) * np.sin(2 * np.pi * 880.0 * t)
+    x += 1e-4 * np.random.default_rng(3).standard_normal(t.size)
+    ir_quarter_s = np.zeros(fs // 4)
+    ir_quarter_s[40] = 0.5
+    res = D.LoopDelayFromIR(ir_quarter_s, fs).crossing_resolution_hz
+    assert res == 4.0  # 16000 / 4000 (derived)
+    for res_hz, howl in ((res, False), (64.0, True)):
+        ev = D.detect(x, fs, crossings_hz=[862.0, 1500.0], crossing_resolution_hz=res_hz).events
+        assert any(e.kind == "howl" for e in ev) == howl, (res_hz, ev)
+    # the report's on_crossing flag follows the same rule (derived: 3 Hz is 3 % of 100 Hz)
+    assert not on_crossing(100.0, 103.0, 4.0) and on_crossing(100.0, 103.0, 6.0)
+    assert on_crossing(1000.0, 1009.0, 0.0)  # 0.9 % (within 1 %)

@@ -2,7 +2,9 @@
 tests/listen/data/detect_golden.json (written by make_detect_golden.py from the code before the
 speed work of issue 21; the reference is the earlier code's output, so this checks that a change
 made for speed alone leaves every event as it was, not that the events are right: test_detect.py
-does that)."""
+does that). The set: short synthetic signals at 48 and 16 kHz, plus held-out corpus cases
+(detect_corpus.py: an organ swell the low lane reports, pure and harmonic notes, a stable loop,
+howls through rooms) and the issue-22 probes, added before the array tracking was written."""
 
 from __future__ import annotations
 
