@@ -95,6 +95,7 @@ def _fmt(v, spec="+.1f", none="—") -> str:
 def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     from rich.markup import escape
     from rich.table import Table
+    from howl.model._plan_limits import shortfall_shown_db as _shown
 
     from howl.cli._common import make_console
 
@@ -119,7 +120,7 @@ def _print_tables(obj: dict, bands: bool, images: dict | None) -> None:
     style = {"stable": "green", "inside_fsm": "yellow", "howls": "bold red", "reaches_target": "green", "short": "yellow"}
     for m in obj["mics"]:
         lo, hi = m["pag_spread_db"]
-        rch = "reaches" if m["reach"] == "reaches_target" else f"short {_fmt(m['short_by_db'], '.1f')}"
+        rch = "reaches" if m["reach"] == "reaches_target" else f"short {_fmt(_shown(m['short_by_db']), '.1f')}"
         t.add_row(
             escape(m["name"]) + ("*" if m.get("pag_basis") == "together" else ""), _fmt(m["max_channel_gain_db"]), f"{m['rings_first_hz']:.0f}",
             f"[{style.get(m['stability'], '')}]{m['stability'].replace('_', ' ')}[/]", _fmt(m["pag_db"]),

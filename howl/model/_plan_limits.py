@@ -163,6 +163,16 @@ def reach(margin_db: float | None) -> tuple[str, float]:
     return ("reaches_target", 0.0) if margin_db >= 0.0 else ("short", float(-margin_db))
 
 
+def shortfall_shown_db(short_by_db: float) -> float:
+    """A shortfall as printed (plan's table, the sheet): rounded UP to 0.1 dB, so a rig that is short
+    never reads "short by 0.0"."""
+    import math
+
+    if not np.isfinite(short_by_db):
+        return float(short_by_db)
+    return max(0.1, math.ceil(round(short_by_db * 10.0, 6)) / 10.0)
+
+
 def legacy_verdict(stab: str, rch: str) -> str:
     """The deprecated single ``verdict``: ``will howl`` only when the rig as set howls, ``stable`` when it is
     stable and reaches the target, ``marginal`` otherwise."""

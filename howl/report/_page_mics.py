@@ -11,6 +11,7 @@ import it only inside functions.
 
 from __future__ import annotations
 
+from howl.model._plan_limits import shortfall_shown_db
 from howl.report._page import _BLACK, _GREY, _LIGHT, _MARGIN_PT, PAPER_PT, _Block, _Page, _verdict
 from howl.report.sheet import MeasuredLine, MicLine, SheetData, _band_hz, _hz, _num
 
@@ -121,7 +122,7 @@ def mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = 
             put("reach", base, "REACHES", mid * 0.8, weight="bold")
         elif m.reach == "short":
             put("reach", base, "SHORT", mid * 0.8, weight="bold")
-            put("reach", sub, f"by {_num(m.short_by_db, sign=False)} dB", small)
+            put("reach", sub, f"by {_num(shortfall_shown_db(m.short_by_db), sign=False)} dB", small)
         page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
 
     title_h = 16.0 + (12.0 if together else 0.0)

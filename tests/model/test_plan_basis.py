@@ -221,3 +221,14 @@ def test_a_pairs_prediction_is_the_whole_loop_when_one_mic_feeds_one_loudspeaker
         float(np.max(one.worst_peak_spectral_radius_db)), abs=1e-9)
     assert [q["speaker"] for q in two.mics[0].pairs] == ["main", "fill"]
     assert all(q["worst_peak_loop_gain_db"] < float(np.max(two.worst_peak_spectral_radius_db)) for q in two.mics[0].pairs)
+
+
+def test_a_shortfall_is_printed_rounded_up_never_as_zero():
+    # derived: a rig short by 0.04 dB is short; printing "short by 0.0" would tell the tech nothing
+    # is missing, so the printed figure is rounded up to the next 0.1 dB (and exact tenths stay)
+    from howl.model._plan_limits import shortfall_shown_db
+
+    assert shortfall_shown_db(0.04) == 0.1
+    assert shortfall_shown_db(2.0) == 2.0
+    assert shortfall_shown_db(2.01) == 2.1
+    assert shortfall_shown_db(float("inf")) == float("inf")
