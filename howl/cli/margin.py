@@ -37,6 +37,9 @@ def register(app: typer.Typer) -> None:
         rig_file: Optional[Path] = typer.Option(
             None, "--rig", metavar="RIG.toml", help="Rig whose mixes give the sends of a multi-IR loop."
         ),
+        what_if: list[str] = typer.Option(
+            [], "--what-if", help="With --rig: try a change of the rig first, e.g. mixes.mains.gains_db.lectern=28 (repeatable)."
+        ),
         max_length_s: float = typer.Option(
             20.0, "--max-length-s", help="Longest IR accepted (s); use --trim-s to analyse the start of a longer one."
         ),
@@ -46,6 +49,10 @@ def register(app: typer.Typer) -> None:
         from howl.cli._common import added_gain_db, capture_warnings, emit_json, options_named
 
         added_gain_db(gain_db, "--gain-db")
+        if what_if and rig_file is None:
+            from howl.errors import InputError
+
+            raise InputError("needs --rig (it changes the rig whose mixes give the sends)", key="--what-if")
         if band_hz is not None:
             from howl import validate as V
 
@@ -72,7 +79,7 @@ def register(app: typer.Typer) -> None:
 
                     raise InputError("is only available for a single loop IR", key="--plot")
                 report = mimo_report(
-                    irs, rig_file=rig_file, gain_db=gain_db, band_hz=band_hz, channel=channel,
+                    irs, rig_file=rig_file, what_if=list(what_if), gain_db=gain_db, band_hz=band_hz, channel=channel,
                     max_length_s=max_length_s, trim_s=trim_s,
                 )
         if json_out:
@@ -251,7 +258,7 @@ def _pairs(paths: list[Path]):
     return out
 
 
-def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, trim_s=None):
+def load_pair_loop(paths, *, rig_file=None, what_if=(), channel=None, max_length_s=20.0, trim_s=None):
     """Read <speaker>__<mic>.wav loop IRs and the sends.
 
     Returns (irs (n_spk, n_mic, n), mix_lin (n_spk, n_mic), speakers, mics, sample_rate_hz,
@@ -293,6 +300,13 @@ def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, tri
         from howl.model.rig import load_rig
 
         rig = load_rig(rig_file)
+        if what_if:
+            from howl.model.rig import with_changes
+
+            rig = with_changes(rig, list(what_if))
+            mix_source_note = " with --what-if " + ", ".join(what_if)
+        else:
+            mix_source_note = ""
         mix = np.zeros((len(speakers), len(mics)))
         names_s = {s.name for s in rig.speakers}
         names_m = {m.name: m for m in rig.mics}
@@ -308,7 +322,7 @@ def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, tri
                     for m, g in mx.gains_db:
                         if m in mics and names_m[m].open:
                             mix[speakers.index(s), mics.index(m)] += from_db(g)
-        mix_source = f"mixes of {rig_file}"
+        mix_source = f"mixes of {rig_file}{mix_source_note}"
         if not np.any(mix):
             raise InputError("sends no open mic of the IR files to any of their speakers", file=str(rig_file))
     else:
@@ -316,7 +330,7 @@ def load_pair_loop(paths, *, rig_file=None, channel=None, max_length_s=20.0, tri
     return irs, mix, speakers, mics, fs0, pairs, mix_source
 
 
-def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None, max_length_s=20.0, trim_s=None):
+def mimo_report(paths, *, rig_file=None, what_if=(), gain_db=0.0, band_hz=None, channel=None, max_length_s=20.0, trim_s=None):
     """The `howl margin --json` object for a loop of several speakers and mics."""
     import numpy as np
 
@@ -325,7 +339,7 @@ def mimo_report(paths, *, rig_file=None, gain_db=0.0, band_hz=None, channel=None
     from howl.units import from_db
 
     irs, mix, speakers, mics, fs0, pairs, mix_source = load_pair_loop(
-        paths, rig_file=rig_file, channel=channel, max_length_s=max_length_s, trim_s=trim_s
+        paths, rig_file=rig_file, what_if=what_if, channel=channel, max_length_s=max_length_s, trim_s=trim_s
     )
     band = None if band_hz is None else (float(band_hz[0]), float(band_hz[1]))
     try:

@@ -147,6 +147,27 @@ def test_a_folder_of_pair_irs_with_the_rig_mix_gives_the_mimo_margin(tmp_path):
     assert rep["worst_mic"] in ("ambo", "lectern")
 
 
+def test_what_if_changes_the_rig_sends_of_a_multi_ir_loop(tmp_path):
+    from howl.model.rig import bundled_rig_path
+
+    folder = tmp_path / "irs"
+    folder.mkdir()
+    irs = _pair_irs()
+    for (s, m), h in irs.items():
+        _wav(folder / f"{s}__{m}.wav", h, fs=16000)
+    rep = _json(runner.invoke(app, ["margin", str(folder), "--rig", str(bundled_rig_path()),
+                                    "--what-if", "mixes.mains.gains_db.lectern=28", "--json"]))
+    arr = np.array([[irs[(s, m)] for m in ["ambo", "lectern"]] for s in ["column_north", "column_south"]])
+    # the bundled rig's mains send ambo at 25 dB; the what-if raises the lectern's send to 28 dB
+    mix = np.array([[10 ** (25 / 20), 10 ** (28 / 20)]] * 2)
+    ref = mimo_margin(arr.astype(np.float32).astype(float), mix, 16000)
+    assert rep["gain_margin_db"] == pytest.approx(ref.gain_margin_db, abs=1e-4)
+    assert "--what-if" in rep["mix_source"]
+    res = runner.invoke(app, ["margin", str(folder), "--what-if", "mixes.mains.gains_db.lectern=28"])
+    assert res.exit_code == 2 and "--what-if" in res.stderr and "--rig" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
+
+
 def test_a_badly_named_pair_file_is_refused(tmp_path):
     folder = tmp_path / "irs"
     folder.mkdir()
