@@ -222,7 +222,9 @@ def _check_rows_against_plan(pdf, plan):
         assert _freq_hz(row["RINGS"]) == pytest.approx(m["rings_first_hz"], rel=0.03), (m["name"], row["RINGS"])
         assert " ".join(row["AS"]).startswith(_AS_SET[m["stability"]]), row["AS"]
         if m["reach"] == "short":
-            assert row["REACH"][0] == "SHORT" and _close_to_print(_first_num(row["REACH"]), m["short_by_db"])
+            # a shortfall is printed rounded UP to 0.1 dB (never "by 0.0"): derived, ceil to the tenth
+            shown = max(0.1, math.ceil(round(m["short_by_db"] * 10, 6)) / 10)
+            assert row["REACH"][0] == "SHORT" and _first_num(row["REACH"]) == pytest.approx(shown), row["REACH"]
         else:
             assert row["REACH"][0] == "REACHES"
         # classic Davis figures beside PAG and NAG
