@@ -160,3 +160,34 @@ def advance_pt_per_pt(ch: str, weight: Any = "normal") -> float:
         adv = glyph.linearHoriAdvance / 65536.0 / 100.0
         _ADVANCE_CACHE[key] = adv
     return adv
+
+
+# --- the page's inks and text measure (used by _page, _page_mics and _page_plots) ---------------------
+
+_MARGIN_PT = 34.0
+_BLACK = "black"
+_GREY = "0.45"
+_LIGHT = "0.88"
+
+
+def _text_width_pt(s: str, size: float, weight: Any = "normal") -> float:
+    """Width of a one-line text in points, from the font's advance widths (:mod:`howl.report._fonts`).
+
+    Summing per-character advances (cached) ignores kerning, so 3 % is added
+    to stay on the safe side; it is much faster than laying out each trial
+    string with the renderer.
+    """
+    return sum(advance_pt_per_pt(ch, weight) for ch in s) * size * 1.03
+
+
+def _cut_to_width(s: str, size: float, weight: Any, max_w: float) -> str:
+    """The longest start of ``s`` that fits ``max_w`` with an ellipsis: a binary search over the
+    cumulative advances (a 10 000-character name costs one pass, not one pass per character)."""
+    import bisect
+    import itertools
+
+    scale = size * 1.03
+    room = max_w / scale - advance_pt_per_pt("\u2026", weight)
+    widths = list(itertools.accumulate(advance_pt_per_pt(ch, weight) for ch in s))
+    n = max(2, bisect.bisect_right(widths, room))
+    return s[:n].rstrip() + "\u2026"

@@ -39,14 +39,11 @@ References
 from __future__ import annotations
 
 import datetime as _dt
-import math
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Sequence
 
 from howl.errors import InputError
-from howl.report.cutlist import desk_cuts, desk_line, listened_on_desk
 
 # ----------------------------------------------------------------------------
 # Paper
@@ -59,210 +56,19 @@ PAPER_PT: dict[str, tuple[float, float]] = {
     "letter": (8.5 * 72.0, 11.0 * 72.0),
 }
 
-MINUS = "\u2212"  # typographic minus sign on the page
 
 from howl.report._sheet_types import (  # noqa: E402,F401  the data model, re-exported
     Curve, Cut, CutSet, MapItem, MarginMap, MeasuredLine, MicLine, PlacementMap, SheetData,
 )
-
-
-# ----------------------------------------------------------------------------
-# Rules of the sheet (the only numbers it forms itself)
-# ----------------------------------------------------------------------------
-
-
-def measured_mark_db(gain_margin_db: float, magnitude_margin_db: float, fsm_db: float) -> float:
-    """The "don't go past" channel-gain change for a measured loop, in dB.
-
-    The lower of two limits:
-
-    * the phase-aware (Nyquist) margin less the feedback stability margin
-      FSM: the fader stays FSM below the gain at which the frozen loop
-      would howl [4]_;
-    * the phase-blind margin −20·log10 max|H|: the gain at which the loudest
-      peak of |H| would reach unity if the room's phase moved onto it (air
-      temperature, people moving). A rise above it is a bet on the phase.
-
-    Positive: the channel may rise that far above the measured settings;
-    negative: bring it down at least that far.
-    """
-    return min(gain_margin_db - fsm_db, magnitude_margin_db)
-
-
-def measured_verdict(gain_margin_db: float, magnitude_margin_db: float, fsm_db: float) -> str:
-    """Verdict words for a measured loop at its measured settings.
-
-    ``"will howl"`` when the phase-aware margin is ≤ 0 dB (the loop is
-    unstable as measured), ``"marginal"`` when it is stable but the
-    "don't go past" mark (:func:`measured_mark_db`) is below 0 dB, else
-    ``"stable"``.
-    """
-    if gain_margin_db <= 0.0:
-        return "will howl"
-    if measured_mark_db(gain_margin_db, magnitude_margin_db, fsm_db) < 0.0:
-        return "marginal"
-    return "stable"
-
-
-# ----------------------------------------------------------------------------
-# Reading a measured session
-# ----------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class SessionPair:
-    speaker: str
-    mic: str
-    ir_file: str  # as written in session.json (relative)
-    ir: Any  # numpy array
-    sample_rate_hz: int
-
-
-@dataclass(frozen=True)
-class Session:
-    folder: str
-    date: str | None
-    pairs: tuple[SessionPair, ...]
-    meta: dict = field(default_factory=dict)
-
-
-def _read_json(path: Path, option: str | None):
-    """Parse one JSON file; any problem is a one-line InputError naming it (and the option)."""
-    from howl.fileio import read_json_file
-
-    return read_json_file(path, option=option)
-
-
-def read_session(folder: str | os.PathLike) -> Session:
-    """Read a measurement session folder: ``session.json`` and its IR WAVs.
-
-    ``session.json`` holds ``pairs``: a list of objects with at least
-    ``speaker``, ``mic`` and ``ir_file`` (relative to the folder); a ``date``
-    (ISO text) if present is taken as the measurement date, else the file's
-    modification date.
-    """
-    from howl.fileio import read_wav
-
-    folder_p = Path(folder)
-    name = str(folder)
-    if not folder_p.is_dir():
-        raise InputError("is not a folder; expected a measurement session folder holding session.json", key="--measured", file=name)
-    meta_p = folder_p / "session.json"
-    if not meta_p.is_file():
-        raise InputError("holds no session.json; expected a folder written by howl measure", key="--measured", file=name)
-    meta = _read_json(meta_p, None)
-    if not isinstance(meta, dict):
-        raise InputError("must hold a JSON object", file=str(meta_p))
-    raw_pairs = meta.get("pairs")
-    if not isinstance(raw_pairs, list) or not raw_pairs:
-        raise InputError("must be a non-empty list of {speaker, mic, ir_file}", file=str(meta_p), key="pairs")
-    import warnings
-
-    from howl.errors import HowlWarning
-
-    pairs = []
-    for i, p in enumerate(raw_pairs):
-        key = f"pairs[{i}]"
-        if not isinstance(p, dict):
-            raise InputError("must be an object {speaker, mic, ir_file}", file=str(meta_p), key=key)
-        status = p.get("status", "ok")
-        if status != "ok" or not p.get("ir_file"):
-            warnings.warn(
-                f"{meta_p}: {key} ({p.get('speaker')} -> {p.get('mic')}) has status {status!r} and no usable IR; left off the sheet",
-                HowlWarning,
-            )
-            continue
-        for k in ("speaker", "mic", "ir_file"):
-            if not isinstance(p.get(k), str) or not p.get(k).strip():
-                raise InputError(f"must be a non-empty string, got {p.get(k)!r}", file=str(meta_p), key=f"{key}.{k}")
-        ir_rel = p["ir_file"]
-        ir, fs = read_wav(folder_p / ir_rel, option="")  # a loop IR per pair: one channel
-        pairs.append(SessionPair(p["speaker"], p["mic"], ir_rel, ir, fs))
-    if not pairs:
-        raise InputError("holds no pair with a usable IR (status 'ok' and an ir_file)", file=str(meta_p), key="pairs")
-    date = meta.get("date") or meta.get("created_utc") or meta.get("created")
-    if isinstance(date, str) and len(date.strip()) >= 10:
-        date = date.strip()[:10]
-    else:
-        date = _dt.date.fromtimestamp(meta_p.stat().st_mtime).isoformat()
-    return Session(folder=name, date=date, pairs=tuple(pairs), meta=meta)
-
-
-#: How a mic's summed loop is named in the measured table (the "speaker" column).
-COMBINED_SPEAKER = "all {n} speakers"
-
-
-def with_combined_loops(session: Session) -> Session:
-    """The session plus, for each mic measured through two or more loudspeakers, their loops summed.
-
-    Each pair's loop IR holds that mic's send to that loudspeaker at the measurement settings,
-    with time zero at sample 0 for all of them, so the mic's own loop with all those
-    loudspeakers on at once is the sum of its pair loops (superposition of linear paths). The
-    summed pair is named ``all N speakers`` and its ``ir_file`` joins the files with " + ".
-    Loops of other open mics still add to it (the sheet's small print says so). Pairs at a
-    different sample rate from the mic's first are left out of the sum, with a warning.
-    """
-    import warnings
-
-    import numpy as np
-
-    from howl.errors import HowlWarning
-
-    by_mic: dict[str, list[SessionPair]] = {}
-    for pair in session.pairs:
-        by_mic.setdefault(pair.mic, []).append(pair)
-    extra = []
-    for mic, pairs in by_mic.items():
-        fs = pairs[0].sample_rate_hz
-        same = [p for p in pairs if p.sample_rate_hz == fs]
-        if len(same) < len(pairs):
-            warnings.warn(f"{mic}: loops at other sample rates than {fs} Hz are left out of its summed loop", HowlWarning)
-        if len({p.speaker for p in same}) < 2:
-            continue
-        n = max(np.asarray(p.ir).size for p in same)
-        total = np.zeros(n)
-        for p in same:
-            h = np.asarray(p.ir, dtype=float)
-            total[: h.size] += h
-        extra.append(SessionPair(COMBINED_SPEAKER.format(n=len(same)), mic, " + ".join(p.ir_file for p in same), total, fs))
-    if not extra:
-        return session
-    return Session(folder=session.folder, date=session.date, pairs=session.pairs + tuple(extra), meta=session.meta)
-
-
-def check_session(session: Session, rig) -> None:
-    """Refuse a session whose pairs name a mic the rig does not have."""
-    mic_names = {m.name for m in rig.mics}
-    for i, pair in enumerate(session.pairs):
-        if pair.mic not in mic_names:
-            raise InputError(
-                f"names mic {pair.mic!r}, which the rig does not have (mics: {', '.join(sorted(mic_names))})",
-                file=os.path.join(session.folder, "session.json"),
-                key=f"pairs[{i}].mic",
-            )
-
-
-# ----------------------------------------------------------------------------
-# Building the sheet data
-# ----------------------------------------------------------------------------
-
-
-def _f(x: Any) -> float | None:
-    if x is None:
-        return None
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
-
-
-def _pair(x: Any) -> tuple[float, float] | None:
-    if isinstance(x, (list, tuple)) and len(x) == 2:
-        a, b = _f(x[0]), _f(x[1])
-        if a is not None and b is not None:
-            return (a, b)
-    return None
+from howl.report._sheet_rules import (  # noqa: E402,F401  the sheet's rules and formats, re-exported
+    MINUS, _band_hz, _f, _hz, _num, _pair, measured_mark_db, measured_verdict,
+)
+from howl.report._sheet_session import (  # noqa: E402,F401  reading a measured session, re-exported
+    COMBINED_SPEAKER, Session, SessionPair, _read_json, check_session, read_session, with_combined_loops,
+)
+from howl.report._sheet_cuts import (  # noqa: E402,F401  cut lists, re-exported
+    cut_set_from_ringout, cut_sets_from_listen, read_cuts,
+)
 
 
 def _plan_mic_curves(plan_json: dict, m: dict) -> dict[str, tuple[tuple[float, ...], tuple[float, ...]]]:
@@ -385,119 +191,6 @@ def _measured_curve(pair: SessionPair, margin, label: str) -> Curve:
             continue
         marks.append((rf, -rm, "next crossing"))
     return Curve(panel=pair.mic, label=label, kind="measured", freq_hz=tuple(ff), loop_gain_db=tuple(gg), marks=tuple(marks))
-
-
-def cut_set_from_ringout(loop: str, result, fsm_db: float | None = None) -> CutSet:
-    """Turn a ``howl.ringout.RingOutResult`` into a :class:`CutSet`.
-
-    With ``fsm_db``, also the measured "don't go past" mark with the cuts in
-    (:func:`measured_mark_db` of the margins after the ring-out).
-    """
-    cuts = desk_cuts(Cut, result.notches, getattr(result, "desk", None))
-    advice = getattr(result, "advice", ()) or ()
-    if isinstance(advice, str):
-        advice = (advice,)
-    return CutSet(
-        loop=loop,
-        source="ring-out",
-        cuts=tuple(cuts),
-        added_stable_gain_db=_f(result.added_stable_gain_db),
-        margin_before_db=_f(result.gain_margin_db_before),
-        margin_after_db=_f(result.gain_margin_db_after),
-        stopped_because=str(getattr(result, "stopped_because", "") or ""),
-        advice=tuple(str(a) for a in advice),
-        tonal_cost_db=_f(getattr(result, "tonal_cost_db", None)),
-        tonal_cost_speech_db=_f(getattr(result, "tonal_cost_speech_db", None)),
-        mark_after_db=_mark_or_none(result.gain_margin_db_after, getattr(result, "magnitude_margin_db_after", None), fsm_db),
-        desk=desk_line(getattr(result, "desk", None)),
-    )
-
-
-def _mark_or_none(gm, mm, fsm_db) -> float | None:
-    if fsm_db is None or gm is None or mm is None:
-        return None
-    gm, mm = float(gm), float(mm)
-    if math.isnan(gm) or math.isnan(mm):
-        return None
-    return _f(measured_mark_db(gm, mm, float(fsm_db)))
-
-
-def read_cuts(path: str | os.PathLike) -> tuple[list, str]:
-    """Cuts from a listen/scan session JSON (``howl listen --json`` / ``howl scan --json``).
-
-    Takes the summary notch list (key ``notches``, ``summary_notches`` or
-    ``summary.notches``), else every event's ``notch``. Each cut needs
-    ``freq_hz`` and ``q``; ``gain_db`` null is a full notch. Returns
-    (list of ``howl.notch.Notch``, a label for the sheet).
-    """
-    from howl.loop.notch import Notch
-
-    p = Path(path)
-    name = str(path)
-    if not p.is_file():
-        raise InputError("file not found; expected the JSON of howl listen or howl scan", key="--cuts", file=name)
-    obj = _read_json(p, "--cuts")
-    if not isinstance(obj, dict):
-        raise InputError("must hold one JSON object", key="--cuts", file=name)
-    raw = obj.get("notches") or obj.get("summary_notches")
-    if raw is None and isinstance(obj.get("summary"), dict):
-        raw = obj["summary"].get("notches")
-    if raw is None and isinstance(obj.get("events"), list):
-        raw = [e.get("notch") for e in obj["events"] if isinstance(e, dict) and isinstance(e.get("notch"), dict)]
-    if not isinstance(raw, list):
-        raise InputError("holds no notch list (notches, summary.notches or events[].notch)", key="--cuts", file=name)
-    cuts = []
-    for i, n in enumerate(raw):
-        if not isinstance(n, dict):
-            raise InputError("must be an object {freq_hz, gain_db, q}", key=f"notches[{i}]", file=name)
-        try:
-            g = n.get("gain_db")
-            cuts.append(Notch(float(n["freq_hz"]), None if g is None else float(g), float(n["q"])))
-        except (KeyError, TypeError, ValueError) as exc:
-            msg = exc.message if isinstance(exc, InputError) else f"needs numbers freq_hz and q ({exc})"
-            raise InputError(msg, key=f"notches[{i}]", file=name) from None
-    return cuts, p.name
-
-
-def cut_sets_from_listen(
-    notches, label: str, session: Session | None = None, margins: Sequence | None = None, fsm_db: float | None = None,
-    desk=None,
-) -> list[CutSet]:
-    """Cut sets for cuts found by listening; with measured loops, the ASG they buy on each.
-
-    The ASG on a measured loop is ``nyquist_margin`` with the cuts' cascade
-    (``howl.notch.cascade_sos``) in the loop, minus the margin without:
-    the definition of added stable gain in van Waterschoot & Moonen [4]_.
-    """
-    notches, cuts, desk_s = listened_on_desk(Cut, notches, desk, session)  # with a desk: as it makes them
-    if session is None or not margins:
-        return [CutSet(loop=label, source="listen", cuts=cuts, added_stable_gain_db=None, margin_before_db=None, margin_after_db=None, desk=desk_s)]
-    from howl.loop.nyquist import nyquist_margin
-    from howl.loop.notch import cascade_sos
-
-    befores, afters, lines, marks = [], [], [], []
-    for pair, before in zip(session.pairs, margins):
-        after = nyquist_margin(pair.ir, pair.sample_rate_hz, filters_sos=cascade_sos(list(notches), pair.sample_rate_hz)) if notches else before
-        bm, am = float(before.gain_margin_db), float(after.gain_margin_db)
-        marks.append(_mark_or_none(am, after.magnitude_margin_db, fsm_db))
-        befores.append(bm)
-        afters.append(am)
-        lines.append(f"{pair.speaker} \u2192 {pair.mic}: phase-aware margin {_num(_f(bm))} \u2192 {_num(_f(am))} dB")
-    # the rig is limited by its worst loop: ASG = worst margin with the cuts - worst margin without
-    b, a = _f(min(befores)), _f(min(afters))
-    return [
-        CutSet(
-            loop=f"{label}, on every measured loop",
-            source="listen",
-            cuts=cuts,
-            added_stable_gain_db=None if a is None or b is None else a - b,
-            margin_before_db=b,
-            margin_after_db=a,
-            advice=tuple(lines),
-            mark_after_db=None if any(m is None for m in marks) or not marks else min(marks),
-            desk=desk_s,
-        )
-    ]
 
 
 def read_margin_map(path: str | os.PathLike, rig=None) -> MarginMap:
@@ -734,46 +427,7 @@ def _settings(session: Session | None) -> tuple[tuple[str, float], ...]:
 
 
 # ----------------------------------------------------------------------------
-# Number formats (one place, so the page and the tests agree on rounding)
-# ----------------------------------------------------------------------------
-
-
-def _num(x: float | None, digits: int = 1, sign: bool = True) -> str:
-    """dB value with one decimal, a typographic minus and (optionally) a plus."""
-    if x is None or not math.isfinite(x):
-        return "\u2013"
-    s = f"{x:+.{digits}f}" if sign else f"{x:.{digits}f}"
-    if s.lstrip("+-").strip("0.") == "":  # -0.0 → 0.0
-        s = f"{0.0:+.{digits}f}" if sign else f"{0.0:.{digits}f}"
-    return s.replace("-", MINUS)
-
-
-def _hz(freq_hz: float | None, exact: bool = False) -> str:
-    """A frequency: exact Hz (measured, cuts) or 3 significant figures (bands)."""
-    if freq_hz is None or not math.isfinite(freq_hz):
-        return "\u2013"
-    if exact:
-        return f"{freq_hz:.1f} Hz" if freq_hz < 100 else f"{freq_hz:.0f} Hz"
-    if freq_hz >= 1000:
-        return f"{freq_hz / 1000:.3g} kHz"
-    return f"{freq_hz:.3g} Hz"
-
-
-def _band_hz(freq_hz: float | None) -> str:
-    """A planner band by its nominal label (ISO 266 for octaves and thirds)."""
-    if freq_hz is None or not math.isfinite(freq_hz):
-        return "\u2013"
-    try:
-        from howl.bands import nominal_label
-
-        lab = nominal_label(freq_hz, 3)
-        return f"{lab[:-1]} kHz" if lab.endswith("k") else f"{lab} Hz"
-    except Exception:  # bands module missing or label refused: plain figures
-        return _hz(freq_hz)
-
-
-# ----------------------------------------------------------------------------
-# Rendering (the drawing lives in howl/_sheet_page.py, imported lazily)
+# Rendering (the drawing lives in howl/report/_page.py, imported lazily)
 # ----------------------------------------------------------------------------
 
 
