@@ -13,6 +13,8 @@ import sys
 
 import typer
 
+from howl.listen.live import SourceWrapper as _SourceWrapper
+
 VIEWS = ("terminal", "web")
 #: The page is redrawn at least 10 times a second: an update is pushed once this long has passed
 #: (checked after each audio block, so ~0.064 s at 1024 frames and 48 kHz: ~15 updates/s, with
@@ -122,7 +124,7 @@ class WebView:
         self.stop()
 
 
-class SendTracker:
+class SendTracker(_SourceWrapper):
     """A (frames, 2) [send, mic] source as the detector's mono source: :meth:`read` returns the mic
     column and queues both columns for a :class:`howl.listen.track.LoopTracker` that runs in its own
     thread, so its once-a-second estimate (~0.1 s of work at 48 kHz) does not hold up the detector
@@ -139,8 +141,7 @@ class SendTracker:
 
         from howl.listen.track import LoopTracker
 
-        self.source = source
-        self.sample_rate_hz = float(source.sample_rate_hz)
+        super().__init__(source)
         self.tracker = LoopTracker(self.sample_rate_hz, settings=settings)
         self.on_estimate = on_estimate
         self.estimates: list[dict] = []
@@ -149,14 +150,6 @@ class SendTracker:
         self._q: queue.Queue = queue.Queue(maxsize=self.MAX_QUEUE_BLOCKS)
         self._thread = threading.Thread(target=self._work, name="howl-track", daemon=True)
         self._thread.start()
-
-    @property
-    def overflows(self) -> int:
-        return int(self.source.overflows)
-
-    @property
-    def exhausted(self) -> bool:
-        return bool(getattr(self.source, "exhausted", False))
 
     def read(self, timeout_s: float = 0.1):
         import numpy as np

@@ -62,6 +62,23 @@ class ArraySource:
         pass
 
 
+class SourceWrapper:
+    """Base of a source that wraps another (a tap for the page, a send/mic splitter): forwards
+    ``sample_rate_hz``, ``overflows`` and ``exhausted``; a subclass defines ``read``."""
+
+    def __init__(self, source):
+        self.source = source
+        self.sample_rate_hz = float(source.sample_rate_hz)
+
+    @property
+    def overflows(self) -> int:
+        return int(self.source.overflows)
+
+    @property
+    def exhausted(self) -> bool:
+        return bool(getattr(self.source, "exhausted", False))
+
+
 @dataclass(frozen=True)
 class Snapshot:
     """What the view shows, a few times a second."""

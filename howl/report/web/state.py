@@ -22,6 +22,8 @@ from collections import deque
 
 import numpy as np
 
+from howl.listen.live import SourceWrapper
+
 #: The detector's states in the words a tech uses on the page.
 STATE_WORDS = {"howl": "howling", "ringing": "ringing", "watch": "watch", "program": "program",
                "product": "overtone of a howl"}
@@ -47,24 +49,15 @@ def trend_words(trend_db_per_s: float) -> str:
     return "steady"
 
 
-class BlockTap:
+class BlockTap(SourceWrapper):
     """Wraps a listen source; keeps the last ``keep`` samples read and when the last block
     arrived (wall clock), for the spectrum and the block-to-page delay. Reads pass through."""
 
     def __init__(self, source, keep: int = SPECTRUM_N_FFT):
-        self.source = source
-        self.sample_rate_hz = float(source.sample_rate_hz)
+        super().__init__(source)
         self._buf = np.zeros(int(keep))
         self.n_read = 0
         self.block_wall_s = None  # time.time() when the newest block was read
-
-    @property
-    def overflows(self) -> int:
-        return int(self.source.overflows)
-
-    @property
-    def exhausted(self) -> bool:
-        return bool(getattr(self.source, "exhausted", False))
 
     def read(self, timeout_s: float = 0.1):
         b = self.source.read(timeout_s)
