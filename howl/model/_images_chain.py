@@ -155,3 +155,26 @@ def band_chain_power(rig, centres_hz, fraction: int) -> np.ndarray:
 
     ch = chain_power(rig, np.asarray(centres_hz, float), fraction)
     return np.asarray(ch.speaker_power, float)[:, None, :] * np.asarray(ch.mic_power, float)[None, :, :]
+
+
+
+def statistical_single_mic(tr, k: int, chain_power_sf: np.ndarray, mix_s: np.ndarray, bandwidth_hz: np.ndarray):
+    """The statistical estimate of mic ``k``'s loop alone, the chain in (the images plan's comparison column).
+
+    Σ_s (direct + reverberant band power)·chain·mix² per band (``tr`` from
+    :func:`howl.model.transfer.statistical_transfer`, ``chain_power_sf`` (S, F) from
+    :func:`band_chain_power` for this mic, ``mix_s`` its send to each loudspeaker), plus
+    Schroeder's peak factor with its 10–90 % spread (:func:`howl.model.plan.peak_factor_db`).
+
+    Returns (band loop gain dB (F,), margin dB, margin at the high peak factor, at the low one).
+    """
+    from howl.model.plan import peak_factor_db
+
+    m2 = np.asarray(mix_s, float) ** 2
+    p_dir = np.einsum("sf,s->f", tr.direct_power[:, k, :] * chain_power_sf, m2)
+    p_rev = np.einsum("sf,s->f", tr.reverberant_power[:, k, :] * chain_power_sf, m2)
+    kf = p_dir / np.maximum(p_rev, 1e-300)
+    pf, pf_lo, pf_hi = peak_factor_db(bandwidth_hz, tr.rt60_s, kf)
+    avg_db = 10.0 * np.log10(np.maximum(p_dir + p_rev, 1e-300))
+    stat = float(-np.max(avg_db + pf))
+    return avg_db, stat, float(-np.max(avg_db + pf_hi)), float(-np.max(avg_db + pf_lo))

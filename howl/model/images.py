@@ -502,8 +502,7 @@ def plan_with_images(
     """
     from howl.bands import band_centres_hz, band_edges_hz
     from howl.loop.nyquist import band_loop_gain_db, loop_response, mimo_margin, nyquist_margin
-    from howl.model._images_chain import band_chain_power, chained_loop_irs
-    from howl.model.plan import peak_factor_db
+    from howl.model._images_chain import band_chain_power, chained_loop_irs, statistical_single_mic
     from howl.model.room import room_acoustics
     from howl.model.transfer import statistical_transfer
 
@@ -536,13 +535,7 @@ def plan_with_images(
         f, H = loop_response(loop, fs)
         lg = band_loop_gain_db(f, H, centres, fraction)
         # statistical single-mic loop: Σ_s |T|²·mix² per band, plus Schroeder's peak factor
-        p_dir = np.einsum("sf,s->f", tr.direct_power[:, k, :] * ch[:, k, :], mix[:, k] ** 2)
-        p_rev = np.einsum("sf,s->f", tr.reverberant_power[:, k, :] * ch[:, k, :], mix[:, k] ** 2)
-        kf = p_dir / np.maximum(p_rev, 1e-300)
-        pf, pf_lo, pf_hi = peak_factor_db(bw, tr.rt60_s, kf)
-        avg_db = 10.0 * np.log10(np.maximum(p_dir + p_rev, 1e-300))
-        stat = float(-np.max(avg_db + pf))
-        stat_lo, stat_hi = float(-np.max(avg_db + pf_hi)), float(-np.max(avg_db + pf_lo))
+        avg_db, stat, stat_lo, stat_hi = statistical_single_mic(tr, k, ch[:, k, :], mix[:, k], bw)
         gm = float(res.gain_margin_db)
         mics_out.append({
             "name": mic.name,
