@@ -26,8 +26,11 @@ response roughly have. The channel's filters keep their own (causal, IIR) phase.
 
 Padding: N ≥ len(ir) + the time the slowest channel pole takes to decay by 160 dB (from the
 biquads' poles at 48 kHz) + 0.1 s for the minimum-phase responses, so that what the chain adds
-after the IR's end is not wrapped. The bin at fs/2 cannot hold a complex value in a real IR;
-the analysis band of the images plan stops at 0.45·fs, below it.
+after the IR's end is not wrapped. The bin at fs/2 cannot hold a complex value in a real IR: the
+48 kHz channel's response there keeps only its real part. That bin is outside the images plan's
+band (it stops at 0.45·fs), and the imaginary part dropped leaves a small ringing over the buffer
+that moves the response between the bins by a few 1e-5 relative (tests/model/test_images_chain.py),
+a few 1e-4 dB.
 
 A rig that says nothing about its chain (no high-pass, no EQ, no response tables or usable
 ranges) gets its IRs back unchanged (the same array), so its figures are exactly the bare ones.
