@@ -85,6 +85,30 @@ def test_a_vocal_high_pass_moves_the_image_source_howl_off_the_bottom_band():
     assert b["chain_applied"] is True and a["chain_applied"] is True
 
 
+def cookbook_peaking(f0, gain_db, q, fs):
+    """RBJ cookbook peakingEQ: A = 10^(g/40), b = [1+αA, −2 cos w0, 1−αA], a = [1+α/A, −2 cos w0, 1−α/A]."""
+    w0 = 2 * math.pi * f0 / fs
+    c, alpha, big_a = math.cos(w0), math.sin(w0) / (2 * q), 10 ** (gain_db / 40)
+    b = np.array([1 + alpha * big_a, -2 * c, 1 - alpha * big_a])
+    a = np.array([1 + alpha / big_a, -2 * c, 1 - alpha / big_a])
+    return np.concatenate([b / a[0], a / a[0]])[None, :]
+
+
+def test_chained_loop_has_the_cookbook_high_pass_and_peaking_eq_times_the_bare_loop():
+    """High-pass then EQ on the sending mic's channel, both at the desk's 48 kHz."""
+    rig = with_changes(bare_rig(), [HP])
+    eq = with_changes(rig, ['mics.m1.eq=[{kind="peaking", freq_hz=500.0, gain_db=-6.0, q=4.0}]'])
+    irs, _ = rig_loop_irs(eq, FS, max_order=1, tail=False)
+    chained = chained_loop_irs(eq, irs, FS)
+    n = chained.shape[-1]
+    f = np.fft.rfftfreq(n, 1 / FS)[:-1]
+    bare = np.fft.rfft(irs[0, 0], n)[:-1]
+    sos = np.vstack([cookbook_hpf(150.0, 1 / math.sqrt(2), 48000.0), cookbook_peaking(500.0, -6.0, 4.0, 48000.0)])
+    _, c = signal.sosfreqz(sos, worN=f, fs=48000.0)
+    got = np.fft.rfft(chained[0, 0], n)[:-1]
+    assert np.max(np.abs(got - bare * c)) <= 1e-9 * np.max(np.abs(bare))
+
+
 def test_chained_loop_is_the_cookbook_high_pass_times_the_bare_loop():
     rig = with_changes(bare_rig(), [HP])
     irs, _ = rig_loop_irs(rig, FS, max_order=1, tail=False)
@@ -141,3 +165,21 @@ def test_a_rig_without_a_chain_gives_exactly_the_bare_figures():
     assert m["magnitude_margin_db"] == round(res.magnitude_margin_db, 2)
     assert out["system"]["gain_margin_db"] == round(mm.gain_margin_db, 2)
     assert out["system"]["howl_freq_hz"] == round(mm.howl_freq_hz, 1)
+
+
+def test_plan_cli_json_says_the_chain_is_applied(tmp_path):
+    """``plan --method images --json`` adds ``chain_applied`` beside the existing fields (contract: add only)."""
+    import json
+    from pathlib import Path
+
+    from typer.testing import CliRunner
+
+    from howl.cli import app
+
+    rig_file = Path(__file__).resolve().parents[2] / "examples" / "gym_assembly.toml"
+    res = CliRunner().invoke(app, ["plan", str(rig_file), "--method", "images", "--json"])
+    assert res.exit_code == 0, res.output
+    images = json.loads(res.stdout)["images"]
+    assert images["chain_applied"] is True
+    for key in ("method", "mics", "system", "band_hz", "bands_hz", "caution", "lines"):
+        assert key in images
