@@ -502,12 +502,13 @@ def plan_with_images(
     """
     from howl.bands import band_centres_hz, band_edges_hz
     from howl.loop.nyquist import band_loop_gain_db, loop_response, mimo_margin, nyquist_margin
-    from howl.model.plan import peak_factor_db
+    from howl.model._images_chain import band_chain_power, chained_loop_irs, statistical_single_mic
     from howl.model.room import room_acoustics
     from howl.model.transfer import statistical_transfer
 
     fs = V.positive(sample_rate_hz, "sample_rate_hz", unit="Hz")
     irs, mix = rig_loop_irs(rig, fs, max_order=max_order, seed=seed)
+    irs = chained_loop_irs(rig, irs, fs)  # the channel as the rig sets it (high-pass, EQ, mic and speaker responses)
     active = [k for k, m in enumerate(rig.mics) if m.open and np.any(mix[:, k] > 0)]
     if not active:
         raise InputError("no open mic reaches any loudspeaker through the mixes; nothing to analyse", key="mixes")
@@ -518,6 +519,7 @@ def plan_with_images(
     bw = np.asarray(hi_e) - np.asarray(lo_e)
     ac = room_acoustics(rig.room, centres)
     tr = statistical_transfer(rig, centres, ac)
+    ch = band_chain_power(rig, centres, fraction)  # (S, M, F): the same chain, per band, on the statistical side
     fsm = float(rig.fsm_db)
 
     mics_out = []
@@ -533,13 +535,7 @@ def plan_with_images(
         f, H = loop_response(loop, fs)
         lg = band_loop_gain_db(f, H, centres, fraction)
         # statistical single-mic loop: Σ_s |T|²·mix² per band, plus Schroeder's peak factor
-        p_dir = np.einsum("sf,s->f", tr.direct_power[:, k, :], mix[:, k] ** 2)
-        p_rev = np.einsum("sf,s->f", tr.reverberant_power[:, k, :], mix[:, k] ** 2)
-        kf = p_dir / np.maximum(p_rev, 1e-300)
-        pf, pf_lo, pf_hi = peak_factor_db(bw, tr.rt60_s, kf)
-        avg_db = 10.0 * np.log10(np.maximum(p_dir + p_rev, 1e-300))
-        stat = float(-np.max(avg_db + pf))
-        stat_lo, stat_hi = float(-np.max(avg_db + pf_hi)), float(-np.max(avg_db + pf_lo))
+        avg_db, stat, stat_lo, stat_hi = statistical_single_mic(tr, k, ch[:, k, :], mix[:, k], bw)
         gm = float(res.gain_margin_db)
         mics_out.append({
             "name": mic.name,
@@ -576,6 +572,7 @@ def plan_with_images(
     lines.append("Caution: " + IMAGES_CAUTION)
     return {
         "method": "images",
+        "chain_applied": True,
         "sample_rate_hz": fs,
         "max_order": 6 if max_order is None else int(max_order),
         "seed": int(seed),
