@@ -67,7 +67,7 @@ def main() -> None:
     out_dir.mkdir(exist_ok=True)
     for rig_file, mic, name in CASES:
         rig = load_rig(HERE / rig_file)
-        ir = chain(mic_loop_ir(rig, mic, SAMPLE_RATE_HZ, seed=1), SAMPLE_RATE_HZ)
+        ir = chain(mic_loop_ir(rig, mic, SAMPLE_RATE_HZ, seed=1, chain=False), SAMPLE_RATE_HZ)  # its own console chain below
         write_wav_atomic(out_dir / name, ir, SAMPLE_RATE_HZ)
         print(f"wrote {out_dir / name}  ({ir.size / SAMPLE_RATE_HZ:.2f} s, peak {np.max(np.abs(ir)):.3g})")
     program = HERE / "program_voice_like.wav"

@@ -434,8 +434,12 @@ def rig_loop_irs(
 
 
 def mic_loop_ir(rig: Rig, mic_name: str, sample_rate_hz: float, *, max_order: int | None = None, seed: int = 0,
-                tail: bool = True) -> np.ndarray:
-    """The loop IR of one mic alone (the other mics closed): Σ_s H[s, m]·mix[s, m] from image sources."""
+                tail: bool = True, chain: bool = True) -> np.ndarray:
+    """The loop IR of one mic alone (the other mics closed): Σ_s H[s, m]·mix[s, m] from image sources.
+
+    ``chain``: with the rig's signal chain in (each loudspeaker's response on its own path, then the
+    mic's capsule and channel: :func:`howl.model._images_chain.chained_loop_irs`), the one basis of
+    the plan; False gives the bare room."""
     from howl.model.plan import mix_matrix
 
     names = [m.name for m in rig.mics]
@@ -453,11 +457,20 @@ def mic_loop_ir(rig: Rig, mic_name: str, sample_rate_hz: float, *, max_order: in
                             source_gain=_speaker_gain_fn(spk), mic_gain=_mic_gain_fn(mic), tail=tail,
                             seed=np.random.SeedSequence([int(seed), si, k]).generate_state(1)[0],
                             delay_s=spk.delay_s)
-        parts.append(h * (_electrical_gain(spk, mic) * mix[si, k]))
+        parts.append((h * (_electrical_gain(spk, mic) * mix[si, k]), si))
     if not parts:
         raise InputError(f"mic {mic_name!r} reaches no loudspeaker through the mixes", key="mixes")
-    out = np.zeros(max(p.size for p in parts))
-    for p in parts:
+    n = max(p.size for p, _ in parts)
+    if chain:
+        from howl.model._images_chain import chained_loop_irs, rig_has_chain
+
+        if rig_has_chain(rig):  # each loudspeaker's response goes on its own path, before the sum
+            stack = np.zeros((len(rig.speakers), len(rig.mics), n))
+            for p, si in parts:
+                stack[si, k, : p.size] = p
+            return chained_loop_irs(rig, stack, fs)[:, k, :].sum(axis=0)
+    out = np.zeros(n)
+    for p, _ in parts:
         out[: p.size] += p
     return out
 
