@@ -188,7 +188,6 @@ LONG_FUNCTIONS = {
     "howl.model.images.plan_with_images": 109,
     "howl.model.placement.statistical_margins": 155,
     "howl.model.placement.margin_map": 109,
-    "howl.report._page._mic_table_blocks": 105,
     "howl.report._page._cuts_blocks": 81,
     "howl.report.sheet.build_sheet_data": 84,
 }
