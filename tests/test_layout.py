@@ -184,7 +184,6 @@ LONG_FUNCTIONS = {
     "howl.model.images.image_source_ir": 100,
     "howl.model.images.plan_with_images": 109,
     "howl.model.placement.statistical_margins": 166,
-    "howl.model.placement.margin_map": 112,
     "howl.report._page._cuts_blocks": 81,
 }
 

@@ -7,7 +7,6 @@ signal chain in, the forward path talker → listener, and the per-mic results.
 
 from __future__ import annotations
 
-import math
 import warnings
 
 import numpy as np
