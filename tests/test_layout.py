@@ -183,7 +183,7 @@ LONG_FUNCTIONS = {
     "howl.model._rigfile._rig_from_dict": 184,
     "howl.model.images.image_source_ir": 100,
     "howl.model.images.plan_with_images": 109,
-    "howl.model.placement.statistical_margins": 166,
+    "howl.model.placement.statistical_margins": 150,
     "howl.report._page._cuts_blocks": 81,
 }
 

@@ -133,6 +133,32 @@ def _inside(rig: Rig, pts: np.ndarray) -> np.ndarray:
 # ----------------------------------------------------------------------------- the statistical grid
 
 
+def _candidate_limits(p, p_dir, p_rev, band_loop_db, fsm: float, c: int, bw, rt60, freqs) -> dict:
+    """The candidate fader's limit per band at each point (mean, q90, q10; (P, F) dB), as the plan sets it:
+    its own limit, or all together's where the others alone keep the loop past -FSM."""
+    from howl.model import _plan_limits as lim
+    from howl.model.plan import peak_factor_db
+
+    np_, m_ = p.shape[0], p_dir.shape[-1]
+    if band_loop_db is not None:  # images: the band's worst peak scales with this fader (exact alone)
+        rho_peak = np.asarray(band_loop_db(p), float)
+        q_lim = {q: -fsm - rho_peak for q in ("mean", "q90", "q10")}
+    else:
+        nb = freqs.size
+
+        def peak_fn(kk, _n=np_):
+            return peak_factor_db(np.tile(bw, _n), np.tile(rt60, _n), kk)
+
+        q_lim = lim.fader_limits(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, fsm, c)
+        q_lim = {q: v.reshape(np_, nb) for q, v in q_lim.items()}
+        if not np.all(np.isfinite(q_lim["mean"].min(axis=1))):  # the others alone past -FSM somewhere
+            wp = {q: lim.worst_peak_db(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, i)
+                  .reshape(np_, nb) for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
+            own = np.isfinite(q_lim["mean"].min(axis=1))[:, None]
+            q_lim = {q: np.where(own, v, -fsm - wp[q]) for q, v in q_lim.items()}
+    return q_lim
+
+
 def statistical_margins(
     rig: Rig,
     mic_name: str,
@@ -162,7 +188,7 @@ def statistical_margins(
     from howl.bands import band_centres_hz, band_edges_hz
     from howl.model import _plan_limits as lim
     from howl.model import plan as _plan
-    from howl.model.plan import DEFAULT_TARGET_SPL_DB, mix_matrix, peak_factor_db, perron_vectors
+    from howl.model.plan import DEFAULT_TARGET_SPL_DB, mix_matrix, perron_vectors
     from howl.model.room import room_acoustics
     from howl.model.transfer import TALKER_Q, effective_room_constant_m2, speaker_field_pa2, statistical_transfer
 
@@ -247,23 +273,7 @@ def statistical_margins(
             e2 = e**2
             p_dir = np.einsum("psif,sj->pfij", t_dir, e2) * mp.T[None, :, :, None]
             p_rev = np.einsum("psif,sj->pfij", t_rev, e2) * mp.T[None, :, :, None]
-            m_ = p_dir.shape[-1]
-            if band_loop_db is not None:  # images: the band's worst peak scales with this fader (exact alone)
-                rho_peak = np.asarray(band_loop_db(p), float)
-                q_lim = {q: -fsm - rho_peak for q in ("mean", "q90", "q10")}
-            else:
-                nb = freqs.size
-
-                def peak_fn(kk, _n=np_):
-                    return peak_factor_db(np.tile(bw, _n), np.tile(rt60, _n), kk)
-
-                q_lim = lim.fader_limits(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, fsm, c)
-                q_lim = {q: v.reshape(np_, nb) for q, v in q_lim.items()}
-                if not np.all(np.isfinite(q_lim["mean"].min(axis=1))):  # the others alone past -FSM somewhere
-                    wp = {q: lim.worst_peak_db(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, i)
-                          .reshape(np_, nb) for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
-                    own = np.isfinite(q_lim["mean"].min(axis=1))[:, None]
-                    q_lim = {q: np.where(own, v, -fsm - wp[q]) for q, v in q_lim.items()}
+            q_lim = _candidate_limits(p, p_dir, p_rev, band_loop_db, fsm, c, bw, rt60, freqs)
             # forward path: talker → mic (on axis: the mic is aimed at the talker) → speakers → farthest listener
             g_t = _dir.mic_pattern_gain(np.full(np_, a_coef), np.ones(np_), freqs)  # (P, F)
             u2 = sens2 * (np.exp(-air[None, :] * ds[:, None]) / (ds * ds)[:, None] * g_t * g_t
