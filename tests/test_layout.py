@@ -170,23 +170,16 @@ LONG_MARKER = "Long because"
 #: (or give its reason) and strike it off: the list fails when a listed function is gone or short.
 LONG_FUNCTIONS = {
     "howl.cli.ringout.ringout_report": 97,
-    "howl.cli.sheet.register": 89,
-    "howl.cli.sheet.register.sheet": 87,
     "howl.listen.detect.Detector.__init__": 84,
     "howl.loop._ringout_graphic.graphic_search": 91,
-    "howl.loop._ringout_search._choose_cuts": 109,
     "howl.loop.ringout.ring_out": 132,
     "howl.measure.audio.PortAudioBackend.play_record": 90,
     "howl.model._rigfile._room_from_dict": 102,
-    "howl.model._rigfile._rig_from_dict": 181,
+    "howl.model._rigfile._rig_from_dict": 154,
     "howl.model.images.image_source_ir": 100,
     "howl.model.images.plan_with_images": 109,
-    "howl.model.placement.statistical_margins": 155,
-    "howl.model.placement.margin_map": 109,
-    "howl.model.plan._plan_core": 170,
-    "howl.report._page._mic_table_blocks": 105,
+    "howl.model.placement.statistical_margins": 150,
     "howl.report._page._cuts_blocks": 81,
-    "howl.report.sheet.build_sheet_data": 84,
 }
 
 

@@ -155,6 +155,27 @@ def _check_log(log: Path, loop_ir) -> None:
         raise InputError(f"cannot append to {str(log)!r}: {exc.strerror or exc}", key="--log") from None
 
 
+def _print_summary(rep: dict, res) -> None:
+    """The end-of-run summary on the terminal: cuts, advice, the last loop margin, overflows."""
+    end = "stopped (Ctrl-C)" if res.interrupted else "done"
+    typer.echo(f"{end}: {rep['duration_s']:.1f} s, {rep['n_howl']} howl(s), {rep['n_ringing']} ringing, "
+               f"{res.overflows} input overflow(s)")
+    for n in rep["notches"]:
+        cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
+        typer.echo(f"  cut {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f}  from {n['n_events']} event(s)")
+    for a in rep["advice"]:
+        typer.echo(f"  advice: {a}")
+    lm = rep.get("loop_margin")
+    if lm and lm["estimates"]:
+        e = lm["estimates"][-1]
+        m = "no crossing" if e["gain_margin_db"] is None else f"{e['gain_margin_db']:.1f} dB"
+        f = "" if e["howl_freq_hz"] is None else f", first howl near {e['howl_freq_hz']:.0f} Hz"
+        typer.echo(f"  loop margin at the end: {m} ± {e['uncertainty_db']:.1f} dB{f} ({e['status']})")
+    if res.overflows:
+        typer.echo(f"  warning: {res.overflows} input overflow(s): audio was lost; results may miss events",
+                   err=True)
+
+
 def register(app: typer.Typer) -> None:
     @app.command("listen")
     def listen_cmd(
@@ -226,20 +247,4 @@ def register(app: typer.Typer) -> None:
         if json_out:
             emit_json(rep)
             return
-        end = "stopped (Ctrl-C)" if res.interrupted else "done"
-        typer.echo(f"{end}: {rep['duration_s']:.1f} s, {rep['n_howl']} howl(s), {rep['n_ringing']} ringing, "
-                   f"{res.overflows} input overflow(s)")
-        for n in rep["notches"]:
-            cut = "full notch" if n["gain_db"] is None else f"{n['gain_db']:.1f} dB"
-            typer.echo(f"  cut {n['freq_hz']:9.1f} Hz  {cut:>10}  Q {n['q']:.1f}  from {n['n_events']} event(s)")
-        for a in rep["advice"]:
-            typer.echo(f"  advice: {a}")
-        lm = rep.get("loop_margin")
-        if lm and lm["estimates"]:
-            e = lm["estimates"][-1]
-            m = "no crossing" if e["gain_margin_db"] is None else f"{e['gain_margin_db']:.1f} dB"
-            f = "" if e["howl_freq_hz"] is None else f", first howl near {e['howl_freq_hz']:.0f} Hz"
-            typer.echo(f"  loop margin at the end: {m} ± {e['uncertainty_db']:.1f} dB{f} ({e['status']})")
-        if res.overflows:
-            typer.echo(f"  warning: {res.overflows} input overflow(s): audio was lost; results may miss events",
-                       err=True)
+        _print_summary(rep, res)

@@ -12,6 +12,44 @@ from howl.cli import _desk
 ORDER = 80
 
 
+def _check_options(out, paper, rig_file, measured, cuts, maps, ringout, no_plan, date) -> str:
+    """Refuse bad options before any work (naming the option); returns the paper size in lower case."""
+    from howl import validate as V
+    from howl.errors import InputError
+    from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
+
+    paper_l = V.choice(paper.lower(), "--paper", ["a4", "letter"])
+    refuse_input_as_output(out, [rig_file, measured, cuts, *maps], option="--out")
+    check_suffix(out, [".pdf", ".png"], option="--out", what="a PDF or PNG sheet")
+    check_writable_folder(out, option="--out")
+    if ringout and measured is None:
+        raise InputError("needs loop IRs to ring out: pass --measured DIR as well", key="--ringout")
+    if no_plan and measured is None:
+        raise InputError("leaves nothing to print without --measured DIR", key="--no-plan")
+    if date is not None:
+        import datetime as dt
+
+        try:
+            dt.date.fromisoformat(date)
+        except ValueError:
+            raise InputError(f"must be a date YYYY-MM-DD, got {date!r}", key="--date") from None
+    return paper_l
+
+
+def _print_result(data, written, paper_l: str, as_json: bool) -> None:
+    """The sheet's numbers as one JSON object, or the files written."""
+    from howl.cli._common import emit_json
+
+    if as_json:
+        obj = data.to_json()
+        obj["files"] = written
+        obj["paper"] = paper_l
+        emit_json(obj)
+    else:
+        for w in written:
+            typer.echo(f"wrote {w}")
+
+
 def register(app: typer.Typer) -> None:
     @app.command("sheet")
     def sheet(
@@ -47,26 +85,9 @@ def register(app: typer.Typer) -> None:
         graphic_q: Optional[float] = _desk.GRAPHIC_Q,
     ) -> None:
         """Print the gain-margin sheet: per-mic limits, loop plots, cuts and cautions."""
-        from howl import validate as V
-        from howl.errors import InputError
-        from howl.cli._common import capture_warnings, emit_json
-        from howl.fileio import check_suffix, check_writable_folder, refuse_input_as_output
+        from howl.cli._common import capture_warnings
 
-        paper_l = V.choice(paper.lower(), "--paper", ["a4", "letter"])
-        refuse_input_as_output(out, [rig_file, measured, cuts, *maps], option="--out")
-        check_suffix(out, [".pdf", ".png"], option="--out", what="a PDF or PNG sheet")
-        check_writable_folder(out, option="--out")
-        if ringout and measured is None:
-            raise InputError("needs loop IRs to ring out: pass --measured DIR as well", key="--ringout")
-        if no_plan and measured is None:
-            raise InputError("leaves nothing to print without --measured DIR", key="--no-plan")
-        if date is not None:
-            import datetime as dt
-
-            try:
-                dt.date.fromisoformat(date)
-            except ValueError:
-                raise InputError(f"must be a date YYYY-MM-DD, got {date!r}", key="--date") from None
+        paper_l = _check_options(out, paper, rig_file, measured, cuts, maps, ringout, no_plan, date)
 
         with capture_warnings():
             from howl.model.rig import bundled_rig_path, load_rig
@@ -102,14 +123,7 @@ def register(app: typer.Typer) -> None:
             )
             written = render_sheet(data, out, paper=paper_l)
 
-        if as_json:
-            obj = data.to_json()
-            obj["files"] = written
-            obj["paper"] = paper_l
-            emit_json(obj)
-        else:
-            for w in written:
-                typer.echo(f"wrote {w}")
+        _print_result(data, written, paper_l, as_json)
 
 
 def _compute(rig, session, no_plan: bool, ringout: bool, desk=None):

@@ -150,6 +150,48 @@ def _validate(recording, device, send_channel, mic_channel, duration, warn_db, l
         raise InputError("records a live input; a recording is already a recording", key="--record")
 
 
+def _track_run(recording, device, send_channel, mic_channel, record, log, duration, loop_length_ms, json_out,
+               view, warn_db, web, port, share):
+    """Open the source (a recording or the live input), track it, close everything; returns (run, label)."""
+    from howl.listen.live import JsonlLog
+    from howl.listen.track import TrackSettings
+
+    settings = TrackSettings(loop_length_s=loop_length_ms / 1000.0)
+    src = rec_w = lg = None
+    try:
+        if recording is not None:
+            src = _file_source(recording, send_channel, mic_channel)
+            label = str(recording)
+        else:
+            from howl.measure.audio import LiveInput
+
+            src = LiveInput(device, [send_channel, mic_channel], channel_options=["--send-channel", "--mic-channel"])
+            label = src.device.label
+            typer.echo(f"tracking on {label!r} send {send_channel} mic {mic_channel} at {src.sample_rate_hz:g} Hz",
+                       err=True)
+            if record is not None:
+                rec_w = _Recorder(record, src.sample_rate_hz)
+        lg = JsonlLog(log) if log is not None else None
+        kw = dict(settings=settings, duration_s=duration, log=lg, recorder=rec_w,
+                  channels=(send_channel, mic_channel))
+        try:
+            run = _run(src, label, kw, json_out, view != "web", warn_db, web=(port, share) if web else None)
+        except KeyboardInterrupt:  # stopped before the tracking loop ran (it handles its own interrupts)
+            if not json_out:
+                raise
+            from howl.listen._track_live import TrackRun
+
+            run = TrackRun(sample_rate_hz=float(src.sample_rate_hz), interrupted=True)
+    finally:
+        for closer in (rec_w, lg, src):
+            if closer is not None:
+                try:
+                    closer.close()
+                except KeyboardInterrupt:
+                    pass
+    return run, label
+
+
 def register(app: typer.Typer) -> None:
     @app.command("track")
     def track_cmd(
@@ -181,42 +223,8 @@ def register(app: typer.Typer) -> None:
         for line in CAUTIONS:
             typer.echo(line, err=json_out)
 
-        from howl.listen.live import JsonlLog
-        from howl.listen.track import TrackSettings
-
-        settings = TrackSettings(loop_length_s=loop_length_ms / 1000.0)
-        src = rec_w = lg = None
-        try:
-            if recording is not None:
-                src = _file_source(recording, send_channel, mic_channel)
-                label = str(recording)
-            else:
-                from howl.measure.audio import LiveInput
-
-                src = LiveInput(device, [send_channel, mic_channel], channel_options=["--send-channel", "--mic-channel"])
-                label = src.device.label
-                typer.echo(f"tracking on {label!r} send {send_channel} mic {mic_channel} at {src.sample_rate_hz:g} Hz",
-                           err=True)
-                if record is not None:
-                    rec_w = _Recorder(record, src.sample_rate_hz)
-            lg = JsonlLog(log) if log is not None else None
-            kw = dict(settings=settings, duration_s=duration, log=lg, recorder=rec_w,
-                      channels=(send_channel, mic_channel))
-            try:
-                run = _run(src, label, kw, json_out, view != "web", warn_db, web=(port, share) if web else None)
-            except KeyboardInterrupt:  # stopped before the tracking loop ran (it handles its own interrupts)
-                if not json_out:
-                    raise
-                from howl.listen._track_live import TrackRun
-
-                run = TrackRun(sample_rate_hz=float(src.sample_rate_hz), interrupted=True)
-        finally:
-            for closer in (rec_w, lg, src):
-                if closer is not None:
-                    try:
-                        closer.close()
-                    except KeyboardInterrupt:
-                        pass
+        run, label = _track_run(recording, device, send_channel, mic_channel, record, log, duration, loop_length_ms,
+                                json_out, view, warn_db, web, port, share)
         if save_loop is not None and run.loop_ir is not None:
             from howl.fileio import write_wav_atomic
 

@@ -344,6 +344,55 @@ def _on_desk(loops, cuts: list[Notch], score: _Score, desk, fs: float) -> tuple[
     return cuts, m
 
 
+def _plans_by_budget(loops, budget, target, fs, desk, lim, planner, score, m0_grid):
+    """The best plan at each budget 1..``budget`` (``{b: (cuts, margin)}``, stopping at the target) and the
+    best few starts of the search at each budget."""
+    plans = {0: ([], m0_grid)}
+    starts: dict[int, list] = {0: [[]]}
+    # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
+    # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
+    # At each budget the covering plan and the simple ring-outs compete on the score: the
+    # margin, less any tonal cost beyond its share of the gain.
+    greedy = _greedy_prefixes(loops, budget, fs, lim)
+    for b in range(1, budget + 1):
+        cuts, _, _ = _plan_cuts(loops, b, planner, fs)
+        options = [_tidy(loops, cuts, fs, desk)] + [_tidy(loops, g_cuts, fs, desk) for g_cuts, _ in greedy[b]]
+        scored = []
+        for c in options:
+            m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
+            scored.append((score(c, m_c), m_c, c))
+        scored.sort(key=lambda t: -t[0])
+        j_b, m_b, cuts = scored[0]
+        prev = plans[max(plans)]
+        if j_b < score(prev[0], prev[1]):  # more budget never has to do worse
+            cuts, m_b = prev
+            scored.insert(0, (score(prev[0], prev[1]), prev[1], prev[0]))
+        plans[b] = (cuts, m_b)
+        starts[b] = [c for _, _, c in scored[:POLISH_STARTS]]
+        if target is not None and m_b >= target:
+            break
+    return plans, starts
+
+
+def _polished(loops, planned, planned_margin, starts, score, polish, lim_p, fs, desk):
+    """The plan after the search, when it scores at least as well; else the plan as given."""
+    # one pass of the search from each of the best few starts at that budget, then the
+    # search carried on from the best of them
+    best = None
+    for start in starts:
+        if start:
+            c, m_c = _polish(loops, start, score, 1, lim_p)
+            if best is None or score(c, m_c) > score(best[0], best[1]):
+                best = (c, m_c)
+    if best is not None:
+        c, _ = _polish(loops, best[0], score, polish, lim_p)
+        c = _tidy(loops, c, fs, desk)
+        m_c = _worst_margin(loops, c, fs)[0]
+        if score(c, m_c) >= score(planned, planned_margin):
+            planned, planned_margin = c, m_c
+    return planned, planned_margin
+
+
 def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, tonal_share, tonal_weighting,
                  desk=None):
     """The cuts to insert: (cuts, planned grid margin, why the ring-out stops, the grid margin
@@ -351,9 +400,9 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
 
     With a parametric ``desk`` the plan, the simple ring-outs and the search stay within its
     depth and width, and the cuts are then set as the desk sets them (:func:`_on_desk`); a
-    graphic desk is searched by :func:`howl.loop._ringout_graphic.graphic_search` instead.
-    (Longer than 80 lines: its stages share the score, the plans and the limits; split, they
-    would hand a dozen values to each other.)
+    graphic desk is searched by :func:`howl.loop._ringout_graphic.graphic_search` instead; a
+    parametric one plans every budget (:func:`_plans_by_budget`), keeps the budget whose cuts
+    pay, then searches on from it (:func:`_polished`).
     """
     m0_grid = _worst_margin(loops, [], fs)[0]
     naive: list[Notch] = []  # the naive ring-out of the desk, when one was compared
@@ -385,30 +434,7 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
                          max(MAX_NOTCH_BANDWIDTH_OCT, desk.min_bandwidth_oct or 0.0))
         planner = _Planner(fs, drift, *(() if lim is None else (lim.max_depth_db, lim.min_bw_oct)))
         score = _Score(loops, fs, band, m0_grid, tonal_share, tonal_weighting)
-        plans = {0: ([], m0_grid)}
-        starts: dict[int, list] = {0: [[]]}
-        # every budget 1..max is planned: the per-notch rule compares them, and a plan for more
-        # cuts that ends up worse (the cuts' phase moved the crossings) falls back on a smaller one.
-        # At each budget the covering plan and the simple ring-outs compete on the score: the
-        # margin, less any tonal cost beyond its share of the gain.
-        greedy = _greedy_prefixes(loops, budget, fs, lim)
-        for b in range(1, budget + 1):
-            cuts, _, _ = _plan_cuts(loops, b, planner, fs)
-            options = [_tidy(loops, cuts, fs, desk)] + [_tidy(loops, g_cuts, fs, desk) for g_cuts, _ in greedy[b]]
-            scored = []
-            for c in options:
-                m_c = _worst_margin(loops, c, fs)[0] if c else m0_grid
-                scored.append((score(c, m_c), m_c, c))
-            scored.sort(key=lambda t: -t[0])
-            j_b, m_b, cuts = scored[0]
-            prev = plans[max(plans)]
-            if j_b < score(prev[0], prev[1]):  # more budget never has to do worse
-                cuts, m_b = prev
-                scored.insert(0, (score(prev[0], prev[1]), prev[1], prev[0]))
-            plans[b] = (cuts, m_b)
-            starts[b] = [c for _, _, c in scored[:POLISH_STARTS]]
-            if target is not None and m_b >= target:
-                break
+        plans, starts = _plans_by_budget(loops, budget, target, fs, desk, lim, planner, score, m0_grid)
         gains = {b: plans[b][1] - m0_grid for b in plans}
         chosen = 0  # grow the plan while each step up pays min_gain per extra cut over the last one kept
         for b in sorted(plans)[1:]:
@@ -417,20 +443,8 @@ def _choose_cuts(loops, *, budget, target, min_gain, fs, drift, band, polish, to
         planned, planned_margin = plans[chosen]
         lim_p = lim or Limits()
         if polish and planned:
-            # one pass of the search from each of the best few starts at that budget, then the
-            # search carried on from the best of them
-            best = None
-            for start in starts[chosen]:
-                if start:
-                    c, m_c = _polish(loops, start, score, 1, lim_p)
-                    if best is None or score(c, m_c) > score(best[0], best[1]):
-                        best = (c, m_c)
-            if best is not None:
-                c, _ = _polish(loops, best[0], score, polish, lim_p)
-                c = _tidy(loops, c, fs, desk)
-                m_c = _worst_margin(loops, c, fs)[0]
-                if score(c, m_c) >= score(planned, planned_margin):
-                    planned, planned_margin = c, m_c
+            planned, planned_margin = _polished(loops, planned, planned_margin, starts[chosen], score, polish,
+                                                lim_p, fs, desk)
         if desk is not None and planned:
             planned, planned_margin = _on_desk(loops, planned, score, desk, fs)
         if lim is not None:  # the score's tie-break never costs margin against the naive ring-out

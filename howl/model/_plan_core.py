@@ -7,7 +7,6 @@ signal chain in, the forward path talker → listener, and the per-mic results.
 
 from __future__ import annotations
 
-import math
 import warnings
 
 import numpy as np
@@ -130,38 +129,25 @@ def _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs):
     return out
 
 
-def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics, chain):
-    """The plan of ``rig`` on one basis; returns :class:`howl.model.plan.PlanResult`. Long (about 110 lines):
-    one pass from loop matrices to per-mic figures, kept together so the order of the basis is readable."""
-    from howl.model.plan import ASSUMPTIONS, MicPlan, PlanResult, davis_nag_db, davis_pag_db, mix_matrix, \
-        peak_factor_db, perron_vectors
-
-    e_all = mix_matrix(rig)
+def _active_mics(rig, e_all):
+    """The mix matrix on the mics that reach a loudspeaker, their indices, the muted and the unrouted mics."""
     routed = np.any(e_all > 0, axis=0)
     muted = tuple(m.name for m in rig.mics if not m.open)
     unrouted = tuple(m.name for k, m in enumerate(rig.mics) if m.open and not routed[k])
     for name in unrouted:
         warnings.warn(f"mic {name!r} is open but in no mix that reaches a loudspeaker; it is left out of the plan",
-                      HowlWarning, stacklevel=3)
+                      HowlWarning, stacklevel=4)
     act = np.flatnonzero(routed)
     if act.size == 0:
         raise InputError("no open mic reaches any loudspeaker through the mixes; nothing to plan", key="mixes")
-    e = e_all[:, act]
-    p_dir, p_rev = _loops(tr, chain, e, act)
+    return e_all[:, act], act, muted, unrouted
+
+
+def _system(p_dir, p_rev, peak_fn, fsm, freqs):
+    """The whole loop's figures: spectral radius, its worst peak, channel loop gains, the limit all together."""
+    from howl.model.plan import channel_loop_gain, perron_vectors
+
     p = p_dir + p_rev
-    n_f, m, _ = p.shape
-    rt60 = np.asarray(tr.rt60_s, float)
-    if not np.all(np.isfinite(rt60)):
-        raise InputError("room acoustics gave no finite RT60; cannot apply peak statistics", key="room")
-
-    def peak_fn(k):
-        if not peak_statistics:
-            z = np.zeros(np.shape(k))
-            return z, z, z
-        return peak_factor_db(bw, rt60, k)
-
-    from howl.model.plan import channel_loop_gain
-
     rho, right, left = perron_vectors(p)
     k_sys = np.einsum("fi,fij,fj->f", left, p_dir, right) / np.maximum(
         np.einsum("fi,fij,fj->f", left, p_rev, right), _TINY)
@@ -177,76 +163,111 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
         warnings.warn(
             f"at the rig's stated settings the worst-peak loop gain reaches {-stated_margin:+.1f} dB "
             f"(near {float(freqs[int(np.argmax(rho_peak_db))]):.0f} Hz): the rig as set would howl",
-            HowlWarning, stacklevel=3,
+            HowlWarning, stacklevel=4,
         )
     together_band = -fsm - rho_peak_db  # all columns scaled: K is unchanged, so the limit is closed-form
     ti = lim.rings_first(together_band)
     together = float(together_band[ti])
     together_q = [float(np.min(-fsm - rho_db - np.asarray(peak_fn(k_sys)[q], float))) for q in (2, 1)]
     stab = lim.stability_as_set(float(np.max(rho_peak_db)), fsm)
+    return dict(rho=rho, rho_db=rho_db, rho_peak_db=rho_peak_db, pf_sys=pf_sys, lch_db=lch_db,
+                stated_margin=stated_margin, together_band=together_band, ti=ti, together=together,
+                together_q=together_q, stab=stab)
 
+
+def _mic_plan(rig, col, mc, freqs, fsm, p_dir, p_rev, peak_fn, sy, fw, tg, e, pairs):
+    """The :class:`howl.model.plan.MicPlan` of active mic ``col``: its own fader's limit (or all together's),
+    PAG, NAG and margin, the Davis figures, and what EQ could buy. ``tg``: NAG per band, EAD, weights."""
+    from howl.model.plan import MicPlan, davis_nag_db, davis_pag_db
+
+    rho, together, weights = sy["rho"], sy["together"], tg["weights"]
+    ag_w, nag_w, ead, m = tg["ag_w"], tg["nag_w"], tg["ead"], e.shape[1]
+    bl = lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, rho=rho)
+    ci = lim.rings_first(bl)
+    max_ch = float(bl[ci]) if np.isfinite(bl[ci]) else None
+    if max_ch is not None:  # PAG with this fader at its own limit
+        base, basis = max_ch, "own_fader"
+        q_lim = [float(np.min(lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, quantile=q, x0=np.where(
+            np.isfinite(bl), bl, 0.0), rho=rho))) for q in (2, 1)]
+    else:  # the others alone keep the loop past -FSM: only pulling all together brings it back
+        base, basis, q_lim, ci = together, "together", sy["together_q"], sy["ti"]
+    pag_band = fw["ag_db"][col] + base
+    pag = float(ag_w[col] + base)
+    nag = float(nag_w[col])
+    margin = pag - nag
+    spread = tuple(float(ag_w[col] + q) if np.isfinite(q) else float("nan") for q in q_lim)
+    rch, short = lim.reach(margin)
+    lname = rig.listeners[fw["li"][col]].name
+    spk_pos = np.array([s.position_m for s in rig.speakers], float)
+    d_pag, si, d1, d2 = lim.davis_per_speaker(davis_pag_db, fw["ds"][col], fw["d0"][col], fw["mpos"][col],
+                                              fw["lst_pos"][fw["li"][col]], spk_pos, e[:, col] > 0, m, fsm)
+    if not d2 > 1e-3:
+        raise InputError(f"listener {lname!r} is at a loudspeaker (0 m)", key=f"listeners.{lname}.position_m")
+    eq_buy = np.where(np.isfinite(bl), bl - base, np.inf) if max_ch is not None else sy["together_band"] - together
+    stab = sy["stab"]
+    return MicPlan(
+        name=mc.name, pag_db=pag, nag_db=nag, margin_db=margin, pag_basis=basis,
+        limiting_band_hz=float(freqs[ci]), max_channel_gain_db=max_ch,
+        verdict=lim.legacy_verdict(stab, rch), pag_spread_db=spread, davis_pag_db=d_pag,
+        davis_nag_db=davis_nag_db(fw["d0"][col], ead[col]),
+        margin_spread_db=(spread[0] - nag, spread[1] - nag),
+        loop_gain_db=sy["lch_db"][:, col].copy(), worst_peak_loop_gain_db=-fsm - bl,
+        pag_band_db=pag_band, nag_band_db=tg["nag_band"][col], acoustic_gain_db=fw["ag_db"][col],
+        talker=fw["tnames"][col], listener=lname, ead_m=float(ead[col]),
+        distances_m={"ds": float(fw["ds"][col]), "d0": float(fw["d0"][col]), "d1": d1, "d2": d2},
+        limiting_channel_band_hz=float(freqs[ci]), stability=stab, reach=rch, short_by_db=short,
+        eq_could_buy_band_db=eq_buy, eq_could_buy_db=float(weighted_db_finite(eq_buy, weights[col])),
+        pag_together_db=float(ag_w[col] + together), davis_speaker=rig.speakers[si].name if si >= 0 else None,
+        gains_db={mx.name: g for mx in rig.mixes for mn, g in mx.gains_db if mn == mc.name},
+        pairs=tuple(pairs),
+    )
+
+
+def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_statistics, ideal_mics, chain):
+    """The plan of ``rig`` on one basis; returns :class:`howl.model.plan.PlanResult`.
+
+    One pass: the active mics (:func:`_active_mics`), the loop matrices (:func:`_loops`), the whole
+    loop's figures (:func:`_system`), the forward path (:func:`_forward`) and NAG (:func:`_nag`),
+    then one :func:`_mic_plan` per active mic.
+    """
+    from howl.model.plan import ASSUMPTIONS, PlanResult, mix_matrix, peak_factor_db
+    from howl.model.room import schroeder_frequency_hz
+
+    e, act, muted, unrouted = _active_mics(rig, mix_matrix(rig))
+    p_dir, p_rev = _loops(tr, chain, e, act)
+    m = p_dir.shape[1]
+    rt60 = np.asarray(tr.rt60_s, float)
+    if not np.all(np.isfinite(rt60)):
+        raise InputError("room acoustics gave no finite RT60; cannot apply peak statistics", key="room")
+
+    def peak_fn(k):
+        if not peak_statistics:
+            z = np.zeros(np.shape(k))
+            return z, z, z
+        return peak_factor_db(bw, rt60, k)
+
+    sy = _system(p_dir, p_rev, peak_fn, fsm, freqs)
     fw = _forward(rig, acoustics, freqs, tr, chain, e, act, ideal_mics)
     nag_band, ead, ead_note = _nag(rig, fw, m)
     weights = lim.speech_weights(np.asarray(chain.talker_level_db, float)[act], chain.importance)
-    ag_w = lim.weighted_db(fw["ag_db"], weights)
-    nag_w = lim.weighted_db(nag_band, weights)
-    spk_pos = np.array([s.position_m for s in rig.speakers], float)
-    mic_objs = [rig.mics[k] for k in act]
+    tg = dict(nag_band=nag_band, ead=ead, weights=weights, ag_w=lim.weighted_db(fw["ag_db"], weights),
+              nag_w=lim.weighted_db(nag_band, weights))
     pair_peaks = _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs)
-    out = []
-    for col, mc in enumerate(mic_objs):
-        bl = lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, rho=rho)
-        ci = lim.rings_first(bl)
-        max_ch = float(bl[ci]) if np.isfinite(bl[ci]) else None
-        if max_ch is not None:  # PAG with this fader at its own limit
-            base, basis = max_ch, "own_fader"
-            q_lim = [float(np.min(lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, quantile=q, x0=np.where(
-                np.isfinite(bl), bl, 0.0), rho=rho))) for q in (2, 1)]
-        else:  # the others alone keep the loop past -FSM: only pulling all together brings it back
-            base, basis, q_lim, ci = together, "together", together_q, ti
-        pag_band = fw["ag_db"][col] + base
-        pag = float(ag_w[col] + base)
-        nag = float(nag_w[col])
-        margin = pag - nag
-        spread = tuple(float(ag_w[col] + q) if np.isfinite(q) else float("nan") for q in q_lim)
-        rch, short = lim.reach(margin)
-        lname = rig.listeners[fw["li"][col]].name
-        d_pag, si, d1, d2 = lim.davis_per_speaker(davis_pag_db, fw["ds"][col], fw["d0"][col], fw["mpos"][col],
-                                                  fw["lst_pos"][fw["li"][col]], spk_pos, e[:, col] > 0, m, fsm)
-        if not d2 > 1e-3:
-            raise InputError(f"listener {lname!r} is at a loudspeaker (0 m)", key=f"listeners.{lname}.position_m")
-        eq_buy = np.where(np.isfinite(bl), bl - base, np.inf) if max_ch is not None else together_band - together
-        out.append(MicPlan(
-            name=mc.name, pag_db=pag, nag_db=nag, margin_db=margin, pag_basis=basis,
-            limiting_band_hz=float(freqs[ci]), max_channel_gain_db=max_ch,
-            verdict=lim.legacy_verdict(stab, rch), pag_spread_db=spread, davis_pag_db=d_pag,
-            davis_nag_db=davis_nag_db(fw["d0"][col], ead[col]),
-            margin_spread_db=(spread[0] - nag, spread[1] - nag),
-            loop_gain_db=lch_db[:, col].copy(), worst_peak_loop_gain_db=-fsm - bl,
-            pag_band_db=pag_band, nag_band_db=nag_band[col], acoustic_gain_db=fw["ag_db"][col],
-            talker=fw["tnames"][col], listener=lname, ead_m=float(ead[col]),
-            distances_m={"ds": float(fw["ds"][col]), "d0": float(fw["d0"][col]), "d1": d1, "d2": d2},
-            limiting_channel_band_hz=float(freqs[ci]), stability=stab, reach=rch, short_by_db=short,
-            eq_could_buy_band_db=eq_buy, eq_could_buy_db=float(weighted_db_finite(eq_buy, weights[col])),
-            pag_together_db=float(ag_w[col] + together), davis_speaker=rig.speakers[si].name if si >= 0 else None,
-            gains_db={mx.name: g for mx in rig.mixes for mn, g in mx.gains_db if mn == mc.name},
-            pairs=tuple(pair_peaks[col]),
-        ))
+    out = [_mic_plan(rig, col, rig.mics[k], freqs, fsm, p_dir, p_rev, peak_fn, sy, fw, tg, e, pair_peaks[col])
+           for col, k in enumerate(act)]
     assumptions = list(ASSUMPTIONS)
     if ead_note:
         warnings.warn(ead_note, HowlWarning, stacklevel=3)
         assumptions.append(ead_note)
-    from howl.model.room import schroeder_frequency_hz
-
     i1k = int(np.argmin(np.abs(np.log(freqs / 1000.0))))
     fs_hz = float(schroeder_frequency_hz(float(rt60[i1k]), float(acoustics.volume_m3)))
     return PlanResult(
         rig_name=rig.name, rig_file=rig.source_file, fraction=int(fraction), fsm_db=fsm, bands_hz=freqs,
-        mics=tuple(out), spectral_radius_db=rho_db, worst_peak_spectral_radius_db=rho_peak_db,
-        peak_factor_db=pf_sys, rt60_s=rt60, room_constant_m2=np.asarray(fw["rc"], float),
-        schroeder_frequency_hz=fs_hz, nom=int(m), stated_margin_db=stated_margin, muted_mics=muted,
-        unrouted_mics=unrouted, assumptions=tuple(assumptions), headroom_together_db=together,
-        rings_first_hz=float(freqs[ti]), importance=np.asarray(chain.importance, float),
+        mics=tuple(out), spectral_radius_db=sy["rho_db"], worst_peak_spectral_radius_db=sy["rho_peak_db"],
+        peak_factor_db=sy["pf_sys"], rt60_s=rt60, room_constant_m2=np.asarray(fw["rc"], float),
+        schroeder_frequency_hz=fs_hz, nom=int(m), stated_margin_db=sy["stated_margin"], muted_mics=muted,
+        unrouted_mics=unrouted, assumptions=tuple(assumptions), headroom_together_db=sy["together"],
+        rings_first_hz=float(freqs[sy["ti"]]), importance=np.asarray(chain.importance, float),
     )
 
 

@@ -91,6 +91,29 @@ def _parse_value(text: str, option: str, assignment: str) -> _Any:
                       key=f"{option} {_printable(assignment)}")
 
 
+def _set_item_key(item: dict, section: str, key: str, value) -> None:
+    """Set ``item[key] = value`` and drop the keys the new value replaces (a pattern file, a preset's values)."""
+    item[key] = value
+    if section == "mics" and key == "pattern" and value != "table":
+        item.pop("pattern_file", None)
+    if section == "mics" and key == "pattern_file":
+        item["pattern"] = "table"
+    if section == "talkers" and key == "spectrum" and value != "table":
+        item.pop("spectrum_file", None)
+    if section == "talkers" and key == "spectrum_file":
+        item["spectrum"] = "table"
+    if section in ("mics", "speakers") and key == "preset" and isinstance(value, str):
+        # a new preset brings all of its values (the old preset's were written out)
+        for pk in _bundled_presets()[section].get(value, {}):
+            item.pop(pk, None)
+        if section == "speakers" and "usable_range" in _bundled_presets()[section].get(value, {}):
+            item.pop("response_file", None)
+    if key == "response_file" and section == "speakers":
+        item.pop("usable_range", None)
+    if key == "usable_range" and section == "speakers":
+        item.pop("response_file", None)
+
+
 def with_changes(rig: Rig, assignments: list[str] | tuple[str, ...], *, option: str = "--what-if") -> Rig:
     """Apply what-if edits such as ``mics.lectern.pattern=supercardioid`` and re-validate.
 
@@ -147,25 +170,7 @@ def with_changes(rig: Rig, assignments: list[str] | tuple[str, ...], *, option: 
             elif len(parts) != 3:
                 raise _InputError(f"expected {section}.<name>.<key>=value", key=where)
             else:
-                item[key] = value
-                if section == "mics" and key == "pattern" and value != "table":
-                    item.pop("pattern_file", None)
-                if section == "mics" and key == "pattern_file":
-                    item["pattern"] = "table"
-                if section == "talkers" and key == "spectrum" and value != "table":
-                    item.pop("spectrum_file", None)
-                if section == "talkers" and key == "spectrum_file":
-                    item["spectrum"] = "table"
-                if section in ("mics", "speakers") and key == "preset" and isinstance(value, str):
-                    # a new preset brings all of its values (the old preset's were written out)
-                    for pk in _bundled_presets()[section].get(value, {}):
-                        item.pop(pk, None)
-                    if section == "speakers" and "usable_range" in _bundled_presets()[section].get(value, {}):
-                        item.pop("response_file", None)
-                if key == "response_file" and section == "speakers":
-                    item.pop("usable_range", None)
-                if key == "usable_range" and section == "speakers":
-                    item.pop("response_file", None)
+                _set_item_key(item, section, key, value)
         try:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore", _HowlWarning)  # the rig's own warnings were given at load time

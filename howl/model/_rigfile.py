@@ -399,29 +399,10 @@ def _angle(table: dict, name: str, key: str, file: str | None, lo: float, hi: fl
     return _math.radians(_v.in_range(table[name], f"{key}.{name}", lo, hi, unit="°", file=file))
 
 
-def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
-    from howl.loop.desk import desk_from_table
+def _speakers_from(data: dict, room: Room, file: str | None, base_dir: _Path) -> list:
+    """The rig's ``[[speakers]]`` blocks, checked, as :class:`Speaker` objects (names unique)."""
     from howl.model.materials import band_values
 
-    _known_keys(data, "", RIG_KEYS, file=file)
-    name = _text(data.get("name", default_name), "name", file, allow_empty=False)
-    description = _text(data.get("description", ""), "description", file)
-    notes_raw = data.get("notes", [])
-    if not isinstance(notes_raw, list):
-        raise _v.fail("notes", "a list of strings", notes_raw, file=file)
-    notes = tuple(_text(n, f"notes[{i}]", file) for i, n in enumerate(notes_raw))
-    fsm_db = _v.in_range(data.get("fsm_db", 6.0), "fsm_db", 0.0, 30.0, unit="dB", file=file)
-    ead_m = None
-    target_spl_db = None
-    if "ead_m" in data and "target_spl_db" in data:
-        raise _InputError("give ead_m or target_spl_db, not both (ead_m follows from the target level)",
-                          file=file, key="ead_m")
-    if "ead_m" in data:
-        ead_m = _size(data["ead_m"], "ead_m", 1000.0, "m", file)
-    if "target_spl_db" in data:
-        target_spl_db = _v.in_range(data["target_spl_db"], "target_spl_db", 20.0, 130.0, unit="dB SPL", file=file)
-
-    # speakers
     speakers = []
     for i, s in enumerate(_list_of_tables(_require(data, "speakers", "", file, "[[speakers]] blocks"), "speakers", file)):
         k = f"speakers[{i}]"
@@ -452,6 +433,31 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     if not speakers:
         raise _InputError("must list at least one loudspeaker", file=file, key="speakers")
     _unique([s.name for s in speakers], "speakers", file)
+    return speakers
+
+
+def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
+    from howl.loop.desk import desk_from_table
+
+    _known_keys(data, "", RIG_KEYS, file=file)
+    name = _text(data.get("name", default_name), "name", file, allow_empty=False)
+    description = _text(data.get("description", ""), "description", file)
+    notes_raw = data.get("notes", [])
+    if not isinstance(notes_raw, list):
+        raise _v.fail("notes", "a list of strings", notes_raw, file=file)
+    notes = tuple(_text(n, f"notes[{i}]", file) for i, n in enumerate(notes_raw))
+    fsm_db = _v.in_range(data.get("fsm_db", 6.0), "fsm_db", 0.0, 30.0, unit="dB", file=file)
+    ead_m = None
+    target_spl_db = None
+    if "ead_m" in data and "target_spl_db" in data:
+        raise _InputError("give ead_m or target_spl_db, not both (ead_m follows from the target level)",
+                          file=file, key="ead_m")
+    if "ead_m" in data:
+        ead_m = _size(data["ead_m"], "ead_m", 1000.0, "m", file)
+    if "target_spl_db" in data:
+        target_spl_db = _v.in_range(data["target_spl_db"], "target_spl_db", 20.0, 130.0, unit="dB SPL", file=file)
+
+    speakers = _speakers_from(data, room, file, base_dir)
 
     # mics
     mics = []

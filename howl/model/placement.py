@@ -133,6 +133,32 @@ def _inside(rig: Rig, pts: np.ndarray) -> np.ndarray:
 # ----------------------------------------------------------------------------- the statistical grid
 
 
+def _candidate_limits(p, p_dir, p_rev, band_loop_db, fsm: float, c: int, bw, rt60, freqs) -> dict:
+    """The candidate fader's limit per band at each point (mean, q90, q10; (P, F) dB), as the plan sets it:
+    its own limit, or all together's where the others alone keep the loop past -FSM."""
+    from howl.model import _plan_limits as lim
+    from howl.model.plan import peak_factor_db
+
+    np_, m_ = p.shape[0], p_dir.shape[-1]
+    if band_loop_db is not None:  # images: the band's worst peak scales with this fader (exact alone)
+        rho_peak = np.asarray(band_loop_db(p), float)
+        q_lim = {q: -fsm - rho_peak for q in ("mean", "q90", "q10")}
+    else:
+        nb = freqs.size
+
+        def peak_fn(kk, _n=np_):
+            return peak_factor_db(np.tile(bw, _n), np.tile(rt60, _n), kk)
+
+        q_lim = lim.fader_limits(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, fsm, c)
+        q_lim = {q: v.reshape(np_, nb) for q, v in q_lim.items()}
+        if not np.all(np.isfinite(q_lim["mean"].min(axis=1))):  # the others alone past -FSM somewhere
+            wp = {q: lim.worst_peak_db(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, i)
+                  .reshape(np_, nb) for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
+            own = np.isfinite(q_lim["mean"].min(axis=1))[:, None]
+            q_lim = {q: np.where(own, v, -fsm - wp[q]) for q, v in q_lim.items()}
+    return q_lim
+
+
 def statistical_margins(
     rig: Rig,
     mic_name: str,
@@ -162,7 +188,7 @@ def statistical_margins(
     from howl.bands import band_centres_hz, band_edges_hz
     from howl.model import _plan_limits as lim
     from howl.model import plan as _plan
-    from howl.model.plan import DEFAULT_TARGET_SPL_DB, mix_matrix, peak_factor_db, perron_vectors
+    from howl.model.plan import DEFAULT_TARGET_SPL_DB, mix_matrix, perron_vectors
     from howl.model.room import room_acoustics
     from howl.model.transfer import TALKER_Q, effective_room_constant_m2, speaker_field_pa2, statistical_transfer
 
@@ -247,23 +273,7 @@ def statistical_margins(
             e2 = e**2
             p_dir = np.einsum("psif,sj->pfij", t_dir, e2) * mp.T[None, :, :, None]
             p_rev = np.einsum("psif,sj->pfij", t_rev, e2) * mp.T[None, :, :, None]
-            m_ = p_dir.shape[-1]
-            if band_loop_db is not None:  # images: the band's worst peak scales with this fader (exact alone)
-                rho_peak = np.asarray(band_loop_db(p), float)
-                q_lim = {q: -fsm - rho_peak for q in ("mean", "q90", "q10")}
-            else:
-                nb = freqs.size
-
-                def peak_fn(kk, _n=np_):
-                    return peak_factor_db(np.tile(bw, _n), np.tile(rt60, _n), kk)
-
-                q_lim = lim.fader_limits(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, fsm, c)
-                q_lim = {q: v.reshape(np_, nb) for q, v in q_lim.items()}
-                if not np.all(np.isfinite(q_lim["mean"].min(axis=1))):  # the others alone past -FSM somewhere
-                    wp = {q: lim.worst_peak_db(p_dir.reshape(-1, m_, m_), p_rev.reshape(-1, m_, m_), peak_fn, i)
-                          .reshape(np_, nb) for q, i in (("mean", 0), ("q90", 2), ("q10", 1))}
-                    own = np.isfinite(q_lim["mean"].min(axis=1))[:, None]
-                    q_lim = {q: np.where(own, v, -fsm - wp[q]) for q, v in q_lim.items()}
+            q_lim = _candidate_limits(p, p_dir, p_rev, band_loop_db, fsm, c, bw, rt60, freqs)
             # forward path: talker → mic (on axis: the mic is aimed at the talker) → speakers → farthest listener
             g_t = _dir.mic_pattern_gain(np.full(np_, a_coef), np.ones(np_), freqs)  # (P, F)
             u2 = sens2 * (np.exp(-air[None, :] * ds[:, None]) / (ds * ds)[:, None] * g_t * g_t
@@ -361,6 +371,59 @@ def default_area(rig: Rig, inset_m: float = 0.25) -> tuple[float, float, float, 
     return (inset_m, inset_m, lx - inset_m, ly - inset_m)
 
 
+def _map_grid(rig: Rig, mic, step_m, height_m, area_m):
+    """The checked grid of a map: (height, x's, y's, grid points, the points and the mic's own position last)."""
+    step = V.in_range(step_m, "--step-m", 0.01, 10.0, unit="m")
+    z = float(mic.position_m[2]) if height_m is None else V.positive(height_m, "--height-m", unit="m")
+    if rig.room.is_shoebox and z >= rig.room.dimensions_m[2]:
+        raise InputError(f"must be below the ceiling ({rig.room.dimensions_m[2]:g} m), got {z:g} m", key="--height-m")
+    if area_m is None:
+        area_m = default_area(rig)
+    x0, y0, x1, y1 = (V.number(v, f"--area[{i}]", unit="m") for i, v in enumerate(area_m))
+    if not (x1 > x0 and y1 > y0):
+        raise InputError(f"must be X0 Y0 X1 Y1 with X1 > X0 and Y1 > Y0, got {x0:g} {y0:g} {x1:g} {y1:g}", key="--area")
+    nx = int(math.floor((x1 - x0) / step + 1e-9)) + 1
+    ny = int(math.floor((y1 - y0) / step + 1e-9)) + 1
+    if nx * ny > 250_000:
+        raise InputError(f"gives {nx} × {ny} points; expected at most 250000 (use a larger --step-m)", key="--step-m")
+    xs = x0 + step * np.arange(nx)
+    ys = y0 + step * np.arange(ny)
+    gx, gy = np.meshgrid(xs, ys)
+    pts = np.stack([gx.ravel(), gy.ravel(), np.full(gx.size, z)], axis=1)
+    own = np.asarray(mic.position_m, float)
+    pts_all = np.vstack([pts, own[None, :]])  # the rig's own position is always evaluated too
+    return z, xs, ys, pts, pts_all
+
+
+def _map_point(res: dict, pts_all, i: int) -> dict:
+    """One evaluated position of a map as JSON-ready figures."""
+    return {
+        "position_m": [round(float(v), 3) for v in pts_all[i]],
+        "margin_db": _num(res["margin_db"][i]),
+        "margin_spread_db": [_num(res["margin_lo_db"][i]), _num(res["margin_hi_db"][i])],
+        "azimuth_deg": _num(math.degrees(res["azimuth_rad"][i]), 1),
+        "elevation_deg": _num(math.degrees(res["elevation_rad"][i]), 1),
+        "limiting_band_hz": _num(res["limiting_band_hz"][i], 1),
+    }
+
+
+def _images_best(rig: Rig, mic_name, position_m, talker, sample_rate_hz, max_order, seed, f_lo_hz, f_hi_hz,
+                 best: dict, notes: list) -> None:
+    """Add the phase-aware margin of the mic alone at its best position to ``best`` and ``notes`` (images)."""
+    from howl.model.images import IMAGES_CAUTION, mic_loop_ir
+    from howl.loop.nyquist import nyquist_margin
+
+    r = moved_rig(rig, mic_name, position_m, talker=talker)
+    loop = mic_loop_ir(r, mic_name, sample_rate_hz, max_order=max_order, seed=seed)
+    nm = nyquist_margin(loop, sample_rate_hz, band_hz=(float(f_lo_hz), float(f_hi_hz)), n_risks=3)
+    best["gain_margin_db"] = _num(nm.gain_margin_db)
+    best["magnitude_margin_db"] = _num(nm.magnitude_margin_db)
+    best["howl_freq_hz"] = _num(nm.howl_freq_hz, 1)
+    notes.append("best position, the mic alone: phase-aware gain margin "
+                 f"{nm.gain_margin_db:+.1f} dB at the rig's settings, first howl near {nm.howl_freq_hz:.0f} Hz. "
+                 + IMAGES_CAUTION)
+
+
 def margin_map(
     rig: Rig,
     mic_name: str,
@@ -394,25 +457,8 @@ def margin_map(
     V.choice(talker, "--talker", TALKER_MODES)
     k = _mic_index(rig, mic_name)
     mic = rig.mics[k]
-    step = V.in_range(step_m, "--step-m", 0.01, 10.0, unit="m")
-    z = float(mic.position_m[2]) if height_m is None else V.positive(height_m, "--height-m", unit="m")
-    if rig.room.is_shoebox and z >= rig.room.dimensions_m[2]:
-        raise InputError(f"must be below the ceiling ({rig.room.dimensions_m[2]:g} m), got {z:g} m", key="--height-m")
-    if area_m is None:
-        area_m = default_area(rig)
-    x0, y0, x1, y1 = (V.number(v, f"--area[{i}]", unit="m") for i, v in enumerate(area_m))
-    if not (x1 > x0 and y1 > y0):
-        raise InputError(f"must be X0 Y0 X1 Y1 with X1 > X0 and Y1 > Y0, got {x0:g} {y0:g} {x1:g} {y1:g}", key="--area")
-    nx = int(math.floor((x1 - x0) / step + 1e-9)) + 1
-    ny = int(math.floor((y1 - y0) / step + 1e-9)) + 1
-    if nx * ny > 250_000:
-        raise InputError(f"gives {nx} × {ny} points; expected at most 250000 (use a larger --step-m)", key="--step-m")
-    xs = x0 + step * np.arange(nx)
-    ys = y0 + step * np.arange(ny)
-    gx, gy = np.meshgrid(xs, ys)
-    pts = np.stack([gx.ravel(), gy.ravel(), np.full(gx.size, z)], axis=1)
-    own = np.asarray(mic.position_m, float)
-    pts_all = np.vstack([pts, own[None, :]])  # the rig's own position is always evaluated too
+    z, xs, ys, pts, pts_all = _map_grid(rig, mic, step_m, height_m, area_m)
+    ny, nx = len(ys), len(xs)
 
     band_fn = None
     notes = []
@@ -437,32 +483,12 @@ def margin_map(
                          key="--area")
     i_best = int(np.nanargmax(res["margin_db"]))
 
-    def point(i):
-        return {
-            "position_m": [round(float(v), 3) for v in pts_all[i]],
-            "margin_db": _num(res["margin_db"][i]),
-            "margin_spread_db": [_num(res["margin_lo_db"][i]), _num(res["margin_hi_db"][i])],
-            "azimuth_deg": _num(math.degrees(res["azimuth_rad"][i]), 1),
-            "elevation_deg": _num(math.degrees(res["elevation_rad"][i]), 1),
-            "limiting_band_hz": _num(res["limiting_band_hz"][i], 1),
-        }
-
-    best = point(i_best)
+    best = _map_point(res, pts_all, i_best)
     best["on_grid"] = bool(i_best < pts.shape[0])
     if method == "images":  # the phase-aware margin of the mic alone at its best position
-        from howl.model.images import IMAGES_CAUTION, mic_loop_ir
-        from howl.loop.nyquist import nyquist_margin
-
-        r = moved_rig(rig, mic_name, pts_all[i_best], talker=talker)
-        loop = mic_loop_ir(r, mic_name, sample_rate_hz, max_order=max_order, seed=seed)
-        nm = nyquist_margin(loop, sample_rate_hz, band_hz=(float(f_lo_hz), float(f_hi_hz)), n_risks=3)
-        best["gain_margin_db"] = _num(nm.gain_margin_db)
-        best["magnitude_margin_db"] = _num(nm.magnitude_margin_db)
-        best["howl_freq_hz"] = _num(nm.howl_freq_hz, 1)
-        notes.append("best position, the mic alone: phase-aware gain margin "
-                     f"{nm.gain_margin_db:+.1f} dB at the rig's settings, first howl near {nm.howl_freq_hz:.0f} Hz. "
-                     + IMAGES_CAUTION)
-    current = point(pts_all.shape[0] - 1)
+        _images_best(rig, mic_name, pts_all[i_best], talker, sample_rate_hz, max_order, seed, f_lo_hz, f_hi_hz,
+                     best, notes)
+    current = _map_point(res, pts_all, pts_all.shape[0] - 1)
     gain = (best["margin_db"] - current["margin_db"]) if None not in (best["margin_db"], current["margin_db"]) else None
     best["beats_rig_by_db"] = None if gain is None else round(gain, 2)
     best["better"] = bool(gain is not None and best["on_grid"] and gain > RESOLUTION_DB)

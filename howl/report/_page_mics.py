@@ -52,6 +52,72 @@ def _together_line(data: SheetData) -> str:
             f"{_band_hz(data.rings_first_hz)}). Single-fader limits do not add.")
 
 
+def _draw_head(page: _Page, y: float, head_h: float) -> None:
+    """The table's column titles on a light band ``head_h`` tall."""
+    x = page.left
+    page.rect(page.left, y, page.width, head_h, lw=0, fill=_LIGHT)
+    for _key, title, frac in COLUMNS:
+        w = frac * page.width
+        for i, part in enumerate(title.split("\n")):
+            page.text(x + 3, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.0, weight="bold" if i == 0 else "normal",
+                      max_w=w - 4)
+        x += w
+    page.hline(page.left, page.right, y + head_h, lw=1.0)
+
+def _draw_row(page: _Page, y: float, m: MicLine, shade: bool, scale: float, row_h: float,
+              meas: list[MeasuredLine]) -> None:
+    """One mic's row: name, gains, planned and measured mark, ring band, stability, PAG/NAG, reach."""
+    big, mid, small = 18.0 * scale, 12.0 * scale, max(6.0, 6.5 * scale)
+    base, sub = y + row_h * 0.45, y + row_h * 0.80
+    if shade:
+        page.rect(page.left, y, page.width, row_h, lw=0, fill="0.95")
+    xs, x = {}, page.left
+    for key, _, frac in COLUMNS:
+        xs[key] = (x, frac * page.width)
+        x += frac * page.width
+
+    def put(key, yy, s, size, **kw):
+        page.text(xs[key][0] + 3, yy, s, size=size, max_w=xs[key][1] - 5, **kw)
+
+    put("mic", base, m.name, mid, weight="bold")
+    put("mic", sub, f"{m.pattern} at ({', '.join(f'{v:.1f}' for v in m.position_m)}) m", small)
+    for i, (mix, g) in enumerate(m.gains_db[:3]):
+        put("gains", y + 11 + 9 * i * scale, f"{mix} {_num(g)}", small + 0.5)
+    if len(m.gains_db) > 3:
+        put("gains", y + 11 + 27 * scale, f"+{len(m.gains_db) - 3} more mixes", small)
+    if m.max_channel_gain_db is not None:
+        put("mark", base + 2 * scale, f"{_num(m.max_channel_gain_db)} dB", big, weight="bold")
+        put("mark", sub + 1, "planned, whole loop", small)
+    else:
+        put("mark", base, "\u2013", mid, weight="bold")
+        why = ("mic muted in the rig" if not m.is_open or m.verdict in ("muted", None)
+               else "others alone past FSM" if m.pag_basis == "together" else "no limit found")
+        put("mark", sub + 1, why, small)
+    if meas:
+        worst = min(meas, key=lambda t: t.max_channel_gain_db)
+        put("meas", base, f"{_num(worst.max_channel_gain_db)} dB", mid, weight="bold")
+        put("meas", sub + 1, f"{worst.label}, howls {_hz(worst.howl_freq_hz, exact=True)}", small)
+    else:
+        put("meas", base, "not measured", small)
+    put("ring", base, _band_hz(m.limiting_band_hz), mid)
+    if m.stability is not None:
+        _stability_box(page, xs["stab"][0] + 5, base, m.stability, mid * 0.85, xs["stab"][1] - 5)
+    elif m.is_open is False or m.verdict in ("muted", "not routed"):
+        _verdict(page, xs["stab"][0] + 5, base, m.verdict if m.is_open else "muted", mid * 0.85, xs["stab"][1] - 5)
+    put("pag", base, _num(m.pag_db, sign=False), mid)
+    put("nag", base, _num(m.nag_db, sign=False), mid)
+    if m.davis_pag_db is not None:
+        put("pag", sub, f"Davis {_num(m.davis_pag_db, sign=False)}", small)
+    if m.davis_nag_db is not None:
+        put("nag", sub, f"Davis {_num(m.davis_nag_db, sign=False)}", small)
+    if m.reach == "reaches_target":
+        put("reach", base, "REACHES", mid * 0.8, weight="bold")
+    elif m.reach == "short":
+        put("reach", base, "SHORT", mid * 0.8, weight="bold")
+        put("reach", sub, f"by {_num(shortfall_shown_db(m.short_by_db), sign=False)} dB", small)
+    page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
+
+
 def mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = "a4") -> list[_Block]:
     """The per-mic table, split into blocks of rows that fit a page."""
     measured_by_mic: dict[str, list[MeasuredLine]] = {}
@@ -61,70 +127,6 @@ def mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = 
     row_h = 38.0 * scale
     rows = list(data.mics)
     together = _together_line(data)
-
-    def draw_head(page: _Page, y: float) -> None:
-        x = page.left
-        page.rect(page.left, y, page.width, head_h, lw=0, fill=_LIGHT)
-        for _key, title, frac in COLUMNS:
-            w = frac * page.width
-            for i, part in enumerate(title.split("\n")):
-                page.text(x + 3, y + 11 + 9 * i, part, size=7.5 if i == 0 else 6.0, weight="bold" if i == 0 else "normal",
-                          max_w=w - 4)
-            x += w
-        page.hline(page.left, page.right, y + head_h, lw=1.0)
-
-    def draw_row(page: _Page, y: float, m: MicLine, shade: bool) -> None:
-        big, mid, small = 18.0 * scale, 12.0 * scale, max(6.0, 6.5 * scale)
-        base, sub = y + row_h * 0.45, y + row_h * 0.80
-        if shade:
-            page.rect(page.left, y, page.width, row_h, lw=0, fill="0.95")
-        xs, x = {}, page.left
-        for key, _, frac in COLUMNS:
-            xs[key] = (x, frac * page.width)
-            x += frac * page.width
-
-        def put(key, yy, s, size, **kw):
-            page.text(xs[key][0] + 3, yy, s, size=size, max_w=xs[key][1] - 5, **kw)
-
-        put("mic", base, m.name, mid, weight="bold")
-        put("mic", sub, f"{m.pattern} at ({', '.join(f'{v:.1f}' for v in m.position_m)}) m", small)
-        for i, (mix, g) in enumerate(m.gains_db[:3]):
-            put("gains", y + 11 + 9 * i * scale, f"{mix} {_num(g)}", small + 0.5)
-        if len(m.gains_db) > 3:
-            put("gains", y + 11 + 27 * scale, f"+{len(m.gains_db) - 3} more mixes", small)
-        if m.max_channel_gain_db is not None:
-            put("mark", base + 2 * scale, f"{_num(m.max_channel_gain_db)} dB", big, weight="bold")
-            put("mark", sub + 1, "planned, whole loop", small)
-        else:
-            put("mark", base, "\u2013", mid, weight="bold")
-            why = ("mic muted in the rig" if not m.is_open or m.verdict in ("muted", None)
-                   else "others alone past FSM" if m.pag_basis == "together" else "no limit found")
-            put("mark", sub + 1, why, small)
-        meas = measured_by_mic.get(m.name, [])
-        if meas:
-            worst = min(meas, key=lambda t: t.max_channel_gain_db)
-            put("meas", base, f"{_num(worst.max_channel_gain_db)} dB", mid, weight="bold")
-            put("meas", sub + 1, f"{worst.label}, howls {_hz(worst.howl_freq_hz, exact=True)}", small)
-        else:
-            put("meas", base, "not measured", small)
-        put("ring", base, _band_hz(m.limiting_band_hz), mid)
-        if m.stability is not None:
-            _stability_box(page, xs["stab"][0] + 5, base, m.stability, mid * 0.85, xs["stab"][1] - 5)
-        elif m.is_open is False or m.verdict in ("muted", "not routed"):
-            _verdict(page, xs["stab"][0] + 5, base, m.verdict if m.is_open else "muted", mid * 0.85, xs["stab"][1] - 5)
-        put("pag", base, _num(m.pag_db, sign=False), mid)
-        put("nag", base, _num(m.nag_db, sign=False), mid)
-        if m.davis_pag_db is not None:
-            put("pag", sub, f"Davis {_num(m.davis_pag_db, sign=False)}", small)
-        if m.davis_nag_db is not None:
-            put("nag", sub, f"Davis {_num(m.davis_nag_db, sign=False)}", small)
-        if m.reach == "reaches_target":
-            put("reach", base, "REACHES", mid * 0.8, weight="bold")
-        elif m.reach == "short":
-            put("reach", base, "SHORT", mid * 0.8, weight="bold")
-            put("reach", sub, f"by {_num(shortfall_shown_db(m.short_by_db), sign=False)} dB", small)
-        page.hline(page.left, page.right, y + row_h, lw=0.4, color=_GREY)
-
     title_h = 16.0 + (12.0 if together else 0.0)
 
     def make(chunk, first):
@@ -133,10 +135,10 @@ def mic_table_blocks(page_w: float, data: SheetData, scale: float, paper: str = 
             page.text(page.right, y + 11, "dB relative to the STATED gains", size=7, ha="right")
             if together:
                 page.text(page.left, y + 24, together, size=8.5, weight="bold", max_w=page.width)
-            draw_head(page, y + title_h)
+            _draw_head(page, y + title_h, head_h)
             yy = y + title_h + head_h
             for i, m in enumerate(chunk):
-                draw_row(page, yy, m, i % 2 == 1)
+                _draw_row(page, yy, m, i % 2 == 1, scale, row_h, measured_by_mic.get(m.name, []))
                 yy += row_h
 
         return _Block(title_h + head_h + row_h * len(chunk) + 8.0, draw)

@@ -313,6 +313,32 @@ def default_notes(data_basis: str, fsm_db: float, plan_json: dict | None, has_cu
     return tuple(notes)
 
 
+def _measured_lines(rig, session: Session, margins, plan_json: dict | None, fsm: float, curves: list) -> list:
+    """One :class:`MeasuredLine` per measured pair; each pair's measured curve is appended to ``curves``."""
+    measured = []
+    if margins is None or len(margins) != len(session.pairs):
+        raise InputError("need one margin result per measured pair", key="margins")
+    check_session(session, rig)
+    for pair, mr in zip(session.pairs, margins):
+        gm = float(mr.gain_margin_db)
+        mm = float(mr.magnitude_margin_db)
+        measured.append(
+            MeasuredLine(
+                speaker=pair.speaker,
+                mic=pair.mic,
+                ir_file=pair.ir_file,
+                gain_margin_db=gm,
+                magnitude_margin_db=mm,
+                howl_freq_hz=float(mr.howl_freq_hz),
+                max_channel_gain_db=measured_mark_db(gm, mm, fsm),
+                verdict=measured_verdict(gm, mm, fsm),
+                planned_magnitude_margin_db=_planned_pair(plan_json, pair.speaker, pair.mic),
+            )
+        )
+        curves.append(_measured_curve(pair, mr, f"measured via {pair.speaker}"))
+    return measured
+
+
 def build_sheet_data(
     rig,
     *,
@@ -342,28 +368,7 @@ def build_sheet_data(
         raise InputError("nothing to print: need a plan or a measured session", key="sheet")
     fsm = float(rig.fsm_db)
     lines, curves = _mic_lines(rig, plan_json)
-    measured = []
-    if session is not None:
-        if margins is None or len(margins) != len(session.pairs):
-            raise InputError("need one margin result per measured pair", key="margins")
-        check_session(session, rig)
-        for pair, mr in zip(session.pairs, margins):
-            gm = float(mr.gain_margin_db)
-            mm = float(mr.magnitude_margin_db)
-            measured.append(
-                MeasuredLine(
-                    speaker=pair.speaker,
-                    mic=pair.mic,
-                    ir_file=pair.ir_file,
-                    gain_margin_db=gm,
-                    magnitude_margin_db=mm,
-                    howl_freq_hz=float(mr.howl_freq_hz),
-                    max_channel_gain_db=measured_mark_db(gm, mm, fsm),
-                    verdict=measured_verdict(gm, mm, fsm),
-                    planned_magnitude_margin_db=_planned_pair(plan_json, pair.speaker, pair.mic),
-                )
-            )
-            curves.append(_measured_curve(pair, mr, f"measured via {pair.speaker}"))
+    measured = [] if session is None else _measured_lines(rig, session, margins, plan_json, fsm, curves)
     cut_sets = []
     if ringouts is not None and session is not None:
         for pair, ro in zip(session.pairs, ringouts):
