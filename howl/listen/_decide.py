@@ -243,6 +243,12 @@ class _Decisions:
         return float(med[grows_along].min()) if np.any(grows_along) else float("inf")
 
     def _evaluate(self, tr: _Track, t: int) -> None:
+        """Decide one live track's state at frame ``t`` (howl, ringing, watch, program).
+
+        Long because this runs for every live track on every frame: the two cheap window tests that end
+        most calls are inlined ahead of :meth:`_window_test` to save Python call overhead (issue 21's
+        CPU target; the golden events pin the behaviour).
+        """
         cfg = self.cfg
         span = tr.frames[-1] - tr.frames[0] + 1
         rows = tr.rows
@@ -445,7 +451,11 @@ class _Decisions:
 
     def _ringdown(self, tr: _Track, live: bool = False) -> Event | None:
         """Was the fall of this track a ring-down? ``live``: the track is still fading (tested on the
-        frames so far); else it has ended (the last frames near the floor it ended at are left out)."""
+        frames so far); else it has ended (the last frames near the floor it ended at are left out).
+
+        Long because the criteria are tested in order, each only when the ones before pass, with the
+        cheap ones before any array is built (issue 21's CPU target); splitting them would rebuild the
+        shared slices per criterion."""
         cfg = self.cfg
         n = len(tr.frames)
         min_frames = int(round(cfg.min_decay_s / self.dt))
