@@ -336,6 +336,14 @@ def _images_band_loop(rig: Rig, mic_name: str, talker: str, freqs: np.ndarray, f
     a_idx = np.searchsorted(f, lo)
     b_idx = np.searchsorted(f, hi)
     hs0 = np.fft.rfft(irs0, n_fft, axis=2)  # (S, M, F): the fixed mics' transfers, once
+    from howl.model._images_chain import chain_on_grid, rig_has_chain
+
+    if rig_has_chain(rig):  # the one basis: each pair's loudspeaker response, the receiving mic's capsule and channel
+        spk_c, mic_c = chain_on_grid(rig, f, n_fft)
+        moved_chain = spk_c * mic_c[k][None, :]  # (S, F) for the moved mic's row
+        hs0 = hs0 * (spk_c[:, None, :] * mic_c[act][None, :, :])
+    else:
+        moved_chain = None
 
     def fn(points: np.ndarray) -> np.ndarray:
         out = np.empty((points.shape[0], freqs.size))
@@ -351,6 +359,8 @@ def _images_band_loop(rig: Rig, mic_name: str, talker: str, freqs: np.ndarray, f
                 row[si] = h[:n_len] * _electrical_gain(spk, mic)
             hs = hs0.copy()
             hs[:, c, :] = np.fft.rfft(row, n_fft, axis=1)  # only the moved mic's row changes
+            if moved_chain is not None:
+                hs[:, c, :] *= moved_chain
             L = np.einsum("sif,sj->fij", hs, e)  # (F, M, M)
             sr = np.max(np.abs(np.linalg.eigvals(L)), axis=-1) if L.shape[-1] > 1 else np.abs(L[:, 0, 0])
             out[q] = [20.0 * np.log10(max(float(np.max(sr[i:j])) if j > i else 1e-15, 1e-15))
