@@ -194,14 +194,14 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
     mic_objs = [rig.mics[k] for k in act]
     pair_peaks = _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs)
     out = []
+    fl = lim.all_fader_limits(p_dir, p_rev, peak_fn, fsm, rho=rho)  # every fader, batched
     for col, mc in enumerate(mic_objs):
-        bl = lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, rho=rho)
+        bl = fl["mean"][col]
         ci = lim.rings_first(bl)
         max_ch = float(bl[ci]) if np.isfinite(bl[ci]) else None
         if max_ch is not None:  # PAG with this fader at its own limit
             base, basis = max_ch, "own_fader"
-            q_lim = [float(np.min(lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, quantile=q, x0=np.where(
-                np.isfinite(bl), bl, 0.0), rho=rho))) for q in (2, 1)]
+            q_lim = [float(np.min(fl[q][col])) for q in ("q90", "q10")]
         else:  # the others alone keep the loop past -FSM: only pulling all together brings it back
             base, basis, q_lim, ci = together, "together", together_q, ti
         pag_band = fw["ag_db"][col] + base

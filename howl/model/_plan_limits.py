@@ -78,6 +78,84 @@ def worst_peak_db(p_dir, p_rev, peak_fn, quantile: int = 0) -> np.ndarray:
 
 #: Fixed-point steps for the peak factor's dependence on the fader (it converges in 2-4; see band_limits_db).
 _FIXED_POINT_STEPS = 8
+#: Noda steps for a Perron pair before falling back to a full eigendecomposition (it converges in 2-5).
+_NODA_STEPS = 12
+
+
+def _perron_pair_update(a, right, left):
+    """Perron right/left vectors of each (N, M, M) non-negative matrix ``a``, refined from a warm start.
+
+    Noda's inverse iteration (T. Noda, "Note on the computation of the maximal eigenvalue of a
+    non-negative irreducible matrix", Numer. Math. 17, 1971): with x > 0 the Collatz-Wielandt bounds
+    min_i (Ax)_i/x_i ≤ ρ(A) ≤ max_i (Ax)_i/x_i = σ hold, so σI − A has a non-negative inverse and
+    x' = (σI − A)⁻¹x stays positive; σ falls to ρ superlinearly. A few cheap solves replace an
+    eigendecomposition; the left vector is the same iteration on Aᵀ. Accepted where the bounds meet to
+    1e-12 (a certificate that this is the Perron pair); every other element (a singular or failed solve,
+    a vector that is not positive, a zero entry) falls back to :func:`howl.model.plan.perron_vectors`.
+    Returns (right, left), (N, M).
+    """
+    from howl.model.plan import perron_vectors
+
+    n, m = right.shape
+    b = np.concatenate([a, np.swapaxes(a, -1, -2)])
+    v = np.concatenate([right, left])
+    ok = np.zeros(2 * n, bool)
+    todo = np.arange(2 * n)
+    eye = np.eye(m)[None]
+    for _ in range(_NODA_STEPS):
+        bt, vt = b[todo], v[todo]
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            ratio = np.einsum("nij,nj->ni", bt, vt) / vt
+            hi, lo = np.max(ratio, axis=1), np.min(ratio, axis=1)
+            pos = np.all(vt > 0, axis=1) & np.isfinite(hi) & (lo > 0)
+            conv = pos & (hi - lo <= 1e-12 * hi)
+        ok[todo[conv]] = True
+        keep = pos & ~conv
+        todo, bt, vt, hi = todo[keep], bt[keep], vt[keep], hi[keep]
+        if todo.size == 0:
+            break
+        try:
+            w = np.linalg.solve(hi[:, None, None] * eye - bt, vt[..., None])[..., 0]
+        except np.linalg.LinAlgError:  # σ exactly ρ somewhere: let the fallback decide
+            break
+        with np.errstate(divide="ignore", invalid="ignore"):
+            v[todo] = w / np.max(np.abs(w), axis=1, keepdims=True)
+    bad = np.flatnonzero(~(ok[:n] & ok[n:]))
+    x, y = v[:n].copy(), v[n:].copy()
+    if bad.size:
+        _, x[bad], y[bad] = perron_vectors(a[bad])
+    return x, y
+
+
+def _column_schur_inverse(p, c, columns):
+    """[(I − P/c)⁻¹]_ii for the moved column i of each element: (C, F) from P (F, M, M), c (C, F)."""
+    m = p.shape[-1]
+    a = np.eye(m)[None, None] - p[None] / c[..., None, None]
+    rhs = np.zeros(a.shape[:-1] + (1,))
+    rhs[np.arange(len(columns)), :, columns, 0] = 1.0
+    try:
+        z = np.linalg.solve(a, rhs)[..., 0]
+    except np.linalg.LinAlgError:  # exactly singular in some band (ρ = c there): element by element
+        z = np.full(a.shape[:-1], np.inf)
+        for ci in range(a.shape[0]):  # rare fallback, not the hot path
+            for b in range(a.shape[1]):
+                try:
+                    z[ci, b] = np.linalg.solve(a[ci, b], rhs[ci, b])[..., 0]
+                except np.linalg.LinAlgError:
+                    pass
+    return z[np.arange(len(columns)), :, columns]
+
+
+def _others_radius(p, column, bands, cache):
+    """ρ(P_oo) (the loop without ``column``'s row and column) in ``bands``, cached per column (F,)."""
+    from howl.model.plan import spectral_radius
+
+    got = cache.setdefault(column, np.full(p.shape[0], np.nan))
+    need = bands[np.isnan(got[bands])]
+    if need.size:
+        keep = np.array([j for j in range(p.shape[-1]) if j != column])
+        got[need] = spectral_radius(p[need][:, keep[:, None], keep[None, :]])
+    return got[bands]
 
 
 def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, quantile: int = 0, *, x0=None,
@@ -95,33 +173,81 @@ def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, qua
     limit when asking for a quantile); ``rho``: ρ(P) per band if known. Converged to 1e-3 dB (the JSON
     rounds to 0.01 dB).
     """
-    from howl.model.plan import channel_loop_gain
-
     if column is None:
         return -fsm_db - worst_peak_db(p_dir, p_rev, peak_fn, quantile)
-    p = p_dir + p_rev
-    x = np.zeros(p.shape[0]) if x0 is None else np.asarray(x0, float).copy()
-    if rho is None:
-        from howl.model.plan import spectral_radius
+    return band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, [column], [quantile], x0=x0, rho=rho)[0][0]
 
+
+def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, x0=None, rho=None,
+                      vectors=None) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """:func:`band_limits_db` for several (column, quantile) pairs at once: (C, F) limits and the Perron
+    vectors (C, F, M) at the last step (a warm start for a further call).
+
+    The same fixed point, each step batched over (pairs × bands): the Perron vectors of the column-scaled
+    matrices by Rayleigh-quotient refinement (:func:`_perron_pair_update`), the moved channel's Schur
+    complement by one solve per element, ρ(P_oo) (which does not depend on the fader) once per column
+    and only where needed. Each pair stops when all its bands have settled to 1e-3 dB, as the one-pair
+    loop does. ``vectors``: (right, left) warm start, (C, F, M) or (F, M); by default P's own.
+    """
+    from howl.model.plan import perron_vectors, spectral_radius
+
+    columns = np.asarray(columns, int)
+    quantiles = np.asarray(quantiles, int)
+    p = p_dir + p_rev
+    n_c, (n_f, m, _) = columns.size, p.shape
+    x = np.zeros((n_c, n_f)) if x0 is None else np.broadcast_to(np.asarray(x0, float), (n_c, n_f)).copy()
+    if rho is None:
         rho = spectral_radius(p)
+    if vectors is None:
+        _, r0, l0 = perron_vectors(p)
+        vectors = (r0, l0)
+    right = np.broadcast_to(vectors[0], (n_c, n_f, m)).copy()
+    left = np.broadcast_to(vectors[1], (n_c, n_f, m)).copy()
+    act = np.arange(n_c)  # the pairs still moving
+    cache: dict = {}
     for _ in range(_FIXED_POINT_STEPS):
-        gk = 10.0 ** (np.clip(x, *LIMIT_RANGE_DB) / 10.0)
-        sd, sr = p_dir.copy(), p_rev.copy()
-        sd[:, :, column] *= gk[:, None]
-        sr[:, :, column] *= gk[:, None]
-        _, k = loop_k(sd, sr)
-        c = 10.0 ** (-(fsm_db + np.asarray(peak_fn(k)[quantile], float)) / 10.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lch = channel_loop_gain(p / c[:, None, None], rho / c)[:, column]
-            g = np.where(np.isinf(lch), 0.0, np.where(lch > 0, 1.0 / np.where(lch > 0, lch, 1.0), np.inf))
-            x_new = 10.0 * np.log10(g)
-        both = np.isfinite(x_new) & np.isfinite(x)
-        done = np.all(np.abs(np.where(both, x_new, 0.0) - np.where(both, x, 0.0)) < 1e-3)
-        x = x_new
-        if done:
+        cols, n_a = columns[act], act.size
+        sel = (np.arange(n_a), slice(None), slice(None), cols)
+        gk = 10.0 ** (np.clip(x[act], *LIMIT_RANGE_DB) / 10.0)
+        sd = np.repeat(p_dir[None], n_a, axis=0)
+        sr = np.repeat(p_rev[None], n_a, axis=0)
+        sd[sel] *= gk[:, :, None]
+        sr[sel] *= gk[:, :, None]
+        r, lf = _perron_pair_update((sd + sr).reshape(-1, m, m), right[act].reshape(-1, m), left[act].reshape(-1, m))
+        num = np.einsum("ni,nij,nj->n", lf, sd.reshape(-1, m, m), r)
+        den = np.einsum("ni,nij,nj->n", lf, sr.reshape(-1, m, m), r)
+        right[act], left[act] = r.reshape(n_a, n_f, m), lf.reshape(n_a, n_f, m)
+        k = (num / np.maximum(den, _TINY)).reshape(n_a, n_f)
+        pf = np.stack([np.asarray(v, float) for v in peak_fn(k)])  # (3, A, F)
+        c = 10.0 ** (-(fsm_db + pf[quantiles[act], np.arange(n_a)]) / 10.0)
+        x_new = _moved_limit_db(p, rho, c, cols, cache)
+        x_old = x[act]
+        both = np.isfinite(x_new) & np.isfinite(x_old)
+        with np.errstate(invalid="ignore"):
+            done = np.all(np.abs(np.where(both, x_new - np.where(both, x_old, 0.0), 0.0)) < 1e-3, axis=1)
+        x[act] = x_new
+        act = act[~done]
+        if act.size == 0:
             break
-    return x
+    return x, (right, left)
+
+
+def _moved_limit_db(p, rho, c, cols, cache):
+    """(A, F) dB gain 1/L_i(P/c) of the moved column i of each pair (the steps of :func:`band_limits_db`)."""
+    m = p.shape[-1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if m == 1:
+            lch = p[None, :, 0, 0] / c
+        else:
+            lch = 1.0 - 1.0 / _column_schur_inverse(p, c, cols)
+            for ci, col in enumerate(cols):  # the other mics howling among themselves: +inf
+                bad = np.flatnonzero(rho / c[ci] >= 1.0)
+                if bad.size:
+                    lch[ci, bad] = np.where(_others_radius(p, int(col), bad, cache) / c[ci, bad] >= 1.0,
+                                            np.inf, lch[ci, bad])
+            lch = np.where(np.isfinite(lch) & (lch < 0), np.inf, lch)
+        g = np.where(np.isinf(lch), 0.0, np.where(lch > 0, 1.0 / np.where(lch > 0, lch, 1.0), np.inf))
+        return 10.0 * np.log10(g)
 
 
 def rings_first(limits_db):
@@ -139,13 +265,25 @@ def rings_first(limits_db):
 def fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, column: int) -> dict:
     """One fader's band limits (N bands, or points × bands reshaped by the caller) for the mean, 90 % and
     10 % worst peak (the quantiles start from the mean's solution)."""
+    out = all_fader_limits(p_dir, p_rev, peak_fn, fsm_db, [column])
+    return {q: v[0] for q, v in out.items()}
+
+
+def all_fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, columns=None, rho=None) -> dict:
+    """Band limits (C, F) of each fader in ``columns`` (default: every mic) for the mean, 90 % and 10 %
+    worst peak: the mean for all columns in one batch, then both quantiles from it in a second."""
     from howl.model.plan import spectral_radius
 
-    rho = spectral_radius(p_dir + p_rev)
-    mean = band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 0, rho=rho)
+    p = p_dir + p_rev
+    cols = np.arange(p.shape[-1]) if columns is None else np.asarray(columns, int)
+    rho = spectral_radius(p) if rho is None else rho
+    mean, (r, lf) = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, cols, np.zeros(cols.size, int), rho=rho)
     start = np.where(np.isfinite(mean), mean, 0.0)
-    return {"mean": mean, "q90": band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 2, x0=start, rho=rho),
-            "q10": band_limits_db(p_dir, p_rev, peak_fn, fsm_db, column, 1, x0=start, rho=rho)}
+    two = np.concatenate([cols, cols])
+    q, _ = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, two, np.repeat([2, 1], cols.size),
+                             x0=np.concatenate([start, start]), rho=rho,
+                             vectors=(np.concatenate([r, r]), np.concatenate([lf, lf])))
+    return {"mean": mean, "q90": q[:cols.size], "q10": q[cols.size:]}
 
 
 def stability_as_set(worst_peak_db: float, fsm_db: float) -> str:
