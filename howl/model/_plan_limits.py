@@ -128,11 +128,13 @@ def _perron_pair_update(a, right, left):
 
 
 def _column_schur_inverse(p, c, columns):
-    """[(I − P/c)⁻¹]_ii for the moved column i of each element: (C, F) from P (F, M, M), c (C, F)."""
-    m = p.shape[-1]
+    """Column and row i of (I − P/c)⁻¹ for the moved column i of each element, (C, F, M) each, from
+    P (F, M, M) and c (C, F); the diagonal entry [(I − P/c)⁻¹]_ii is the Schur complement's."""
+    m, n_c = p.shape[-1], len(columns)
     a = np.eye(m)[None, None] - p[None] / c[..., None, None]
+    a = np.concatenate([a, np.swapaxes(a, -1, -2)])
     rhs = np.zeros(a.shape[:-1] + (1,))
-    rhs[np.arange(len(columns)), :, columns, 0] = 1.0
+    rhs[np.arange(2 * n_c), :, np.concatenate([columns, columns]), 0] = 1.0
     try:
         z = np.linalg.solve(a, rhs)[..., 0]
     except np.linalg.LinAlgError:  # exactly singular in some band (ρ = c there): element by element
@@ -143,7 +145,7 @@ def _column_schur_inverse(p, c, columns):
                     z[ci, b] = np.linalg.solve(a[ci, b], rhs[ci, b])[..., 0]
                 except np.linalg.LinAlgError:
                     pass
-    return z[np.arange(len(columns)), :, columns]
+    return z[:n_c], z[n_c:]
 
 
 def _others_radius(p, column, bands, cache):
@@ -216,11 +218,10 @@ def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, 
         r, lf = _perron_pair_update((sd + sr).reshape(-1, m, m), right[act].reshape(-1, m), left[act].reshape(-1, m))
         num = np.einsum("ni,nij,nj->n", lf, sd.reshape(-1, m, m), r)
         den = np.einsum("ni,nij,nj->n", lf, sr.reshape(-1, m, m), r)
-        right[act], left[act] = r.reshape(n_a, n_f, m), lf.reshape(n_a, n_f, m)
         k = (num / np.maximum(den, _TINY)).reshape(n_a, n_f)
         pf = np.stack([np.asarray(v, float) for v in peak_fn(k)])  # (3, A, F)
         c = 10.0 ** (-(fsm_db + pf[quantiles[act], np.arange(n_a)]) / 10.0)
-        x_new = _moved_limit_db(p, rho, c, cols, cache)
+        x_new, right[act], left[act] = _moved_limit_db(p, rho, c, cols, cache)
         x_old = x[act]
         both = np.isfinite(x_new) & np.isfinite(x_old)
         with np.errstate(invalid="ignore"):
@@ -233,13 +234,21 @@ def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, 
 
 
 def _moved_limit_db(p, rho, c, cols, cache):
-    """(A, F) dB gain 1/L_i(P/c) of the moved column i of each pair (the steps of :func:`band_limits_db`)."""
+    """(A, F) dB gain 1/L_i(P/c) of the moved column i of each pair (the steps of :func:`band_limits_db`),
+    and the Perron (right, left) vectors (A, F, M) of P with column i scaled by that gain.
+
+    At that gain the Perron root of the scaled matrix P' = P + (g − 1)·P·e_i·e_iᵀ is c, and from
+    P'x = cx, yᵀP' = cyᵀ: x ∝ (cI − P)⁻¹·P·e_i = (I − P/c)⁻¹e_i − e_i and y ∝ (cI − Pᵀ)⁻¹e_i, the column
+    and row of the inverse the Schur complement solves for anyway: the next step's warm start.
+    """
     m = p.shape[-1]
     with np.errstate(divide="ignore", invalid="ignore"):
         if m == 1:
             lch = p[None, :, 0, 0] / c
+            col_z = row_z = np.ones(c.shape + (1,))
         else:
-            lch = 1.0 - 1.0 / _column_schur_inverse(p, c, cols)
+            col_z, row_z = _column_schur_inverse(p, c, cols)
+            lch = 1.0 - 1.0 / col_z[np.arange(cols.size), :, cols]
             for ci, col in enumerate(cols):  # the other mics howling among themselves: +inf
                 bad = np.flatnonzero(rho / c[ci] >= 1.0)
                 if bad.size:
@@ -247,7 +256,9 @@ def _moved_limit_db(p, rho, c, cols, cache):
                                             np.inf, lch[ci, bad])
             lch = np.where(np.isfinite(lch) & (lch < 0), np.inf, lch)
         g = np.where(np.isinf(lch), 0.0, np.where(lch > 0, 1.0 / np.where(lch > 0, lch, 1.0), np.inf))
-        return 10.0 * np.log10(g)
+        if m > 1:
+            col_z[np.arange(cols.size), :, cols] -= 1.0
+        return 10.0 * np.log10(g), col_z, row_z
 
 
 def rings_first(limits_db):
