@@ -97,29 +97,33 @@ def _perron_pair_update(a, right, left):
     from howl.model.plan import perron_vectors
 
     n, m = right.shape
-    b = np.concatenate([a, np.swapaxes(a, -1, -2)])
     v = np.concatenate([right, left])
     ok = np.zeros(2 * n, bool)
     todo = np.arange(2 * n)
     eye = np.eye(m)[None]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # A·x and Aᵀ·y, no copy of A
+        ratio = np.concatenate([np.einsum("nij,nj->ni", a, right), np.einsum("nji,nj->ni", a, left)]) / v
     for _ in range(_NODA_STEPS):
-        bt, vt = b[todo], v[todo]
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            ratio = np.einsum("nij,nj->ni", bt, vt) / vt
+        vt = v[todo]
+        with np.errstate(invalid="ignore"):
             hi, lo = np.max(ratio, axis=1), np.min(ratio, axis=1)
             pos = np.all(vt > 0, axis=1) & np.isfinite(hi) & (lo > 0)
             conv = pos & (hi - lo <= 1e-12 * hi)
         ok[todo[conv]] = True
         keep = pos & ~conv
-        todo, bt, vt, hi = todo[keep], bt[keep], vt[keep], hi[keep]
+        todo, vt, hi = todo[keep], vt[keep], hi[keep]
         if todo.size == 0:
             break
+        bt = a[todo % n]
+        flip = todo >= n
+        bt[flip] = np.swapaxes(bt[flip], -1, -2)
         try:
             w = np.linalg.solve(hi[:, None, None] * eye - bt, vt[..., None])[..., 0]
         except np.linalg.LinAlgError:  # σ exactly ρ somewhere: let the fallback decide
             break
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             v[todo] = w / np.max(np.abs(w), axis=1, keepdims=True)
+            ratio = np.einsum("nij,nj->ni", bt, v[todo]) / v[todo]
     bad = np.flatnonzero(~(ok[:n] & ok[n:]))
     x, y = v[:n].copy(), v[n:].copy()
     if bad.size:

@@ -375,3 +375,15 @@ def test_points_times_bands_stack_matches_each_point():
         start = np.where(np.isfinite(ref), ref, 0.0)
         _assert_same(got["mean"][n * 10:(n + 1) * 10], ref)
         _assert_same(got["q90"][n * 10:(n + 1) * 10], _plain_limits(pd, pr, pf, 1, 2, start))
+
+
+def test_perron_pairs_from_a_poor_start_match_numpy_eig():
+    # reference: numpy.linalg.eig (the Perron pair of a positive matrix is its unique positive eigenvector pair);
+    # ten reducible matrices (a zero column) must take the fallback and still agree
+    rng = np.random.default_rng(7)
+    a = rng.random((120, 6, 6)) ** 3
+    a[:10, :, 2] = 0.0
+    x, y = lim._perron_pair_update(a, rng.random((120, 6)) + 0.1, rng.random((120, 6)) + 0.1)
+    _, r, lf = _perron(a)
+    for got, ref in ((x, r), (y, lf)):
+        np.testing.assert_allclose(got / got.sum(1, keepdims=True), ref / ref.sum(1, keepdims=True), atol=1e-9)
