@@ -82,8 +82,11 @@ _FIXED_POINT_STEPS = 8
 _NODA_STEPS = 12
 
 
-def _perron_pair_update(a, right, left):
+def _perron_pair_update(a, right, left, products=None):
     """Perron right/left vectors of each (N, M, M) non-negative matrix ``a``, refined from a warm start.
+
+    ``a`` may instead be a function of flat indices returning those matrices, with ``products`` = (A·x, Aᵀ·y)
+    of the warm start given (then only the elements that need iterating are ever built).
 
     Noda's inverse iteration (T. Noda, "Note on the computation of the maximal eigenvalue of a
     non-negative irreducible matrix", Numer. Math. 17, 1971): with x > 0 the Collatz-Wielandt bounds
@@ -101,8 +104,11 @@ def _perron_pair_update(a, right, left):
     ok = np.zeros(2 * n, bool)
     todo = np.arange(2 * n)
     eye = np.eye(m)[None]
+    get = a if callable(a) else (lambda flat: a[flat])
+    if products is None:
+        products = (np.einsum("nij,nj->ni", a, right), np.einsum("nji,nj->ni", a, left))
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # A·x and Aᵀ·y, no copy of A
-        ratio = np.concatenate([np.einsum("nij,nj->ni", a, right), np.einsum("nji,nj->ni", a, left)]) / v
+        ratio = np.concatenate(products) / v
     for _ in range(_NODA_STEPS):
         vt = v[todo]
         with np.errstate(invalid="ignore"):
@@ -114,7 +120,7 @@ def _perron_pair_update(a, right, left):
         todo, vt, hi = todo[keep], vt[keep], hi[keep]
         if todo.size == 0:
             break
-        bt = a[todo % n]
+        bt = get(todo % n)
         flip = todo >= n
         bt[flip] = np.swapaxes(bt[flip], -1, -2)
         try:
@@ -127,8 +133,30 @@ def _perron_pair_update(a, right, left):
     bad = np.flatnonzero(~(ok[:n] & ok[n:]))
     x, y = v[:n].copy(), v[n:].copy()
     if bad.size:
-        _, x[bad], y[bad] = perron_vectors(a[bad])
+        _, x[bad], y[bad] = perron_vectors(get(bad))
     return x, y
+
+
+def _scaled_perron(p, gk, cols, right, left):
+    """Perron (right, left) vectors (A, F, M) of P (F, M, M) with column cols[a] scaled by gk[a] (A, F), from
+    a warm start; the scaled matrices are built only for the elements Noda has to iterate on."""
+    n_a, n_f, m = right.shape
+    idx = np.arange(n_a)
+    ax = right.copy()
+    ax[idx, :, cols] *= gk
+    ax = np.einsum("fij,afj->afi", p, ax)
+    aty = np.einsum("fji,afj->afi", p, left)
+    aty[idx, :, cols] *= gk
+
+    def build(flat):
+        a, f = np.divmod(flat, n_f)
+        out = p[f].copy()
+        out[np.arange(flat.size), :, cols[a]] *= gk[a, f][:, None]
+        return out
+
+    r, lf = _perron_pair_update(build, right.reshape(-1, m), left.reshape(-1, m),
+                                (ax.reshape(-1, m), aty.reshape(-1, m)))
+    return r.reshape(n_a, n_f, m), lf.reshape(n_a, n_f, m)
 
 
 def _column_schur_inverse(p, c, columns):
@@ -213,16 +241,13 @@ def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, 
     cache: dict = {}
     for _ in range(_FIXED_POINT_STEPS):
         cols, n_a = columns[act], act.size
-        sel = (np.arange(n_a), slice(None), slice(None), cols)
         gk = 10.0 ** (np.clip(x[act], *LIMIT_RANGE_DB) / 10.0)
-        sd = np.repeat(p_dir[None], n_a, axis=0)
-        sr = np.repeat(p_rev[None], n_a, axis=0)
-        sd[sel] *= gk[:, :, None]
-        sr[sel] *= gk[:, :, None]
-        r, lf = _perron_pair_update((sd + sr).reshape(-1, m, m), right[act].reshape(-1, m), left[act].reshape(-1, m))
-        num = np.einsum("ni,nij,nj->n", lf, sd.reshape(-1, m, m), r)
-        den = np.einsum("ni,nij,nj->n", lf, sr.reshape(-1, m, m), r)
-        k = (num / np.maximum(den, _TINY)).reshape(n_a, n_f)
+        r, lf = _scaled_perron(p, gk, cols, right[act], left[act])
+        rg = r.copy()
+        rg[np.arange(n_a), :, cols] *= gk  # P'·x = P·(D_g·x): the scaled matrices are never built
+        num = np.einsum("afi,fij,afj->af", lf, p_dir, rg)
+        den = np.einsum("afi,fij,afj->af", lf, p_rev, rg)
+        k = num / np.maximum(den, _TINY)
         pf = np.stack([np.asarray(v, float) for v in peak_fn(k)])  # (3, A, F)
         c = 10.0 ** (-(fsm_db + pf[quantiles[act], np.arange(n_a)]) / 10.0)
         x_new, right[act], left[act] = _moved_limit_db(p, rho, c, cols, cache)
