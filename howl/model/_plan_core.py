@@ -194,7 +194,7 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
     mic_objs = [rig.mics[k] for k in act]
     pair_peaks = _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs)
     out = []
-    fl = lim.all_fader_limits(p_dir, p_rev, peak_fn, fsm, rho=rho)  # every fader, batched
+    fl = lim.all_fader_limits(p_dir, p_rev, peak_fn, fsm, rho=rho, vectors=(right, left))  # every fader, batched
     for col, mc in enumerate(mic_objs):
         bl = fl["mean"][col]
         ci = lim.rings_first(bl)

@@ -309,15 +309,17 @@ def fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, column: int) -> dict:
     return {q: v[0] for q, v in out.items()}
 
 
-def all_fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, columns=None, rho=None) -> dict:
+def all_fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, columns=None, rho=None, vectors=None) -> dict:
     """Band limits (C, F) of each fader in ``columns`` (default: every mic) for the mean, 90 % and 10 %
-    worst peak: the mean for all columns in one batch, then both quantiles from it in a second."""
+    worst peak: the mean for all columns in one batch, then both quantiles from it in a second.
+    ``rho``, ``vectors``: ρ(P) and P's Perron (right, left) vectors (F, M) if already known."""
     from howl.model.plan import spectral_radius
 
     p = p_dir + p_rev
     cols = np.arange(p.shape[-1]) if columns is None else np.asarray(columns, int)
     rho = spectral_radius(p) if rho is None else rho
-    mean, (r, lf) = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, cols, np.zeros(cols.size, int), rho=rho)
+    mean, (r, lf) = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, cols, np.zeros(cols.size, int), rho=rho,
+                                      vectors=vectors)
     start = np.where(np.isfinite(mean), mean, 0.0)
     two = np.concatenate([cols, cols])
     q, _ = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, two, np.repeat([2, 1], cols.size),
