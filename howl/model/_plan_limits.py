@@ -159,24 +159,48 @@ def _scaled_perron(p, gk, cols, right, left):
     return r.reshape(n_a, n_f, m), lf.reshape(n_a, n_f, m)
 
 
-def _column_schur_inverse(p, c, columns):
+def _column_schur_inverse(p, c, columns, eig=None):
     """Column and row i of (I − P/c)⁻¹ for the moved column i of each element, (C, F, M) each, from
-    P (F, M, M) and c (C, F); the diagonal entry [(I − P/c)⁻¹]_ii is the Schur complement's."""
+    P (F, M, M) and c (C, F); the diagonal entry [(I − P/c)⁻¹]_ii is the Schur complement's.
+
+    ``eig``: (λ, V, V⁻¹) of P per band, if known: then (I − P/c)⁻¹ = V·diag(c/(c − λ))·V⁻¹ costs no solve,
+    and it is kept only where its residual ‖(I − P/c)·z − e_i‖ is below 1e-12·‖z‖ (a backward-stable
+    answer, like the solve's); every other element is solved.
+    """
     m, n_c = p.shape[-1], len(columns)
-    a = np.eye(m)[None, None] - p[None] / c[..., None, None]
-    a = np.concatenate([a, np.swapaxes(a, -1, -2)])
-    rhs = np.zeros(a.shape[:-1] + (1,))
-    rhs[np.arange(2 * n_c), :, np.concatenate([columns, columns]), 0] = 1.0
-    try:
-        z = np.linalg.solve(a, rhs)[..., 0]
-    except np.linalg.LinAlgError:  # exactly singular in some band (ρ = c there): element by element
-        z = np.full(a.shape[:-1], np.inf)
-        for ci in range(a.shape[0]):  # rare fallback, not the hot path
-            for b in range(a.shape[1]):
+    idx = np.arange(n_c)
+    z = np.full((2 * n_c,) + c.shape[1:] + (m,), np.nan)
+    todo = np.ones(2 * n_c * c.shape[1], bool)
+    if eig is not None:
+        w, v, vi = eig
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            sc = c[..., None] / (c[..., None] - w[None])  # (C, F, M)
+            z[:n_c] = np.einsum("fik,afk->afi", v, sc * np.moveaxis(vi[:, :, columns], -1, 0)).real
+            z[n_c:] = np.einsum("afk,fkj->afj", sc * np.moveaxis(v[:, columns, :], 1, 0), vi).real
+            res_c = z[:n_c] - np.einsum("fij,afj->afi", p, z[:n_c]) / c[..., None]
+            res_r = z[n_c:] - np.einsum("afi,fij->afj", z[n_c:], p) / c[..., None]
+            res_c[idx, :, columns] -= 1.0
+            res_r[idx, :, columns] -= 1.0
+            size = np.max(np.abs(z), axis=-1)
+            good = np.concatenate([np.max(np.abs(res_c), axis=-1), np.max(np.abs(res_r), axis=-1)]) <= 1e-12 * size
+        todo = ~good.ravel()
+    flat = np.flatnonzero(todo)
+    if flat.size:
+        pair, band = np.divmod(flat, c.shape[1])
+        a = np.eye(m)[None] - p[band] / c[pair % n_c, band][:, None, None]
+        a = np.where((pair >= n_c)[:, None, None], np.swapaxes(a, -1, -2), a)
+        rhs = np.zeros((flat.size, m, 1))
+        rhs[np.arange(flat.size), columns[pair % n_c], 0] = 1.0
+        try:
+            sol = np.linalg.solve(a, rhs)[..., 0]
+        except np.linalg.LinAlgError:  # exactly singular somewhere (ρ = c there): element by element
+            sol = np.full((flat.size, m), np.inf)
+            for e in range(flat.size):  # rare fallback, not the hot path
                 try:
-                    z[ci, b] = np.linalg.solve(a[ci, b], rhs[ci, b])[..., 0]
+                    sol[e] = np.linalg.solve(a[e], rhs[e])[..., 0]
                 except np.linalg.LinAlgError:
                     pass
+        z[pair, band] = sol
     return z[:n_c], z[n_c:]
 
 
@@ -213,15 +237,16 @@ def band_limits_db(p_dir, p_rev, peak_fn, fsm_db: float, column: int | None, qua
 
 
 def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, x0=None, rho=None,
-                      vectors=None) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+                      vectors=None, eig=None) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
     """:func:`band_limits_db` for several (column, quantile) pairs at once: (C, F) limits and the Perron
     vectors (C, F, M) at the last step (a warm start for a further call).
 
     The same fixed point, each step batched over (pairs × bands): the Perron vectors of the column-scaled
-    matrices by Rayleigh-quotient refinement (:func:`_perron_pair_update`), the moved channel's Schur
+    matrices by Noda's iteration from a warm start (:func:`_perron_pair_update`), the moved channel's Schur
     complement by one solve per element, ρ(P_oo) (which does not depend on the fader) once per column
     and only where needed. Each pair stops when all its bands have settled to 1e-3 dB, as the one-pair
-    loop does. ``vectors``: (right, left) warm start, (C, F, M) or (F, M); by default P's own.
+    loop does. ``vectors``: (right, left) warm start, (C, F, M) or (F, M); by default P's own. ``eig``: (λ, V, V⁻¹)
+    of P per band, to spare the per-step solves (see :func:`_column_schur_inverse`).
     """
     from howl.model.plan import perron_vectors, spectral_radius
 
@@ -250,7 +275,7 @@ def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, 
         k = num / np.maximum(den, _TINY)
         pf = np.stack([np.asarray(v, float) for v in peak_fn(k)])  # (3, A, F)
         c = 10.0 ** (-(fsm_db + pf[quantiles[act], np.arange(n_a)]) / 10.0)
-        x_new, right[act], left[act] = _moved_limit_db(p, rho, c, cols, cache)
+        x_new, right[act], left[act] = _moved_limit_db(p, rho, c, cols, cache, eig)
         x_old = x[act]
         both = np.isfinite(x_new) & np.isfinite(x_old)
         with np.errstate(invalid="ignore"):
@@ -262,7 +287,7 @@ def band_limits_batch(p_dir, p_rev, peak_fn, fsm_db: float, columns, quantiles, 
     return x, (right, left)
 
 
-def _moved_limit_db(p, rho, c, cols, cache):
+def _moved_limit_db(p, rho, c, cols, cache, eig=None):
     """(A, F) dB gain 1/L_i(P/c) of the moved column i of each pair (the steps of :func:`band_limits_db`),
     and the Perron (right, left) vectors (A, F, M) of P with column i scaled by that gain.
 
@@ -276,7 +301,7 @@ def _moved_limit_db(p, rho, c, cols, cache):
             lch = p[None, :, 0, 0] / c
             col_z = row_z = np.ones(c.shape + (1,))
         else:
-            col_z, row_z = _column_schur_inverse(p, c, cols)
+            col_z, row_z = _column_schur_inverse(p, c, cols, eig)
             lch = 1.0 - 1.0 / col_z[np.arange(cols.size), :, cols]
             for ci, col in enumerate(cols):  # the other mics howling among themselves: +inf
                 bad = np.flatnonzero(rho / c[ci] >= 1.0)
@@ -318,13 +343,20 @@ def all_fader_limits(p_dir, p_rev, peak_fn, fsm_db: float, columns=None, rho=Non
     p = p_dir + p_rev
     cols = np.arange(p.shape[-1]) if columns is None else np.asarray(columns, int)
     rho = spectral_radius(p) if rho is None else rho
+    eig = None
+    if cols.size >= 3 and p.shape[-1] > 1:  # one eigendecomposition of P then spares a solve per pair and step
+        try:
+            w, v = np.linalg.eig(p)
+            eig = (w, v, np.linalg.inv(v))
+        except np.linalg.LinAlgError:  # defective somewhere: solve every step instead
+            eig = None
     mean, (r, lf) = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, cols, np.zeros(cols.size, int), rho=rho,
-                                      vectors=vectors)
+                                      vectors=vectors, eig=eig)
     start = np.where(np.isfinite(mean), mean, 0.0)
     two = np.concatenate([cols, cols])
     q, _ = band_limits_batch(p_dir, p_rev, peak_fn, fsm_db, two, np.repeat([2, 1], cols.size),
                              x0=np.concatenate([start, start]), rho=rho,
-                             vectors=(np.concatenate([r, r]), np.concatenate([lf, lf])))
+                             vectors=(np.concatenate([r, r]), np.concatenate([lf, lf])), eig=eig)
     return {"mean": mean, "q90": q[:cols.size], "q10": q[cols.size:]}
 
 
