@@ -197,8 +197,13 @@ def _column_schur_inverse(p, c, columns, eig=None):
     flat = np.flatnonzero(todo)
     if flat.size:
         pair, band = np.divmod(flat, c.shape[1])
-        a = np.eye(m)[None] - p[band] / c[pair % n_c, band][:, None, None]
-        a = np.where((pair >= n_c)[:, None, None], np.swapaxes(a, -1, -2), a)
+        if flat.size == todo.size:  # all of them (no eigenbasis): no gathering
+            a = np.eye(m)[None, None] - p[None] / c[..., None, None]
+            a = np.concatenate([a, np.swapaxes(a, -1, -2)]).reshape(-1, m, m)
+        else:
+            a = np.eye(m)[None] - p[band] / c[pair % n_c, band][:, None, None]
+            flip = pair >= n_c
+            a[flip] = np.swapaxes(a[flip], -1, -2)
         rhs = np.zeros((flat.size, m, 1))
         rhs[np.arange(flat.size), columns[pair % n_c], 0] = 1.0
         try:
