@@ -170,25 +170,25 @@ def _system(p_dir, p_rev, peak_fn, fsm, freqs):
     together = float(together_band[ti])
     together_q = [float(np.min(-fsm - rho_db - np.asarray(peak_fn(k_sys)[q], float))) for q in (2, 1)]
     stab = lim.stability_as_set(float(np.max(rho_peak_db)), fsm)
-    return dict(rho=rho, rho_db=rho_db, rho_peak_db=rho_peak_db, pf_sys=pf_sys, lch_db=lch_db,
+    return dict(rho=rho, right=right, left=left, rho_db=rho_db, rho_peak_db=rho_peak_db, pf_sys=pf_sys, lch_db=lch_db,
                 stated_margin=stated_margin, together_band=together_band, ti=ti, together=together,
                 together_q=together_q, stab=stab)
 
 
-def _mic_plan(rig, col, mc, freqs, fsm, p_dir, p_rev, peak_fn, sy, fw, tg, e, pairs):
+def _mic_plan(rig, col, mc, freqs, fsm, sy, fw, tg, e, pairs, fl):
     """The :class:`howl.model.plan.MicPlan` of active mic ``col``: its own fader's limit (or all together's),
-    PAG, NAG and margin, the Davis figures, and what EQ could buy. ``tg``: NAG per band, EAD, weights."""
+    PAG, NAG and margin, the Davis figures, and what EQ could buy. ``tg``: NAG per band, EAD, weights;
+    ``fl``: every fader's band limits (:func:`howl.model._plan_limits.all_fader_limits`)."""
     from howl.model.plan import MicPlan, davis_nag_db, davis_pag_db
 
-    rho, together, weights = sy["rho"], sy["together"], tg["weights"]
+    together, weights = sy["together"], tg["weights"]
     ag_w, nag_w, ead, m = tg["ag_w"], tg["nag_w"], tg["ead"], e.shape[1]
-    bl = lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, rho=rho)
+    bl = fl["mean"][col]
     ci = lim.rings_first(bl)
     max_ch = float(bl[ci]) if np.isfinite(bl[ci]) else None
     if max_ch is not None:  # PAG with this fader at its own limit
         base, basis = max_ch, "own_fader"
-        q_lim = [float(np.min(lim.band_limits_db(p_dir, p_rev, peak_fn, fsm, col, quantile=q, x0=np.where(
-            np.isfinite(bl), bl, 0.0), rho=rho))) for q in (2, 1)]
+        q_lim = [float(np.min(fl[q][col])) for q in ("q90", "q10")]
     else:  # the others alone keep the loop past -FSM: only pulling all together brings it back
         base, basis, q_lim, ci = together, "together", sy["together_q"], sy["ti"]
     pag_band = fw["ag_db"][col] + base
@@ -253,7 +253,8 @@ def plan_core(rig, tr: BandTransfer, acoustics, freqs, bw, fsm, fraction, peak_s
     tg = dict(nag_band=nag_band, ead=ead, weights=weights, ag_w=lim.weighted_db(fw["ag_db"], weights),
               nag_w=lim.weighted_db(nag_band, weights))
     pair_peaks = _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs)
-    out = [_mic_plan(rig, col, rig.mics[k], freqs, fsm, p_dir, p_rev, peak_fn, sy, fw, tg, e, pair_peaks[col])
+    fl = lim.all_fader_limits(p_dir, p_rev, peak_fn, fsm, rho=sy["rho"], vectors=(sy["right"], sy["left"]))
+    out = [_mic_plan(rig, col, rig.mics[k], freqs, fsm, sy, fw, tg, e, pair_peaks[col], fl)
            for col, k in enumerate(act)]
     assumptions = list(ASSUMPTIONS)
     if ead_note:
