@@ -115,17 +115,18 @@ def _pair_peaks(tr, chain, e, act, rig, peak_fn, freqs):
     what a measurement of that pair's loop should show (its phase-blind margin is minus this figure)."""
     sp = np.asarray(chain.speaker_power, float)
     mp = np.asarray(chain.mic_power, float)
-    out = []
-    for col, k in enumerate(act):
-        pairs = []
-        for s in np.flatnonzero(e[:, col] > 0):
-            g = e[s, col] ** 2 * mp[k] * sp[s]
-            d, r = tr.direct_power[s, k] * g, tr.reverberant_power[s, k] * g
-            wp = _pdb(d + r) + np.asarray(peak_fn(d / np.maximum(r, _TINY))[0], float)
-            b = int(np.argmax(wp))
-            pairs.append({"speaker": rig.speakers[s].name, "worst_peak_loop_gain_db": float(wp[b]),
-                          "band_hz": float(freqs[b])})
-        out.append(pairs)
+    idx = [(col, int(k), int(s)) for col, k in enumerate(act) for s in np.flatnonzero(e[:, col] > 0)]
+    out = [[] for _ in act]
+    if not idx:
+        return out
+    cols, ks, ss = (np.array(v) for v in zip(*idx))
+    g = e[ss, cols][:, None] ** 2 * mp[ks] * sp[ss]  # (pairs, F)
+    d, r = tr.direct_power[ss, ks] * g, tr.reverberant_power[ss, ks] * g
+    wp = _pdb(d + r) + np.asarray(peak_fn(d / np.maximum(r, _TINY))[0], float)  # every pair in one call
+    for i, (col, _, s) in enumerate(idx):
+        b = int(np.argmax(wp[i]))
+        out[col].append({"speaker": rig.speakers[s].name, "worst_peak_loop_gain_db": float(wp[i, b]),
+                         "band_hz": float(freqs[b])})
     return out
 
 
