@@ -56,6 +56,34 @@ sd._terminate()
 """
 
 
+def run_while_playing(args: list[str], wav, env, ready_prefix: str, timeout_s: float = 60.0):
+    """Start ``python -m howl ARGS`` (a live command on the loopback), wait until its stderr says
+    ``ready_prefix`` (its input stream runs), play ``wav`` into the loopback from another process, and
+    wait for the command to end. Returns (returncode, stdout, stderr up to ready + the rest, ready lines)."""
+    proc = subprocess.Popen([sys.executable, "-m", "howl", *args], env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 30
+        seen = []
+        while time.monotonic() < deadline:
+            line = proc.stderr.readline()
+            if not line:
+                break
+            seen.append(line)
+            if line.startswith(ready_prefix):
+                break
+        assert any(s.startswith(ready_prefix) for s in seen), "".join(seen)
+        player = subprocess.run([sys.executable, "-c", PLAYER, str(wav)], env=env, capture_output=True, text=True,
+                                timeout=timeout_s)
+        assert player.returncode == 0, player.stderr
+        out, err = proc.communicate(timeout=timeout_s)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    return proc.returncode, out, "".join(seen) + err, seen
+
+
 def test_listen_finds_a_howl_played_through_the_jack_loopback(tmp_path):
     env = _env()
     ok, why = _loopback_available(env)
@@ -70,31 +98,9 @@ def test_listen_finds_a_howl_played_through_the_jack_loopback(tmp_path):
     write_wav_atomic(wav, y, FS)
     log = tmp_path / "events.jsonl"
 
-    listener = subprocess.Popen(
-        [sys.executable, "-m", "howl", "listen", "--device", "loopback, JACK", "--duration", "7", "--json",
-         "--log", str(log)],
-        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        # wait until the input stream runs (the command says so on stderr)
-        deadline = time.monotonic() + 30
-        seen = []
-        while time.monotonic() < deadline:
-            line = listener.stderr.readline()
-            if not line:
-                break
-            seen.append(line)
-            if line.startswith("listening on"):
-                break
-        assert any(s.startswith("listening on") for s in seen), "".join(seen)
-        player = subprocess.run([sys.executable, "-c", PLAYER, str(wav)], env=env, capture_output=True, text=True,
-                                timeout=60)
-        assert player.returncode == 0, player.stderr
-        out, err = listener.communicate(timeout=60)
-    finally:
-        if listener.poll() is None:
-            listener.kill()
-            listener.wait()
-    assert listener.returncode == 0, "".join(seen) + err
+    rc, out, err, _ = run_while_playing(["listen", "--device", "loopback, JACK", "--duration", "7", "--json",
+                                         "--log", str(log)], wav, env, "listening on")
+    assert rc == 0, err
     rep = json.loads(out)
     assert rep["sample_rate_hz"] == FS  # from the device
     howls = [e for e in rep["events"] if e["kind"] == "howl"]

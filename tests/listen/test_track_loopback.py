@@ -14,15 +14,12 @@ truth (nyquist_margin of the true G·F, tests/listen/track_cases.py) must lie in
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
-import time
 
 import numpy as np
 
 import track_cases as C
 from conftest import require_or_skip
-from test_listen_loopback import PLAYER, _env, _loopback_available
+from test_listen_loopback import _env, _loopback_available, run_while_playing
 
 FS = 48000
 
@@ -49,31 +46,11 @@ def test_track_reports_the_margin_of_a_loop_played_through_the_jack_loopback(tmp
     write_wav_atomic(wav, np.stack([u, m], axis=1), FS)
     offline = run_track(BlockSource(iter([np.stack([u, m])]), FS)).estimates[-1]
 
-    tracker = subprocess.Popen(
-        [sys.executable, "-m", "howl", "track", "--device", "loopback, JACK", "--send-channel", "1",
-         "--mic-channel", "2", "--duration", "15", "--json", "--record", str(tmp_path / "raw.wav"),
-         "--log", str(tmp_path / "track.jsonl")],
-        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        deadline = time.monotonic() + 30
-        seen = []
-        while time.monotonic() < deadline:
-            line = tracker.stderr.readline()
-            if not line:
-                break
-            seen.append(line)
-            if line.startswith("tracking on"):
-                break
-        assert any(s.startswith("tracking on") for s in seen), "".join(seen)
-        player = subprocess.run([sys.executable, "-c", PLAYER, str(wav)], env=env, capture_output=True, text=True,
-                                timeout=60)
-        assert player.returncode == 0, player.stderr
-        out, err = tracker.communicate(timeout=60)
-    finally:
-        if tracker.poll() is None:
-            tracker.kill()
-            tracker.wait()
-    assert tracker.returncode == 0, "".join(seen) + err
+    rc, out, err, _ = run_while_playing(
+        ["track", "--device", "loopback, JACK", "--send-channel", "1", "--mic-channel", "2", "--duration", "15",
+         "--json", "--record", str(tmp_path / "raw.wav"), "--log", str(tmp_path / "track.jsonl")],
+        wav, env, "tracking on")
+    assert rc == 0, err
     rep = json.loads(out)
     assert rep["sample_rate_hz"] == FS
     assert isinstance(rep["overflows"], int)

@@ -176,14 +176,12 @@ def test_listen_with_a_send_channel_through_the_jack_loopback(tmp_path):
     channels). The howl comes out at its frequency, and the margin estimates come once a second.
     Needs jackd with its loopback ports (JACK_DEFAULT_SERVER); skips without, fails under CI
     (HOWL_REQUIRE_AUDIO_LOOPBACK), as tests/listen/test_listen_loopback.py."""
-    import subprocess
     import sys
-    import time
     from pathlib import Path
 
     sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "listen"))
     from conftest import require_or_skip
-    from test_listen_loopback import PLAYER, _env, _loopback_available
+    from test_listen_loopback import _env, _loopback_available, run_while_playing
 
     from howl.fileio import write_wav_atomic
 
@@ -194,30 +192,11 @@ def test_listen_with_a_send_channel_through_the_jack_loopback(tmp_path):
     y2 = send_and_mic(howl_hz=2345.6, dur_s=10.0, fs=fs)
     wav = tmp_path / "send_mic.wav"
     write_wav_atomic(wav, y2.astype(np.float32), fs)
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "howl", "listen", "--device", "loopback, JACK", "--in-channel", "2", "--send-channel",
-         "1", "--view", "web", "--duration", "12", "--json"],
-        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        deadline = time.monotonic() + 30
-        seen = []
-        while time.monotonic() < deadline:
-            line = proc.stderr.readline()
-            if not line:
-                break
-            seen.append(line)
-            if line.startswith("live page:"):
-                break
-        assert any(s.startswith("live page: http://127.0.0.1:") for s in seen), "".join(seen)
-        player = subprocess.run([sys.executable, "-c", PLAYER, str(wav)], env=env, capture_output=True, text=True,
-                                timeout=60)
-        assert player.returncode == 0, player.stderr
-        out, err = proc.communicate(timeout=60)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
-    assert proc.returncode == 0, "".join(seen) + err
+    rc, out, err, seen = run_while_playing(
+        ["listen", "--device", "loopback, JACK", "--in-channel", "2", "--send-channel", "1", "--view", "web",
+         "--duration", "12", "--json"], wav, env, "live page:")
+    assert any(s.startswith("live page: http://127.0.0.1:") for s in seen), err
+    assert rc == 0, err
     rep = json.loads(out)
     howls = [e for e in rep["events"] if e["kind"] == "howl"]
     assert howls and abs(howls[0]["freq_hz"] / 2345.6 - 1) < 1e-3, rep["events"]
