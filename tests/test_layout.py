@@ -175,7 +175,6 @@ LONG_FUNCTIONS = {
     "howl.loop.ringout.ring_out": 132,
     "howl.measure.audio.PortAudioBackend.play_record": 90,
     "howl.model._rigfile._room_from_dict": 102,
-    "howl.model._rigfile._rig_from_dict": 154,
     "howl.model.images.image_source_ir": 100,
     "howl.model.images.plan_with_images": 109,
     "howl.model.placement.statistical_margins": 150,

@@ -436,30 +436,8 @@ def _speakers_from(data: dict, room: Room, file: str | None, base_dir: _Path) ->
     return speakers
 
 
-def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
-    from howl.loop.desk import desk_from_table
-
-    _known_keys(data, "", RIG_KEYS, file=file)
-    name = _text(data.get("name", default_name), "name", file, allow_empty=False)
-    description = _text(data.get("description", ""), "description", file)
-    notes_raw = data.get("notes", [])
-    if not isinstance(notes_raw, list):
-        raise _v.fail("notes", "a list of strings", notes_raw, file=file)
-    notes = tuple(_text(n, f"notes[{i}]", file) for i, n in enumerate(notes_raw))
-    fsm_db = _v.in_range(data.get("fsm_db", 6.0), "fsm_db", 0.0, 30.0, unit="dB", file=file)
-    ead_m = None
-    target_spl_db = None
-    if "ead_m" in data and "target_spl_db" in data:
-        raise _InputError("give ead_m or target_spl_db, not both (ead_m follows from the target level)",
-                          file=file, key="ead_m")
-    if "ead_m" in data:
-        ead_m = _size(data["ead_m"], "ead_m", 1000.0, "m", file)
-    if "target_spl_db" in data:
-        target_spl_db = _v.in_range(data["target_spl_db"], "target_spl_db", 20.0, 130.0, unit="dB SPL", file=file)
-
-    speakers = _speakers_from(data, room, file, base_dir)
-
-    # mics
+def _mics_from(data: dict, room: Room, speakers, file, base_dir) -> list:
+    """The [[mics]] blocks, each checked (and against the loudspeakers: not at one's point)."""
     mics = []
     for i, m in enumerate(_list_of_tables(_require(data, "mics", "", file, "[[mics]] blocks"), "mics", file)):
         k = f"mics[{i}]"
@@ -488,8 +466,6 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     if not mics:
         raise _InputError("must list at least one microphone", file=file, key="mics")
     _unique([m.name for m in mics], "mics", file)
-    mic_names = [m.name for m in mics]
-    spk_names = [s.name for s in speakers]
 
     for i, m in enumerate(mics):
         for s in speakers:
@@ -500,8 +476,12 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
                     f"expected at least {MIN_MIC_SPEAKER_DISTANCE_M:g} m",
                     file=file, key=f"mics[{i}].position_m",
                 )
+    return mics
 
-    # talkers
+
+def _talkers_from(data: dict, room: Room, mics, file, base_dir) -> list:
+    """The [[talkers]] blocks, each at a mic of the rig and not at its capsule."""
+    mic_names = [m.name for m in mics]
     talkers = []
     for i, t in enumerate(_list_of_tables(data.get("talkers", []), "talkers", file)):
         k = f"talkers[{i}]"
@@ -522,8 +502,11 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
             )
         talkers.append(Talker(tname, pos, mic, level, **_c.talker_chain(t, k, file, base_dir)))
     _unique([t.name for t in talkers], "talkers", file)
+    return talkers
 
-    # listeners
+
+def _listeners_from(data: dict, room: Room, file) -> list:
+    """The [[listeners]] blocks (at least the farthest seat)."""
     listeners = []
     for i, lst in enumerate(_list_of_tables(_require(data, "listeners", "", file, "[[listeners]] blocks (at least "
                                                      "the farthest seat)"), "listeners", file)):
@@ -535,8 +518,11 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     if not listeners:
         raise _InputError("must list at least one listener (the farthest seat)", file=file, key="listeners")
     _unique([x.name for x in listeners], "listeners", file)
+    return listeners
 
-    # mixes
+
+def _mixes_from(data: dict, mic_names, spk_names, file) -> list:
+    """The [[mixes]] blocks: known loudspeakers and mics, each loudspeaker fed by one mix."""
     mixes = []
     for i, mx in enumerate(_list_of_tables(_require(data, "mixes", "", file, "[[mixes]] blocks"), "mixes", file)):
         k = f"mixes[{i}]"
@@ -568,7 +554,6 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
     if not mixes:
         raise _InputError("must list at least one mix", file=file, key="mixes")
     _unique([x.name for x in mixes], "mixes", file)
-    fed = {s for x in mixes for s in x.speakers}
     owners: dict[str, str] = {}
     for i, x in enumerate(mixes):
         for s in x.speakers:
@@ -578,6 +563,39 @@ def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room,
                     file=file, key=f"mixes[{i}].speakers",
                 )
             owners[s] = x.name
+    return mixes
+
+
+def _rig_from_dict(data: dict, *, file: str | None, base_dir: _Path, room: Room, default_name: str = "rig") -> Rig:
+    from howl.loop.desk import desk_from_table
+
+    _known_keys(data, "", RIG_KEYS, file=file)
+    name = _text(data.get("name", default_name), "name", file, allow_empty=False)
+    description = _text(data.get("description", ""), "description", file)
+    notes_raw = data.get("notes", [])
+    if not isinstance(notes_raw, list):
+        raise _v.fail("notes", "a list of strings", notes_raw, file=file)
+    notes = tuple(_text(n, f"notes[{i}]", file) for i, n in enumerate(notes_raw))
+    fsm_db = _v.in_range(data.get("fsm_db", 6.0), "fsm_db", 0.0, 30.0, unit="dB", file=file)
+    ead_m = None
+    target_spl_db = None
+    if "ead_m" in data and "target_spl_db" in data:
+        raise _InputError("give ead_m or target_spl_db, not both (ead_m follows from the target level)",
+                          file=file, key="ead_m")
+    if "ead_m" in data:
+        ead_m = _size(data["ead_m"], "ead_m", 1000.0, "m", file)
+    if "target_spl_db" in data:
+        target_spl_db = _v.in_range(data["target_spl_db"], "target_spl_db", 20.0, 130.0, unit="dB SPL", file=file)
+
+    speakers = _speakers_from(data, room, file, base_dir)
+
+    mics = _mics_from(data, room, speakers, file, base_dir)
+    mic_names = [m.name for m in mics]
+    spk_names = [s.name for s in speakers]
+    talkers = _talkers_from(data, room, mics, file, base_dir)
+    listeners = _listeners_from(data, room, file)
+    mixes = _mixes_from(data, mic_names, spk_names, file)
+    fed = {s for x in mixes for s in x.speakers}
     idle = [s for s in spk_names if s not in fed]
     if idle:
         _warnings.warn(f"{file}: loudspeaker(s) {', '.join(idle)} are in no mix and play nothing", _HowlWarning,
