@@ -128,14 +128,20 @@ def _pair_irs(fs=16000, n=1500):
     return out
 
 
-def test_a_folder_of_pair_irs_with_the_rig_mix_gives_the_mimo_margin(tmp_path):
-    from howl.model.rig import bundled_rig_path
-
+def _pair_folder(tmp_path):
+    """A folder of the pair IRs above, named <speaker>__<mic>.wav, and the IRs by (speaker, mic)."""
     folder = tmp_path / "irs"
     folder.mkdir()
     irs = _pair_irs()
     for (s, m), h in irs.items():
         _wav(folder / f"{s}__{m}.wav", h, fs=16000)
+    return folder, irs
+
+
+def test_a_folder_of_pair_irs_with_the_rig_mix_gives_the_mimo_margin(tmp_path):
+    from howl.model.rig import bundled_rig_path
+
+    folder, irs = _pair_folder(tmp_path)
     rep = _json(runner.invoke(app, ["margin", str(folder), "--rig", str(bundled_rig_path()), "--json"]))
     arr = np.array([[irs[(s, m)] for m in ["ambo", "lectern"]] for s in ["column_north", "column_south"]])
     # the bundled rig sends lectern and ambo at 25 dB to both column speakers (its mains mix)
@@ -150,11 +156,7 @@ def test_a_folder_of_pair_irs_with_the_rig_mix_gives_the_mimo_margin(tmp_path):
 def test_what_if_changes_the_rig_sends_of_a_multi_ir_loop(tmp_path):
     from howl.model.rig import bundled_rig_path
 
-    folder = tmp_path / "irs"
-    folder.mkdir()
-    irs = _pair_irs()
-    for (s, m), h in irs.items():
-        _wav(folder / f"{s}__{m}.wav", h, fs=16000)
+    folder, irs = _pair_folder(tmp_path)
     rep = _json(runner.invoke(app, ["margin", str(folder), "--rig", str(bundled_rig_path()),
                                     "--what-if", "mixes.mains.gains_db.lectern=28", "--json"]))
     arr = np.array([[irs[(s, m)] for m in ["ambo", "lectern"]] for s in ["column_north", "column_south"]])
@@ -221,11 +223,7 @@ def test_simulate_a_folder_loop_writes_one_channel_per_mic(tmp_path):
     from howl.model.rig import bundled_rig_path
     from howl.loop.simulate import simulate_mimo
 
-    folder = tmp_path / "irs"
-    folder.mkdir()
-    irs = _pair_irs()
-    for (s, m), h in irs.items():
-        _wav(folder / f"{s}__{m}.wav", h, fs=16000)
+    folder, irs = _pair_folder(tmp_path)
     x = 0.05 * np.random.default_rng(3).standard_normal(8000)
     prog = _wav(tmp_path / "prog.wav", x, fs=16000)
     out = tmp_path / "out.wav"
