@@ -170,7 +170,7 @@ LONG_MARKER = "Long because"
 #: (or give its reason) and strike it off: the list fails when a listed function is gone or short.
 LONG_FUNCTIONS = {
     "howl.cli.ringout.ringout_report": 97,
-    "howl.listen.detect.Detector.__init__": 87,
+    "howl.listen.detect.Detector.__init__": 86,
     "howl.loop._ringout_graphic.graphic_search": 91,
     "howl.loop.ringout.ring_out": 132,
     "howl.measure.audio.PortAudioBackend.play_record": 90,

@@ -75,6 +75,7 @@ def lane_config(cfg, lane_hz: float):
         rise_max_drift=cfg.rise_max_drift / 3.0, persist_s=float("inf"),
         min_phpr_other_db=float("-inf"), eval_every_frames=8, ring_max_fsd=cfg.max_fsd, ring_exact_partners=True,
         max_decay_ratio=0.75, contrast_min_pnpr_one_side_db=15.0,
+        slow_window_s=2.0 * cfg.slow_window_s if cfg.slow_low_lane and cfg.slow_window_s is not None else None,
     )
     return replace(cfg, **kw)
 

@@ -204,6 +204,16 @@ class DetectorConfig:
     line_min_span_windows: float = 1.0
     persist_min_growth_db_per_s: float | None = 1.0
     max_crossing_offset_pct: float | None = 1.0
+    slow_window_s: float | None = 1.0
+    slow_every_frames: int = 5
+    slow_min_db_per_s: float = 4.0
+    slow_min_rise_db: float = 6.0
+    slow_min_decel_ratio: float = 0.8
+    slow_max_resid_db: float = 1.0
+    slow_min_pnpr_db: float = 12.0
+    slow_max_rest_ratio: float = 0.5
+    slow_max_siblings: int | None = 1
+    slow_low_lane: bool = False
 
     def validated(self) -> "DetectorConfig":
         v.in_range(self.window_s, "window_s", 0.01, 1.0, unit="s")
@@ -224,6 +234,9 @@ class DetectorConfig:
             v.in_range(self.contrast_min_pnpr_one_side_db, "contrast_min_pnpr_one_side_db", 0.0, 80.0, unit="dB")
         if self.rise_contrast_f_hi_hz is not None:
             v.positive(self.rise_contrast_f_hi_hz, "rise_contrast_f_hi_hz", unit="Hz")
+        if self.slow_window_s is not None:
+            v.in_range(self.slow_window_s, "slow_window_s", 12 * self.hop_s, 10.0, unit="s")
+            v.integer(self.slow_every_frames, "slow_every_frames", 1, 100)
         if self.low_lane_hz is not None:
             v.in_range(self.low_lane_hz, "low_lane_hz", self.f_lo_hz, 500.0, unit="Hz", lo_open=True)
         return self

@@ -117,6 +117,7 @@ from howl.listen._report import (  # noqa: F401  (re-exported)
     summarise_notches,
 )
 from howl.listen._candidates import _CandidateSearch
+from howl.listen._slow import _SlowGrowth
 from howl.listen._decide import RING_EXACT_TOL_BINS, REFINE_FACTOR, _Decisions, _Tier, _Track  # noqa: F401
 from howl.listen._lane import Decimator, lane_config, lane_factor
 from howl.listen._types import Candidate, DetectionResult, DetectorConfig, Event  # noqa: F401  (re-exported)
@@ -159,7 +160,7 @@ LANE_TRACK_ID_OFFSET = 1_000_000
 #: frames analysed per batch (one FFT call, one feature pass)
 CHUNK_FRAMES = 256
 
-class Detector(_CandidateSearch, _Decisions):
+class Detector(_CandidateSearch, _Decisions, _SlowGrowth):
     """Streaming detector: feed blocks of any length with :meth:`process`.
 
     Parameters
@@ -237,14 +238,13 @@ class Detector(_CandidateSearch, _Decisions):
         self._next_tid = 0
         self.events: list[Event] = []
         self._pnpr_off = np.array([4, 5, 6])
-        self._ptail = None
-        self._rise_carry = None
-        self._held_carry = None
+        self._ptail = self._rise_carry = self._held_carry = None
         self.rise_frames = max(2, int(round(self.cfg.rise_lookback_s / self.dt)))
         self.k_rise_hi = max(self.k_lo + 3, min(self.k_hi, int(np.ceil(self.cfg.rise_f_hi_hz / self.bin_hz))))
         c_hi = self.cfg.rise_contrast_f_hi_hz
         self.k_contrast_hi = -1.0 if c_hi is None else c_hi / self.bin_hz
         self._harm = np.array(HARMONIC_MULTIPLIERS)
+        self._slow_setup()
         self._exact_tol_bins = 0.5 * np.maximum(1.0, self._harm)
         # a decaying partial is a clean tone, its frequency precise: a tighter tolerance there tells
         # a note's partials from loop modes ringing at near-harmonic ratios 0.2-0.6 bin off
@@ -407,10 +407,15 @@ class Detector(_CandidateSearch, _Decisions):
         allrows = self._features(power, mean_p, rows, k)
         bounds = np.searchsorted(rows, np.arange(n_f + 1))
         t0 = self._frame
+        slow = self._slow_scan(power, n_f) if self._slow_on else []
+        js = 0
         for i in range(n_f):
             i0 = int(bounds[i])
             i1 = int(bounds[i + 1])
             self._step(t0 + i, allrows[i0:i1])
+            while js < len(slow) and slow[js][0] == i:  # slow howls decided at this frame
+                self._slow_report(slow[js][1:], t0 + i)
+                js += 1
         self._frame += n_f
 
     def _step(self, t, rows) -> None:
