@@ -142,6 +142,22 @@ class DetectorConfig:
         than this (1 %) from every crossing is not a howl: a loop howls only at a crossing.
     max_track_history_s: a track keeps the last 20-40 s of its frames (every test looks back a few
         seconds at most): memory does not grow with a held tone's length.
+    slow_window_s, slow_every_frames, slow_min_db_per_s, slow_min_rise_db, slow_min_decel_ratio,
+    slow_max_resid_db, slow_min_pnpr_db, slow_max_rest_ratio, slow_max_siblings, slow_low_lane: the
+        slow-growth path (:mod:`howl.listen._slow`, issue 22): every ``slow_every_frames`` frames (5:
+        50 ms) a snapshot of the spectrum (mean power of those frames) is kept for ``slow_window_s``
+        (1.0 s; None turns the path off), and a bin whose level rises on a line over it is a howl:
+        ≥ 4 dB/s and ≥ 6 dB over the window (so ≥ 6 dB/s over 1 s), each half ≥ half the rate and the
+        second ≥ 0.8 × the first, within 1 dB rms of the line, a local maximum with PNPR ≥ 12 dB, the
+        rest of the band rising ≤ 0.5 × as fast, at most 1 other peak rising at the same rate (within
+        15 %) in the same snapshot, frequency spread and drift ≤ ``max_fsd`` on single frames, no
+        partner growing along within ``min_phpr_comod_db``. Below the low lane's top it is left to
+        the low lane, which runs it only with ``slow_low_lane`` (off: on the tuning split it added
+        3 false howls and found nothing earlier). Chosen on the tuning split of
+        tests/listen/detect_corpus.py only (window 1.0 s against 1.2 and 1.5 s: the same 58 of 64
+        found before they dominate, the same 12 false howls, median lead 0.77 s against 0.65 and
+        0.61 s; PNPR 12 against 15 dB with residual 1.0 against 0.8 dB: the same counts, lead 0.77
+        against 0.67 s).
     min_decay_span_db, min_decay_s: a ring-down must fall ≥ 10 dB over ≥ 0.15 s. It is
         tested while the track still fades (every 4 frames once the level is 10 dB
         under the track's peak) and reported as soon as it passes (``live``); a track

@@ -33,7 +33,7 @@ def _band_power_db(x, fs, f, t0, t1):
 
 
 @pytest.mark.parametrize("program, f, growth, seed", [
-    ("music", 2345.6, 5.0, 4), ("music", 1618.0, 8.0, 2), ("speech", 3911.0, 10.0, 3)])
+    ("music", 2345.6, 7.0, 4), ("music", 3100.0, 6.5, 6), ("music", 1618.0, 8.0, 2), ("speech", 3911.0, 10.0, 3)])
 def test_a_slow_howl_in_program_is_found_while_still_under_the_program(program, f, growth, seed):
     fs, dur = 16000, 7.0
     prog = (speech_like if program == "speech" else music_like)(fs, dur, seed)
@@ -43,18 +43,18 @@ def test_a_slow_howl_in_program_is_found_while_still_under_the_program(program, 
     assert on, ev
     e = on[0]
     assert e.time_s < 6.5
-    # at the decision the howl's band is still well under the whole program (it has not dominated)
-    assert _band_power_db(x, fs, f, e.time_s - 0.2, e.time_s) < -3.0
+    # at the decision the howl's band (±3 %) is still 10 dB or more under the whole program
+    assert _band_power_db(x, fs, f, e.time_s - 0.2, e.time_s) < -10.0
     assert e.growth_db_per_s == pytest.approx(growth, rel=0.3)
 
 
-def test_without_the_slow_path_a_5_db_per_s_howl_in_music_is_missed():
-    fs, dur, f = 16000, 7.0, 2345.6
-    x = music_like(fs, dur, 4) + _growing_sine(fs, f, 2.0, -62.0, 5.0, dur)
+def test_without_the_slow_path_a_6_5_db_per_s_howl_in_music_is_found_much_later():
+    fs, dur, f = 16000, 7.0, 3100.0
+    x = music_like(fs, dur, 6) + _growing_sine(fs, f, 2.0, -62.0, 6.5, dur)
     t_on = [e.time_s for e in D.detect(x, fs).events if e.kind == "howl" and abs(e.freq_hz / f - 1) <= 0.002]
     t_off = [e.time_s for e in D.detect(x, fs, D.DetectorConfig(slow_window_s=None)).events
              if e.kind == "howl" and abs(e.freq_hz / f - 1) <= 0.002]
-    assert t_on and (not t_off or t_on[0] < t_off[0])
+    assert t_on and (not t_off or t_on[0] + 1.0 < t_off[0])
 
 
 def test_a_pure_swell_linear_in_amplitude_is_not_a_slow_howl():
