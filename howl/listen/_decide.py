@@ -327,8 +327,9 @@ class _Decisions:
             if (fr_end - tr.frames[0]) * self.hop + self.n_win >= self.n_long:  # tracked over the long frame
                 kf_med = self._refine_kf(kf_med, t * self.hop + self.n_win)
             time_s = (t * self.hop + self.n_win) / self.fs
-            if self._same_event(kf_med * self.bin_hz, time_s, "lane") is not None:
-                tr.reported = "howl"  # the low lane has reported it
+            if (self._same_event(kf_med * self.bin_hz, time_s, "lane") is not None
+                    or any(abs(k - kf_med) <= 1.5 for k in self._slow_reported)):
+                tr.reported = "howl"  # the low lane or the slow-growth path has reported it
                 tr.state = "howl"
                 return
             tr.reported = "howl"

@@ -51,6 +51,7 @@ class _SlowGrowth:
     def _slow_setup(self) -> None:
         c = self.cfg
         self._slow_on = c.slow_window_s is not None
+        self._slow_reported: list[float] = []  # bins (kf) of the howls this path reported
         if not self._slow_on:
             return
         self.slow_every = int(c.slow_every_frames)
@@ -230,6 +231,7 @@ class _SlowGrowth:
                 tr.reported = tr.state = "howl"
         if self._same_event(f, time_s, "lane") is not None:
             return
+        self._slow_reported.append(kf_med)
         self._report(Event(
             time_s=time_s, onset_s=max(0.0, time_s - win_s), freq_hz=f, kind="howl", level_db=level,
             growth_db_per_s=growth, papr_db=papr, pnpr_db=pn, phpr_db=ph if np.isfinite(ph) else 200.0,
