@@ -57,8 +57,9 @@ class _SlowGrowth:
         self.slow_every = int(c.slow_every_frames)
         self.slow_len = max(6, 2 * int(round(c.slow_window_s / (self.slow_every * self.dt) / 2)))
         self._slow_c0 = self.k_lo - 1  # bin of history column 0
-        self._slow_nb = self.k_hi + 2 - self._slow_c0
-        self._slow_khi = min(self.k_rise_hi, self.k_hi) - self._slow_c0
+        # up to the rising candidates' top (8 kHz: the whole band at 16 kHz; half of it at 48 kHz, for CPU)
+        self._slow_nb = min(self.k_rise_hi, self.k_hi) + 2 - self._slow_c0
+        self._slow_khi = self._slow_nb - 2
         # below the low lane's top, the lane (finer bins) has the slow path if any (``slow_low_lane``)
         lane = c.low_lane_hz is not None and lane_factor(self.fs) >= 2
         self._slow_klo = max(7, int(np.ceil(c.low_lane_hz / self.bin_hz)) - self._slow_c0 if lane else 7)
@@ -73,25 +74,30 @@ class _SlowGrowth:
         S = self.slow_every
         band = power[:, self._slow_c0: self._slow_c0 + self._slow_nb]
         t0 = self._frame
-        snaps, ends, lasts = [], [], []
-        i = 0
-        while i < n_f:
-            j = min(n_f, i + S - (t0 + i) % S)
-            self._slow_acc += band[i:j].sum(axis=0, dtype=np.float64)
-            self._slow_cnt += j - i
-            if (t0 + j) % S == 0:
-                snaps.append(self._slow_acc / self._slow_cnt)
-                ends.append(j - 1)
-                lasts.append(band[j - 1])
-                self._slow_acc = np.zeros(self._slow_nb)
-                self._slow_cnt = 0
-            i = j
+        # the frames that complete the snapshot begun in the last chunk, whole snapshots, the rest
+        i1 = min(n_f, (S - t0 % S) % S)
+        self._slow_acc += band[:i1].sum(axis=0, dtype=np.float64)
+        self._slow_cnt += i1
+        snaps, ends = [], []
+        if (t0 + i1) % S == 0 and self._slow_cnt:
+            snaps.append((self._slow_acc / self._slow_cnt)[None, :])
+            ends.append(i1 - 1)
+            self._slow_acc, self._slow_cnt = np.zeros(self._slow_nb), 0
+        n_g = (n_f - i1) // S
+        if n_g:
+            whole = band[i1: i1 + n_g * S].reshape(n_g, S, -1).sum(axis=1, dtype=np.float64) / S
+            snaps.append(whole)
+            ends.extend(range(i1 + S - 1, i1 + n_g * S, S))
+        i2 = i1 + n_g * S
+        self._slow_acc += band[i2:].sum(axis=0, dtype=np.float64)
+        self._slow_cnt += n_f - i2
+        lasts = band[ends] if ends else None
         if not snaps:
             return []
-        new = 10.0 * np.log10(np.asarray(snaps) * self._amp_norm ** 2 + _TINY)
+        new = 10.0 * np.log10(np.concatenate(snaps) * self._amp_norm ** 2 + _TINY)
         L = self.slow_len
         H = np.concatenate([self._slow_hist, new]) if self._slow_hist.size else new
-        new_f = 10.0 * np.log10(np.asarray(lasts, dtype=np.float64) + _TINY)
+        new_f = 10.0 * np.log10(lasts.astype(np.float64) + _TINY)
         F = np.concatenate([self._slow_last, new_f]) if self._slow_last.size else new_f
         self._slow_hist = H[-(L - 1):]
         self._slow_last = F[-(L - 1):]
@@ -119,21 +125,25 @@ class _SlowGrowth:
         C0 = np.vstack([np.zeros((1, H.shape[1])), np.cumsum(H, axis=0)])
         C1 = np.vstack([np.zeros((1, H.shape[1])), np.cumsum(m * H, axis=0)])
 
-        def slope(end, n):
-            """Least-squares slope (dB/s) over rows end-n+1 … end, for each end in ``end``."""
-            sy = C0[end + 1] - C0[end + 1 - n]
-            smy = C1[end + 1] - C1[end + 1 - n]
-            mx = end[:, None] - (n - 1) / 2.0
+        def slope(end, n, k=slice(None)):
+            """Least-squares slope (dB/s) over rows end-n+1 … end, for each end in ``end`` (at bins ``k``)."""
+            sy = C0[end + 1, k] - C0[end + 1 - n, k]
+            smy = C1[end + 1, k] - C1[end + 1 - n, k]
+            mx = (end - (n - 1) / 2.0) if isinstance(k, np.ndarray) else (end[:, None] - (n - 1) / 2.0)
             return (smy - mx * sy) / (n * (n * n - 1) / 12.0) / ds
 
         ends = np.arange(first, H.shape[0])
         s = slope(ends, L)
-        s_b = slope(ends, h)
-        s_a = slope(ends - h, h)
         ok = (s >= c.slow_min_db_per_s) & (s * L * ds >= c.slow_min_rise_db)
-        ok &= (np.minimum(s_a, s_b) >= 0.5 * s) & (s_b >= c.slow_min_decel_ratio * s_a)
         ok[:, : self._slow_klo] = False
         ok[:, min(self._slow_khi, H.shape[1] - 7):] = False  # room for the ±6-bin neighbours
+        rr, kk = np.nonzero(ok)
+        # the halves, only where the whole window passed (few bins)
+        s_rk = s[rr, kk]
+        s_b = slope(ends[rr], h, kk)
+        s_a = slope(ends[rr] - h, h, kk)
+        half_ok = (np.minimum(s_a, s_b) >= 0.5 * s_rk) & (s_b >= c.slow_min_decel_ratio * s_a)
+        ok[rr[~half_ok], kk[~half_ok]] = False
         rr, kk = np.nonzero(ok)
         if rr.size == 0:
             return {}
