@@ -50,6 +50,38 @@ def test_silence_says_not_enough_program_and_widens():
     assert all(e["gain_margin_db"] is None for e in est)
 
 
+def _tone_run(tones: bool, held_tone_k: float):
+    """A closed loop (the project's simulator) around a short decaying loop with a 5 ms delay, fed with
+    white noise, or with white noise plus six held tones (a held chord the predictors cannot whiten)."""
+    from howl.listen.track import TrackSettings
+    from howl.loop.simulate import simulate_closed_loop
+
+    fs = 8000
+    rng = np.random.default_rng(5)
+    n = 12 * fs
+    t = np.arange(n) / fs
+    x = 0.01 * rng.standard_normal(n)
+    if tones:
+        x = x + sum(0.02 * np.sin(2 * np.pi * f * t + p)
+                    for f, p in [(311.1, 0.3), (392.0, 1.0), (466.2, 2.0), (622.3, 0.1), (784.0, 0.5), (1244.5, 1.1)])
+    loop = np.zeros(800)
+    loop[40:] = 0.03 * rng.standard_normal(760) * np.exp(-np.arange(760) / 120.0)
+    m = simulate_closed_loop(loop, x, fs, limiter_dbfs=None)
+    u = np.r_[np.zeros(40), m[:-40]]  # G: the 5 ms delay at unity gain; F = loop without it
+    est, _tr = C.run_tracker(u, m, fs, settings=TrackSettings(held_tone_k=held_tone_k))
+    return est[-1]
+
+
+def test_held_tones_widen_the_range_and_white_program_does_not():
+    white0, white6 = _tone_run(False, 0.0), _tone_run(False, 6.0)
+    tone0, tone6 = _tone_run(True, 0.0), _tone_run(True, 6.0)
+    print(white6, tone6)
+    assert white6["held_tone_share"] < 0.002 and white6["uncertainty_db"] == white0["uncertainty_db"]
+    assert tone6["held_tone_share"] > 0.005
+    assert tone6["gain_margin_db"] == tone0["gain_margin_db"]  # the figure is the same, only its ± grows
+    assert tone6["uncertainty_db"] > tone0["uncertainty_db"] + 0.1
+
+
 def _at(est, t):
     return min(est, key=lambda e: abs(e["time_s"] - t))
 
