@@ -77,7 +77,7 @@ class TrackSettings:
     silence_dbfs: float = -90.0      #: frames of the prewhitened send below this power are skipped
     band_hz: tuple = (50.0, None)    #: analysis band (None: 0.45 × the sample rate)
     coverage_k: float = 3.5          #: uncertainty = 20·log10(1 + this × the relative random error + …) (tuned: ≥ 90 % coverage)
-    held_tone_k: float = 6.0         #: … + this × the share of the band held by tones (the bias the ± must hold; tuned)
+    held_tone_k: float = 8.0         #: … + this × the share of the band held by tones (the bias the ± must hold; tuned)
     floor_db: float = 0.3            #: uncertainty floor (IR truncation and model error)
     max_ok_db: float = 6.0           #: beyond this uncertainty the status says not enough program
     widen_db_per_s: float = 1.0      #: growth of the uncertainty per second without program

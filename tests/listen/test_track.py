@@ -9,7 +9,6 @@ HELD-OUT cases only (the settings were tuned on the TUNING cases).
 from __future__ import annotations
 
 import functools
-import math
 
 import numpy as np
 import pytest
@@ -151,6 +150,18 @@ def test_the_truth_lies_inside_the_reported_range_in_nine_estimates_out_of_ten()
                    for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0]
     print(f"coverage {np.mean(inside):.3f} over {len(inside)} estimates")
     assert np.mean(inside) >= 0.9
+
+
+def test_in_every_case_an_ok_estimate_holds_the_truth_nine_times_out_of_ten():
+    # a pooled coverage can hide one program (held chords) read confidently wrong: per case here,
+    # over every held-out case (without the held-tone term, held_tone_k=0, room106-band's "ok"
+    # estimates here hold the truth 5 times in 7: this test failed before it)
+    for i in range(len(C.HELDOUT)):
+        est, before, *_ = _run(i)
+        ok = [abs(e["gain_margin_db"] - before.gain_margin_db) <= e["uncertainty_db"]
+              for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0 and e["status"] == "ok"]
+        print(C.HELDOUT[i], f"{sum(ok)}/{len(ok)}")
+        assert not ok or np.mean(ok) >= 0.9
 
 
 def test_ctrl_c_keeps_what_was_estimated_and_marks_the_run_interrupted(tmp_path):
