@@ -32,7 +32,8 @@ Stable interface (the web view and ``howl track`` rely on it)::
     for send_block, mic_block in blocks:
         for est in tr.process(send_block, mic_block):   # 1-D float arrays of equal length
             ...   # est: {time_s, gain_margin_db, howl_freq_hz, magnitude_margin_db,
-                  #       uncertainty_db, status, coherence, relative_error, program_s}
+                  #       uncertainty_db, status, coherence, relative_error, program_s,
+                  #       held_tone_share}
     tr.finish()      # the estimate at the end (a list of 0 or 1 dict)
     tr.loop_ir()     # the current L̂ as a loop IR (numpy array) or None
 
@@ -75,7 +76,8 @@ class TrackSettings:
     min_program_s: float = 4.0       #: program (in F's memory) before an estimate is trusted
     silence_dbfs: float = -90.0      #: frames of the prewhitened send below this power are skipped
     band_hz: tuple = (50.0, None)    #: analysis band (None: 0.45 × the sample rate)
-    coverage_k: float = 3.5          #: uncertainty = 20·log10(1 + this × the relative random error) (tuned: ≥ 90 % coverage)
+    coverage_k: float = 3.5          #: uncertainty = 20·log10(1 + this × the relative random error + …) (tuned: ≥ 90 % coverage)
+    held_tone_k: float = 8.0         #: … + this × the share of the band held by tones (the bias the ± must hold; tuned)
     floor_db: float = 0.3            #: uncertainty floor (IR truncation and model error)
     max_ok_db: float = 6.0           #: beyond this uncertainty the status says not enough program
     widen_db_per_s: float = 1.0      #: growth of the uncertainty per second without program
@@ -188,6 +190,15 @@ class LoopTracker:
         mask = F.syy > 10 ** (s.tonal_db / 10) * med
         return maximum_filter1d(mask.astype(np.uint8), size=5) > 0
 
+    def held_tone_share(self) -> float:
+        """The share of the analysis band's bins that :meth:`tonal_mask` flags (0 when the test is off)."""
+        if self.settings.tonal_db is None or not self._F.n_eff:
+            return 0.0
+        f = np.fft.rfftfreq(self._F.n_fft, 1.0 / self.fs)
+        lo, hi = self.band_hz
+        band = (f >= lo) & (f <= hi)
+        return float(np.mean(self.tonal_mask()[band])) if band.any() else 0.0
+
     def _in_band(self, ir: np.ndarray) -> np.ndarray:
         """L̂ kept to the analysis band (outside it the program says nothing: faded to zero over a
         sixth of an octave) with its tonal bins replaced by a linear interpolation of their neighbours."""
@@ -226,7 +237,7 @@ class LoopTracker:
         t = self.n_samples / self.fs
         est = {"time_s": round(t, 6), "gain_margin_db": None, "howl_freq_hz": None, "magnitude_margin_db": None,
                "uncertainty_db": None, "status": NOT_ENOUGH, "coherence": None, "relative_error": None,
-               "program_s": round(self._program_s, 3)}
+               "program_s": round(self._program_s, 3), "held_tone_share": None}
         self._solve_f()
         ir = self.loop_ir()
         if ir is None or not np.any(ir):
@@ -235,7 +246,10 @@ class LoopTracker:
         r = nyquist_margin(ir, self.fs, band_hz=self.band_hz, n_risks=0)
         f0 = r.howl_freq_hz if math.isfinite(r.gain_margin_db) else r.magnitude_peak_freq_hz
         coh, eps = self._random_error(f0)
-        unc = max(s.floor_db, 20 * math.log10(1 + s.coverage_k * eps))
+        # held tones are the source the predictors cannot whiten: their bias is not in eps, so the ±
+        # grows with the share of the band they hold (held_tone_k chosen on the TUNING split)
+        tones = self.held_tone_share()
+        unc = max(s.floor_db, 20 * math.log10(1 + s.coverage_k * eps + s.held_tone_k * tones))
         silent_s = t - (self._last_active_s if self._last_active_s is not None else 0.0)
         enough = (self._program_s >= s.min_program_s and unc <= s.max_ok_db and coh >= s.min_coherence
                   and silent_s < 2 * s.update_interval_s)
@@ -244,7 +258,8 @@ class LoopTracker:
         est.update(gain_margin_db=float(r.gain_margin_db) if math.isfinite(r.gain_margin_db) else None,
                    howl_freq_hz=float(r.howl_freq_hz) if math.isfinite(r.gain_margin_db) else None,
                    magnitude_margin_db=float(r.magnitude_margin_db), uncertainty_db=round(unc, 3),
-                   status=OK if enough else NOT_ENOUGH, coherence=round(coh, 4), relative_error=round(eps, 5))
+                   status=OK if enough else NOT_ENOUGH, coherence=round(coh, 4), relative_error=round(eps, 5),
+                   held_tone_share=round(tones, 4))
         self.latest = est
         return est
 

@@ -9,7 +9,6 @@ HELD-OUT cases only (the settings were tuned on the TUNING cases).
 from __future__ import annotations
 
 import functools
-import math
 
 import numpy as np
 import pytest
@@ -48,6 +47,38 @@ def test_silence_says_not_enough_program_and_widens():
         est += tr.process(z, z)
     assert all(e["status"] == NOT_ENOUGH for e in est)
     assert all(e["gain_margin_db"] is None for e in est)
+
+
+def _tone_run(tones: bool, held_tone_k: float):
+    """A closed loop (the project's simulator) around a short decaying loop with a 5 ms delay, fed with
+    white noise, or with white noise plus six held tones (a held chord the predictors cannot whiten)."""
+    from howl.listen.track import TrackSettings
+    from howl.loop.simulate import simulate_closed_loop
+
+    fs = 8000
+    rng = np.random.default_rng(5)
+    n = 12 * fs
+    t = np.arange(n) / fs
+    x = 0.01 * rng.standard_normal(n)
+    if tones:
+        x = x + sum(0.02 * np.sin(2 * np.pi * f * t + p)
+                    for f, p in [(311.1, 0.3), (392.0, 1.0), (466.2, 2.0), (622.3, 0.1), (784.0, 0.5), (1244.5, 1.1)])
+    loop = np.zeros(800)
+    loop[40:] = 0.03 * rng.standard_normal(760) * np.exp(-np.arange(760) / 120.0)
+    m = simulate_closed_loop(loop, x, fs, limiter_dbfs=None)
+    u = np.r_[np.zeros(40), m[:-40]]  # G: the 5 ms delay at unity gain; F = loop without it
+    est, _tr = C.run_tracker(u, m, fs, settings=TrackSettings(held_tone_k=held_tone_k))
+    return est[-1]
+
+
+def test_held_tones_widen_the_range_and_white_program_does_not():
+    white0, white6 = _tone_run(False, 0.0), _tone_run(False, 6.0)
+    tone0, tone6 = _tone_run(True, 0.0), _tone_run(True, 6.0)
+    print(white6, tone6)
+    assert white6["held_tone_share"] < 0.002 and white6["uncertainty_db"] == white0["uncertainty_db"]
+    assert tone6["held_tone_share"] > 0.005
+    assert tone6["gain_margin_db"] == tone0["gain_margin_db"]  # the figure is the same, only its ± grows
+    assert tone6["uncertainty_db"] > tone0["uncertainty_db"] + 0.1
 
 
 def _at(est, t):
@@ -119,6 +150,18 @@ def test_the_truth_lies_inside_the_reported_range_in_nine_estimates_out_of_ten()
                    for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0]
     print(f"coverage {np.mean(inside):.3f} over {len(inside)} estimates")
     assert np.mean(inside) >= 0.9
+
+
+def test_in_every_case_an_ok_estimate_holds_the_truth_nine_times_out_of_ten():
+    # a pooled coverage can hide one program (held chords) read confidently wrong: per case here,
+    # over every held-out case (without the held-tone term, held_tone_k=0, room106-band's "ok"
+    # estimates here hold the truth 5 times in 7: this test failed before it)
+    for i in range(len(C.HELDOUT)):
+        est, before, *_ = _run(i)
+        ok = [abs(e["gain_margin_db"] - before.gain_margin_db) <= e["uncertainty_db"]
+              for e in est if e["gain_margin_db"] is not None and e["time_s"] >= 3.0 and e["status"] == "ok"]
+        print(C.HELDOUT[i], f"{sum(ok)}/{len(ok)}")
+        assert not ok or np.mean(ok) >= 0.9
 
 
 def test_ctrl_c_keeps_what_was_estimated_and_marks_the_run_interrupted(tmp_path):

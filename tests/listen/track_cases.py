@@ -125,10 +125,16 @@ def render(case: Case, dur_s: float, fs: int = FS, *, step_at_s=None, step_db=0.
 
 TUNING = [Case(1, "speech", 11, 6.0), Case(2, "band", 12, 4.0, 6.0), Case(3, "speech", 13, 3.0, 2.5),
           Case(4, "band", 14, 8.0, 3.0, 25.0), Case(5, "speech", 15, 5.0, 5.0, 35.0),
-          Case(6, "voiced", 16, 5.0, 4.0), Case(7, "chords", 17, 5.0, 4.0)]
+          Case(6, "voiced", 16, 5.0, 4.0), Case(7, "chords", 17, 5.0, 4.0),
+          # added with issue 23 (the split grew from 7 to 12 cases; new rooms and program seeds)
+          Case(8, "band", 18, 5.5, 3.0), Case(9, "speech", 19, 4.0, 5.0, 25.0), Case(10, "chords", 20, 3.5, 3.0),
+          Case(11, "voiced", 21, 6.5, 5.0, 35.0), Case(12, "speech", 22, 2.0, 4.0)]
 HELDOUT = [Case(101, "speech", 211, 5.0), Case(102, "band", 212, 3.5, 5.0), Case(103, "speech", 213, 7.0, 3.0),
            Case(104, "band", 214, 4.5, 2.0, 35.0), Case(105, "speech", 215, 2.5, 6.0, 25.0),
-           Case(106, "band", 216, 6.0, 4.0), Case(107, "voiced", 217, 4.0, 3.0), Case(108, "chords", 218, 6.0, 5.0)]
+           Case(106, "band", 216, 6.0, 4.0), Case(107, "voiced", 217, 4.0, 3.0), Case(108, "chords", 218, 6.0, 5.0),
+           # added with issue 23 (the split grew from 8 to 12 cases; the first 8 keep their indices)
+           Case(109, "speech", 219, 3.5, 4.0, 35.0), Case(110, "band", 220, 5.0, 3.0, 25.0),
+           Case(111, "chords", 221, 4.0, 5.0), Case(112, "voiced", 222, 2.0, 2.0)]
 
 
 def run_tracker(u, m, fs, settings=None, block=1024):
