@@ -174,9 +174,9 @@ LONG_FUNCTIONS = {
     "howl.loop._ringout_graphic.graphic_search": 91,
     "howl.loop.ringout.ring_out": 132,
     "howl.measure.audio.PortAudioBackend.play_record": 90,
-    "howl.model._rigfile._room_from_dict": 102,
+    "howl.model._roomfile._room_from_dict": 102,
     "howl.model.images.image_source_ir": 100,
-    "howl.model.images.plan_with_images": 109,
+    "howl.model._images_plan.plan_with_images": 109,
     "howl.model.placement.statistical_margins": 150,
     "howl.report._page._cuts_blocks": 81,
 }

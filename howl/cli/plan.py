@@ -66,19 +66,10 @@ def register(app: typer.Typer) -> None:
             obj["what_if"] = list(what_if)
             images = None
             if method == "images":
-                try:
-                    from howl.model.images import plan_with_images
-                except ImportError:
-                    raise InputError(
-                        "the images method is unavailable (howl.images.plan_with_images is missing); "
-                        "use --method statistical", key="--method",
-                    ) from None
-                import inspect
+                from howl.model.images import plan_with_images
 
-                extra = {"fraction": fraction, "f_lo_hz": f_lo_hz, "f_hi_hz": f_hi_hz}
-                accepted = inspect.signature(plan_with_images).parameters
-                images = plan_with_images(rig, sample_rate_hz=16000,
-                                          **{k: v for k, v in extra.items() if k in accepted})
+                images = plan_with_images(rig, sample_rate_hz=16000, fraction=fraction, f_lo_hz=f_lo_hz,
+                                          f_hi_hz=f_hi_hz)
                 obj["images"] = images
                 obj["method"] = "statistical+images"
 

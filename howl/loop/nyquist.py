@@ -36,6 +36,7 @@ import numpy as np
 from howl import validate as V
 from howl.errors import HowlWarning, InputError
 from howl.loop._dtft import _FastDTFT, _next_pow2, dtft  # noqa: F401  (re-exported)
+from howl.loop._bandgain import band_loop_gain_db, third_octave_loop_gain  # noqa: F401  (re-exported)
 from howl.loop._risks import Risk, lobe_risks  # noqa: F401  (Risk re-exported)
 from howl.units import db, from_db
 
@@ -572,55 +573,6 @@ def _magnitude_peak(L, f, mag2):
             if mx > mpk:
                 fpk, mpk = float(fx), mx
     return fpk, mpk
-
-
-def _band_edges(centres_hz: np.ndarray, fraction: int) -> tuple[np.ndarray, np.ndarray]:
-    try:  # the project's IEC 61260-1 implementation, when present
-        from howl.bands import band_edges_hz
-
-        return band_edges_hz(np.asarray(centres_hz, dtype=float), fraction)
-    except ImportError:
-        # IEC 61260-1:2014 base-10 band edges: f_m · G^(±1/(2b)), G = 10^(3/10)
-        G = 10.0 ** 0.3
-        c = np.asarray(centres_hz, dtype=float)
-        return c * G ** (-1.0 / (2 * fraction)), c * G ** (1.0 / (2 * fraction))
-
-
-def band_loop_gain_db(freq_hz, H, centres_hz, fraction) -> np.ndarray:
-    """Broadband loop gain per fractional-octave band: 10·log10 of the mean |H|² in each band.
-
-    On a uniform frequency grid the mean of |H|² over the band is the power
-    average (Parseval). Band edges per IEC 61260-1:2014 (base 10). Bands with
-    no grid point get NaN.
-    """
-    f = np.asarray(freq_hz, dtype=float)
-    p = np.abs(np.asarray(H)) ** 2
-    lo, hi = _band_edges(np.atleast_1d(centres_hz), int(fraction))
-    out = np.full(np.size(lo), np.nan)
-    a = np.searchsorted(f, lo, side="left")
-    b = np.searchsorted(f, hi, side="left")
-    cs = np.concatenate([[0.0], np.cumsum(p)])
-    for i, (ia, ib) in enumerate(zip(a, b)):
-        if ib > ia:
-            out[i] = 10.0 * np.log10(max((cs[ib] - cs[ia]) / (ib - ia), 1e-300))
-    return out
-
-
-def third_octave_loop_gain(freq_hz, H, band_hz) -> tuple[np.ndarray, np.ndarray]:
-    """1/3-octave centres inside ``band_hz`` (≥ 20 Hz) and the loop gain per band (dB)."""
-    lo = max(float(band_hz[0]), 20.0)
-    hi = float(band_hz[1])
-    try:
-        from howl.bands import band_centres_hz
-
-        c = np.asarray(band_centres_hz(3, lo, hi), dtype=float)
-    except ImportError:
-        # IEC 61260-1:2014 exact mid-band frequencies, base 10, b = 3: 1000·G^(x/3)
-        G = 10.0 ** 0.3
-        x = np.arange(-40, 40)
-        c = 1000.0 * G ** (x / 3.0)
-        c = c[(c >= lo) & (c <= hi)]
-    return c, band_loop_gain_db(freq_hz, H, c, 3)
 
 
 def warn_ir(ir, sample_rate_hz) -> None:

@@ -53,7 +53,7 @@ _NAMES = {
     "shoebox_images": "images",
     "mic_loop_ir": "images",
     "rig_loop_irs": "images",
-    "plan_with_images": "images",
+    "plan_with_images": "_images_plan",
     "plan_rig": "plan",
     "plan_to_json": "plan",
     "mix_matrix": "plan",

@@ -11,15 +11,12 @@ from __future__ import annotations
 from howl.model.rig import (
     MIC_PATTERNS,
     OCTAVE_BANDS_HZ,
-    SHOEBOX_SURFACES,
     Listener,
-    Material,
     Mic,
     Mix,
     Rig,
     Room,
     Speaker,
-    Surface,
     Talker,
 )
 
@@ -40,10 +37,6 @@ from howl.model import _chainfile as _c
 from howl.errors import HowlWarning as _HowlWarning
 from howl.errors import InputError as _InputError
 
-ROOM_KEYS = ("name", "description", "temperature_c", "humidity_pct", "shoebox", "surfaces", "free_shape", "materials")
-SHOEBOX_KEYS = ("length_m", "width_m", "height_m")
-FREE_SHAPE_KEYS = ("volume_m3", "surface_m2", "mean_absorption", "material", "rt60_s")
-PATCH_KEYS = ("material", "area_m2")
 RIG_KEYS = (
     "name", "description", "notes", "room_file", "fsm_db", "ead_m", "target_spl_db",
     "speakers", "mics", "talkers", "listeners", "mixes", "desk",
@@ -66,313 +59,18 @@ MIN_MIC_SPEAKER_DISTANCE_M = 0.05
 MIN_TALKER_MIC_DISTANCE_M = 0.01
 #: Position tolerance at the walls of a shoebox (a speaker hung flush on a wall is inside).
 _WALL_TOL_M = 1e-9
-#: The smallest surface a closed shape of volume V can have is the sphere's, (36π)^(1/3)·V^(2/3).
-_SPHERE_SURFACE_FACTOR = (36.0 * _math.pi) ** (1.0 / 3.0)
 
 
 # ---------------------------------------------------------------------------- TOML ----
 
 from howl.model._tomlfile import _read_toml  # noqa: E402  (TOML reading lives there)
-
-
-# ----------------------------------------------------------------------- helpers ----
-
-def _table(value: _Any, key: str, file: str | None, what: str = "a table") -> dict:
-    if not isinstance(value, dict):
-        raise _v.fail(key, what, value, file=file)
-    return value
-
-
-def _require(table: dict, name: str, key: str, file: str | None, hint: str) -> _Any:
-    if name not in table:
-        path = f"{key}.{name}" if key else name
-        raise _InputError(f"missing key (expected {hint})", file=file, key=path)
-    return table[name]
-
-
-def _text(value: _Any, key: str, file: str | None, *, allow_empty: bool = True) -> str:
-    if not isinstance(value, str) or (not allow_empty and not value.strip()):
-        raise _v.fail(key, "a string" if allow_empty else "a non-empty string", value, file=file)
-    return value
-
-
-#: longest name accepted (it has to fit a column of the desk sheet and a file name)
-MAX_NAME_CHARS = 100
-#: most blocks of one kind ([[speakers]], [[mics]]...) in a rig: far beyond any real show
-MAX_BLOCKS = 512
-
-
-def _name(value: _Any, key: str, file: str | None) -> str:
-    if isinstance(value, str) and len(value) > MAX_NAME_CHARS:
-        raise _InputError(f"must be a name of at most {MAX_NAME_CHARS} characters, got {len(value)} "
-                          f"({value[:20]!r}...)", file=file, key=key)
-    s = _v.string(value, key, file=file)
-    if s != s.strip() or any(ch in s for ch in "=.[]\"'\n\t"):
-        raise _v.fail(key, "a name without spaces at the ends and without = . [ ] or quotes", value, file=file)
-    return s
-
-
-def _size(value: _Any, key: str, hi: float, unit: str, file: str | None) -> float:
-    """A size > 0 (zero and negative sizes are refused first, then absurdly large ones)."""
-    x = _v.positive(value, key, unit=unit, file=file)
-    return _v.in_range(x, key, 0.0, hi, unit=unit, lo_open=True, file=file)
-
-
-def _known_keys(table: dict, name: str, allowed, *, file: str | None) -> None:
-    """Refuse unknown keys (did-you-mean hint); a key with control characters is shown escaped."""
-    try:
-        _v.known_keys(table, name, allowed, file=file)
-    except _InputError as exc:
-        raise _InputError(exc.message, file=file, key=_printable(exc.key) if exc.key else exc.key) from None
-
-
-def _boolean(value: _Any, key: str, file: str | None) -> bool:
-    if not isinstance(value, bool):
-        raise _v.fail(key, "true or false", value, file=file)
-    return value
-
-
-def _list_of_tables(value: _Any, key: str, file: str | None) -> list:
-    if not isinstance(value, list):
-        raise _v.fail(key, f"an array of tables ([[{key}]] blocks)", value, file=file)
-    if len(value) > MAX_BLOCKS:
-        raise _InputError(f"holds {len(value)} [[{key}]] blocks; expected at most {MAX_BLOCKS}", file=file, key=key)
-    for i, item in enumerate(value):
-        if not isinstance(item, dict):
-            raise _v.fail(f"{key}[{i}]", "a table", item, file=file)
-    return value
-
-
-def _unique(names: list[str], key: str, file: str | None) -> None:
-    seen: dict[str, int] = {}
-    for i, n in enumerate(names):
-        if n in seen:
-            raise _InputError(
-                f"duplicate name {n!r} (also used by {key}[{seen[n]}]); names must be unique",
-                file=file, key=f"{key}[{i}].name",
-            )
-        seen[n] = i
-
-
-def _resolve_file(value: _Any, key: str, file: str | None, base_dir: _Path) -> str:
-    s = _text(value, key, file, allow_empty=False)
-    p = _Path(s)
-    if not p.is_absolute():
-        p = base_dir / p
-    if not p.is_file():
-        raise _InputError(f"file not found: {str(p)!r}", file=file, key=key)
-    return str(p.resolve())
-
-
-def _unknown_name(kind: str, name: str, options: list[str]) -> str:
-    hint = _v.closest(name, options)
-    tail = f" (did you mean {hint!r}?)" if hint else (f"; known: {', '.join(options)}" if options else "; none defined")
-    return f"no {kind} named {name!r}{tail}"
-
-
-# -------------------------------------------------------------------------- room ----
-
-def _parse_surface(
-    value: _Any, key: str, area_m2: float, table: dict[str, Material], file: str | None, surface_name: str
-) -> Surface:
-    """A surface is a material name, or a list of patches {material, area_m2}; one patch may omit the area."""
-    if isinstance(value, str):
-        mat = _material(value, key, table, file)
-        return Surface(surface_name, area_m2, mat.name, mat.absorption)
-    if not isinstance(value, list) or not value:
-        raise _v.fail(key, "a material name or a list of {material, area_m2} patches", value, file=file)
-    patches = []
-    rest_index = None
-    for i, item in enumerate(value):
-        pk = f"{key}[{i}]"
-        item = _table(item, pk, file, "a table {material = ..., area_m2 = ...}")
-        _known_keys(item, pk, PATCH_KEYS, file=file)
-        mat = _material(_require(item, "material", pk, file, "a material name"), f"{pk}.material", table, file)
-        if "area_m2" in item:
-            a = _v.positive(item["area_m2"], f"{pk}.area_m2", unit="m²", file=file)
-        else:
-            if rest_index is not None:
-                raise _InputError(
-                    f"only one patch may leave out area_m2 (so it takes the rest); {key}[{rest_index}] already does",
-                    file=file, key=f"{pk}.area_m2",
-                )
-            rest_index = i
-            a = None
-        patches.append((mat, a))
-    given = sum(a for _, a in patches if a is not None)
-    if rest_index is None:
-        if abs(given - area_m2) > 0.01 * area_m2:
-            raise _InputError(
-                f"patch areas add up to {given:g} m² but the surface is {area_m2:g} m²; "
-                "leave area_m2 out of one patch to give it the rest",
-                file=file, key=key,
-            )
-        scale = area_m2 / given
-        patches = [(m, a * scale) for m, a in patches]
-    else:
-        rest = area_m2 - given
-        if rest <= 0.0:
-            raise _InputError(
-                f"patch areas add up to {given:g} m², more than the surface's {area_m2:g} m²",
-                file=file, key=key,
-            )
-        patches = [(m, rest if a is None else a) for m, a in patches]
-    absorption = tuple(
-        sum(m.absorption[b] * a for m, a in patches) / area_m2 for b in range(len(OCTAVE_BANDS_HZ))
-    )
-    label = " + ".join(f"{m.name} {a:.3g} m²" for m, a in patches) if len(patches) > 1 else patches[0][0].name
-    return Surface(surface_name, area_m2, label, absorption)
-
-
-def _material(value: _Any, key: str, table: dict[str, Material], file: str | None) -> Material:
-    name = _text(value, key, file, allow_empty=False)
-    if name not in table:
-        raise _InputError(
-            _unknown_name("material", name, sorted(table)) + " (add it under [materials] in the room file)",
-            file=file, key=key,
-        )
-    return table[name]
-
-
-def _room_from_dict(data: dict, *, file: str | None, default_name: str = "room") -> Room:
-    from howl.model.materials import band_values, material_table, parse_materials
-
-    if "room_file" in data and "room_file" not in ROOM_KEYS:
-        raise _InputError(
-            f"this looks like a rig file (it names room_file = {data['room_file']!r}); expected a room file",
-            file=file, key="room_file",
-        )
-    _known_keys(data, "", ROOM_KEYS, file=file)
-    name = _text(data.get("name", default_name), "name", file, allow_empty=False)
-    description = _text(data.get("description", ""), "description", file)
-    temperature_c = _v.in_range(data.get("temperature_c", 20.0), "temperature_c", -20.0, 50.0, unit="°C", file=file)
-    humidity_pct = _v.in_range(data.get("humidity_pct", 50.0), "humidity_pct", 0.0, 100.0, unit="%", file=file)
-    if humidity_pct < 10.0:
-        _warnings.warn(
-            f"{file}: humidity_pct = {humidity_pct:g} % is very dry; air absorption (ISO 9613-1) is less accurate there",
-            _HowlWarning, stacklevel=3,
-        )
-    additions = parse_materials(data["materials"], key="materials", file=file) if "materials" in data else {}
-    table = material_table(additions)
-
-    has_box, has_free = "shoebox" in data, "free_shape" in data
-    if has_box == has_free:
-        raise _InputError(
-            "a room needs exactly one of [shoebox] (length_m, width_m, height_m + [surfaces]) "
-            "or [free_shape] (volume_m3, surface_m2, and mean_absorption, material or rt60_s)"
-            + (", found both" if has_box else ", found neither"),
-            file=file, key="shoebox" if has_box else None,
-        )
-    if has_box:
-        box = _table(data["shoebox"], "shoebox", file)
-        _known_keys(box, "shoebox", SHOEBOX_KEYS, file=file)
-        dims = []
-        for k in SHOEBOX_KEYS:
-            val = _require(box, k, "shoebox", file, "a size in metres > 0")
-            dims.append(_size(val, f"shoebox.{k}", 1000.0, "m", file))
-        length, width, height = dims
-        if "surfaces" not in data:
-            raise _InputError(
-                f"missing table [surfaces] with a material for each of {', '.join(SHOEBOX_SURFACES)}", file=file,
-                key="surfaces",
-            )
-        surf = _table(data["surfaces"], "surfaces", file)
-        _known_keys(surf, "surfaces", SHOEBOX_SURFACES, file=file)
-        missing = [s for s in SHOEBOX_SURFACES if s not in surf]
-        if missing:
-            raise _InputError(
-                f"missing material for {', '.join(missing)} (every shoebox surface needs one)", file=file, key="surfaces"
-            )
-        areas = {
-            "floor": length * width, "ceiling": length * width,
-            "wall_x0": width * height, "wall_x1": width * height,
-            "wall_y0": length * height, "wall_y1": length * height,
-        }
-        surfaces = tuple(
-            _parse_surface(surf[s], f"surfaces.{s}", areas[s], table, file, s) for s in SHOEBOX_SURFACES
-        )
-        return Room(
-            name=name, volume_m3=length * width * height, surface_m2=sum(areas.values()), surfaces=surfaces,
-            dimensions_m=(length, width, height), temperature_c=temperature_c, humidity_pct=humidity_pct,
-            source_file=file, description=description,
-        )
-
-    if "surfaces" in data:
-        raise _InputError("[surfaces] applies to a [shoebox] room only; a free shape uses free_shape.mean_absorption, "
-                          "free_shape.material or free_shape.rt60_s", file=file, key="surfaces")
-    free = _table(data["free_shape"], "free_shape", file)
-    _known_keys(free, "free_shape", FREE_SHAPE_KEYS, file=file)
-    volume = _size(_require(free, "volume_m3", "free_shape", file, "a volume in m³ > 0"),
-                   "free_shape.volume_m3", 1e9, "m³", file)
-    surface = _size(_require(free, "surface_m2", "free_shape", file, "a surface in m² > 0"),
-                    "free_shape.surface_m2", 1e8, "m²", file)
-    s_min = _SPHERE_SURFACE_FACTOR * volume ** (2.0 / 3.0)
-    if surface < s_min * (1.0 - 1e-9):
-        raise _InputError(
-            f"must be at least {s_min:.4g} m² (a sphere's surface for volume_m3 = {volume:g}), got {surface:g} m²",
-            file=file, key="free_shape.surface_m2",
-        )
-    given = [k for k in ("mean_absorption", "material", "rt60_s") if k in free]
-    if len(given) != 1:
-        raise _InputError(
-            "give exactly one of mean_absorption (7 numbers), material (a name) or rt60_s (7 numbers)"
-            + (f", found {', '.join(given)}" if given else ", found none"),
-            file=file, key="free_shape",
-        )
-    rt60 = None
-    if given[0] == "rt60_s":
-        rt60 = band_values(free["rt60_s"], "free_shape.rt60_s", lo=0.1, hi=20.0, unit="s", file=file)
-        surfaces: tuple[Surface, ...] = ()
-    elif given[0] == "material":
-        mat = _material(free["material"], "free_shape.material", table, file)
-        surfaces = (Surface("average", surface, mat.name, mat.absorption),)
-    else:
-        absorption = band_values(free["mean_absorption"], "free_shape.mean_absorption", lo=0.0, hi=1.0,
-                                 hi_open=True, file=file)
-        surfaces = (Surface("average", surface, "mean_absorption", absorption),)
-    room = Room(
-        name=name, volume_m3=volume, surface_m2=surface, surfaces=surfaces, dimensions_m=None,
-        rt60_measured_s=rt60, temperature_c=temperature_c, humidity_pct=humidity_pct, source_file=file,
-        description=description,
-    )
-    return room
-
-
-def _check_room_absorbs(room: Room, file: str | None) -> Room:
-    """A room with no absorption at all in some band has an infinite RT60: refuse it."""
-    if room.rt60_measured_s is not None:
-        return room
-    for b, f in enumerate(OCTAVE_BANDS_HZ):
-        if sum(s.area_m2 * s.absorption[b] for s in room.surfaces) <= 0.0:
-            raise _InputError(
-                f"the room absorbs nothing in the {f:g} Hz band (every absorption coefficient is 0), "
-                "so its reverberation time is infinite; expected some absorption > 0",
-                file=file, key="surfaces" if room.is_shoebox else "free_shape.mean_absorption",
-            )
-    return room
-
-
-def load_room(path: str | _os.PathLike) -> Room:
-    """Load and validate a room file (see ``docs/file-formats.md``).
-
-    Returns a frozen :class:`Room`; raises only :class:`howl.errors.InputError`.
-    """
-    p = _Path(path)
-    try:
-        data = _read_toml(p)
-        room = _room_from_dict(data, file=str(p), default_name=p.stem)
-        return _check_room_absorbs(room, str(p))
-    except _InputError as exc:
-        raise _one_line(exc) from None
-
-
-def _one_line(exc: _InputError) -> _InputError:
-    """The same error with any control character in its parts escaped, so it prints as one line."""
-    parts = [exc.message, exc.file, exc.key]
-    if all(x is None or _printable(x) == x for x in parts):
-        return exc
-    return _InputError(_printable(exc.message), file=None if exc.file is None else _printable(exc.file),
-                       key=None if exc.key is None else _printable(exc.key))
+from howl.model._tomlkeys import (  # noqa: E402,F401  (the shared table checks; some re-exported)
+    MAX_BLOCKS, MAX_NAME_CHARS, _boolean, _known_keys, _list_of_tables, _name, _one_line, _printable, _require,
+    _resolve_file, _size, _table, _text, _unique, _unknown_name,
+)
+from howl.model._roomfile import (  # noqa: E402,F401  (re-exported: the room loader lives there)
+    FREE_SHAPE_KEYS, PATCH_KEYS, ROOM_KEYS, SHOEBOX_KEYS, load_room,
+)
 
 
 # --------------------------------------------------------------------------- rig ----
@@ -640,9 +338,3 @@ def _load_rig(p: _Path) -> Rig:
 def bundled_rig_path() -> _Path:
     """The example rig shipped inside the package (a lectern in the stone chapel)."""
     return _Path(__file__).resolve().parents[1] / "data" / "examples" / "chapel_lectern.toml"
-
-
-def _printable(text: _Any) -> str:
-    """The assignment as the user typed it, with control characters escaped (keeps errors on one line)."""
-    s = str(text)
-    return s if s.isprintable() else s.encode("unicode_escape").decode("ascii")

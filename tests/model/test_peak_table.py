@@ -10,8 +10,10 @@ from howl.model import plan as pl
 
 
 def test_the_shipped_table_is_what_scipy_builds():
-    # reference: scipy.special.chndtr/chndtrix and scipy.integrate.simpson (build_table), rebuilt here
-    assert np.array_equal(pt.table(), pt.build_table())
+    # reference: scipy.special.chndtr/chndtrix and scipy.integrate.simpson (build_table), rebuilt here.
+    # Not bit for bit: scipy's special functions differ in the last digits between releases (seen: 1.3e-9 dB
+    # with scipy 1.17); 1e-6 dB is far below the 0.01 dB the plan prints.
+    np.testing.assert_allclose(pt.table(), pt.build_table(), rtol=0, atol=1e-6)
 
 
 def test_the_table_uses_the_plan_spread_quantiles():

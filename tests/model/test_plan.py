@@ -367,14 +367,9 @@ def test_plan_cli_prints_tables_and_bands():
     assert "PAG" in res.output and "Per band" in res.output
 
 
-def test_plan_cli_refuses_a_bad_fraction_and_a_missing_images_method(monkeypatch):
+def test_plan_cli_refuses_a_bad_fraction():
     res = runner.invoke(app, ["plan", "--fraction", "5"])
     assert res.exit_code == 2 and "--fraction" in res.output
-    import howl.model.images
-
-    monkeypatch.delattr(howl.model.images, "plan_with_images", raising=False)
-    res = runner.invoke(app, ["plan", "--method", "images"])
-    assert res.exit_code == 2 and "unavailable" in res.output
 
 
 def test_a_mic_given_by_a_polar_table_plans_like_the_pattern_it_samples(tmp_path):
