@@ -186,7 +186,10 @@ def _refine_loci(ev_at: "_MatrixLoop", a, b, za, zb, max_iter: int = 40):
         ev, V = np.linalg.eig(Lm)
         k = np.argmin(np.abs(ev - z[idx, None]), axis=1)
         lam = ev[np.arange(idx.size), k]
-        W = np.linalg.inv(V)
+        try:
+            W = np.linalg.inv(V)
+        except np.linalg.LinAlgError:  # a rank-deficient loop (more mics than paths): the zero eigenvalues'
+            W = np.linalg.pinv(V)      # eigenvectors coincide; the tracked eigenvalue's left vector is still defined
         w = W[np.arange(idx.size), k, :]
         v = V[np.arange(idx.size), :, k]
         dlam = np.einsum("mi,mij,mj->m", w, dL, v)
